@@ -1,0 +1,75 @@
+/**
+ * One error hierarchy for the whole project. Every message carries context (which field, which
+ * column, which limit) but never a data value read from a sealed dataset.
+ */
+export type HushErrorKind =
+  | "bad-input" // a caller passed something malformed (plan, parameter, file)
+  | "policy" // the steward's policy file is invalid
+  | "over-cap" // the release would cross the privacy-loss cap
+  | "unauthorized" // unknown analyst or bad token
+  | "unknown-dataset"
+  | "protocol" // a malformed or oversized frame, wrong protocol version
+  | "unreachable" // the curator could not be reached
+  | "internal";
+
+export class HushError extends Error {
+  readonly kind: HushErrorKind;
+  constructor(kind: HushErrorKind, message: string, options?: { cause?: unknown }) {
+    super(message, options);
+    this.kind = kind;
+    this.name = "HushError";
+  }
+}
+
+export class BadInputError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("bad-input", message, options);
+    this.name = "BadInputError";
+  }
+}
+
+export class PolicyError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("policy", message, options);
+    this.name = "PolicyError";
+  }
+}
+
+export class OverCapError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("over-cap", message, options);
+    this.name = "OverCapError";
+  }
+}
+
+export class UnauthorizedError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("unauthorized", message, options);
+    this.name = "UnauthorizedError";
+  }
+}
+
+export class UnknownDatasetError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("unknown-dataset", message, options);
+    this.name = "UnknownDatasetError";
+  }
+}
+
+export class ProtocolError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("protocol", message, options);
+    this.name = "ProtocolError";
+  }
+}
+
+export class UnreachableError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("unreachable", message, options);
+    this.name = "UnreachableError";
+  }
+}
+
+export function isHushError(e: unknown): e is HushError {
+  return e instanceof HushError;
+}
