@@ -145,6 +145,8 @@ export interface Receipt {
   cost: string;
   total: string;
   cap: string;
+  /** zCDP datasets only: the delta at which the cap was stated (exact decimal). */
+  delta?: string;
   /** The released rows as signed: [key, stat, column, value, low, high]. */
   result: [(string | null)[], string, string | null, string | null, string | null, string | null][];
   /** Bounds and mechanisms, enough for a reviewer to recompute the sensitivity. */
@@ -236,6 +238,14 @@ export type ResponseBody =
   | { op: "preview"; preview: Preview }
   | { op: "spend"; spend: SpendSummary }
   | { op: "ledger"; entries: LedgerEntry[] };
+
+/** Where a release's receipt travels in a notebook: `output.metadata[OUTPUT_METADATA_KEY]`. */
+export const OUTPUT_METADATA_KEY = "hush" as const;
+export interface OutputMetadata {
+  receipt: Receipt;
+  replay: boolean;
+  dataset: string;
+}
 
 export type Response =
   | { v: typeof PROTOCOL_VERSION; id: string; ok: true; body: ResponseBody }
