@@ -1,0 +1,348 @@
+/**
+ * The steward's policy file (YAML): which datasets exist, their public schema, the privacy unit,
+ * the privacy-loss cap, and who may ask. The format is documented in DEVELOPERS.md.
+ *
+ * Every error names the file, the path inside it (e.g. `datasets.visits.columns.age.range`) and
+ * what is wrong. Relative paths are resolved against the policy file's directory.
+ */
+import { readFileSync } from "node:fs";
+import { dirname, extname, isAbsolute, resolve } from "node:path";
+import { parse as parseYaml } from "yaml";
+import { z } from "zod";
+import { PolicyError } from "../errors.js";
+import { type Grid, Rational, makeGrid, rhoFromEpsilonDelta } from "../core/index.js";
+import { parseTokenHash } from "./tokens.js";
+
+export type ColumnPolicy =
+  | {
+      name: string;
+      /** Column name in the source file (defaults to `name`). */
+      from: string;
+      type: "integer" | "number";
+      lower: string;
+      upper: string;
+      step: string;
+      grid: Grid;
+    }
+  | { name: string; from: string; type: "category"; values: string[] }
+  | { name: string; from: string; type: "date"; lower: string; upper: string }
+  | { name: string; from: string; type: "boolean" };
+
+export type AccountingPolicy =
+  | { mode: "pure"; capEpsilon: Rational }
+  | { mode: "zcdp"; capEpsilon: Rational; delta: Rational; capRho: Rational };
+
+export interface DatasetPolicy {
+  name: string;
+  description: string;
+  /** Absolute path of the data file. */
+  source: string;
+  format: "csv" | "parquet";
+  /** column null: each row is its own unit (then maxRows = maxGroups = 1). */
+  unit: { column: string | null; maxRows: number; maxGroups: number };
+  accounting: AccountingPolicy;
+  analysts: string[];
+  columns: ColumnPolicy[];
+}
+
+export interface LoadedPolicy {
+  file: string;
+  dir: string;
+  keyPath: string;
+  ledgerPath: string;
+  analysts: Map<string, { tokenHash: string }>;
+  datasets: Map<string, DatasetPolicy>;
+}
+
+/** Largest grid: (upper - lower)/step. Keeps squares of centred grid units inside SQL BIGINT. */
+export const MAX_GRID_POINTS = 2 ** 30;
+export const MAX_CATEGORY_VALUES = 1000;
+export const MAX_ROWS_PER_UNIT = 10000;
+
+const NAME = /^[A-Za-z][A-Za-z0-9_-]{0,63}$/;
+const ISO_DATE = /^(\d{4})-(\d{2})-(\d{2})$/;
+
+// ---- raw shapes (zod) ------------------------------------------------------------------------
+
+const scalar = z.union([z.string(), z.number()], { error: "must be a number or a decimal string" });
+
+const columnSchema = z.discriminatedUnion(
+  "type",
+  [
+    z.strictObject({
+      type: z.literal(["integer", "number"]),
+      range: z.tuple([scalar, scalar], { error: "must be [lower, upper]" }),
+      step: scalar.optional(),
+      from: z.string().min(1).optional(),
+    }),
+    z.strictObject({
+      type: z.literal("category"),
+      values: z
+        .array(z.union([z.string(), z.number(), z.boolean()]), { error: "must be a list of values" })
+        .min(1, { message: "must list at least one value" })
+        .max(MAX_CATEGORY_VALUES, { message: `must list at most ${MAX_CATEGORY_VALUES} values` }),
+      from: z.string().min(1).optional(),
+    }),
+    z.strictObject({
+      type: z.literal("date"),
+      range: z.tuple([z.union([z.string(), z.date()]), z.union([z.string(), z.date()])], {
+        error: "must be [\"YYYY-MM-DD\", \"YYYY-MM-DD\"]",
+      }),
+      from: z.string().min(1).optional(),
+    }),
+    z.strictObject({ type: z.literal("boolean"), from: z.string().min(1).optional() }),
+  ],
+  { error: "must have type integer, number, category, date or boolean" },
+);
+
+const exact = z.union([z.string(), z.number()], { error: "must be an exact number, e.g. \"1\" or \"1e-6\"" });
+
+const datasetSchema = z.strictObject({
+  description: z.string({ error: "must be a string" }).default(""),
+  source: z.string({ error: "must be a path to a .csv or .parquet file" }).min(1),
+  format: z.literal(["csv", "parquet"], { error: "must be csv or parquet" }).optional(),
+  unit: z
+    .strictObject({
+      column: z.string().min(1).nullable().optional(),
+      maxRows: z.number().int({ message: "must be a whole number" }).min(1).max(MAX_ROWS_PER_UNIT).optional(),
+      maxGroups: z.number().int({ message: "must be a whole number" }).min(1).max(MAX_ROWS_PER_UNIT).optional(),
+    })
+    .optional(),
+  accounting: z.discriminatedUnion(
+    "mode",
+    [
+      z.strictObject({ mode: z.literal("pure"), cap: z.strictObject({ epsilon: exact }) }),
+      z.strictObject({ mode: z.literal("zcdp"), cap: z.strictObject({ epsilon: exact, delta: exact }) }),
+    ],
+    { error: "must be { mode: pure, cap: { epsilon } } or { mode: zcdp, cap: { epsilon, delta } }" },
+  ),
+  analysts: z.array(z.string(), { error: "must be a list of analyst names" }).default([]),
+  columns: z.record(z.string(), columnSchema, { error: "must map column names to column declarations" }),
+});
+
+const fileSchema = z.strictObject({
+  curator: z
+    .strictObject({ key: z.string().min(1).optional(), ledger: z.string().min(1).optional() })
+    .optional(),
+  analysts: z
+    .record(z.string(), z.strictObject({ token: z.string({ error: "must be a token hash made by `hush token`" }) }))
+    .default({}),
+  datasets: z.record(z.string(), datasetSchema, { error: "must map dataset names to dataset declarations" }),
+});
+
+// ---- helpers ---------------------------------------------------------------------------------
+
+function pathOf(parts: readonly PropertyKey[]): string {
+  let out = "";
+  for (const p of parts) out += typeof p === "number" ? `[${p}]` : `${out === "" ? "" : "."}${String(p)}`;
+  return out === "" ? "(top level)" : out;
+}
+
+function fail(file: string, path: string, what: string): never {
+  throw new PolicyError(`policy ${file}: ${path}: ${what}`);
+}
+
+function exactOf(file: string, path: string, v: string | number, what: string): Rational {
+  try {
+    return Rational.parse(typeof v === "number" ? String(v) : v);
+  } catch {
+    return fail(file, path, `${what} must be an exact number such as "0.5", "1e-6" or "1/3"`);
+  }
+}
+
+/** Exact decimal string of a rational that has a finite decimal expansion, else null. */
+function finiteDecimal(r: Rational): string | null {
+  let d = r.den;
+  while (d % 2n === 0n) d /= 2n;
+  while (d % 5n === 0n) d /= 5n;
+  return d === 1n ? r.toDecimal(1000) : null;
+}
+
+function isoDate(file: string, path: string, v: string | Date): string {
+  const s = v instanceof Date ? v.toISOString().slice(0, 10) : v;
+  const m = ISO_DATE.exec(s);
+  if (m) {
+    const d = new Date(`${s}T00:00:00Z`);
+    if (!Number.isNaN(d.getTime()) && d.toISOString().slice(0, 10) === s) return s;
+  }
+  return fail(file, path, "must be a calendar date written YYYY-MM-DD");
+}
+
+function numericColumn(
+  file: string,
+  path: string,
+  name: string,
+  raw: { type: "integer" | "number"; range: [string | number, string | number]; step?: string | number; from?: string },
+): ColumnPolicy {
+  const lower = exactOf(file, `${path}.range[0]`, raw.range[0], "the lower bound");
+  const upper = exactOf(file, `${path}.range[1]`, raw.range[1], "the upper bound");
+  if (!lower.lt(upper)) fail(file, `${path}.range`, "lower bound must be below the upper bound");
+  if (raw.step === undefined && raw.type === "number") fail(file, `${path}.step`, "a number column needs a step (the grid spacing), e.g. \"0.01\"");
+  const step = raw.step === undefined ? Rational.ONE : exactOf(file, `${path}.step`, raw.step, "the step");
+  if (step.sign() <= 0) fail(file, `${path}.step`, "must be positive");
+  if (raw.type === "integer" && step.den !== 1n) fail(file, `${path}.step`, "an integer column needs a whole-number step");
+  const lu = lower.div(step);
+  const uu = upper.div(step);
+  if (lu.den !== 1n || uu.den !== 1n) fail(file, `${path}.range`, "both bounds must be multiples of the step");
+  if (uu.num - lu.num > BigInt(MAX_GRID_POINTS)) {
+    fail(file, `${path}.step`, `the range holds more than 2^30 grid points; choose a coarser step`);
+  }
+  const max = lu.num < 0n ? -lu.num : lu.num;
+  const maxU = uu.num < 0n ? -uu.num : uu.num;
+  if ((max > maxU ? max : maxU) > BigInt(MAX_GRID_POINTS) * 2n) {
+    fail(file, `${path}.range`, "bounds are too far from zero for this step (at most 2^31 steps); choose a coarser step");
+  }
+  const ls = finiteDecimal(lower);
+  const us = finiteDecimal(upper);
+  const ss = finiteDecimal(step);
+  if (ls === null || us === null || ss === null) fail(file, path, "bounds and step must be finite decimals");
+  let grid: Grid;
+  try {
+    grid = makeGrid({ lower: ls, upper: us, step: ss });
+  } catch (e) {
+    return fail(file, path, `invalid grid (${e instanceof Error ? e.message : String(e)})`);
+  }
+  return { name, from: raw.from ?? name, type: raw.type, lower: ls, upper: us, step: ss, grid };
+}
+
+// ---- entry points ----------------------------------------------------------------------------
+
+export function loadPolicy(file: string): LoadedPolicy {
+  const abs = resolve(file);
+  let text: string;
+  try {
+    text = readFileSync(abs, "utf8");
+  } catch (e) {
+    const code = e !== null && typeof e === "object" && "code" in e ? String((e as { code: unknown }).code) : "error";
+    throw new PolicyError(`policy ${abs}: cannot be read (${code})`);
+  }
+  return parsePolicy(text, abs);
+}
+
+export function parsePolicy(text: string, file: string): LoadedPolicy {
+  const abs = resolve(file);
+  const dir = dirname(abs);
+  let doc: unknown;
+  try {
+    doc = parseYaml(text, { prettyErrors: true, maxAliasCount: 100 });
+  } catch (e) {
+    const line = e !== null && typeof e === "object" && "linePos" in e ? (e as { linePos?: { line: number }[] }).linePos?.[0]?.line : undefined;
+    throw new PolicyError(`policy ${abs}: not valid YAML${line === undefined ? "" : ` (line ${line})`}`);
+  }
+  if (doc === null || typeof doc !== "object" || Array.isArray(doc)) fail(abs, "(top level)", "must be a mapping with curator, analysts and datasets");
+  const parsed = fileSchema.safeParse(doc);
+  if (!parsed.success) {
+    const issue = parsed.error.issues[0];
+    const msg = issue.code === "unrecognized_keys" ? `unknown key ${issue.keys.map((k) => JSON.stringify(k)).join(", ")}` : issue.message;
+    fail(abs, pathOf(issue.path), msg);
+  }
+  const raw = parsed.data;
+  const at = (p: string) => (isAbsolute(p) ? p : resolve(dir, p));
+
+  const analysts = new Map<string, { tokenHash: string }>();
+  for (const [name, a] of Object.entries(raw.analysts)) {
+    if (!NAME.test(name)) fail(abs, `analysts.${name}`, "analyst names use letters, digits, - and _ (at most 64, starting with a letter)");
+    if (parseTokenHash(a.token) === null) fail(abs, `analysts.${name}.token`, "is not a token hash made by `hush token` (scrypt$N$r$p$salt$hash)");
+    analysts.set(name, { tokenHash: a.token });
+  }
+
+  const datasets = new Map<string, DatasetPolicy>();
+  for (const [dname, d] of Object.entries(raw.datasets)) {
+    const dp = `datasets.${dname}`;
+    if (!NAME.test(dname)) fail(abs, dp, "dataset names use letters, digits, - and _ (at most 64, starting with a letter)");
+    const source = at(d.source);
+    const ext = extname(source).toLowerCase();
+    const format = d.format ?? (ext === ".csv" ? "csv" : ext === ".parquet" || ext === ".pq" ? "parquet" : undefined);
+    if (format === undefined) fail(abs, `${dp}.source`, "must end in .csv or .parquet (or give format: csv|parquet)");
+
+    const columns: ColumnPolicy[] = [];
+    const sourceNames = new Set<string>();
+    for (const [cname, c] of Object.entries(d.columns)) {
+      const cp = `${dp}.columns.${cname}`;
+      if (cname.length === 0 || cname.length > 64 || cname.startsWith("__") || /[\u0000-\u001f"]/.test(cname)) {
+        fail(abs, cp, "column names are 1-64 characters, without quotes or control characters, not starting with __");
+      }
+      const from = c.from ?? cname;
+      if (sourceNames.has(from)) fail(abs, `${cp}.from`, "two columns read the same source column");
+      sourceNames.add(from);
+      if (c.type === "integer" || c.type === "number") {
+        columns.push(numericColumn(abs, cp, cname, c as Parameters<typeof numericColumn>[3]));
+      } else if (c.type === "category") {
+        const values = c.values.map((v) => String(v));
+        if (new Set(values).size !== values.length) fail(abs, `${cp}.values`, "lists a value twice");
+        if (values.some((v) => v.length === 0 || v.length > 200)) fail(abs, `${cp}.values`, "values must be 1-200 characters");
+        columns.push({ name: cname, from, type: "category", values });
+      } else if (c.type === "date") {
+        const lower = isoDate(abs, `${cp}.range[0]`, c.range[0]);
+        const upper = isoDate(abs, `${cp}.range[1]`, c.range[1]);
+        if (lower > upper) fail(abs, `${cp}.range`, "the first date must not be after the second");
+        columns.push({ name: cname, from, type: "date", lower, upper });
+      } else {
+        columns.push({ name: cname, from, type: "boolean" });
+      }
+    }
+    if (columns.length === 0) fail(abs, `${dp}.columns`, "must declare at least one column");
+
+    const u = d.unit ?? {};
+    const unitColumn = u.column ?? null;
+    let maxRows = 1;
+    let maxGroups = 1;
+    if (unitColumn === null) {
+      if ((u.maxRows ?? 1) !== 1 || (u.maxGroups ?? 1) !== 1) {
+        fail(abs, `${dp}.unit`, "without a unit column each row is its own unit, so maxRows and maxGroups must be 1 (or left out)");
+      }
+    } else {
+      if (columns.some((c) => c.name === unitColumn || c.from === unitColumn)) {
+        fail(abs, `${dp}.unit.column`, "the unit column must not also be a public column");
+      }
+      if (u.maxRows === undefined) fail(abs, `${dp}.unit.maxRows`, "is required when a unit column is given (largest number of rows kept per unit)");
+      maxRows = u.maxRows;
+      maxGroups = u.maxGroups ?? maxRows;
+      if (maxGroups > maxRows) fail(abs, `${dp}.unit.maxGroups`, "must not exceed maxRows");
+    }
+
+    const acc = d.accounting;
+    const capEpsilon = exactOf(abs, `${dp}.accounting.cap.epsilon`, acc.cap.epsilon, "the epsilon cap");
+    if (capEpsilon.sign() <= 0) fail(abs, `${dp}.accounting.cap.epsilon`, "must be positive");
+    let accounting: AccountingPolicy;
+    if (acc.mode === "pure") {
+      accounting = { mode: "pure", capEpsilon };
+    } else {
+      const delta = exactOf(abs, `${dp}.accounting.cap.delta`, acc.cap.delta, "delta");
+      if (delta.sign() <= 0 || !delta.lt(Rational.ONE)) fail(abs, `${dp}.accounting.cap.delta`, "must lie strictly between 0 and 1");
+      let capRho: Rational;
+      try {
+        capRho = rhoFromEpsilonDelta(capEpsilon, delta);
+      } catch (e) {
+        return fail(abs, `${dp}.accounting.cap`, `cannot convert to a rho cap (${e instanceof Error ? e.message : String(e)})`);
+      }
+      accounting = { mode: "zcdp", capEpsilon, delta, capRho };
+    }
+
+    const allowed: string[] = [];
+    d.analysts.forEach((a, i) => {
+      if (!analysts.has(a)) fail(abs, `${dp}.analysts[${i}]`, "names an analyst not listed under analysts");
+      if (!allowed.includes(a)) allowed.push(a);
+    });
+
+    datasets.set(dname, {
+      name: dname,
+      description: d.description,
+      source,
+      format,
+      unit: { column: unitColumn, maxRows, maxGroups },
+      accounting,
+      analysts: allowed,
+      columns,
+    });
+  }
+
+  return {
+    file: abs,
+    dir,
+    keyPath: at(raw.curator?.key ?? "keys/curator.key"),
+    ledgerPath: at(raw.curator?.ledger ?? "state/ledger.sqlite"),
+    analysts,
+    datasets,
+  };
+}
