@@ -1,8 +1,287 @@
-import type { Rational } from "./rational.js";
-import type { Bits } from "./random.js";
-const todo = (): never => {
-  throw new Error("not implemented yet");
-};
-export function sampleBernoulliExp(_gamma: Rational, _bits: Bits): boolean { return todo(); }
-export function sampleDiscreteLaplace(_scale: Rational, _bits: Bits): bigint { return todo(); }
-export function sampleDiscreteGaussian(_sigma2: Rational, _bits: Bits): bigint { return todo(); }
+/**
+ * Exact samplers for Bernoulli(exp(-gamma)), the discrete Laplace and the discrete Gaussian, after
+ * Canonne, Kamath & Steinke (2020), "The Discrete Gaussian for Differential Privacy", section on
+ * sampling (restated as algorithms A–D in methods.md §5). Only integer and rational arithmetic:
+ * every quantity is an integer held in a number while it stays below 2^53 (the fast path) and in a
+ * bigint otherwise. Both paths draw from the same distribution; the tests check each against the
+ * exact pmf.
+ */
+import { BadInputError } from "../errors.js";
+import { floorDiv, isqrt, Rational } from "./rational.js";
+import { Bits, MAX_SMALL } from "./random.js";
+
+const MAX_SAFE = Number.MAX_SAFE_INTEGER;
+
+// ---------------------------------------------------------------------------------------------
+// Bernoulli(exp(-gamma))
+// ---------------------------------------------------------------------------------------------
+
+/**
+ * Algorithm A for gamma = n/d in [0, 1] on numbers (0 <= n <= d <= 2^48).
+ * The K-th trial is Bernoulli(n/(d*K)), drawn as Bernoulli(n/d) AND Bernoulli(1/K) (independent, so
+ * the product has the same law) to keep every modulus below 2^48 however large K grows.
+ */
+function expFracSmall(n: number, d: number, bits: Bits): boolean {
+  let k = 1;
+  for (;;) {
+    if (!bits.bernoulliSmall(n, d)) break;
+    if (k > 1 && bits.uniformSmall(k) !== 0) break;
+    k++;
+  }
+  return (k & 1) === 1;
+}
+
+/** Bernoulli(exp(-1)) = algorithm A with gamma = 1: the K-th trial is Bernoulli(1/K). */
+function expMinusOne(bits: Bits): boolean {
+  let k = 2;
+  while (bits.uniformSmall(k) === 0) k++;
+  // The loop stops at the first failed trial K; return 1 iff K is odd (K = k here).
+  return (k & 1) === 1;
+}
+
+/** Algorithm A on bigints, gamma = n/d in [0, 1]. */
+function expFracBig(n: bigint, d: bigint, bits: Bits): boolean {
+  let k = 1;
+  for (;;) {
+    if (!bits.bernoulli(n, d)) break;
+    if (k > 1 && bits.uniformSmall(k) !== 0) break;
+    k++;
+  }
+  return (k & 1) === 1;
+}
+
+/** Algorithm B on numbers: gamma = n/d >= 0 with n < 2^53, 1 <= d <= 2^48. */
+function expSmall(n: number, d: number, bits: Bits): boolean {
+  let q = Math.floor(n / d);
+  let r = n - q * d;
+  // Correct the float quotient so that 0 <= r < d holds exactly.
+  while (r < 0) {
+    q--;
+    r += d;
+  }
+  while (r >= d) {
+    q++;
+    r -= d;
+  }
+  for (let i = 0; i < q; i++) if (!expMinusOne(bits)) return false;
+  return expFracSmall(r, d, bits);
+}
+
+/** Algorithm B on bigints. */
+function expBig(n: bigint, d: bigint, bits: Bits): boolean {
+  const q = n / d;
+  const r = n - q * d;
+  for (let i = 0n; i < q; i++) if (!expMinusOne(bits)) return false;
+  if (d <= BigInt(MAX_SMALL)) return expFracSmall(Number(r), Number(d), bits);
+  return expFracBig(r, d, bits);
+}
+
+/** Bernoulli(exp(-gamma)) for rational gamma >= 0 (CKS 2020; methods.md §5 algorithms A and B). */
+export function sampleBernoulliExp(gamma: Rational, bits: Bits): boolean {
+  if (gamma.sign() < 0) throw new BadInputError(`Bernoulli(exp(-gamma)) needs gamma >= 0, got ${gamma}`);
+  if (gamma.den <= BigInt(MAX_SMALL) && gamma.num <= BigInt(MAX_SAFE)) {
+    return expSmall(Number(gamma.num), Number(gamma.den), bits);
+  }
+  return expBig(gamma.num, gamma.den, bits);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Discrete Laplace, scale tn/td (algorithm C with t = tn, s = td)
+// ---------------------------------------------------------------------------------------------
+
+interface LaplacePlan {
+  small: boolean;
+  tn: number;
+  td: number;
+  tnBig: bigint;
+  tdBig: bigint;
+}
+
+function laplacePlan(scale: Rational): LaplacePlan {
+  if (scale.sign() <= 0) throw new BadInputError(`discrete Laplace scale must be positive, got ${scale}`);
+  const small = scale.num <= BigInt(MAX_SMALL) && scale.den <= BigInt(MAX_SAFE);
+  return {
+    small,
+    tn: small ? Number(scale.num) : 0,
+    td: small ? Number(scale.den) : 0,
+    tnBig: scale.num,
+    tdBig: scale.den,
+  };
+}
+
+/** Number path of algorithm C. Falls over to bigints for X only when X would pass 2^53. */
+function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
+  for (;;) {
+    const u = tn === 1 ? 0 : bits.uniformSmall(tn);
+    if (u !== 0 && !expFracSmall(u, tn, bits)) continue; // restart; exp(-0) = 1 needs no draw
+    let v = 0;
+    while (expMinusOne(bits)) v++;
+    const x = u + tn * v; // exact whenever the true value is <= MAX_SAFE (rounding is monotone)
+    if (x <= MAX_SAFE) {
+      let yn = td === 1 ? x : Math.floor(x / td);
+      if (td !== 1) {
+        // exact correction of the float quotient
+        while (yn * td > x) yn--;
+        while ((yn + 1) * td <= x) yn++;
+      }
+      if (yn === 0) {
+        if (bits.bit() === 1) continue; // B = 1 and Y = 0: avoid counting zero twice
+        return 0n;
+      }
+      return bits.bit() === 1 ? BigInt(-yn) : BigInt(yn);
+    }
+    const y = floorDiv(BigInt(u) + BigInt(tn) * BigInt(v), BigInt(td));
+    return bits.bit() === 1 ? -y : y; // y >= 2^53 / td > 0 here, so no zero case
+  }
+}
+
+/** Bigint path of algorithm C, a direct transcription. */
+function laplaceBig(tn: bigint, td: bigint, bits: Bits): bigint {
+  for (;;) {
+    const u = bits.uniformInt(tn);
+    if (u !== 0n && !expFracBig(u, tn, bits)) continue;
+    let v = 0n;
+    while (expMinusOne(bits)) v++;
+    const y = (u + tn * v) / td;
+    const b = bits.bit();
+    if (b === 1 && y === 0n) continue;
+    return b === 1 ? -y : y;
+  }
+}
+
+let lastScale: Rational | null = null;
+let lastLaplace: LaplacePlan | null = null;
+
+/** Discrete Laplace: P(y) proportional to exp(-|y|/scale), scale a positive rational. */
+export function sampleDiscreteLaplace(scale: Rational, bits: Bits): bigint {
+  let plan: LaplacePlan;
+  if (scale === lastScale && lastLaplace !== null) plan = lastLaplace;
+  else {
+    plan = laplacePlan(scale);
+    lastScale = scale;
+    lastLaplace = plan;
+  }
+  return plan.small ? laplaceSmall(plan.tn, plan.td, bits) : laplaceBig(plan.tnBig, plan.tdBig, bits);
+}
+
+/** The bigint-only transcription of algorithm C, exported so tests can check it separately. */
+export function sampleDiscreteLaplaceBig(scale: Rational, bits: Bits): bigint {
+  const p = laplacePlan(scale);
+  return laplaceBig(p.tnBig, p.tdBig, bits);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Discrete Gaussian, sigma^2 = a/b (algorithm D)
+// ---------------------------------------------------------------------------------------------
+
+/**
+ * Proposal scale. CKS take t = floor(sigma) + 1; any t > 0 is correct, because the accept step
+ * divides target by proposal: exp(-y^2/(2 s)) / exp(-|y|/t) = exp(-(|y| - s/t)^2/(2 s)) * exp(s/(2t^2)),
+ * and the constant factor cancels. For sigma >= 1 we take t = s/m with m = floor(sigma), so that
+ * s/t = m is an integer and gamma = (|Y| - m)^2 * b / (2a) keeps the small denominator 2a instead
+ * of 2 a b t^2 (this keeps sigma = 10^4 on the number path). For sigma < 1 we keep CKS's t = 1,
+ * gamma = (|Y| b - a)^2 / (2ab). Both choices give t within a factor of ~2 of sigma, so the
+ * expected number of proposals stays small (CKS's running-time analysis).
+ */
+interface GaussPlan {
+  a: bigint;
+  b: bigint;
+  wide: boolean; // sigma >= 1: gamma = (|Y| - m)^2 b / (2a); else gamma = (|Y| b - a)^2 / (2ab)
+  m: bigint;
+  lap: LaplacePlan;
+  gNum: bigint; // multiplier of the squared term in gamma's numerator
+  gDen: bigint; // gamma's denominator
+  small: boolean; // gamma's denominator and the parameters fit the number path
+  mN: number;
+  aN: number;
+  bN: number;
+  gDenN: number;
+}
+
+function gaussPlan(sigma2: Rational): GaussPlan {
+  if (sigma2.sign() <= 0) throw new BadInputError(`discrete Gaussian variance sigma^2 must be positive, got ${sigma2}`);
+  const a = sigma2.num;
+  const b = sigma2.den;
+  const m = isqrt(a / b);
+  const wide = m >= 1n;
+  const lap = laplacePlan(wide ? Rational.of(a, b * m) : Rational.ONE);
+  const gNum = wide ? b : 1n;
+  const gDen = wide ? 2n * a : 2n * a * b;
+  const small = lap.small && gDen <= BigInt(MAX_SMALL) && gNum <= BigInt(MAX_SMALL) && a <= BigInt(MAX_SMALL) && m <= BigInt(MAX_SMALL);
+  return {
+    a,
+    b,
+    wide,
+    m,
+    lap,
+    gNum,
+    gDen,
+    small,
+    mN: Number(m),
+    aN: Number(a),
+    bN: Number(b),
+    gDenN: Number(gDen),
+  };
+}
+
+function gaussSmall(p: GaussPlan, bits: Bits): bigint {
+  for (;;) {
+    const y = p.lap.small ? laplaceSmall(p.lap.tn, p.lap.td, bits) : laplaceBig(p.lap.tnBig, p.lap.tdBig, bits);
+    const ay = y < 0n ? -y : y;
+    if (ay <= 94906265n) {
+      // gamma's numerator on numbers when every product stays below 2^53 (94906265^2 < 2^53)
+      const yn = Number(ay);
+      let n = -1;
+      if (p.wide) {
+        const d = Math.abs(yn - p.mN);
+        if (d <= 94906265) {
+          const t = d * d * p.bN;
+          if (t <= MAX_SAFE) n = t;
+        }
+      } else {
+        const yb = yn * p.bN;
+        if (yb <= MAX_SAFE) {
+          const d = Math.abs(yb - p.aN);
+          if (d <= 94906265) n = d * d;
+        }
+      }
+      if (n >= 0) {
+        if (expSmall(n, p.gDenN, bits)) return y;
+        continue;
+      }
+    }
+    if (gaussAcceptBig(p, ay, bits)) return y;
+  }
+}
+
+function gaussAcceptBig(p: GaussPlan, ay: bigint, bits: Bits): boolean {
+  const diff = p.wide ? ay - p.m : ay * p.b - p.a;
+  return expBig(diff * diff * p.gNum, p.gDen, bits);
+}
+
+function gaussBig(p: GaussPlan, bits: Bits): bigint {
+  for (;;) {
+    const y = laplaceBig(p.lap.tnBig, p.lap.tdBig, bits);
+    if (gaussAcceptBig(p, y < 0n ? -y : y, bits)) return y;
+  }
+}
+
+let lastSigma2: Rational | null = null;
+let lastGauss: GaussPlan | null = null;
+
+/** Discrete Gaussian N_Z(0, sigma2): P(x) proportional to exp(-x^2/(2 sigma2)), sigma2 a positive rational. */
+export function sampleDiscreteGaussian(sigma2: Rational, bits: Bits): bigint {
+  let plan: GaussPlan;
+  if (sigma2 === lastSigma2 && lastGauss !== null) plan = lastGauss;
+  else {
+    plan = gaussPlan(sigma2);
+    lastSigma2 = sigma2;
+    lastGauss = plan;
+  }
+  return plan.small ? gaussSmall(plan, bits) : gaussBig(plan, bits);
+}
+
+/** Bigint-only path of algorithm D, exported so tests can check it separately. */
+export function sampleDiscreteGaussianBig(sigma2: Rational, bits: Bits): bigint {
+  return gaussBig(gaussPlan(sigma2), bits);
+}
