@@ -1,0 +1,56 @@
+/**
+ * Turns a curator error reply back into the matching HushError subclass, so a cell sees the same
+ * error class whether the problem was found locally or by the curator.
+ */
+import {
+  BadInputError,
+  HushError,
+  OverCapError,
+  PolicyError,
+  ProtocolError,
+  UnauthorizedError,
+  UnknownDatasetError,
+  UnreachableError,
+  type HushErrorKind,
+} from "../errors.js";
+import type { SpendSummary } from "../protocol/messages.js";
+
+/** An over-cap error from the curator carries the spend summary at the time of refusal. */
+export type OverCapWithSpend = OverCapError & { spend?: SpendSummary };
+
+const KNOWN: ReadonlySet<string> = new Set<HushErrorKind>([
+  "bad-input",
+  "policy",
+  "over-cap",
+  "unauthorized",
+  "unknown-dataset",
+  "protocol",
+  "unreachable",
+  "internal",
+]);
+
+export function errorFromWire(error: { kind: string; message: string; spend?: SpendSummary }): HushError {
+  const message = typeof error.message === "string" ? error.message : "error without a message";
+  const kind = KNOWN.has(error.kind) ? (error.kind as HushErrorKind) : "internal";
+  switch (kind) {
+    case "bad-input":
+      return new BadInputError(message);
+    case "policy":
+      return new PolicyError(message);
+    case "over-cap": {
+      const e: OverCapWithSpend = new OverCapError(message);
+      if (error.spend !== undefined) e.spend = error.spend;
+      return e;
+    }
+    case "unauthorized":
+      return new UnauthorizedError(message);
+    case "unknown-dataset":
+      return new UnknownDatasetError(message);
+    case "protocol":
+      return new ProtocolError(message);
+    case "unreachable":
+      return new UnreachableError(message);
+    case "internal":
+      return new HushError("internal", message);
+  }
+}

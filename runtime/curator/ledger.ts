@@ -1,0 +1,220 @@
+/**
+ * The durable spend ledger: one SQLite row per release (better-sqlite3, WAL, synchronous=FULL).
+ *
+ * The ledger, not any in-memory counter, is the source of truth for spend: two curator processes
+ * may share one ledger file (two notebooks each starting an embedded curator on the same policy),
+ * so the replay lookup, the cap check and the insert happen in one BEGIN IMMEDIATE transaction,
+ * which holds SQLite's write lock from the first read. Amounts are exact rationals stored as text.
+ */
+import Database from "better-sqlite3";
+import { chmodSync, existsSync, mkdirSync } from "node:fs";
+import { dirname } from "node:path";
+import { Rational } from "../core/index.js";
+import { PolicyError } from "../errors.js";
+import type { QueryPlan, Receipt, Release } from "../protocol/messages.js";
+import { GENESIS_PREV, receiptHash } from "../protocol/receipts.js";
+
+const SCHEMA_VERSION = "1";
+
+export interface LedgerRow {
+  analyst: string;
+  dataset: string;
+  seq: number;
+  digest: string;
+  plan: QueryPlan;
+  /** Exact rationals in the dataset's accounting unit. */
+  cost: string;
+  total: string;
+  /** The release as first sent (its `replay` is false, its `spend` the spend right after it). */
+  release: Release;
+  receipt: Receipt;
+  issuedAt: string;
+}
+
+/** What a new row is built from: the chain position the transaction found. */
+export interface DebitContext {
+  seq: number;
+  prev: string;
+  /** Running total after this release. */
+  total: Rational;
+  issuedAt: string;
+}
+
+export type DebitOutcome =
+  | { kind: "new"; row: LedgerRow }
+  | { kind: "replay"; row: LedgerRow }
+  | { kind: "over-cap"; spent: Rational; releases: number };
+
+interface RawRow {
+  analyst: string;
+  dataset: string;
+  seq: number;
+  digest: string;
+  plan: string;
+  cost: string;
+  total: string;
+  release: string;
+  receipt: string;
+  issued_at: string;
+}
+
+function fromRaw(r: RawRow): LedgerRow {
+  return {
+    analyst: r.analyst,
+    dataset: r.dataset,
+    seq: r.seq,
+    digest: r.digest,
+    plan: JSON.parse(r.plan) as QueryPlan,
+    cost: r.cost,
+    total: r.total,
+    release: JSON.parse(r.release) as Release,
+    receipt: JSON.parse(r.receipt) as Receipt,
+    issuedAt: r.issued_at,
+  };
+}
+
+export class Ledger {
+  private constructor(private readonly db: Database.Database) {}
+
+  static open(path: string): Ledger {
+    const fresh = !existsSync(path);
+    if (fresh) mkdirSync(dirname(path), { recursive: true, mode: 0o700 });
+    let db: Database.Database;
+    try {
+      db = new Database(path);
+    } catch (e: unknown) {
+      throw new PolicyError(`ledger ${path} cannot be opened`, { cause: e });
+    }
+    if (fresh) chmodSync(path, 0o600);
+    db.pragma("journal_mode = WAL");
+    // FULL: a committed release survives power loss, so a released answer is never un-debited.
+    db.pragma("synchronous = FULL");
+    // Another curator process on the same file may hold the write lock for one short transaction.
+    db.pragma("busy_timeout = 10000");
+    db.exec(`
+      CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+      CREATE TABLE IF NOT EXISTS releases (
+        analyst TEXT NOT NULL,
+        dataset TEXT NOT NULL,
+        seq INTEGER NOT NULL,
+        digest TEXT NOT NULL,
+        plan TEXT NOT NULL,
+        cost TEXT NOT NULL,
+        total TEXT NOT NULL,
+        release TEXT NOT NULL,
+        receipt TEXT NOT NULL,
+        receipt_hash TEXT NOT NULL,
+        issued_at TEXT NOT NULL,
+        PRIMARY KEY (analyst, dataset, seq),
+        UNIQUE (analyst, dataset, digest)
+      );
+    `);
+    const version = db.prepare("SELECT value FROM meta WHERE key = 'schema'").get() as { value: string } | undefined;
+    if (version === undefined) db.prepare("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema', ?)").run(SCHEMA_VERSION);
+    else if (version.value !== SCHEMA_VERSION) {
+      db.close();
+      throw new PolicyError(`ledger ${path} has schema version ${version.value}; this curator reads version ${SCHEMA_VERSION}`);
+    }
+    return new Ledger(db);
+  }
+
+  close(): void {
+    if (this.db.open) this.db.close();
+  }
+
+  private last(analyst: string, dataset: string): { seq: number; total: string; receipt_hash: string } | undefined {
+    return this.db
+      .prepare("SELECT seq, total, receipt_hash FROM releases WHERE analyst = ? AND dataset = ? ORDER BY seq DESC LIMIT 1")
+      .get(analyst, dataset) as { seq: number; total: string; receipt_hash: string } | undefined;
+  }
+
+  /** Spend so far for one analyst on one dataset, in the dataset's accounting unit. */
+  spent(analyst: string, dataset: string): { spent: Rational; releases: number } {
+    const last = this.last(analyst, dataset);
+    return last === undefined ? { spent: Rational.ZERO, releases: 0 } : { spent: Rational.parse(last.total), releases: last.seq };
+  }
+
+  find(analyst: string, dataset: string, digest: string): LedgerRow | null {
+    const r = this.db
+      .prepare("SELECT * FROM releases WHERE analyst = ? AND dataset = ? AND digest = ?")
+      .get(analyst, dataset, digest) as RawRow | undefined;
+    return r === undefined ? null : fromRaw(r);
+  }
+
+  /** All rows of one analyst (optionally one dataset), by dataset then seq. */
+  entries(analyst: string, dataset?: string): LedgerRow[] {
+    const rows =
+      dataset === undefined
+        ? this.db.prepare("SELECT * FROM releases WHERE analyst = ? ORDER BY dataset, seq").all(analyst)
+        : this.db.prepare("SELECT * FROM releases WHERE analyst = ? AND dataset = ? ORDER BY seq").all(analyst, dataset);
+    return (rows as RawRow[]).map(fromRaw);
+  }
+
+  /**
+   * Check-and-debit in one BEGIN IMMEDIATE transaction: if the same plan was already released to
+   * this analyst, return that row (no spend); if `cost` would take the total past `cap`, debit
+   * nothing; otherwise build the row (signing happens inside `build`) and commit it. The caller
+   * sends the answer only after this returns, so a sent answer is always on disk.
+   */
+  debit(args: {
+    analyst: string;
+    dataset: string;
+    digest: string;
+    plan: QueryPlan;
+    cost: Rational;
+    cap: Rational;
+    build: (ctx: DebitContext) => { release: Release; receipt: Receipt };
+  }): DebitOutcome {
+    const { analyst, dataset, digest, plan, cost, cap } = args;
+    const run = this.db.transaction((): DebitOutcome => {
+      const earlier = this.find(analyst, dataset, digest);
+      if (earlier !== null) return { kind: "replay", row: earlier };
+      const last = this.last(analyst, dataset);
+      const spent = last === undefined ? Rational.ZERO : Rational.parse(last.total);
+      const releases = last === undefined ? 0 : last.seq;
+      const total = spent.add(cost);
+      if (total.gt(cap)) return { kind: "over-cap", spent, releases };
+      const ctx: DebitContext = {
+        seq: releases + 1,
+        prev: last === undefined ? GENESIS_PREV : last.receipt_hash,
+        total,
+        issuedAt: new Date().toISOString(),
+      };
+      const { release, receipt } = args.build(ctx);
+      this.db
+        .prepare(
+          `INSERT INTO releases (analyst, dataset, seq, digest, plan, cost, total, release, receipt, receipt_hash, issued_at)
+           VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+        )
+        .run(
+          analyst,
+          dataset,
+          ctx.seq,
+          digest,
+          JSON.stringify(plan),
+          cost.toString(),
+          total.toString(),
+          JSON.stringify(release),
+          JSON.stringify(receipt),
+          receiptHash(receipt),
+          ctx.issuedAt,
+        );
+      return {
+        kind: "new",
+        row: {
+          analyst,
+          dataset,
+          seq: ctx.seq,
+          digest,
+          plan,
+          cost: cost.toString(),
+          total: total.toString(),
+          release,
+          receipt,
+          issuedAt: ctx.issuedAt,
+        },
+      };
+    });
+    return run.immediate();
+  }
+}

@@ -1,0 +1,112 @@
+/**
+ * The curator's transport: one zeromq ROUTER socket. Every request is one JSON frame; every reply one
+ * JSON frame back to the same peer. Requests are handled concurrently (spending is serialized inside
+ * the service); replies go through one send queue because a zeromq socket allows one send at a time.
+ *
+ * tcp always runs CURVE (clients pin the server's public key); ipc relies on its private 0700 directory.
+ */
+import { curveKeyPair, Router } from "zeromq";
+import { BadInputError } from "../errors.js";
+import { MAX_FRAME_BYTES, PROTOCOL_VERSION, type Response } from "../protocol/messages.js";
+import type { CurveKey } from "./keys.js";
+import { CuratorService } from "./service.js";
+
+/** Frames this much larger than MAX_FRAME_BYTES make libzmq drop the peer instead of us replying. */
+const HARD_FRAME_LIMIT = 16 * MAX_FRAME_BYTES;
+
+export interface RunningCurator {
+  /** The bound address, with the real port for tcp. */
+  address: string;
+  publicKeyB64: string;
+  curvePublicKey?: string;
+  close(): Promise<void>;
+}
+
+function protocolErrorFrame(message: string): Buffer {
+  const res: Response = { v: PROTOCOL_VERSION, id: "", ok: false, error: { kind: "protocol", message } };
+  return Buffer.from(JSON.stringify(res), "utf8");
+}
+
+function bindAddress(listen: string): { bind: string; tcp: boolean } {
+  const tcp = /^tcp:\/\/([^/]+):(\d+|\*)$/.exec(listen);
+  if (tcp) return { bind: `tcp://${tcp[1]}:${tcp[2] === "0" ? "*" : tcp[2]}`, tcp: true };
+  if (/^ipc:\/\/.+/.test(listen)) return { bind: listen, tcp: false };
+  throw new BadInputError(`listen address ${JSON.stringify(listen)} must be ipc://PATH or tcp://HOST:PORT`);
+}
+
+export async function startCurator(opts: {
+  policyFile: string;
+  listen: string;
+  curve?: CurveKey;
+}): Promise<RunningCurator> {
+  const { bind, tcp } = bindAddress(opts.listen);
+  const curve = opts.curve ?? (tcp ? curveKeyPair() : undefined);
+  const service = await CuratorService.open(opts.policyFile);
+  const router = new Router({
+    maxMessageSize: HARD_FRAME_LIMIT,
+    linger: 0,
+    ...(curve ? { curveServer: true, curveSecretKey: curve.secretKey, curvePublicKey: curve.publicKey } : {}),
+  });
+  try {
+    await router.bind(bind);
+  } catch (e: unknown) {
+    router.close();
+    await service.close();
+    throw new BadInputError(`cannot listen on ${opts.listen}: ${e instanceof Error ? e.message : String(e)}`, { cause: e });
+  }
+  const address = router.lastEndpoint ?? opts.listen;
+
+  let sendTail: Promise<void> = Promise.resolve();
+  const send = (frames: Buffer[]): Promise<void> => {
+    sendTail = sendTail.then(
+      () => router.send(frames).catch((e: unknown) => {
+        // The peer may have gone; its reply is dropped, the server carries on.
+        if (!router.closed) process.stderr.write(`hush curator: reply not sent: ${e instanceof Error ? e.message : String(e)}\n`);
+      }),
+    );
+    return sendTail;
+  };
+
+  const serveOne = async (msg: Buffer[]): Promise<void> => {
+    const [peer, ...rest] = msg;
+    // A REQ peer puts an empty delimiter frame before the payload; answer in the same shape.
+    const delimited = rest.length === 2 && rest[0].length === 0;
+    const payload = delimited ? rest.slice(1) : rest;
+    let reply: Buffer;
+    if (payload.length !== 1) reply = protocolErrorFrame(`expected one request frame, got ${payload.length}`);
+    else reply = await service.handleFrame(payload[0]);
+    await send(delimited ? [peer, Buffer.alloc(0), reply] : [peer, reply]);
+  };
+
+  const pending = new Set<Promise<void>>();
+  const loop = (async () => {
+    try {
+      for await (const msg of router) {
+        const p = serveOne(msg).catch((e: unknown) => {
+          process.stderr.write(`hush curator: ${e instanceof Error ? (e.stack ?? e.message) : String(e)}\n`);
+        });
+        pending.add(p);
+        void p.finally(() => pending.delete(p));
+      }
+    } catch (e: unknown) {
+      if (!router.closed) process.stderr.write(`hush curator: receive loop stopped: ${String(e)}\n`);
+    }
+  })();
+
+  let closed: Promise<void> | null = null;
+  return {
+    address,
+    publicKeyB64: service.publicKeyB64,
+    ...(curve ? { curvePublicKey: curve.publicKey } : {}),
+    close(): Promise<void> {
+      closed ??= (async () => {
+        await Promise.allSettled([...pending]);
+        await sendTail;
+        router.close();
+        await loop;
+        await service.close();
+      })();
+      return closed;
+    },
+  };
+}

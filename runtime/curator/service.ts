@@ -1,0 +1,418 @@
+/**
+ * The curator's request handling, independent of the transport: frame → validated request →
+ * authenticated analyst → answer. The server (server.ts) only moves frames.
+ *
+ * Order for a release (so the cap always holds and a refused query spends nothing):
+ * auth → prepare (validation and cost, no data) → replay lookup → under the (analyst, dataset) lock:
+ * cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
+ */
+import { createHash, timingSafeEqual } from "node:crypto";
+import { existsSync } from "node:fs";
+import { Bits, cryptoBytes, epsilonFromRho, Rational } from "../core/index.js";
+import { HushError, OverCapError, ProtocolError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
+import {
+  MAX_FRAME_BYTES,
+  PROTOCOL_VERSION,
+  type DatasetInfo,
+  type LedgerEntry,
+  type Preview,
+  type QueryPlan,
+  type Release,
+  type Request,
+  type Response,
+  type ResponseBody,
+  type SpendSummary,
+} from "../protocol/messages.js";
+import { parseRequest } from "../protocol/schema.js";
+import { Answerer } from "./answer.js";
+import { Engine } from "./engine.js";
+import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
+import { Ledger, type LedgerRow } from "./ledger.js";
+import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
+import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
+import { verifyToken } from "./tokens.js";
+
+const OPS = new Set(["catalogue", "open", "ask", "preview", "spend", "ledger"]);
+const UNAUTHORIZED = "unauthorized: unknown analyst or wrong token";
+const INTERNAL = "internal error in the curator; the details are in the curator's log";
+
+/** Runs tasks one at a time per key; tasks on different keys run concurrently. */
+class KeyedLock {
+  private readonly tails = new Map<string, Promise<unknown>>();
+  async run<T>(key: string, task: () => Promise<T>): Promise<T> {
+    const before = this.tails.get(key) ?? Promise.resolve();
+    const mine = before.then(task, task);
+    const tail = mine.catch(() => undefined);
+    this.tails.set(key, tail);
+    try {
+      return await mine;
+    } finally {
+      if (this.tails.get(key) === tail) this.tails.delete(key);
+    }
+  }
+}
+
+/** An exact decimal when the rational has one (denominator 2^a 5^b), else "n/d". */
+function exactDecimal(r: Rational): string {
+  let den = r.den;
+  let twos = 0;
+  let fives = 0;
+  while (den % 2n === 0n) { den /= 2n; twos++; }
+  while (den % 5n === 0n) { den /= 5n; fives++; }
+  if (den !== 1n) return r.toString();
+  const digits = Math.max(twos, fives);
+  const scaled = (r.num * 10n ** BigInt(digits)) / r.den;
+  const neg = scaled < 0n;
+  const abs = (neg ? -scaled : scaled).toString().padStart(digits + 1, "0");
+  const text = digits === 0 ? abs : `${abs.slice(0, -digits)}.${abs.slice(-digits)}`;
+  return neg ? `-${text}` : text;
+}
+
+function sha256(text: string): Buffer {
+  return createHash("sha256").update(text, "utf8").digest();
+}
+
+function encode(res: Response): Buffer {
+  return Buffer.from(JSON.stringify(res), "utf8");
+}
+
+export class CuratorService {
+  private readonly lock = new KeyedLock();
+  /** sha256 of the token that last verified per analyst, so scrypt runs once per analyst, not per request. */
+  private readonly verified = new Map<string, Buffer>();
+  private readonly inFlight = new Set<Promise<unknown>>();
+  private closing = false;
+
+  private constructor(
+    readonly policy: LoadedPolicy,
+    private readonly engine: Engine,
+    private readonly answerer: Answerer,
+    private readonly ledger: Ledger,
+    readonly key: CuratorKey,
+  ) {}
+
+  static async open(policyFile: string): Promise<CuratorService> {
+    const policy = await loadPolicy(policyFile);
+    if (!existsSync(policy.keyPath)) {
+      // First start of a fresh deployment: make the signing key the policy names.
+      const { publicKeyB64 } = generateCuratorKey(policy.keyPath);
+      process.stderr.write(`hush curator: created signing key ${policy.keyPath} (public key ${publicKeyB64})\n`);
+    }
+    const key = loadCuratorKey(policy.keyPath);
+    const ledger = Ledger.open(policy.ledgerPath);
+    let engine: Engine;
+    try {
+      engine = await Engine.open(policy);
+    } catch (e: unknown) {
+      ledger.close();
+      throw e;
+    }
+    return new CuratorService(policy, engine, new Answerer(engine, policy), ledger, key);
+  }
+
+  get publicKeyB64(): string {
+    return this.key.publicKeyB64;
+  }
+
+  /** Waits for requests in progress, then closes the data engine and the ledger. */
+  async close(): Promise<void> {
+    this.closing = true;
+    while (this.inFlight.size > 0) await Promise.allSettled([...this.inFlight]);
+    await this.engine.close();
+    this.ledger.close();
+  }
+
+  /** One raw request frame in, one encoded response out. Never throws. */
+  async handleFrame(frame: Buffer): Promise<Buffer> {
+    const work = this.answerFrame(frame);
+    this.inFlight.add(work);
+    try {
+      return encode(await work);
+    } finally {
+      this.inFlight.delete(work);
+    }
+  }
+
+  private async answerFrame(frame: Buffer): Promise<Response> {
+    let id = "";
+    try {
+      if (frame.length > MAX_FRAME_BYTES) {
+        // Refused unread: an oversized frame is never parsed.
+        throw new ProtocolError(`request frame of ${frame.length} bytes is over the limit of ${MAX_FRAME_BYTES} bytes`);
+      }
+      let raw: unknown;
+      try {
+        raw = JSON.parse(new TextDecoder("utf-8", { fatal: true }).decode(frame));
+      } catch {
+        throw new ProtocolError("request frame is not valid UTF-8 JSON");
+      }
+      if (typeof raw !== "object" || raw === null || Array.isArray(raw)) {
+        throw new ProtocolError("request frame must be a JSON object");
+      }
+      const envelope = raw as Record<string, unknown>;
+      if (typeof envelope.id === "string" && envelope.id.length <= 200) id = envelope.id;
+      if (envelope.v !== PROTOCOL_VERSION) {
+        throw new ProtocolError(
+          `unsupported protocol version ${JSON.stringify(envelope.v ?? null)}; this curator speaks version ${PROTOCOL_VERSION}`,
+        );
+      }
+      const body = envelope.body as Record<string, unknown> | null | undefined;
+      const op = typeof body === "object" && body !== null ? body.op : undefined;
+      if (typeof op !== "string" || !OPS.has(op)) {
+        throw new ProtocolError(`unknown op ${JSON.stringify(op ?? null)}; expected one of ${[...OPS].join(", ")}`);
+      }
+      if (this.closing) throw new HushError("unreachable", "the curator is shutting down");
+      const req = parseRequest(raw);
+      return { v: PROTOCOL_VERSION, id, ok: true, body: await this.handle(req) };
+    } catch (e: unknown) {
+      return { v: PROTOCOL_VERSION, id, ok: false, error: this.describeError(e) };
+    }
+  }
+
+  private describeError(e: unknown): Extract<Response, { ok: false }>["error"] {
+    if (isHushError(e) && e.kind !== "internal") {
+      const spend = (e as { spend?: SpendSummary }).spend;
+      return spend === undefined ? { kind: e.kind, message: e.message } : { kind: e.kind, message: e.message, spend };
+    }
+    // Unexpected failures may carry data (a database message quoting a value): log, never send.
+    process.stderr.write(`hush curator: internal error: ${e instanceof Error ? (e.stack ?? e.message) : String(e)}\n`);
+    return { kind: "internal", message: INTERNAL };
+  }
+
+  /** Handles a validated request (authentication included). */
+  async handle(req: Request): Promise<ResponseBody> {
+    await this.authenticate(req.analyst, req.token);
+    const analyst = req.analyst;
+    const body = req.body;
+    switch (body.op) {
+      case "catalogue":
+        return {
+          op: "catalogue",
+          datasets: this.visibleDatasets(analyst).map((d) => ({ name: d.name, description: d.description })),
+          publicKey: this.key.publicKeyB64,
+        };
+      case "open":
+        return { op: "open", info: this.open(analyst, body.dataset) };
+      case "spend":
+        return { op: "spend", spend: this.spendNow(analyst, this.dataset(analyst, body.dataset)) };
+      case "ledger":
+        return { op: "ledger", entries: this.entries(analyst, body.dataset) };
+      case "preview":
+        return { op: "preview", preview: await this.preview(analyst, body.plan) };
+      case "ask":
+        return { op: "ask", release: await this.ask(analyst, body.plan) };
+    }
+  }
+
+  private async authenticate(analyst: string, token: string): Promise<void> {
+    const entry = this.policy.analysts.get(analyst);
+    const presented = sha256(token);
+    const cached = this.verified.get(analyst);
+    if (entry !== undefined && cached !== undefined && timingSafeEqual(cached, presented)) return;
+    // Unknown analysts still pay one scrypt, so the reply time does not tell which names exist.
+    const stored = entry?.tokenHash ?? DUMMY_HASH.value;
+    let good = false;
+    try {
+      good = verifyToken(stored, token);
+    } catch {
+      good = false;
+    }
+    if (!good || entry === undefined) throw new UnauthorizedError(UNAUTHORIZED);
+    this.verified.set(analyst, presented);
+  }
+
+  private visibleDatasets(analyst: string): DatasetPolicy[] {
+    return [...this.policy.datasets.values()].filter((d) => d.analysts.includes(analyst));
+  }
+
+  /** A dataset the analyst may use; others (absent or not granted) look the same: unknown. */
+  private dataset(analyst: string, name: string): DatasetPolicy {
+    const d = this.policy.datasets.get(name);
+    if (d === undefined || !d.analysts.includes(analyst)) {
+      const names = this.visibleDatasets(analyst).map((x) => x.name);
+      throw new UnknownDatasetError(
+        `unknown dataset ${JSON.stringify(name)}; available to ${analyst}: ${names.length > 0 ? names.join(", ") : "none"}`,
+      );
+    }
+    return d;
+  }
+
+  private capOf(d: DatasetPolicy): Rational {
+    return d.accounting.mode === "pure" ? d.accounting.capEpsilon : d.accounting.capRho;
+  }
+
+  private summary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
+    const acc = d.accounting;
+    const zero = Rational.ZERO;
+    if (acc.mode === "pure") {
+      return {
+        analyst,
+        dataset: d.name,
+        mode: "pure",
+        spentEpsilon: spent.toString(),
+        capEpsilon: acc.capEpsilon.toString(),
+        remainingEpsilon: acc.capEpsilon.sub(spent).max(zero).toString(),
+        releases,
+      };
+    }
+    const spentEpsilon = spent.isZero() ? zero : epsilonFromRho(spent, acc.delta);
+    return {
+      analyst,
+      dataset: d.name,
+      mode: "zcdp",
+      spentEpsilon: spentEpsilon.toString(),
+      capEpsilon: acc.capEpsilon.toString(),
+      remainingEpsilon: acc.capEpsilon.sub(spentEpsilon).max(zero).toString(),
+      spentRho: spent.toString(),
+      capRho: acc.capRho.toString(),
+      remainingRho: acc.capRho.sub(spent).max(zero).toString(),
+      delta: exactDecimal(acc.delta),
+      releases,
+    };
+  }
+
+  private spendNow(analyst: string, d: DatasetPolicy): SpendSummary {
+    const { spent, releases } = this.ledger.spent(analyst, d.name);
+    return this.summary(analyst, d, spent, releases);
+  }
+
+  private open(analyst: string, name: string): DatasetInfo {
+    const d = this.dataset(analyst, name);
+    return {
+      name: d.name,
+      description: d.description,
+      columns: this.answerer.datasetColumns(d.name),
+      unit: { column: d.unit.column ?? null, maxRows: d.unit.maxRows, maxGroups: d.unit.maxGroups },
+      spend: this.spendNow(analyst, d),
+    };
+  }
+
+  private entries(analyst: string, dataset?: string): LedgerEntry[] {
+    if (dataset !== undefined) this.dataset(analyst, dataset);
+    return this.ledger.entries(analyst, dataset).map((r) => ({
+      seq: r.seq,
+      dataset: r.dataset,
+      digest: r.digest,
+      plan: r.plan,
+      cost: r.cost,
+      total: r.total,
+      issuedAt: r.issuedAt,
+      receipt: r.receipt,
+    }));
+  }
+
+  private async preview(analyst: string, plan: QueryPlan): Promise<Preview> {
+    const d = this.dataset(analyst, plan.dataset);
+    const { prepared, halfWidths, notes } = await this.answerer.preview(analyst, plan);
+    const { spent, releases } = this.ledger.spent(analyst, d.name);
+    const replay = this.ledger.find(analyst, d.name, prepared.digest) !== null;
+    return {
+      dataset: d.name,
+      digest: prepared.digest,
+      cost: prepared.cost.toString(),
+      unit: prepared.unit,
+      halfWidths,
+      confidence: plan.confidence ?? 0.95,
+      affordable: replay || spent.add(prepared.cost).le(this.capOf(d)),
+      replay,
+      spend: this.summary(analyst, d, spent, releases),
+      notes,
+    };
+  }
+
+  private replayed(analyst: string, d: DatasetPolicy, row: LedgerRow): Release {
+    return { ...row.release, cost: "0", replay: true, spend: this.spendNow(analyst, d) };
+  }
+
+  private overCap(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
+    const cap = this.capOf(d);
+    const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
+    const err = new OverCapError(
+      `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
+        `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on ${d.name} ` +
+        `(spent ${spent.toString()}); nothing was spent`,
+    );
+    (err as OverCapError & { spend?: SpendSummary }).spend = this.summary(analyst, d, spent, releases);
+    return err;
+  }
+
+  private async ask(analyst: string, plan: QueryPlan): Promise<Release> {
+    const d = this.dataset(analyst, plan.dataset);
+    const prepared = await this.answerer.prepare(analyst, plan);
+    const earlier = this.ledger.find(analyst, d.name, prepared.digest);
+    if (earlier !== null) return this.replayed(analyst, d, earlier);
+    const cap = this.capOf(d);
+    return this.lock.run(`${analyst}\u0000${d.name}`, async () => {
+      // While this request waited, another one may have released the same plan or spent budget.
+      const again = this.ledger.find(analyst, d.name, prepared.digest);
+      if (again !== null) return this.replayed(analyst, d, again);
+      const before = this.ledger.spent(analyst, d.name);
+      if (before.spent.add(prepared.cost).gt(cap)) throw this.overCap(analyst, d, prepared.cost, before.spent, before.releases);
+      const computed = await prepared.compute(new Bits(cryptoBytes));
+      const outcome = this.ledger.debit({
+        analyst,
+        dataset: d.name,
+        digest: prepared.digest,
+        plan: prepared.plan as QueryPlan,
+        cost: prepared.cost,
+        cap,
+        build: (ctx) => {
+          const receipt = signReceipt(
+            {
+              analyst,
+              dataset: d.name,
+              seq: ctx.seq,
+              digest: prepared.digest,
+              unit: prepared.unit,
+              cost: prepared.cost.toString(),
+              total: ctx.total.toString(),
+              cap: cap.toString(),
+              ...(d.accounting.mode === "zcdp" ? { delta: exactDecimal(d.accounting.delta) } : {}),
+              result: receiptResult(computed.rows),
+              mechanisms: copyMechanisms(computed.mechanisms),
+              issuedAt: ctx.issuedAt,
+              prev: ctx.prev,
+            },
+            this.key,
+          );
+          const release: Release = {
+            dataset: d.name,
+            digest: prepared.digest,
+            plan: prepared.plan as QueryPlan,
+            groupColumns: computed.groupColumns,
+            rows: computed.rows,
+            confidence: computed.confidence,
+            intervalMethod: computed.intervalMethod,
+            noiseOnly: true,
+            mechanisms: computed.mechanisms,
+            cost: prepared.cost.toString(),
+            spend: this.summary(analyst, d, ctx.total, ctx.seq),
+            replay: false,
+            receipt,
+            notes: [...prepared.notes, ...computed.notes],
+          };
+          return { release, receipt };
+        },
+      });
+      switch (outcome.kind) {
+        case "new":
+          return outcome.row.release;
+        case "replay":
+          return this.replayed(analyst, d, outcome.row);
+        case "over-cap":
+          // Another curator process on the same ledger spent in the meantime; the noisy answer is dropped unseen.
+          throw this.overCap(analyst, d, prepared.cost, outcome.spent, outcome.releases);
+      }
+    });
+  }
+}
+
+/** A well-formed stored hash that no token matches, for unknown analysts (computed once, lazily). */
+const DUMMY_HASH = {
+  cached: undefined as string | undefined,
+  get value(): string {
+    // scrypt parameters as in the policy format; the salt is fixed and the hash random, so nothing verifies.
+    this.cached ??= `scrypt$16384$8$1$${Buffer.alloc(16, 7).toString("base64")}$${createHash("sha256").update("no token").digest("base64")}`;
+    return this.cached;
+  },
+};

@@ -1,0 +1,142 @@
+import { generateKeyPairSync } from "node:crypto";
+import { mkdtempSync, rmSync, statSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import Database from "better-sqlite3";
+import { afterAll, describe, expect, it } from "vitest";
+import { Rational } from "../../runtime/core/index.js";
+import { Ledger } from "../../runtime/curator/ledger.js";
+import type { CuratorKey } from "../../runtime/curator/keys.js";
+import { signReceipt } from "../../runtime/curator/receipts.js";
+import type { QueryPlan, Release } from "../../runtime/protocol/messages.js";
+import { keyIdOf, verifyChain } from "../../runtime/protocol/receipts.js";
+
+const dir = mkdtempSync(join(tmpdir(), "hush-ledger-"));
+afterAll(() => rmSync(dir, { recursive: true, force: true }));
+
+const { privateKey, publicKey } = generateKeyPairSync("ed25519");
+const key: CuratorKey = { privateKey, publicKey, publicKeyB64: "", keyId: keyIdOf(publicKey) };
+
+function plan(n: number): QueryPlan {
+  return { v: 1, dataset: "visits", measure: { kind: "count" }, privacy: { epsilon: "0.1" }, where: { op: "ge", column: "age", value: n } };
+}
+
+/** Debits one fake release of `cost` for `analyst`; the digest is the plan number. */
+function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "1") {
+  return ledger.debit({
+    analyst,
+    dataset: "visits",
+    digest: `digest-${n}`,
+    plan: plan(n),
+    cost: Rational.parse(cost),
+    cap: Rational.parse(cap),
+    build: (ctx) => {
+      const receipt = signReceipt(
+        {
+          analyst,
+          dataset: "visits",
+          seq: ctx.seq,
+          digest: `digest-${n}`,
+          unit: "epsilon",
+          cost: Rational.parse(cost).toString(),
+          total: ctx.total.toString(),
+          cap: Rational.parse(cap).toString(),
+          result: [[[], "count", null, String(n), null, null]],
+          mechanisms: [],
+          issuedAt: ctx.issuedAt,
+          prev: ctx.prev,
+        },
+        key,
+      );
+      const release = { dataset: "visits", digest: `digest-${n}`, rows: [], receipt, replay: false } as unknown as Release;
+      return { release, receipt };
+    },
+  });
+}
+
+describe("Ledger", () => {
+  it("uses WAL with synchronous=FULL and a private file", () => {
+    const path = join(dir, "pragmas", "ledger.sqlite");
+    const ledger = Ledger.open(path);
+    debit(ledger, "ada", 1, "0.1");
+    ledger.close();
+    expect(statSync(path).mode & 0o777).toBe(0o600);
+    const db = new Database(path);
+    expect(db.pragma("journal_mode", { simple: true })).toBe("wal");
+    db.close();
+    // synchronous is per connection: check the one the ledger opens.
+    const again = Ledger.open(path) as unknown as { db: Database.Database };
+    expect(again.db.pragma("synchronous", { simple: true })).toBe(2); // 2 = FULL (SQLite PRAGMA docs)
+    (again as unknown as Ledger).close();
+  });
+
+  it("adds exactly: ten debits of 0.1 fill a cap of 1, the eleventh is refused and debits nothing", () => {
+    const ledger = Ledger.open(join(dir, "exact.sqlite"));
+    for (let i = 1; i <= 10; i++) {
+      const out = debit(ledger, "ada", i, "0.1");
+      expect(out.kind).toBe("new");
+    }
+    // methods.md [C1.4c]: the exact sum of ten 1/10 is 1, where binary64 gives 0.9999999999999999 ([C1.4b]).
+    expect(ledger.spent("ada", "visits").spent.toString()).toBe("1");
+    const refused = debit(ledger, "ada", 11, "0.1");
+    expect(refused).toEqual({ kind: "over-cap", spent: Rational.ONE, releases: 10 });
+    expect(ledger.entries("ada", "visits")).toHaveLength(10);
+    // methods.md §1 caution: with a cap of 0.3, 0.1 then 0.2 fits exactly.
+    const b = Ledger.open(join(dir, "exact-b.sqlite"));
+    expect(debit(b, "ada", 1, "0.1", "0.3").kind).toBe("new");
+    expect(debit(b, "ada", 2, "0.2", "0.3").kind).toBe("new");
+    expect(b.spent("ada", "visits").spent.toString()).toBe("3/10");
+    b.close();
+    ledger.close();
+  });
+
+  it("returns the stored row for a plan already released, without spending", () => {
+    const ledger = Ledger.open(join(dir, "replay.sqlite"));
+    const first = debit(ledger, "ada", 7, "1/4");
+    const second = debit(ledger, "ada", 7, "1/4");
+    expect(first.kind).toBe("new");
+    expect(second.kind).toBe("replay");
+    if (first.kind !== "new" || second.kind !== "replay") throw new Error("unreachable");
+    expect(second.row.receipt).toEqual(first.row.receipt);
+    expect(ledger.spent("ada", "visits")).toEqual({ spent: Rational.parse("1/4"), releases: 1 });
+    // Another analyst asking the same plan pays for it: budgets are per analyst.
+    expect(debit(ledger, "ben", 7, "1/4").kind).toBe("new");
+    ledger.close();
+  });
+
+  it("keeps spend and the receipt chain across a reopen", () => {
+    const path = join(dir, "reopen.sqlite");
+    const a = Ledger.open(path);
+    debit(a, "ada", 1, "1/3");
+    debit(a, "ada", 2, "1/3");
+    a.close();
+    const b = Ledger.open(path);
+    expect(b.spent("ada", "visits")).toEqual({ spent: Rational.parse("2/3"), releases: 2 });
+    debit(b, "ada", 3, "1/3");
+    const entries = b.entries("ada");
+    expect(entries.map((e) => e.seq)).toEqual([1, 2, 3]);
+    expect(entries.map((e) => e.total)).toEqual(["1/3", "2/3", "1"]);
+    expect(verifyChain(entries.map((e) => e.receipt), publicKey)).toEqual({ ok: true, problems: [] });
+    expect(b.find("ada", "visits", "digest-2")?.plan).toEqual(plan(2));
+    b.close();
+  });
+
+  it("rolls back when building the row fails", () => {
+    const ledger = Ledger.open(join(dir, "rollback.sqlite"));
+    expect(() =>
+      ledger.debit({
+        analyst: "ada",
+        dataset: "visits",
+        digest: "d",
+        plan: plan(1),
+        cost: Rational.parse("0.1"),
+        cap: Rational.ONE,
+        build: () => {
+          throw new Error("signing failed");
+        },
+      }),
+    ).toThrow(/signing failed/);
+    expect(ledger.spent("ada", "visits").releases).toBe(0);
+    ledger.close();
+  });
+});
