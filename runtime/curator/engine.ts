@@ -1,0 +1,305 @@
+/**
+ * The curator's data engine: DuckDB in memory. Each dataset is read once at start into a table
+ * whose columns are already in the form the aggregates need:
+ *
+ *   numeric column  -> BIGINT grid units, clamp(round(x / step)) to the declared range
+ *   category column -> USMALLINT index into the declared list of values
+ *   date column     -> DATE,  boolean column -> BOOLEAN
+ *   __u             -> UBIGINT hash of the unit id (only when a unit column is declared)
+ *   __n             -> number of rows of that unit (so bounding only touches units above maxRows)
+ *
+ * Internal column names are positional (c0, c1, ...), so no name from a plan or even from the
+ * policy ever appears in query SQL; plan column names are mapped through the declared schema.
+ *
+ * Rows that do not fit the declared schema are left out and counted per reason, for the steward
+ * only (loadReport and one line on stderr): unparseable numbers, dates or booleans, non-finite
+ * numbers, non-whole numbers in integer columns, category values outside the declared list, dates
+ * outside the declared range, missing unit ids. Numbers outside their declared range are NOT
+ * rejected but clamped to it: clamping is what bounds the sensitivity (methods.md §6 recipe), and
+ * dropping such rows would make a row's presence depend on its value. Empty cells are NULL.
+ *
+ * Hash collisions of unit ids can only merge two units into one, which keeps fewer rows of each
+ * (maxRows bounds the merged unit); they can never let one unit exceed its bound.
+ */
+import { existsSync } from "node:fs";
+import { DuckDBConnection, DuckDBInstance, type DuckDBPreparedStatement } from "@duckdb/node-api";
+import { PolicyError, UnknownDatasetError } from "../errors.js";
+import type { ColumnPolicy, DatasetPolicy, LoadedPolicy } from "./policy.js";
+
+/** A value bound to a `$n` placeholder. */
+export type SqlParam =
+  | { type: "bigint"; value: bigint }
+  | { type: "integer"; value: number }
+  | { type: "varchar"; value: string }
+  | { type: "boolean"; value: boolean };
+
+export interface TableColumn {
+  policy: ColumnPolicy;
+  /** Quoted internal identifier, e.g. "c3". */
+  ident: string;
+}
+
+export interface TableInfo {
+  dataset: DatasetPolicy;
+  /** Quoted internal table identifier. */
+  table: string;
+  /** Public columns by name (the unit column is not here). */
+  columns: Map<string, TableColumn>;
+  hasUnit: boolean;
+}
+
+export interface LoadReport {
+  rows: number;
+  rejected: number;
+  reasons: Record<string, number>;
+}
+
+/** SQL identifier quoting (double quotes, inner quotes doubled). */
+export function quoteIdent(name: string): string {
+  return `"${name.replace(/"/g, '""')}"`;
+}
+
+/** SQL string literal for steward-trusted text (paths, declared values); never for plan input. */
+function quoteString(s: string): string {
+  return `'${s.replace(/'/g, "''")}'`;
+}
+
+function bindAll(stmt: DuckDBPreparedStatement, params: readonly SqlParam[]): void {
+  params.forEach((p, i) => {
+    const at = i + 1;
+    switch (p.type) {
+      case "bigint":
+        stmt.bindBigInt(at, p.value);
+        break;
+      case "integer":
+        stmt.bindInteger(at, p.value);
+        break;
+      case "varchar":
+        stmt.bindVarchar(at, p.value);
+        break;
+      case "boolean":
+        stmt.bindBoolean(at, p.value);
+        break;
+    }
+  });
+}
+
+function sourceCall(d: DatasetPolicy): string {
+  return d.format === "csv"
+    ? `read_csv(${quoteString(d.source)}, header = true, all_varchar = true)`
+    : `read_parquet(${quoteString(d.source)})`;
+}
+
+/** Typed value and a "was something there" flag for one column of the staging table. */
+function stagingSelect(c: ColumnPolicy, i: number): string[] {
+  const src = `src.${quoteIdent(c.from)}`;
+  const present = `${src} IS NOT NULL AS p${i}`;
+  switch (c.type) {
+    case "integer":
+    case "number":
+      return [`TRY_CAST(${src} AS DOUBLE) AS x${i}`, present];
+    case "category": {
+      const arms = c.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
+      return [`CASE CAST(${src} AS VARCHAR) ${arms} END AS x${i}`, present];
+    }
+    case "date":
+      return [`TRY_CAST(${src} AS DATE) AS x${i}`, present];
+    case "boolean":
+      return [`TRY_CAST(${src} AS BOOLEAN) AS x${i}`, present];
+  }
+}
+
+/** Why a staged row is rejected (first reason wins), as SQL CASE arms. Reasons name columns, never values. */
+function rejectArms(c: ColumnPolicy, i: number): string[] {
+  const why = (s: string) => quoteString(`${c.name}: ${s}`);
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const arms = [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a number")}`,
+        `WHEN p${i} AND NOT isfinite(x${i}) THEN ${why("not a finite number")}`,
+      ];
+      if (c.type === "integer") arms.push(`WHEN p${i} AND x${i} <> round(x${i}) THEN ${why("not a whole number")}`);
+      return arms;
+    }
+    case "category":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("value outside the declared list")}`];
+    case "date":
+      return [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a date")}`,
+        `WHEN x${i} < DATE ${quoteString(c.lower)} OR x${i} > DATE ${quoteString(c.upper)} THEN ${why("date outside the declared range")}`,
+      ];
+    case "boolean":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("not a boolean")}`];
+  }
+}
+
+/** Final stored form of a staged column. Grid bounds are integers we computed from the policy. */
+function finalSelect(c: ColumnPolicy, i: number): string {
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const lo = c.grid.lowerUnits.toString();
+      const hi = c.grid.upperUnits.toString();
+      // Clamp in floating point first (so the cast cannot overflow), then round to the grid:
+      // the result is an integer in [lo, hi] whatever the rounding error of x / step.
+      // DuckDB's LEAST/GREATEST skip NULLs, so a missing value must be kept NULL explicitly.
+      return `CASE WHEN x${i} IS NULL THEN NULL ELSE CAST(round(LEAST(GREATEST(x${i} / CAST(${quoteString(c.step)} AS DOUBLE), ${lo}), ${hi})) AS BIGINT) END AS c${i}`;
+    }
+    case "category":
+      return `CAST(x${i} AS USMALLINT) AS c${i}`;
+    default:
+      return `x${i} AS c${i}`;
+  }
+}
+
+export class Engine {
+  private readonly instance: DuckDBInstance;
+  private readonly tables: Map<string, TableInfo>;
+  private readonly reports: Map<string, LoadReport>;
+  private readonly policy: LoadedPolicy;
+  private closed = false;
+
+  private constructor(policy: LoadedPolicy, instance: DuckDBInstance) {
+    this.policy = policy;
+    this.instance = instance;
+    this.tables = new Map();
+    this.reports = new Map();
+  }
+
+  /** Loads every dataset of the policy (or the named subset) into memory. */
+  static async open(policy: LoadedPolicy, opts: { datasets?: string[]; quiet?: boolean } = {}): Promise<Engine> {
+    const names = opts.datasets ?? [...policy.datasets.keys()];
+    for (const n of names) {
+      if (!policy.datasets.has(n)) throw new UnknownDatasetError(`no dataset named ${JSON.stringify(n.slice(0, 64))} in the policy`);
+    }
+    const instance = await DuckDBInstance.create(":memory:");
+    const engine = new Engine(policy, instance);
+    try {
+      const conn = await instance.connect();
+      try {
+        for (const [i, n] of names.entries()) {
+          const d = policy.datasets.get(n)!;
+          await engine.load(conn, d, i);
+          if (!opts.quiet) {
+            const r = engine.reports.get(n)!;
+            const why = Object.entries(r.reasons)
+              .map(([k, v]) => `${k}: ${v}`)
+              .join("; ");
+            process.stderr.write(
+              `hush curator: dataset ${n}: loaded ${r.rows} rows, left out ${r.rejected}${r.rejected > 0 ? ` (${why})` : ""}\n`,
+            );
+          }
+        }
+      } finally {
+        conn.closeSync();
+      }
+    } catch (e) {
+      instance.closeSync();
+      throw e;
+    }
+    return engine;
+  }
+
+  private async load(conn: DuckDBConnection, d: DatasetPolicy, index: number): Promise<void> {
+    const where = `policy ${this.policy.file}: datasets.${d.name}`;
+    if (!existsSync(d.source)) throw new PolicyError(`${where}.source: file not found`);
+    let header: string[];
+    try {
+      const r = await conn.runAndReadAll(`DESCRIBE SELECT * FROM ${sourceCall(d)}`);
+      header = r.getRows().map((row) => String(row[0]));
+    } catch (e) {
+      throw new PolicyError(`${where}.source: cannot be read as ${d.format} (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+    }
+    for (const c of d.columns) {
+      if (!header.includes(c.from)) throw new PolicyError(`${where}.columns.${c.name}: the data file has no column ${JSON.stringify(c.from)}`);
+    }
+    const unit = d.unit.column;
+    if (unit !== null && !header.includes(unit)) throw new PolicyError(`${where}.unit.column: the data file has no column ${JSON.stringify(unit)}`);
+
+    const stage = quoteIdent(`stage${index}`);
+    const table = quoteIdent(`d${index}`);
+    const staged: string[] = [];
+    const arms: string[] = [];
+    if (unit !== null) {
+      const u = `src.${quoteIdent(unit)}`;
+      staged.push(`hash(CAST(${u} AS VARCHAR)) AS __u`);
+      staged.push(`CAST(${u} AS VARCHAR) AS __uraw`);
+      arms.push(`WHEN __uraw IS NULL OR trim(__uraw) = '' THEN 'unit id missing'`);
+    }
+    d.columns.forEach((c, i) => {
+      staged.push(...stagingSelect(c, i));
+    });
+    // Reasons are computed in the staging pass, where both raw and typed values are visible.
+    const reasonSql = (() => {
+      const all = [...arms];
+      d.columns.forEach((c, i) => all.push(...rejectArms(c, i)));
+      return all.length === 0 ? "CAST(NULL AS VARCHAR)" : `CASE ${all.join(" ")} END`;
+    })();
+    await conn.run(
+      `CREATE TEMP TABLE ${stage} AS SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${sourceCall(d)} AS src)`,
+    );
+    const finals = d.columns.map((c, i) => finalSelect(c, i));
+    const unitCols = unit !== null ? ["__u", "CAST(count(*) OVER (PARTITION BY __u) AS INTEGER) AS __n"] : [];
+    await conn.run(`CREATE TABLE ${table} AS SELECT ${[...unitCols, ...finals].join(", ")} FROM ${stage} WHERE __why IS NULL`);
+    const rejected = await conn.runAndReadAll(`SELECT __why, count(*) FROM ${stage} WHERE __why IS NOT NULL GROUP BY __why ORDER BY __why`);
+    const kept = await conn.runAndReadAll(`SELECT count(*) FROM ${table}`);
+    await conn.run(`DROP TABLE ${stage}`);
+
+    const reasons: Record<string, number> = {};
+    let total = 0;
+    for (const [why, n] of rejected.getRows()) {
+      reasons[String(why)] = Number(n);
+      total += Number(n);
+    }
+    this.reports.set(d.name, { rows: Number(kept.getRows()[0][0]), rejected: total, reasons });
+    const columns = new Map<string, TableColumn>();
+    d.columns.forEach((c, i) => columns.set(c.name, { policy: c, ident: quoteIdent(`c${i}`) }));
+    this.tables.set(d.name, { dataset: d, table, columns, hasUnit: unit !== null });
+  }
+
+  /** Steward-only: how many rows were kept and why others were left out. Never sent to analysts. */
+  loadReport(dataset: string): LoadReport {
+    const r = this.reports.get(dataset);
+    if (r === undefined) throw new UnknownDatasetError(`dataset ${JSON.stringify(dataset.slice(0, 64))} is not loaded`);
+    return { rows: r.rows, rejected: r.rejected, reasons: { ...r.reasons } };
+  }
+
+  /** The loaded table behind a dataset. */
+  table(dataset: string): TableInfo {
+    const t = this.tables.get(dataset);
+    if (t === undefined) throw new UnknownDatasetError(`dataset ${JSON.stringify(dataset.slice(0, 64))} is not loaded`);
+    return t;
+  }
+
+  hasDataset(dataset: string): boolean {
+    return this.tables.has(dataset);
+  }
+
+  /**
+   * Runs one parameterized statement and returns all rows. Every value comes in through `params`
+   * (bound to $1, $2, ...); `sql` is built only from internal identifiers and placeholders.
+   */
+  async query(sql: string, params: readonly SqlParam[]): Promise<unknown[][]> {
+    if (this.closed) throw new Error("engine is closed");
+    const conn = await this.instance.connect();
+    try {
+      const stmt = await conn.prepare(sql);
+      try {
+        bindAll(stmt, params);
+        const reader = await stmt.runAndReadAll();
+        return reader.getRows() as unknown[][];
+      } finally {
+        stmt.destroySync();
+      }
+    } finally {
+      conn.closeSync();
+    }
+  }
+
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    this.instance.closeSync();
+  }
+}
