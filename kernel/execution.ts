@@ -1,0 +1,186 @@
+/**
+ * The language hook: runs TypeScript cells with tslab's in-process executor and converter
+ * (pinned tslab 1.0.22), and answers completion, inspection and is-complete from the TypeScript
+ * language service. Knows nothing about the wire protocol.
+ *
+ * Interruption: a synchronous cell runs under `vm.runInThisContext({ breakOnSigint: true })`
+ * inside tslab, so a SIGINT stops it; a cell awaiting at top level is raced against tslab's
+ * interrupt promise, so `interrupt()` stops waiting for it. Work the interrupted async cell had
+ * already scheduled (timers, pending promises) keeps running in the background: a promise cannot
+ * be cancelled from outside.
+ */
+import { createRequire } from "node:module";
+import { format, inspect } from "node:util";
+import type * as TsExecutor from "tslab/dist/executor.js";
+import type * as TsConverter from "tslab/dist/converter.js";
+
+const require = createRequire(import.meta.url);
+const { createExecutor } = require("tslab/dist/executor") as typeof TsExecutor;
+const { createConverter, isCompleteCode } = require("tslab/dist/converter") as typeof TsConverter;
+const { printQuickInfo } = require("tslab/dist/inspect") as {
+  printQuickInfo(info: unknown): string;
+};
+const ts = require("@tslab/typescript-for-tslab") as {
+  version: string;
+  createSourceFile(name: string, text: string, target: number, setParents?: boolean, kind?: number): unknown;
+  ScriptTarget: { Latest: number };
+  ScriptKind: { TSX: number };
+};
+
+export const TYPESCRIPT_VERSION = ts.version;
+
+export interface CellError {
+  ename: string;
+  evalue: string;
+  traceback: string[];
+}
+
+export type RunOutcome = { status: "ok"; hasValue: boolean; value?: unknown } | ({ status: "error" } & CellError);
+
+export interface Execution {
+  run(code: string): Promise<RunOutcome>;
+  complete(code: string, cursor: number): { matches: string[]; cursor_start: number; cursor_end: number };
+  /** Plain-text quick info at the cursor, or null when nothing is there. */
+  inspect(code: string, cursor: number): string | null;
+  isComplete(code: string): { status: "complete" | "incomplete" | "invalid"; indent?: string };
+  interrupt(): void;
+  /** Forgets every variable and declaration of earlier cells. */
+  reset(): void;
+  close(): void;
+}
+
+export interface ExecutionOptions {
+  /** Directory cell `require`/`import` resolves from (the notebook's directory). */
+  rootDir: string;
+  /** Values visible to every cell by name (e.g. `hush`, `display`). */
+  globals: Record<string, unknown>;
+  /** .d.ts text declaring those globals for the language service. */
+  declarations: string;
+}
+
+const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`"];
+
+export function createExecution(opts: ExecutionOptions): Execution {
+  const node = createConverter({ isJS: false, isBrowser: false });
+  const globalBlock = asGlobalBlock(opts.declarations);
+  // Declarations of earlier cells arrive as `prevDecl`; the globals ride in front of them inside a
+  // `declare global` block, which tslab never copies into the next cell's declarations.
+  const withGlobals: TsConverter.Converter = {
+    convert: (prev, src) => node.convert(globalBlock + prev, src),
+    inspect: (prev, src, pos) => node.inspect(globalBlock + prev, src, pos),
+    complete: (prev, src, pos) => node.complete(globalBlock + prev, src, pos),
+    addModule: (name, content, meta) => node.addModule(name, content, meta),
+    close: () => node.close(),
+  };
+  const convs: TsExecutor.ConverterSet = {
+    node: withGlobals,
+    get browser(): TsConverter.Converter {
+      throw new Error("browser mode is not supported by hush");
+    },
+    close: () => node.close(),
+  };
+
+  // tslab reports a cell's last expression through `log` and failures through `error`.
+  let result: { value: unknown } | null = null;
+  let failures: unknown[][] = [];
+  const executor = createExecutor(opts.rootDir, convs, {
+    log: (value: unknown) => {
+      result = { value };
+    },
+    error: (...args: unknown[]) => {
+      failures.push(args);
+    },
+  });
+  const installGlobals = (): void => {
+    for (const [name, value] of Object.entries(opts.globals)) {
+      (globalThis as Record<string, unknown>)[name] = value;
+      // tslab rewrites names declared before the cell to `exports.<name>`, so they live there too.
+      executor.locals[name] = value;
+    }
+  };
+  installGlobals();
+
+  return {
+    async run(code) {
+      result = null;
+      failures = [];
+      const ok = await executor.execute(code);
+      if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures) };
+      const r = result as { value: unknown } | null;
+      return r ? { status: "ok", hasValue: true, value: r.value } : { status: "ok", hasValue: false };
+    },
+    complete(code, cursor) {
+      const info = executor.complete(code, cursor);
+      return { matches: info.candidates, cursor_start: info.start, cursor_end: info.end };
+    },
+    inspect(code, cursor) {
+      const info = executor.inspect(code, cursor);
+      if (!info) return null;
+      const text = printQuickInfo(info);
+      return text === "" ? null : text;
+    },
+    isComplete(code) {
+      const r = isCompleteCode(code);
+      if (!r.completed) return { status: "incomplete", indent: r.indent ?? "" };
+      return hasParseErrors(code) ? { status: "invalid" } : { status: "complete" };
+    },
+    interrupt: () => executor.interrupt(),
+    reset() {
+      executor.reset();
+      installGlobals();
+    },
+    close: () => executor.close(),
+  };
+}
+
+/** Wraps top-level ambient declarations into one `declare global { ... }` block. */
+export function asGlobalBlock(dts: string): string {
+  if (dts.trim() === "") return "";
+  if (/^\s*declare\s+global\s*\{/m.test(dts)) return dts + "\n";
+  const body = dts.replace(/^(\s*)(?:export\s+)?declare\s+/gm, "$1");
+  return `declare global {\n${body}\n}\n`;
+}
+
+function hasParseErrors(code: string): boolean {
+  const sf = ts.createSourceFile("cell.tsx", code, ts.ScriptTarget.Latest, false, ts.ScriptKind.TSX) as {
+    parseDiagnostics?: unknown[];
+  };
+  return (sf.parseDiagnostics?.length ?? 0) > 0;
+}
+
+function describeFailures(failures: unknown[][]): CellError {
+  // Compile diagnostics come as printf-style calls ("%s%d:%d - %s", file, line, col, text).
+  const diagnostics = failures.filter((f) => typeof f[0] === "string" && f.length > 1);
+  if (diagnostics.length > 0) {
+    const lines = diagnostics.map((f) => format(...(f as [string, ...unknown[]])));
+    return {
+      ename: "TypeScriptError",
+      evalue: lines.length === 1 ? lines[0] : `${lines[0]} (and ${lines.length - 1} more)`,
+      traceback: lines,
+    };
+  }
+  const thrown = failures.length > 0 ? failures[0][0] : new Error("the cell failed");
+  return describeThrown(thrown);
+}
+
+export function describeThrown(thrown: unknown): CellError {
+  if (thrown instanceof Error) {
+    if (INTERRUPT_MESSAGES.includes(thrown.message)) {
+      return { ename: "Interrupted", evalue: "the cell was interrupted", traceback: ["Interrupted: the cell was interrupted"] };
+    }
+    return { ename: thrown.name, evalue: thrown.message, traceback: cellStack(thrown) };
+  }
+  const text = inspect(thrown, { depth: 3 });
+  return { ename: "Thrown", evalue: text, traceback: [`Thrown: ${text}`] };
+}
+
+/** The error's stack without kernel and tslab frames; cell frames are named `<cell>`. */
+function cellStack(e: Error): string[] {
+  const lines = (e.stack ?? `${e.name}: ${e.message}`).split("\n");
+  const kept: string[] = [];
+  for (const line of lines) {
+    if (/^\s+at /.test(line) && /node:vm|node:internal|tslab[/\\]dist|[/\\]kernel[/\\]/.test(line)) continue;
+    kept.push(line.replace(/evalmachine\.<anonymous>/g, "<cell>"));
+  }
+  return kept;
+}

@@ -1,0 +1,221 @@
+/**
+ * Protocol handlers, one per request type, named after it (messaging spec 5.3). The execute
+ * handler does counting, execute_input, results, the reply and abort-on-error; running the
+ * TypeScript is the language hook's job (execution.ts).
+ */
+import { inspect } from "node:util";
+import type { HandlerContext, Handler, HandlerTable } from "./dispatch.js";
+import type { Execution, CellError } from "./execution.js";
+import type { History } from "./history.js";
+import { kernelInfo } from "./kernel-info.js";
+import { errorText } from "./log.js";
+import type { CellSession, MimeBundle } from "./session-loader.js";
+import type { JsonObject, Message } from "./wire.js";
+
+export interface KernelParts {
+  execution: Execution;
+  session: CellSession;
+  history: History;
+  /** Closes sockets and the session, then ends the process. */
+  exit(): Promise<void>;
+}
+
+interface ExecuteContent {
+  code: string;
+  silent: boolean;
+  store_history: boolean;
+  user_expressions: Record<string, unknown>;
+  stop_on_error: boolean;
+}
+
+/** Mime bundle for a value the cell API does not render itself. */
+export function plainBundle(value: unknown): MimeBundle {
+  const text = typeof value === "string" ? inspect(value) : inspect(value, { depth: 4, colors: false });
+  return { data: { "text/plain": text }, metadata: {} };
+}
+
+export function createHandlers(parts: KernelParts): { table: HandlerTable; aborted: Handler } {
+  const { execution, session, history } = parts;
+  let executionCount = 0;
+
+  const render = async (value: unknown): Promise<MimeBundle> => (await session.render(value)) ?? plainBundle(value);
+
+  const errorContent = (e: CellError): JsonObject => ({ ename: e.ename, evalue: e.evalue, traceback: e.traceback });
+
+  async function evaluateExpressions(exprs: Record<string, unknown>): Promise<JsonObject> {
+    const out: JsonObject = {};
+    for (const [name, expr] of Object.entries(exprs)) {
+      if (typeof expr !== "string") {
+        out[name] = { status: "error", ename: "BadInput", evalue: "expression must be a string", traceback: [] };
+        continue;
+      }
+      const r = await execution.run(expr);
+      if (r.status === "error") out[name] = { status: "error", ...errorContent(r) };
+      else {
+        const b = r.hasValue ? await render(r.value) : plainBundle(undefined);
+        out[name] = { status: "ok", data: b.data, metadata: b.metadata };
+      }
+    }
+    return out;
+  }
+
+  async function publishAfterCell(ctx: HandlerContext): Promise<void> {
+    let line: MimeBundle | null = null;
+    try {
+      line = await session.afterCell();
+    } catch (e: unknown) {
+      await ctx.publish("stream", { name: "stderr", text: `hush: could not read the privacy-loss summary: ${errorText(e)}\n` });
+    }
+    if (line) await ctx.publish("display_data", { data: line.data, metadata: line.metadata, transient: {} });
+  }
+
+  const table: Record<string, Handler> = {
+    async kernel_info_request(_msg, ctx) {
+      await ctx.reply("kernel_info_reply", kernelInfo());
+    },
+
+    async execute_request(msg, ctx) {
+      const c = executeContent(msg);
+      const counted = !c.silent && c.store_history;
+      if (counted) executionCount += 1;
+      const count = executionCount;
+      if (!c.silent) await ctx.publish("execute_input", { code: c.code, execution_count: count });
+
+      const outcome = await execution.run(c.code);
+      let resultText: string | null = null;
+      if (outcome.status === "ok" && outcome.hasValue) {
+        try {
+          const bundle = await render(outcome.value);
+          resultText = typeof bundle.data["text/plain"] === "string" ? bundle.data["text/plain"] : null;
+          if (!c.silent) {
+            await ctx.publish("execute_result", { execution_count: count, data: bundle.data, metadata: bundle.metadata });
+          }
+        } catch (e: unknown) {
+          await ctx.publish("stream", { name: "stderr", text: `hush: could not display the result: ${errorText(e)}\n` });
+        }
+      }
+      if (outcome.status === "error" && !c.silent) await ctx.publish("error", errorContent(outcome));
+      const userExpressions = outcome.status === "ok" ? await evaluateExpressions(c.user_expressions) : {};
+      if (!c.silent) await publishAfterCell(ctx);
+      if (counted) history.add({ line: count, input: c.code, output: resultText });
+
+      if (outcome.status === "ok") {
+        await ctx.reply("execute_reply", {
+          status: "ok",
+          execution_count: count,
+          user_expressions: userExpressions,
+          payload: [],
+        });
+        return;
+      }
+      await ctx.reply("execute_reply", { status: "error", execution_count: count, ...errorContent(outcome) }, {
+        status: "error",
+      });
+      if (c.stop_on_error) ctx.abortQueued();
+    },
+
+    async complete_request(msg, ctx) {
+      const { code, cursor_pos } = textAndCursor(msg);
+      const r = execution.complete(code, cursor_pos);
+      await ctx.reply("complete_reply", { status: "ok", ...r, metadata: {} });
+    },
+
+    async inspect_request(msg, ctx) {
+      const { code, cursor_pos } = textAndCursor(msg);
+      const text = execution.inspect(code, cursor_pos);
+      await ctx.reply("inspect_reply", {
+        status: "ok",
+        found: text !== null,
+        data: text === null ? {} : { "text/plain": text },
+        metadata: {},
+      });
+    },
+
+    async is_complete_request(msg, ctx) {
+      const code = typeof msg.content.code === "string" ? msg.content.code : "";
+      await ctx.reply("is_complete_reply", execution.isComplete(code));
+    },
+
+    async history_request(msg, ctx) {
+      await ctx.reply("history_reply", { status: "ok", history: history.query(msg.content) });
+    },
+
+    async comm_info_request(_msg, ctx) {
+      await ctx.reply("comm_info_reply", { status: "ok", comms: {} });
+    },
+
+    // No comm targets exist: an opened comm is closed right away (what ipykernel does for an
+    // unknown target); messages to comms are ignored.
+    async comm_open(msg, ctx) {
+      const id = typeof msg.content.comm_id === "string" ? msg.content.comm_id : "";
+      await ctx.publish("comm_close", { comm_id: id, data: {} });
+    },
+    async comm_msg() {},
+    async comm_close() {},
+
+    async interrupt_request(_msg, ctx) {
+      // The control thread has already raised SIGINT, whose listener interrupts the cell; doing
+      // it here again could hit the next queued cell instead.
+      await ctx.reply("interrupt_reply", { status: "ok" });
+    },
+
+    // Spec "Kernel shutdown": the kernel answers, then exits; with restart=true the client (its
+    // kernel manager) starts a fresh process.
+    async shutdown_request(msg, ctx) {
+      const restart = msg.content.restart === true;
+      try {
+        await session.close();
+      } catch {
+        // Exiting anyway: the curator connection ends with the process.
+      }
+      await ctx.reply("shutdown_reply", { status: "ok", restart });
+      ctx.afterIdle(() => parts.exit());
+    },
+
+    async debug_request(msg, ctx) {
+      await ctx.reply("debug_reply", {
+        type: "response",
+        request_seq: typeof msg.content.seq === "number" ? msg.content.seq : 0,
+        success: false,
+        command: typeof msg.content.command === "string" ? msg.content.command : "",
+        message: "the hush kernel does not support debugging",
+        body: {},
+      });
+    },
+  };
+
+  const aborted: Handler = async (_msg, ctx) => {
+    await ctx.reply(
+      "execute_reply",
+      {
+        status: "error",
+        execution_count: executionCount,
+        ename: "ExecutionAborted",
+        evalue: "not run: an earlier cell failed and stop_on_error was set",
+        traceback: [],
+      },
+      { status: "error" },
+    );
+  };
+
+  return { table, aborted };
+}
+
+function executeContent(msg: Message): ExecuteContent {
+  const c = msg.content;
+  const silent = c.silent === true;
+  return {
+    code: typeof c.code === "string" ? c.code : "",
+    silent,
+    store_history: silent ? false : c.store_history !== false,
+    user_expressions:
+      c.user_expressions && typeof c.user_expressions === "object" ? (c.user_expressions as Record<string, unknown>) : {},
+    stop_on_error: c.stop_on_error !== false,
+  };
+}
+
+function textAndCursor(msg: Message): { code: string; cursor_pos: number } {
+  const code = typeof msg.content.code === "string" ? msg.content.code : "";
+  const pos = msg.content.cursor_pos;
+  return { code, cursor_pos: typeof pos === "number" && pos >= 0 && pos <= code.length ? pos : code.length };
+}

@@ -1,0 +1,130 @@
+/**
+ * Assembles a running kernel: sockets, the output router, the cell API session, the TypeScript
+ * execution hook, the handler table and the dispatcher.
+ */
+import { createRequire } from "node:module";
+import { randomUUID } from "node:crypto";
+import type { ConnectionInfo } from "./connection.js";
+import { Dispatcher } from "./dispatch.js";
+import { createExecution, describeThrown, type Execution } from "./execution.js";
+import { createHandlers, plainBundle } from "./handlers.js";
+import { History } from "./history.js";
+import { errorText, kernelLog } from "./log.js";
+import { Output } from "./output.js";
+import { loadSession, type CellHost, type CellSession, type MimeBundle } from "./session-loader.js";
+import { openSockets } from "./sockets.js";
+import { Signer } from "./wire.js";
+
+export interface DisplayOptions {
+  displayId?: string;
+  update?: boolean;
+}
+
+/** Declaration of the `display` global for the language service. */
+const DISPLAY_DECLARATION = `
+/** Shows a value below the cell (a release, a dataset handle, or any value as text). */
+declare function display(value: unknown, opts?: { displayId?: string; update?: boolean }): void;
+`;
+
+export interface RunningKernel {
+  /** Resolves when the kernel has shut down. */
+  closed: Promise<void>;
+}
+
+export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string } = {}): Promise<RunningKernel> {
+  const signer = new Signer(info.signature_scheme, info.key);
+  const sessionId = randomUUID();
+  const sockets = await openSockets(info);
+
+  let dispatcher: Dispatcher | null = null;
+  const output = new Output((msgType, content, parent) =>
+    dispatcher ? dispatcher.publish(msgType, content, parent) : Promise.resolve(),
+  );
+
+  const displayContent = (bundle: MimeBundle, o: DisplayOptions): Record<string, unknown> => ({
+    data: bundle.data,
+    metadata: bundle.metadata,
+    transient: o.displayId ? { display_id: o.displayId } : {},
+  });
+  const host: CellHost = {
+    display(bundle, o = {}) {
+      void output.publish(o.update ? "update_display_data" : "display_data", displayContent(bundle, o));
+    },
+  };
+  const session: CellSession = await loadSession(host);
+  const render = async (value: unknown): Promise<MimeBundle> => (await session.render(value)) ?? plainBundle(value);
+  const display = (value: unknown, o: DisplayOptions = {}): void => {
+    void output.publishLater(o.update ? "update_display_data" : "display_data", async () => {
+      try {
+        return displayContent(await render(value), o);
+      } catch (e: unknown) {
+        output.write("stderr", `display failed: ${describeThrown(e).evalue}\n`);
+        return null;
+      }
+    });
+  };
+  routeTslabDisplay(output);
+
+  const globals: Record<string, unknown> = { display };
+  if (session.api) globals.hush = session.api;
+  // Building the TypeScript program takes seconds; requests wait in the socket until it is done.
+  const execution: Execution = createExecution({
+    rootDir: opts.rootDir ?? process.cwd(),
+    globals,
+    declarations: DISPLAY_DECLARATION + session.typeDeclarations(),
+  });
+
+  let resolveClosed!: () => void;
+  const closed = new Promise<void>((r) => (resolveClosed = r));
+  let exiting = false;
+  const exit = async (): Promise<void> => {
+    if (exiting) return;
+    exiting = true;
+    dispatcher?.stop();
+    await output.flush();
+    output.releaseStdio();
+    execution.close();
+    await sockets.close();
+    resolveClosed();
+  };
+
+  const { table, aborted } = createHandlers({ execution, session, history: new History(), exit });
+  dispatcher = new Dispatcher({ signer, session: sessionId, send: sockets.send, output, handlers: table, aborted });
+  const d = dispatcher;
+
+  output.captureStdio();
+  process.on("SIGINT", () => execution.interrupt());
+  process.on("uncaughtException", (e) => output.write("stderr", `Uncaught ${describeThrown(e).traceback.join("\n")}\n`));
+  process.on("unhandledRejection", (e) =>
+    output.write("stderr", `Unhandled rejection ${describeThrown(e).traceback.join("\n")}\n`),
+  );
+  process.once("SIGTERM", () => {
+    void session
+      .close()
+      .catch(() => {})
+      .then(exit);
+  });
+
+  sockets.onControl((frames) => void d.dispatch("control", frames));
+  void (async () => {
+    try {
+      for await (const frames of sockets.shell) d.enqueueShell(frames);
+    } catch (e: unknown) {
+      if (!exiting) kernelLog(`shell socket: ${errorText(e)}`);
+    }
+  })();
+  void d.runShell();
+  await d.publish("status", { execution_state: "starting" }, null);
+  return { closed };
+}
+
+/** Lets cells use tslab's own display helpers (`import * as tslab from "tslab"`). */
+function routeTslabDisplay(output: Output): void {
+  const require = createRequire(import.meta.url);
+  const jupyter = require("tslab/dist/jupyter") as {
+    lastWriteDisplayData: ((data: Record<string, unknown>, update: boolean) => void) | null;
+  };
+  jupyter.lastWriteDisplayData = (data, update) => {
+    void output.publish(update ? "update_display_data" : "display_data", data);
+  };
+}
