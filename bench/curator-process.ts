@@ -27,6 +27,18 @@ export interface ReadyLine {
   [k: string]: unknown;
 }
 
+/** The curator printed {"ready":false,"error":{kind,message}}: it refused to start. */
+export class CuratorStartError extends Error {
+  constructor(
+    readonly kind: string,
+    readonly reason: string,
+    readonly stderr: string,
+  ) {
+    super(`curator refused to start (${kind}): ${reason}`);
+    this.name = "CuratorStartError";
+  }
+}
+
 export class CuratorProcess {
   private constructor(
     readonly child: ChildProcess,
@@ -95,7 +107,7 @@ export class CuratorProcess {
             const parsed = JSON.parse(line) as ReadyLine & { ready?: boolean; error?: { kind?: string; message?: string } };
             if (parsed.ready === false) {
               clearTimeout(timer);
-              reject(new Error(`curator refused to start (${parsed.error?.kind}): ${parsed.error?.message}`));
+              reject(new CuratorStartError(parsed.error?.kind ?? "unknown", parsed.error?.message ?? "", stderrRef.text));
               return;
             }
             if (typeof parsed.address === "string") {
