@@ -34,14 +34,28 @@ function bindAddress(listen: string): { bind: string; tcp: boolean } {
   throw new BadInputError(`listen address ${JSON.stringify(listen)} must be ipc://PATH or tcp://HOST:PORT`);
 }
 
+/** Opens the policy's service and serves it on `listen`. */
 export async function startCurator(opts: {
   policyFile: string;
   listen: string;
   curve?: CurveKey;
 }): Promise<RunningCurator> {
-  const { bind, tcp } = bindAddress(opts.listen);
-  const curve = opts.curve ?? (tcp ? curveKeyPair() : undefined);
+  bindAddress(opts.listen);
   const service = await CuratorService.open(opts.policyFile);
+  return serveCurator(service, { listen: opts.listen, ...(opts.curve ? { curve: opts.curve } : {}) });
+}
+
+/** Serves an open service on `listen`; close() also closes the service. */
+export async function serveCurator(service: CuratorService, opts: { listen: string; curve?: CurveKey }): Promise<RunningCurator> {
+  let bound: { bind: string; tcp: boolean };
+  try {
+    bound = bindAddress(opts.listen);
+  } catch (e: unknown) {
+    await service.close();
+    throw e;
+  }
+  const { bind, tcp } = bound;
+  const curve = opts.curve ?? (tcp ? curveKeyPair() : undefined);
   const router = new Router({
     maxMessageSize: HARD_FRAME_LIMIT,
     linger: 0,

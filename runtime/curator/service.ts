@@ -13,24 +13,63 @@ import { HushError, OverCapError, ProtocolError, UnauthorizedError, UnknownDatas
 import {
   MAX_FRAME_BYTES,
   PROTOCOL_VERSION,
+  type ColumnInfo,
   type DatasetInfo,
+  type MechanismRecord,
   type LedgerEntry,
   type Preview,
   type QueryPlan,
   type Release,
+  type ReleaseRow,
   type Request,
   type Response,
   type ResponseBody,
   type SpendSummary,
 } from "../protocol/messages.js";
 import { parseRequest } from "../protocol/schema.js";
-import { Answerer } from "./answer.js";
-import { Engine } from "./engine.js";
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
 import { verifyToken } from "./tokens.js";
+
+/** What the service needs from the answering side (answer.ts's Answerer; tests may pass a small fake). */
+export interface PreparedRelease {
+  dataset: string;
+  digest: string;
+  plan: unknown;
+  unit: "epsilon" | "rho";
+  cost: Rational;
+  notes: string[];
+  compute(bits: Bits): Promise<{
+    groupColumns: string[];
+    rows: ReleaseRow[];
+    confidence: number;
+    intervalMethod: string;
+    mechanisms: MechanismRecord[];
+    notes: string[];
+  }>;
+}
+
+export interface AnswerSource {
+  datasetColumns(dataset: string): ColumnInfo[];
+  prepare(analyst: string, plan: unknown): PreparedRelease | Promise<PreparedRelease>;
+  preview(
+    analyst: string,
+    plan: unknown,
+  ):
+    | { prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }
+    | Promise<{ prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }>;
+}
+
+export interface ServiceParts {
+  policy: LoadedPolicy;
+  answerer: AnswerSource;
+  ledger: Ledger;
+  key: CuratorKey;
+  /** Closed with the service (the data engine). */
+  engine?: { close(): Promise<void> | void };
+}
 
 const OPS = new Set(["catalogue", "open", "ask", "preview", "spend", "ledger"]);
 const UNAUTHORIZED = "unauthorized: unknown analyst or wrong token";
@@ -83,13 +122,20 @@ export class CuratorService {
   private readonly inFlight = new Set<Promise<unknown>>();
   private closing = false;
 
-  private constructor(
-    readonly policy: LoadedPolicy,
-    private readonly engine: Engine,
-    private readonly answerer: Answerer,
-    private readonly ledger: Ledger,
-    readonly key: CuratorKey,
-  ) {}
+  readonly policy: LoadedPolicy;
+  readonly key: CuratorKey;
+  private readonly answerer: AnswerSource;
+  private readonly ledger: Ledger;
+  private readonly engine: { close(): Promise<void> | void } | undefined;
+
+  /** Assembles a service from its parts; `open` is the normal way in. */
+  constructor(parts: ServiceParts) {
+    this.policy = parts.policy;
+    this.key = parts.key;
+    this.answerer = parts.answerer;
+    this.ledger = parts.ledger;
+    this.engine = parts.engine;
+  }
 
   static async open(policyFile: string): Promise<CuratorService> {
     const policy = await loadPolicy(policyFile);
@@ -100,14 +146,17 @@ export class CuratorService {
     }
     const key = loadCuratorKey(policy.keyPath);
     const ledger = Ledger.open(policy.ledgerPath);
-    let engine: Engine;
     try {
-      engine = await Engine.open(policy);
+      // Loaded here rather than at the top so the request path can be exercised without DuckDB.
+      const { Engine } = await import("./engine.js");
+      const { Answerer } = await import("./answer.js");
+      const engine = await Engine.open(policy);
+      const answerer: AnswerSource = new Answerer(engine, policy);
+      return new CuratorService({ policy, answerer, ledger, key, engine });
     } catch (e: unknown) {
       ledger.close();
       throw e;
     }
-    return new CuratorService(policy, engine, new Answerer(engine, policy), ledger, key);
   }
 
   get publicKeyB64(): string {
@@ -118,8 +167,11 @@ export class CuratorService {
   async close(): Promise<void> {
     this.closing = true;
     while (this.inFlight.size > 0) await Promise.allSettled([...this.inFlight]);
-    await this.engine.close();
-    this.ledger.close();
+    try {
+      await this.engine?.close();
+    } finally {
+      this.ledger.close();
+    }
   }
 
   /** One raw request frame in, one encoded response out. Never throws. */
