@@ -1,0 +1,143 @@
+/**
+ * Reading a notebook for the audit: nbformat 4 JSON, and the release outputs in it. A release
+ * output carries its signed receipt in `output.metadata[OUTPUT_METADATA_KEY]` (runtime/protocol/messages.ts).
+ */
+import { readFileSync } from "node:fs";
+import { BadInputError } from "../../runtime/errors.js";
+import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
+
+export interface NbOutput {
+  output_type: string;
+  data?: Record<string, unknown>;
+  metadata?: Record<string, unknown>;
+  text?: string | string[];
+  name?: string;
+  ename?: string;
+  evalue?: string;
+  execution_count?: number | null;
+}
+
+export interface NbCell {
+  cell_type: string;
+  source: string | string[];
+  outputs?: NbOutput[];
+  execution_count?: number | null;
+  metadata?: Record<string, unknown>;
+  id?: string;
+}
+
+export interface Notebook {
+  nbformat: number;
+  nbformat_minor: number;
+  metadata: Record<string, unknown>;
+  cells: NbCell[];
+}
+
+/** One output that carries (or should carry) a receipt, located by cell and output index. */
+export interface FoundRelease {
+  cell: number;
+  output: number;
+  executionCount: number | null;
+  meta: OutputMetadata;
+  out: NbOutput;
+}
+
+/** An output that looks like a release but has no receipt. */
+export interface Suspect {
+  cell: number;
+  output: number;
+  executionCount: number | null;
+  why: string;
+}
+
+export function joinText(t: string | string[] | undefined): string {
+  return t === undefined ? "" : Array.isArray(t) ? t.join("") : t;
+}
+
+/** Reads and shape-checks a notebook; throws BadInputError (the CLI's exit 2) when it cannot. */
+export function readNotebook(file: string): Notebook {
+  let text: string;
+  try {
+    text = readFileSync(file, "utf8");
+  } catch (e: unknown) {
+    const code = e !== null && typeof e === "object" && "code" in e ? String((e as { code: unknown }).code) : "error";
+    throw new BadInputError(`notebook ${file} cannot be read (${code})`);
+  }
+  return parseNotebook(text, file);
+}
+
+export function parseNotebook(text: string, file: string): Notebook {
+  let doc: unknown;
+  try {
+    doc = JSON.parse(text);
+  } catch {
+    throw new BadInputError(`notebook ${file} is not valid JSON`);
+  }
+  const o = doc as Partial<Notebook> | null;
+  if (o === null || typeof o !== "object" || !Array.isArray(o.cells)) {
+    throw new BadInputError(`notebook ${file} has no "cells" list: not an nbformat notebook`);
+  }
+  if (o.nbformat !== 4) throw new BadInputError(`notebook ${file} is nbformat ${String(o.nbformat)}; only nbformat 4 is supported`);
+  o.cells.forEach((c, i) => {
+    if (c === null || typeof c !== "object" || typeof c.cell_type !== "string") {
+      throw new BadInputError(`notebook ${file}: cell ${i} is not a cell object`);
+    }
+    if (c.outputs !== undefined && !Array.isArray(c.outputs)) throw new BadInputError(`notebook ${file}: cell ${i} has outputs that are not a list`);
+  });
+  return { nbformat: 4, nbformat_minor: o.nbformat_minor ?? 0, metadata: o.metadata ?? {}, cells: o.cells };
+}
+
+/** Text a reader sees for an output: text/plain of a bundle, or the text of a stream. */
+export function shownText(out: NbOutput): string {
+  if (out.output_type === "stream") return joinText(out.text);
+  const plain = out.data?.["text/plain"];
+  return typeof plain === "string" || Array.isArray(plain) ? joinText(plain as string | string[]) : "";
+}
+
+// A release display always shows an error bar and the session's privacy loss; an output showing
+// both without a receipt was typed in or copied, not released. The ε/ρ spend words are the kernel's
+// display vocabulary (runtime/api display); "±" is the error-bar sign from runtime/protocol/format.ts.
+const ERROR_BAR = /±|\[-?\d[\d.e-]*, -?\d[\d.e-]*\]/;
+const SPEND = /(ε|ρ|epsilon|rho)\s*(spent|used|=|:)|(spent|spend|budget|privacy loss)[^\n]*(ε|ρ|epsilon|rho)/i;
+
+function isHushMime(k: string): boolean {
+  return k.startsWith("application/vnd.hush");
+}
+
+export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {
+  const releases: FoundRelease[] = [];
+  const suspects: Suspect[] = [];
+  nb.cells.forEach((cell, ci) => {
+    if (cell.cell_type !== "code") return;
+    const executionCount = typeof cell.execution_count === "number" ? cell.execution_count : null;
+    (cell.outputs ?? []).forEach((out, oi) => {
+      if (out === null || typeof out !== "object") return;
+      const meta = out.metadata?.[OUTPUT_METADATA_KEY];
+      if (meta !== undefined) {
+        const m = meta as Partial<OutputMetadata> | null;
+        if (m === null || typeof m !== "object" || typeof m.receipt !== "object" || m.receipt === null) {
+          suspects.push({ cell: ci, output: oi, executionCount, why: "its hush metadata holds no receipt" });
+          return;
+        }
+        releases.push({
+          cell: ci,
+          output: oi,
+          executionCount,
+          meta: { receipt: m.receipt as Receipt, replay: m.replay === true, dataset: String(m.dataset ?? "") },
+          out,
+        });
+        return;
+      }
+      const hushMime = Object.keys(out.data ?? {}).find(isHushMime);
+      if (hushMime !== undefined) {
+        suspects.push({ cell: ci, output: oi, executionCount, why: `it has a ${hushMime} bundle but no receipt` });
+        return;
+      }
+      const text = shownText(out);
+      if (ERROR_BAR.test(text) && SPEND.test(text)) {
+        suspects.push({ cell: ci, output: oi, executionCount, why: "it shows an error bar and a privacy spend but carries no receipt" });
+      }
+    });
+  });
+  return { releases, suspects };
+}

@@ -1,0 +1,39 @@
+/** The audit report for people: a summary, the findings by cell, and one verdict line. */
+import { formatDecimal } from "../../runtime/protocol/format.js";
+import type { AuditReport } from "./checks.js";
+
+/** The last line of every report; tests and scripts look for its first words. */
+export function verdictLine(r: AuditReport): string {
+  if (r.ok) {
+    return r.receipts === 0
+      ? "verdict: PASS (no releases in this notebook)"
+      : `verdict: PASS (${r.receipts} receipt${r.receipts === 1 ? "" : "s"} verified, spend within the cap)`;
+  }
+  return `verdict: FAIL (${r.findings.length} finding${r.findings.length === 1 ? "" : "s"})`;
+}
+
+function spendText(r: AuditReport): string {
+  if (r.total === null || r.cap === null) return "no spend shown";
+  const sym = r.unit === "rho" ? "ρ" : "ε";
+  let s = `${sym} ${formatDecimal(r.total, 6)} of cap ${formatDecimal(r.cap, 6)}`;
+  if (r.unit === "rho" && r.totalEpsilon !== null) s += ` (ε ${formatDecimal(r.totalEpsilon, 6)} at δ ${r.delta ?? "?"})`;
+  if (r.reviewCap !== null) s += `; review cap ε ${r.reviewCap}`;
+  return s;
+}
+
+export function formatReport(file: string, r: AuditReport): string {
+  const lines: string[] = [];
+  lines.push(`hush audit: ${file}`);
+  lines.push(`  curator key   ${r.keyId}`);
+  if (r.analyst !== null) lines.push(`  analyst       ${r.analyst} on dataset ${r.dataset}`);
+  lines.push(`  releases      ${r.releases} output${r.releases === 1 ? "" : "s"} with receipts, ${r.receipts} distinct, ${r.replays} repeated`);
+  lines.push(`  spend         ${spendText(r)}`);
+  if (r.findings.length > 0) {
+    lines.push("  findings:");
+    for (const f of r.findings) lines.push(`    - [${f.kind}] ${f.message}`);
+  } else {
+    lines.push("  every signature verifies, the chain is whole from seq 1, totals add up exactly, shown values match the signed ones");
+  }
+  lines.push(verdictLine(r));
+  return `${lines.join("\n")}\n`;
+}

@@ -1,0 +1,117 @@
+#!/usr/bin/env node
+/**
+ * The `hush` command. Exit codes, the same for every subcommand:
+ *   0  done, nothing wrong
+ *   1  the job ran and found a problem (an audit finding, a failing cell, a demo that did not pass)
+ *   2  bad input: a missing or unreadable file, bad JSON, a bad key, a bad option
+ *   3  anything else (curator unreachable, internal error)
+ */
+import { Command, CommanderError, Option } from "commander";
+import { isHushError } from "../runtime/errors.js";
+import { runAudit } from "./commands/audit.js";
+import { runDemo } from "./commands/demo.js";
+import { runInstall } from "./commands/install.js";
+import { runKeygen } from "./commands/keygen.js";
+import { runLedger } from "./commands/ledger.js";
+import { runNotebookCommand } from "./commands/run.js";
+import { runServe } from "./commands/serve.js";
+import { runToken } from "./commands/token.js";
+
+export const EXIT = { ok: 0, problem: 1, badInput: 2, other: 3 } as const;
+
+const out = (s: string): void => void process.stdout.write(s);
+
+function exitCodeOf(e: unknown): number {
+  if (isHushError(e)) return e.kind === "bad-input" || e.kind === "policy" ? EXIT.badInput : EXIT.other;
+  return EXIT.other;
+}
+
+function program(): Command {
+  const p = new Command("hush")
+    .description("Privacy-budgeted data analysis in Jupyter: sealed datasets, noisy aggregates with error bars, signed spend receipts")
+    .version("0.1.0")
+    .showHelpAfterError()
+    .exitOverride();
+
+  p.command("install")
+    .description('install the "TypeScript (hush)" Jupyter kernelspec')
+    .addOption(new Option("--user", "install for the current user (default)").conflicts("prefix"))
+    .option("--prefix <dir>", "install under this prefix (e.g. a virtualenv)")
+    .action(async (o: { user?: boolean; prefix?: string }) => {
+      await runInstall(o, out);
+    });
+
+  p.command("serve")
+    .description("run a curator for a steward's policy (tcp with CURVE encryption, or ipc)")
+    .requiredOption("--policy <file>", "the steward's policy (YAML)")
+    .option("--listen <addr>", "tcp://HOST:PORT or ipc://PATH", "tcp://127.0.0.1:0")
+    .option("--curve-key <file>", "CURVE key pair for tcp (created if missing); without it a fresh pair is made per start")
+    .action(async (o: { policy: string; listen: string; curveKey?: string }) => {
+      await runServe(o, out);
+    });
+
+  p.command("keygen")
+    .description("create a curator signing key (Ed25519); the public key goes to reviewers")
+    .requiredOption("--out <file>", "where to write the private key (PEM, mode 0600); the public key goes to FILE.pub")
+    .action((o: { out: string }) => runKeygen(o, out));
+
+  p.command("token")
+    .description("make an analyst token and the hash line for the policy (reads a token from stdin if one is piped in)")
+    .option("--analyst <name>", "analyst name for the policy line", "ANALYST")
+    .action(async (o: { analyst: string }) => {
+      await runToken(o, out);
+    });
+
+  p.command("run")
+    .description("execute a notebook headlessly through the hush kernel and write it with outputs")
+    .argument("<notebook>", "the .ipynb to run")
+    .option("-o, --output <file>", "where to write the executed notebook (default: NAME.out.ipynb beside it)")
+    .option("--keep-going", "run the remaining cells after a cell fails")
+    .action(async (file: string, o: { output?: string; keepGoing?: boolean }) => {
+      const r = await runNotebookCommand(file, o, out);
+      if (r.failed > 0) process.exitCode = EXIT.problem;
+    });
+
+  p.command("audit")
+    .description("check a notebook's spend receipts without the data: signatures, chain, totals, cap, shown values")
+    .argument("<notebook>", "the .ipynb to audit")
+    .requiredOption("--key <pubkey>", "the curator's public key: a .pub file (PEM) or the base64 the curator prints")
+    .option("--cap <epsilon>", "hold the notebook to this epsilon cap (may be stricter than the steward's)")
+    .option("--json", "print the report as JSON")
+    .action((file: string, o: { key: string; cap?: string; json?: boolean }) => {
+      const report = runAudit(file, o, out);
+      if (!report.ok) process.exitCode = EXIT.problem;
+    });
+
+  p.command("ledger")
+    .description("steward's view: spend per analyst and dataset, read from the ledger (read-only)")
+    .requiredOption("--policy <file>", "the steward's policy (YAML); its curator.ledger is read")
+    .option("--analyst <name>", "only this analyst")
+    .option("--json", "print as JSON")
+    .action((o: { policy: string; analyst?: string; json?: boolean }) => runLedger(o, out));
+
+  p.command("demo")
+    .description("the demo: invented clinic data, a local curator, run notebooks/exploration.ipynb, audit the result")
+    .option("--state <dir>", "state directory for the demo run (default: .hush/demo-run in the repository)")
+    .action(async (o: { state?: string }) => {
+      const ok = await runDemo(o, out);
+      if (!ok) process.exitCode = EXIT.problem;
+    });
+  return p;
+}
+
+async function main(): Promise<void> {
+  try {
+    await program().parseAsync(process.argv);
+  } catch (e: unknown) {
+    if (e instanceof CommanderError) {
+      // help and version exit 0; usage errors are bad input
+      process.exitCode = e.exitCode === 0 ? EXIT.ok : EXIT.badInput;
+      return;
+    }
+    process.stderr.write(`hush: ${e instanceof Error ? e.message : String(e)}\n`);
+    process.exitCode = exitCodeOf(e);
+  }
+}
+
+await main();
