@@ -1,25 +1,249 @@
-import type { Rational } from "./rational.js";
-const todo = (): never => {
-  throw new Error("not implemented yet");
-};
+/**
+ * Privacy accounting (methods.md §1–2). Costs are exact rationals. Pure epsilon composes by
+ * addition; zCDP rho composes by addition and its cap is given by the steward as (epsilon, delta),
+ * converted once to a rho cap with the Canonne, Kamath & Steinke (2020) bound. Converted values are
+ * rounded in the safe direction before they are stored or shown: a rho cap down, an epsilon up.
+ */
+import { BadInputError, HushError, OverCapError } from "../errors.js";
+import { Rational } from "./rational.js";
+
 export type AccountingMode = "pure" | "zcdp";
-export function rhoFromEpsilonDelta(_epsilon: Rational, _delta: Rational): Rational { return todo(); }
-export function epsilonFromRho(_rho: Rational, _delta: Rational): Rational { return todo(); }
-export function pureToRho(_epsilon: Rational): Rational { return todo(); }
-export function composeSequential(_costs: Rational[]): Rational { return todo(); }
-export function composeParallel(_costs: Rational[]): Rational { return todo(); }
-export function checkCost(_cost: Rational): void { return todo(); }
+
+/** Throws BadInputError unless cost is an exact rational > 0. */
+export function checkCost(cost: Rational): void {
+  if (!(cost instanceof Rational)) throw new BadInputError("a privacy cost must be an exact rational (parse the decimal string)");
+  if (cost.sign() <= 0) throw new BadInputError(`a privacy cost must be positive, got ${cost}`);
+}
+
+function checkDelta(delta: Rational): number {
+  if (!(delta instanceof Rational) || delta.sign() <= 0 || delta.ge(Rational.ONE)) {
+    throw new BadInputError(`delta must lie strictly between 0 and 1, got ${String(delta)}`);
+  }
+  return delta.toNumber();
+}
+
+/** Pure epsilon-DP implies (epsilon^2/2)-zCDP (Bun & Steinke 2016; [C2.1a], [C2.1b]). */
+export function pureToRho(epsilon: Rational): Rational {
+  checkCost(epsilon);
+  return epsilon.mul(epsilon).div(2n);
+}
+
+/** Sequential composition: costs add (pure epsilon and zCDP rho alike; methods.md §1, [C1.1]). */
+export function composeSequential(costs: Rational[]): Rational {
+  let total = Rational.ZERO;
+  for (const c of costs) {
+    checkCost(c);
+    total = total.add(c);
+  }
+  return total;
+}
+
+/** Parallel composition over a unit-level partition: the maximum (McSherry 2009; [C1.3]). */
+export function composeParallel(costs: Rational[]): Rational {
+  let best = Rational.ZERO;
+  for (const c of costs) {
+    checkCost(c);
+    best = best.max(c);
+  }
+  return best;
+}
+
+/** Bun & Steinke 2016: rho + 2 sqrt(rho ln(1/delta)) ([C2.2*]). */
+export function epsilonBS(rho: number, delta: number): number {
+  return rho + 2 * Math.sqrt(rho * Math.log(1 / delta));
+}
+
+/** CKS 2020 objective at order alpha > 1 (methods.md §2). */
+export function epsilonAtOrder(alpha: number, rho: number, delta: number): number {
+  return alpha * rho + (Math.log(1 / delta) + (alpha - 1) * Math.log1p(-1 / alpha) - Math.log(alpha)) / (alpha - 1);
+}
+
+const GOLDEN = (Math.sqrt(5) - 1) / 2;
+
+/** Golden-section minimisation over u = ln(alpha - 1) in [ln 1e-6, ln 1e6] (methods.md §2 steps 1–4). */
+function minimiseOverOrder(f: (alpha: number) => number): { alpha: number; value: number } {
+  const g = (u: number): number => f(1 + Math.exp(u));
+  let a = Math.log(1e-6);
+  let b = Math.log(1e6);
+  let c = b - GOLDEN * (b - a);
+  let d = a + GOLDEN * (b - a);
+  let fc = g(c);
+  let fd = g(d);
+  for (let i = 0; i < 200 && b - a > 1e-12; i++) {
+    if (fc < fd) {
+      b = d;
+      d = c;
+      fd = fc;
+      c = b - GOLDEN * (b - a);
+      fc = g(c);
+    } else {
+      a = c;
+      c = d;
+      fc = fd;
+      d = a + GOLDEN * (b - a);
+      fd = g(d);
+    }
+  }
+  const u = (a + b) / 2;
+  // Every alpha > 1 gives a valid bound, so report the value at the alpha actually found.
+  return { alpha: 1 + Math.exp(u), value: g(u) };
+}
+
+/** CKS 2020 epsilon at delta for rho-zCDP, binary64 (methods.md §2; [C2.3*]). */
+export function epsilonCKS(rho: number, delta: number): { epsilon: number; alpha: number } {
+  if (rho === 0) return { epsilon: 0, alpha: Infinity };
+  const r = minimiseOverOrder((alpha) => epsilonAtOrder(alpha, rho, delta));
+  return { epsilon: r.value, alpha: r.alpha };
+}
+
+/** CKS 2020 delta at a fixed epsilon for rho-zCDP, minimising ln delta over alpha ([C2.5a]). */
+export function deltaFromRho(rho: Rational, epsilon: Rational): number {
+  const r = rho.toNumber();
+  const e = epsilon.toNumber();
+  if (rho.sign() < 0 || epsilon.sign() < 0) throw new BadInputError("rho and epsilon must be non-negative");
+  if (r === 0) return 0;
+  const lnDelta = (alpha: number): number => (alpha - 1) * (alpha * r - e) - Math.log(alpha) + (alpha - 1) * Math.log1p(-1 / alpha);
+  return Math.min(1, Math.exp(minimiseOverOrder(lnDelta).value));
+}
+
+// Relative margin that covers binary64 error in the conversion before rounding to 6 digits.
+const EPS_MARGIN = 1e-10;
+
+/**
+ * epsilon at delta for rho-zCDP: the better of CKS 2020 and Bun & Steinke 2016, rounded UP to a
+ * short decimal (6 significant digits) so the stored value is never optimistic.
+ */
+export function epsilonFromRho(rho: Rational, delta: Rational): Rational {
+  const d = checkDelta(delta);
+  if (!(rho instanceof Rational) || rho.sign() < 0) throw new BadInputError(`rho must be a non-negative rational, got ${String(rho)}`);
+  if (rho.isZero()) return Rational.ZERO;
+  const r = rho.toNumber();
+  const best = Math.min(epsilonCKS(r, d).epsilon, epsilonBS(r, d));
+  return Rational.fromNumberUp(best * (1 + EPS_MARGIN), 6);
+}
+
+/**
+ * The rho cap for an (epsilon, delta) cap: the largest 6-significant-digit rho whose converted
+ * epsilon (epsilonFromRho, rounded up) is still <= epsilon. epsilon_CKS increases in rho, so
+ * bisection finds the crossing, then the short rational is stepped down until it checks.
+ */
+export function rhoFromEpsilonDelta(epsilon: Rational, delta: Rational): Rational {
+  checkCost(epsilon);
+  const d = checkDelta(delta);
+  const e = epsilon.toNumber();
+  const conv = (r: number): number => Math.min(epsilonCKS(r, d).epsilon, epsilonBS(r, d));
+  let lo = 0;
+  let hi = e; // epsilon(rho) >= rho, so the crossing lies below e
+  for (let i = 0; i < 200; i++) {
+    const mid = (lo + hi) / 2;
+    if (conv(mid) <= e) lo = mid;
+    else hi = mid;
+  }
+  let rho = Rational.fromNumberDown(lo, 6);
+  for (let i = 0; i < 1000 && rho.sign() > 0 && epsilonFromRho(rho, delta).gt(epsilon); i++) {
+    rho = Rational.fromNumberDown(rho.toNumber() * (1 - 1e-6), 6);
+  }
+  if (rho.sign() <= 0) throw new BadInputError(`the cap epsilon ${epsilon} at delta ${delta} leaves no usable rho`);
+  return rho;
+}
+
+/** Reserved cost, to be committed once the release has been made, or released if nothing left. */
 export class Reservation {
   readonly cost: Rational;
-  constructor(cost: Rational) { this.cost = cost; }
-  commit(): void { return todo(); }
-  release(): void { return todo(); }
+  private state: "open" | "committed" | "released" = "open";
+  private readonly onDone: (r: Reservation, commit: boolean) => void;
+
+  constructor(cost: Rational, onDone: (r: Reservation, commit: boolean) => void) {
+    this.cost = cost;
+    this.onDone = onDone;
+  }
+
+  get open(): boolean {
+    return this.state === "open";
+  }
+
+  commit(): void {
+    this.finish(true);
+  }
+
+  release(): void {
+    this.finish(false);
+  }
+
+  private finish(commit: boolean): void {
+    if (this.state !== "open") {
+      throw new HushError("internal", `reservation of ${this.cost} already ${this.state}; cannot ${commit ? "commit" : "release"} it again`);
+    }
+    this.state = commit ? "committed" : "released";
+    this.onDone(this, commit);
+  }
 }
+
+/**
+ * An in-memory, exact budget: can afford → reserve → commit / release. Open reservations count
+ * against the cap, so concurrent queries can never together cross it. The curator wraps this in
+ * its ledger transaction. Costs are epsilon in "pure" mode and rho in "zcdp" mode.
+ */
 export class BudgetAccount {
-  constructor(_args: { mode: AccountingMode; cap: Rational; spent?: Rational }) {}
-  get spent(): Rational { return todo(); }
-  get remaining(): Rational { return todo(); }
-  get cap(): Rational { return todo(); }
-  canAfford(_cost: Rational): boolean { return todo(); }
-  reserve(_cost: Rational): Reservation { return todo(); }
+  readonly mode: AccountingMode;
+  private readonly capValue: Rational;
+  private spentValue: Rational;
+  private reservedValue = Rational.ZERO;
+
+  constructor(args: { mode: AccountingMode; cap: Rational; spent?: Rational }) {
+    if (args.mode !== "pure" && args.mode !== "zcdp") throw new BadInputError(`accounting mode must be "pure" or "zcdp", got ${String(args.mode)}`);
+    checkCost(args.cap);
+    const spent = args.spent ?? Rational.ZERO;
+    if (!(spent instanceof Rational) || spent.sign() < 0) throw new BadInputError("spent budget must be a non-negative rational");
+    this.mode = args.mode;
+    this.capValue = args.cap;
+    this.spentValue = spent;
+  }
+
+  get cap(): Rational {
+    return this.capValue;
+  }
+  get spent(): Rational {
+    return this.spentValue;
+  }
+  get reserved(): Rational {
+    return this.reservedValue;
+  }
+  /** cap - spent - reserved, never below zero. */
+  get remaining(): Rational {
+    const r = this.capValue.sub(this.spentValue).sub(this.reservedValue);
+    return r.sign() < 0 ? Rational.ZERO : r;
+  }
+
+  private unit(): string {
+    return this.mode === "pure" ? "epsilon" : "rho";
+  }
+
+  canAfford(cost: Rational): boolean {
+    checkCost(cost);
+    return this.spentValue.add(this.reservedValue).add(cost).le(this.capValue);
+  }
+
+  /** Holds `cost` against the cap; OverCapError if it would cross it. */
+  reserve(cost: Rational): Reservation {
+    checkCost(cost);
+    if (!this.canAfford(cost)) {
+      const held = this.reservedValue.isZero() ? "" : ` (+ ${this.reservedValue.toDecimal()} reserved)`;
+      throw new OverCapError(
+        `${this.unit()} cost ${cost.toDecimal()} would cross the cap: spent ${this.spentValue.toDecimal()}${held} of cap ${this.capValue.toDecimal()}, remaining ${this.remaining.toDecimal()}`,
+      );
+    }
+    this.reservedValue = this.reservedValue.add(cost);
+    return new Reservation(cost, (r, commit) => {
+      this.reservedValue = this.reservedValue.sub(r.cost);
+      if (commit) this.spentValue = this.spentValue.add(r.cost);
+    });
+  }
+
+  /** zCDP spend expressed as epsilon at delta (rounded up); pure spend as itself. */
+  spentEpsilon(delta?: Rational): Rational {
+    if (this.mode === "pure") return this.spentValue;
+    if (delta === undefined) throw new BadInputError("delta is needed to express zCDP spend as epsilon");
+    return epsilonFromRho(this.spentValue, delta);
+  }
 }

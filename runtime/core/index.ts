@@ -2,25 +2,38 @@
  * Public surface of the privacy core. Everything else in hush imports from here; the modules behind it
  * are pure (no I/O) apart from reading the operating system's CSPRNG in random.ts.
  */
-export { Rational } from "./rational.js";
+export { Rational, bitLength, isqrt } from "./rational.js";
 export { type ByteSource, cryptoBytes, seededBytes, Bits } from "./random.js";
 export { sampleBernoulliExp, sampleDiscreteLaplace, sampleDiscreteGaussian } from "./samplers.js";
 export {
   type GridSpec,
   type Grid,
+  MAX_GRID_UNITS,
   makeGrid,
   toGridUnits,
   fromGridUnits,
   sumSensitivity,
   centredSumSensitivity,
 } from "./fixedpoint.js";
-export { type PrivacyParam, type NoiseLaw, calibrate, costOf, addNoise } from "./mechanisms.js";
+export {
+  type PrivacyParam,
+  type NoiseLaw,
+  type NoisyRelease,
+  calibrate,
+  costOf,
+  addNoise,
+  drawNoise,
+  releaseNoisy,
+  checkLaw,
+} from "./mechanisms.js";
 export {
   type NoisyPart,
   type IntervalResult,
+  type RatioIntervalArgs,
   type VarianceIntervalArgs,
   tailProbability,
   halfWidth,
+  noiseVariance,
   ratioInterval,
   varianceInterval,
   checkConfidence,
@@ -29,6 +42,7 @@ export {
   type AccountingMode,
   rhoFromEpsilonDelta,
   epsilonFromRho,
+  deltaFromRho,
   pureToRho,
   composeSequential,
   composeParallel,
@@ -36,5 +50,5 @@ export {
   BudgetAccount,
   Reservation,
 } from "./accounting.js";
-export { planForHalfWidth, halfWidthFor } from "./planning.js";
-export { exponentialQuantile } from "./quantile.js";
+export { type Plan, planForHalfWidth, halfWidthFor } from "./planning.js";
+export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";

@@ -1,6 +1,95 @@
-import type { NoiseLaw, PrivacyParam } from "./mechanisms.js";
-const todo = (): never => {
-  throw new Error("not implemented yet");
-};
-export function planForHalfWidth(_args: { family: NoiseLaw["family"]; sensitivity: bigint; halfWidthUnits: bigint; confidence: number }): { law: NoiseLaw; param: PrivacyParam; halfWidthUnits: bigint } { return todo(); }
-export function halfWidthFor(_args: { sensitivity: bigint; param: PrivacyParam; confidence: number }): bigint { return todo(); }
+/**
+ * Accuracy-first planning (methods.md §11): from a requested half-width at a confidence to the
+ * smallest privacy cost, and from a cost to the half-width it buys. Public inputs only: no data, no
+ * spend. Rounding goes the accurate way (epsilon up, sigma^2 down) and every plan is confirmed with
+ * the exact tail of the law actually returned.
+ */
+import { BadInputError } from "../errors.js";
+import { checkConfidence, halfWidth } from "./intervals.js";
+import { calibrate, costOf, type NoiseLaw, type PrivacyParam } from "./mechanisms.js";
+import { Rational } from "./rational.js";
+import { gaussianTail } from "./tails.js";
+
+export interface Plan {
+  law: NoiseLaw;
+  param: PrivacyParam;
+  /** half-width actually achieved, <= the requested one */
+  halfWidthUnits: bigint;
+}
+
+function checkPlanInputs(sensitivity: bigint, h: bigint): void {
+  if (typeof sensitivity !== "bigint" || sensitivity <= 0n) throw new BadInputError(`sensitivity must be a positive integer, got ${String(sensitivity)}`);
+  if (typeof h !== "bigint" || h < 0n) throw new BadInputError(`requested half-width must be a non-negative integer of grid units, got ${String(h)}`);
+}
+
+/**
+ * Discrete Laplace: the smallest epsilon with 2 q^(h+1)/(1+q) <= a, q = exp(-epsilon/Delta).
+ * Solved in x = epsilon/Delta (the tail decreases in x) by bisection; [C11.2].
+ */
+export function minEpsilonLaplace(sensitivity: number, h: number, a: number): number {
+  const tail = (x: number): number => (2 * Math.exp(-x * (h + 1))) / (1 + Math.exp(-x));
+  let lo = 0;
+  let hi = 1;
+  while (tail(hi) > a) hi *= 2;
+  for (let i = 0; i < 200; i++) {
+    const mid = (lo + hi) / 2;
+    if (tail(mid) > a) lo = mid;
+    else hi = mid;
+  }
+  return sensitivity * hi;
+}
+
+/** Discrete Gaussian: the largest sigma with P(|X| > h) <= a (the tail increases in sigma); [C11.4a]. */
+export function maxSigmaGaussian(h: number, a: number): number {
+  const tail = (s: number): number => gaussianTail(s * s, h);
+  let lo = 1e-3;
+  if (tail(lo) > a) return 0;
+  let hi = Math.max(1, h);
+  while (tail(hi) <= a) hi *= 2;
+  for (let i = 0; i < 100 && hi - lo > 1e-12 * hi; i++) {
+    const mid = (lo + hi) / 2;
+    if (tail(mid) <= a) lo = mid;
+    else hi = mid;
+  }
+  return lo;
+}
+
+/** Smallest cost whose noise has half-width <= halfWidthUnits at the confidence. */
+export function planForHalfWidth(args: { family: NoiseLaw["family"]; sensitivity: bigint; halfWidthUnits: bigint; confidence: number }): Plan {
+  checkConfidence(args.confidence);
+  checkPlanInputs(args.sensitivity, args.halfWidthUnits);
+  const a = 1 - args.confidence;
+  const h = Number(args.halfWidthUnits);
+  const delta = args.sensitivity;
+  if (args.family === "discrete-laplace") {
+    const epsMin = minEpsilonLaplace(Number(delta), h, a);
+    let eps = Rational.fromNumberUp(epsMin * (1 + 1e-10), 6);
+    for (let i = 0; i < 1000; i++) {
+      const law = calibrate(delta, { epsilon: eps });
+      const got = halfWidth(law, args.confidence);
+      if (got <= args.halfWidthUnits) return { law, param: costOf(law, delta), halfWidthUnits: got };
+      eps = Rational.fromNumberUp(eps.toNumber() * (1 + 1e-6), 6);
+    }
+    throw new BadInputError("could not plan a discrete Laplace cost for this half-width");
+  }
+  if (args.family === "discrete-gaussian") {
+    const sigma = maxSigmaGaussian(h, a);
+    if (!(sigma > 0)) throw new BadInputError(`half-width ${h} is too small to plan at confidence ${args.confidence}`);
+    // sigma^2 = sigma_max^2 rounded down; Delta^2 enters only through rho = Delta^2/(2 sigma^2).
+    let s2 = Rational.fromNumberDown(sigma * sigma * (1 - 1e-10), 6);
+    for (let i = 0; i < 1000 && s2.sign() > 0; i++) {
+      const law: NoiseLaw = { family: "discrete-gaussian", sigma2: s2 };
+      const got = halfWidth(law, args.confidence);
+      if (got <= args.halfWidthUnits) return { law, param: costOf(law, delta), halfWidthUnits: got };
+      s2 = Rational.fromNumberDown(s2.toNumber() * (1 - 1e-6), 6);
+    }
+    throw new BadInputError("could not plan a discrete Gaussian cost for this half-width");
+  }
+  throw new BadInputError(`unknown noise family ${JSON.stringify(args.family)}`);
+}
+
+/** Half-width (grid units) that a cost buys at a confidence. */
+export function halfWidthFor(args: { sensitivity: bigint; param: PrivacyParam; confidence: number }): bigint {
+  checkConfidence(args.confidence);
+  return halfWidth(calibrate(args.sensitivity, args.param), args.confidence);
+}

@@ -1,6 +1,121 @@
-import type { Rational } from "./rational.js";
+/**
+ * Quantiles by the exponential mechanism (McSherry & Talwar 2007) on a public candidate grid,
+ * sampled exactly with a dyadic base in the spirit of Ilvento (2020), methods.md §9. Weights are
+ * integers x^c * 2^(y (C - c)) proportional to beta^c with beta = x/2^y >= exp(-epsilon/(2 Delta')),
+ * and the draw is one UniformInt over their sum: no floating point touches the selection.
+ */
+import { BadInputError } from "../errors.js";
+import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
-const todo = (): never => {
-  throw new Error("not implemented yet");
-};
-export function exponentialQuantile(_args: { countsBelow: bigint[]; n: bigint; p: Rational; epsilon: Rational; bits: Bits; costCap?: bigint }): { index: number; epsilonUsed: Rational } { return todo(); }
+
+export interface QuantileArgs {
+  /** r(y_j) = #{rows < y_j} for each candidate j (strict <, methods.md §9 cautions), non-decreasing */
+  countsBelow: bigint[];
+  /** number of rows (used only inside the mechanism) */
+  n: bigint;
+  /** target quantile in (0, 1) */
+  p: Rational;
+  epsilon: Rational;
+  bits: Bits;
+  /** public cap on the integer cost c' (methods.md §9 step 4); default from epsilon, Delta' and m */
+  costCap?: bigint;
+  /** y of the dyadic base x/2^y (default 20) */
+  baseBits?: number;
+}
+
+export interface QuantileResult {
+  index: number;
+  /** the rational epsilon the ledger charges */
+  epsilonUsed: Rational;
+  /** dyadic base beta = baseNum / 2^baseBits */
+  baseNum: bigint;
+  baseBits: number;
+  /** privacy actually spent, 2 Delta' ln(1/beta) <= epsilon (binary64, for display) */
+  epsilonEffective: number;
+}
+
+/** Integer costs c'_j = |b r_j - a n| for p = a/b, and Delta' = max(a, b - a) (methods.md §9; [C9.1]). */
+export function quantileCosts(countsBelow: bigint[], n: bigint, p: Rational): { costs: bigint[]; sensitivity: bigint } {
+  if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
+  const a = p.num;
+  const b = p.den;
+  const costs = countsBelow.map((r) => {
+    const d = b * r - a * n;
+    return d < 0n ? -d : d;
+  });
+  return { costs, sensitivity: a > b - a ? a : b - a };
+}
+
+/** x = ceil(2^y exp(-epsilon/(2 Delta'))) with a safety margin, so beta >= exp(-epsilon/(2 Delta')) ([C9.3a]). */
+export function dyadicBase(epsilon: Rational, sensitivity: bigint, y: number): bigint {
+  const target = Math.exp(-epsilon.toNumber() / (2 * Number(sensitivity)));
+  const scaled = Math.ceil(2 ** y * target * (1 + 1e-12));
+  const x = BigInt(scaled);
+  const one = 1n << BigInt(y);
+  return x > one ? one : x < 1n ? 1n : x;
+}
+
+/** Integer weights W_j = x^c_j * 2^(y (C - c_j)), C = max c_j ([C9.3c]). */
+export function dyadicWeights(costs: bigint[], x: bigint, y: number): bigint[] {
+  let cMax = 0n;
+  for (const c of costs) if (c > cMax) cMax = c;
+  const yb = BigInt(y);
+  const cache = new Map<bigint, bigint>();
+  return costs.map((c) => {
+    let w = cache.get(c);
+    if (w === undefined) {
+      w = x ** c << (yb * (cMax - c));
+      cache.set(c, w);
+    }
+    return w;
+  });
+}
+
+/** Exponential-mechanism quantile over public candidates; returns the chosen candidate index. */
+export function exponentialQuantile(args: QuantileArgs): QuantileResult {
+  const { countsBelow, n, epsilon, bits } = args;
+  if (!Array.isArray(countsBelow) || countsBelow.length === 0) throw new BadInputError("quantile needs at least one candidate");
+  if (!(epsilon instanceof Rational) || epsilon.sign() <= 0) throw new BadInputError(`epsilon must be positive, got ${String(epsilon)}`);
+  if (typeof n !== "bigint" || n < 0n) throw new BadInputError("row count must be a non-negative integer");
+  for (let j = 0; j < countsBelow.length; j++) {
+    const r = countsBelow[j];
+    if (typeof r !== "bigint" || r < 0n || r > n || (j > 0 && r < countsBelow[j - 1])) {
+      throw new BadInputError("counts below each candidate must be non-decreasing integers in [0, n]");
+    }
+  }
+  const y = args.baseBits ?? 20;
+  if (!Number.isInteger(y) || y < 1 || y > 64) throw new BadInputError(`base bits must be an integer 1..64, got ${y}`);
+  const m = countsBelow.length;
+  const { costs, sensitivity } = quantileCosts(countsBelow, n, args.p);
+  // Default cap (public: depends on epsilon, Delta', m only). Beyond (2 Delta'/eps)(ln m + 40)
+  // a weight is below e^-40 of the best, and the total size stays below ~2^26 bits.
+  const scale = (2 * Number(sensitivity)) / epsilon.toNumber();
+  const byAccuracy = Math.ceil(scale * (Math.log(m) + 40));
+  const bySize = Math.floor(2 ** 26 / (y * m));
+  const cap = args.costCap ?? BigInt(Math.max(byAccuracy, bySize));
+  if (typeof cap !== "bigint" || cap < 1n) throw new BadInputError("cost cap must be a positive integer");
+  const capped = costs.map((c) => (c > cap ? cap : c));
+  const x = dyadicBase(epsilon, sensitivity, y);
+  // Dividing every weight by the same x^cMin 2^0 is a normalisation and leaves the law unchanged.
+  let cMin = capped[0];
+  for (const c of capped) if (c < cMin) cMin = c;
+  const weights = dyadicWeights(
+    capped.map((c) => c - cMin),
+    x,
+    y,
+  );
+  let total = 0n;
+  for (const w of weights) total += w;
+  const r = bits.uniformInt(total);
+  let acc = 0n;
+  let index = m - 1;
+  for (let j = 0; j < m; j++) {
+    acc += weights[j];
+    if (acc > r) {
+      index = j;
+      break;
+    }
+  }
+  const beta = Number(x) / 2 ** y;
+  return { index, epsilonUsed: epsilon, baseNum: x, baseBits: y, epsilonEffective: 2 * Number(sensitivity) * Math.log(1 / beta) };
+}
