@@ -5,11 +5,10 @@
  */
 import { spawn, type ChildProcess } from "node:child_process";
 import { randomUUID } from "node:crypto";
-import { existsSync } from "node:fs";
-import { fileURLToPath } from "node:url";
 import * as zmq from "zeromq";
 import { endpoint, type ConnectionInfo } from "../connection.js";
-import { BadInputError, UnreachableError } from "../../runtime/errors.js";
+import { UnreachableError } from "../../runtime/errors.js";
+import { kernelMainScript } from "../kernelspec.js";
 import { deserialize, request as newRequest, serialize, Signer, type JsonObject, type Message } from "../wire.js";
 import { writeConnectionFile } from "./connection-file.js";
 import { OUTPUT_MESSAGE_TYPES, OutputCollector, type NbOutput } from "./outputs.js";
@@ -214,7 +213,7 @@ export class KernelProcess {
   }
 
   private async spawnAndWait(): Promise<void> {
-    const argv = (this.opts.argv ?? [process.execPath, kernelMainPath(), "--connection-file", "{connection_file}"]).map(
+    const argv = (this.opts.argv ?? [process.execPath, kernelMainScript(), "--connection-file", "{connection_file}"]).map(
       (a) => a.replace("{connection_file}", this.connectionFile),
     );
     const child = spawn(argv[0], argv.slice(1), {
@@ -302,16 +301,6 @@ export class KernelProcess {
       p.resolve({ reply: p.reply, iopub: p.iopub });
     }
   }
-}
-
-/** dist/kernel/main.js, whether this module runs from dist/ or from sources under vitest. */
-export function kernelMainPath(): string {
-  const candidates = [new URL("../main.js", import.meta.url), new URL("../../dist/kernel/main.js", import.meta.url)];
-  for (const c of candidates) {
-    const p = fileURLToPath(c);
-    if (existsSync(p)) return p;
-  }
-  throw new BadInputError("dist/kernel/main.js not found: run `npx tsc -p .` first");
 }
 
 function delay(ms: number): Promise<void> {
