@@ -1,30 +1,143 @@
 /**
  * How released numbers are shown. The kernel's display and the notebook audit both use this, so
  * the audit can check that what a notebook shows is what the curator signed.
+ *
+ * Everything here works on the exact string, never through a binary float: a value such as
+ * "0.30000000000000004" or "1e-7" must show the same on every machine, and the half-width of an
+ * error bar is computed by exact subtraction so "23.5" and "24.3" give "± 0.8", not "± 0.8000000000000007".
  */
 
-/** Shows an exact decimal string with at most `sig` significant digits (integers keep all digits). */
-export function formatDecimal(value: string | null, sig = 6): string {
-  if (value === null) return "n/a";
-  const m = /^(-?)(\d+)(?:\.(\d+))?$/.exec(value.trim());
-  if (!m) throw new TypeError(`formatDecimal: not a decimal string: ${JSON.stringify(value)}`);
-  const [, sign, intPart, frac = ""] = m;
-  if (frac === "") return sign + intPart.replace(/^0+(?=\d)/, "");
-  const n = Number(value);
-  if (Math.abs(n) >= 10 ** sig) return sign + intPart.replace(/^0+(?=\d)/, "");
-  let s = Number(n.toPrecision(sig)).toString();
-  if (/e/.test(s)) s = n.toFixed(Math.min(20, sig + 6)).replace(/0+$/, "").replace(/\.$/, "");
-  return s === "-0" ? "0" : s;
+/** Inputs with an exponent beyond this are refused (they would expand into huge digit strings). */
+const MAX_EXPONENT = 400;
+/** Non-integers smaller than 10^-SCI_BELOW show in scientific form ("1.5e-9"), larger ones in plain form. */
+const SCI_BELOW = 6;
+
+/** A non-negative exact rational num/den (den > 0) with a separate sign. */
+interface Exact {
+  neg: boolean;
+  num: bigint;
+  den: bigint;
 }
 
-/** "12.5 ± 0.75" from an estimate and its interval ends (the half-width is the larger side). */
+const DECIMAL = /^([+-]?)(?:(\d+)(?:\.(\d*))?|\.(\d+))(?:[eE]([+-]?\d+))?$/;
+const FRACTION = /^([+-]?)(\d+)\/(\d+)$/;
+
+function parseExact(value: string, fn: string): Exact {
+  const s = value.trim();
+  const d = DECIMAL.exec(s);
+  if (d) {
+    const [, sign, intPart = "", fracA, fracB, expText] = d;
+    const frac = fracA ?? fracB ?? "";
+    const exp = expText === undefined ? 0 : Number(expText);
+    if (!Number.isSafeInteger(exp) || Math.abs(exp) > MAX_EXPONENT) {
+      throw new TypeError(`${fn}: exponent out of range in ${JSON.stringify(value)}`);
+    }
+    // digits × 10^(exp - frac.length)
+    const digits = BigInt((intPart + frac).replace(/^0+(?=\d)/, "") || "0");
+    const shift = exp - frac.length;
+    const num = shift >= 0 ? digits * 10n ** BigInt(shift) : digits;
+    const den = shift >= 0 ? 1n : 10n ** BigInt(-shift);
+    return { neg: sign === "-" && num !== 0n, num, den };
+  }
+  const f = FRACTION.exec(s);
+  if (f) {
+    const [, sign, n, dd] = f;
+    const num = BigInt(n);
+    const den = BigInt(dd);
+    if (den === 0n) throw new TypeError(`${fn}: zero denominator in ${JSON.stringify(value)}`);
+    return { neg: sign === "-" && num !== 0n, num, den };
+  }
+  throw new TypeError(`${fn}: not a decimal string: ${JSON.stringify(value)}`);
+}
+
+/** Rounds num/den to the nearest integer, halves away from zero (common practice for display). */
+function roundHalfAway(num: bigint, den: bigint): bigint {
+  const q = num / den;
+  const r = num % den;
+  return 2n * r >= den ? q + 1n : q;
+}
+
+/** e such that 10^e <= num/den < 10^(e+1), for num > 0. */
+function magnitude(num: bigint, den: bigint): number {
+  let e = num.toString().length - den.toString().length;
+  const ge = (k: number): boolean => (k >= 0 ? num >= den * 10n ** BigInt(k) : num * 10n ** BigInt(-k) >= den);
+  while (!ge(e)) e -= 1;
+  while (ge(e + 1)) e += 1;
+  return e;
+}
+
+/** "m × 10^-k" written as a plain decimal with trailing zeros removed. */
+function plain(m: bigint, k: number): string {
+  if (k <= 0) return (m * 10n ** BigInt(-k)).toString();
+  const s = m.toString().padStart(k + 1, "0");
+  const int = s.slice(0, s.length - k);
+  const frac = s.slice(s.length - k).replace(/0+$/, "");
+  return frac === "" ? int : `${int}.${frac}`;
+}
+
+function formatExact(x: Exact, sig: number): string {
+  if (x.num === 0n) return "0";
+  const sign = x.neg ? "-" : "";
+  // Integers keep all their digits: a count of 12345678 is shown as such, not as 1.23457e7.
+  if (x.num % x.den === 0n) return sign + (x.num / x.den).toString();
+  let e = magnitude(x.num, x.den);
+  // Many integer digits already: round to a whole number rather than drop integer digits.
+  if (e >= sig - 1) return sign + roundHalfAway(x.num, x.den).toString();
+  const k = sig - 1 - e; // fraction digits that leave `sig` significant digits
+  let fd = k;
+  let m = k >= 0 ? roundHalfAway(x.num * 10n ** BigInt(k), x.den) : roundHalfAway(x.num, x.den * 10n ** BigInt(-k));
+  if (m === 10n ** BigInt(sig)) {
+    // 9.999996 rounds up to 10.0000: one more integer digit, one fewer fraction digit.
+    e += 1;
+    m /= 10n;
+    fd -= 1;
+  }
+  if (e < -SCI_BELOW) {
+    const mant = plain(m, sig - 1);
+    return `${sign}${mant}e${e}`;
+  }
+  return sign + plain(m, fd);
+}
+
+function checkSig(sig: number, fn: string): void {
+  if (!Number.isInteger(sig) || sig < 1 || sig > 30) throw new RangeError(`${fn}: sig must be an integer in [1, 30]`);
+}
+
+/**
+ * Shows an exact decimal string with at most `sig` significant digits (integers keep all digits).
+ * Accepts plain ("-12.50"), exponent ("1e-6", "2.5E+3") and fraction ("1/3") forms; throws a
+ * TypeError on anything else. Rounds halves away from zero; "-0.0" shows as "0".
+ */
+export function formatDecimal(value: string | null, sig = 6): string {
+  if (value === null) return "n/a";
+  checkSig(sig, "formatDecimal");
+  return formatExact(parseExact(value, "formatDecimal"), sig);
+}
+
+function sub(a: Exact, b: Exact): Exact {
+  const an = a.neg ? -a.num : a.num;
+  const bn = b.neg ? -b.num : b.num;
+  const num = an * b.den - bn * a.den;
+  return { neg: num < 0n, num: num < 0n ? -num : num, den: a.den * b.den };
+}
+
+function same(a: Exact, b: Exact): boolean {
+  return a.neg === b.neg && a.num * b.den === b.num * a.den;
+}
+
+/**
+ * "12.5 ± 0.75" from an estimate and its interval ends when the interval is symmetric (checked
+ * exactly), otherwise "12.5 [11.9, 13.4]". Missing ends show the estimate alone; a missing estimate "n/a".
+ */
 export function formatWithError(value: string | null, low: string | null, high: string | null, sig = 6): string {
   if (value === null) return "n/a";
-  if (low === null || high === null) return formatDecimal(value, sig);
-  const v = Number(value);
-  const lo = Number(low);
-  const hi = Number(high);
-  const symmetric = Math.abs(v - lo - (hi - v)) <= 1e-9 * Math.max(1, Math.abs(v));
-  if (symmetric) return `${formatDecimal(value, sig)} ± ${formatDecimal(String(hi - v), sig)}`;
-  return `${formatDecimal(value, sig)} [${formatDecimal(low, sig)}, ${formatDecimal(high, sig)}]`;
+  checkSig(sig, "formatWithError");
+  const v = parseExact(value, "formatWithError");
+  if (low === null || high === null) return formatExact(v, sig);
+  const lo = parseExact(low, "formatWithError");
+  const hi = parseExact(high, "formatWithError");
+  const below = sub(v, lo);
+  const above = sub(hi, v);
+  if (same(below, above) && !above.neg) return `${formatExact(v, sig)} ± ${formatExact(above, sig)}`;
+  return `${formatExact(v, sig)} [${formatExact(lo, sig)}, ${formatExact(hi, sig)}]`;
 }
