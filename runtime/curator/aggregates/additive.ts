@@ -1,0 +1,218 @@
+/**
+ * Aggregates built from noisy exact sums, ungrouped or grouped by public keys: count, sum, mean,
+ * variance and std. Every declared key is released (also keys absent from the data).
+ *
+ * Sensitivities, in grid units, under add/remove of one unit (methods.md §7). Each unit keeps at
+ * most k = maxRows rows in total (1 without a unit column), and each kept row falls in exactly one
+ * group, so for the whole vector of groups:
+ *   count:          L1 = L2 = k                      (a unit adds at most k to the cells, summed)
+ *   sum:            L1 = L2 = k * M,  M = max(|L|,|U|)/g   (sumSensitivity)
+ *   centred sum:    L1 = L2 = k * (U-L)/g  in half-units g/2, each row adding 2x - (L+U)/g
+ *   centred squares:L1 = L2 = k * ((U-L)/g)^2 in quarter-units (g/2)^2  (methods.md §8)
+ * The L2 bound: a vector of non-negative per-cell changes summing to at most S has L2 norm <= S.
+ * These are no larger than the L0 * Linf * M of methods.md §7 with Linf = k, so bounding the
+ * groups per unit (maxGroups) would not lower them: the total bound k is what is enforced.
+ */
+import { Rational, addNoise, ratioInterval, sumSensitivity, varianceInterval } from "../../core/index.js";
+import type { Bits } from "../../core/index.js";
+import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
+import type { Engine, TableColumn } from "../engine.js";
+import type { ColumnPolicy } from "../policy.js";
+import type { Params } from "../sql.js";
+import { type Allocator, type NoisySpec, exactDecimal, halfWidthValue, mechanismRecord, sqrtRational } from "./budget.js";
+import { type Piece, type Source, fetchCells, groupLabels, keyTuples, rowsPerUnit } from "./common.js";
+
+type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
+const HALF = Rational.of(1n, 2n);
+const THIRD = Rational.of(1n, 3n);
+
+function laws(specs: NoisySpec[]): string {
+  return specs[0].law.family === "discrete-laplace" ? "discrete Laplace" : "discrete Gaussian";
+}
+
+function hw(spec: NoisySpec, stat: string, column: string | null, confidence: number): Preview["halfWidths"][number] {
+  return { stat, column, halfWidth: exactDecimal(halfWidthValue(spec, confidence)) };
+}
+
+function groupedNote(src: Source, keys: readonly GroupKey[], columns: string[], cells: number): string[] {
+  if (keys.length === 0) return [];
+  return [
+    `All ${cells} declared key${cells === 1 ? "" : "s"} of ${columns.join(" x ")} are reported, including keys with no rows; rows with a missing ${columns.join(" or ")} are left out.`,
+    `Each key's error bar has its own coverage (not simultaneous across keys).`,
+  ];
+}
+
+function noisyRow(key: string[], stat: string, column: string | null, noisy: bigint, spec: NoisySpec, confidence: number): ReleaseRow {
+  const h = halfWidthValue(spec, confidence);
+  const v = spec.step.mul(noisy);
+  return { key, stat, column, value: exactDecimal(v), low: exactDecimal(v.sub(h)), high: exactDecimal(v.add(h)) };
+}
+
+/** Noisy count of kept rows per declared cell. */
+export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], fraction: Rational, stat = "count"): Piece {
+  const { columns, labels, cells } = groupLabels(src, keys);
+  const k = rowsPerUnit(src);
+  // L1 = L2 = k for the whole count vector (see the file header).
+  const spec = alloc.additive(keys.length === 0 ? "count" : `count by ${columns.join(", ")}`, BigInt(k), fraction, Rational.ONE);
+  const conf = alloc.confidence;
+  return {
+    mechanisms: [mechanismRecord(spec)],
+    cost: spec.cost,
+    halfWidths: [hw(spec, stat, null, conf)],
+    notes: groupedNote(src, keys, columns, cells),
+    methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
+    size: cells,
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, seed, keys, [], () => ["count(*)"]);
+      const tuples = keyTuples(labels);
+      return data.map((v, i) => noisyRow(tuples[i], stat, null, addNoise(v[0], spec.law, bits), spec, conf));
+    },
+  };
+}
+
+/** Noisy clamped sum per declared cell. */
+export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
+  const c = col.policy as NumericPolicy;
+  const { columns, labels, cells } = groupLabels(src, keys);
+  // L1 = L2 = k * max(|L|,|U|)/g in grid units (methods.md §7 table, [C7.1]).
+  const sens = sumSensitivity(c.grid, rowsPerUnit(src));
+  const spec = alloc.additive(`sum of ${c.name}${keys.length ? ` by ${columns.join(", ")}` : ""}`, sens, fraction, c.grid.step);
+  const conf = alloc.confidence;
+  return {
+    mechanisms: [mechanismRecord(spec)],
+    cost: spec.cost,
+    halfWidths: [hw(spec, "sum", c.name, conf)],
+    notes: groupedNote(src, keys, columns, cells),
+    methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
+    size: cells,
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, seed, keys, [col.ident], () => [`sum(${col.ident})`]);
+      const tuples = keyTuples(labels);
+      return data.map((v, i) => noisyRow(tuples[i], "sum", c.name, addNoise(v[0], spec.law, bits), spec, conf));
+    },
+  };
+}
+
+function centredExpr(col: TableColumn, ps: Params): string {
+  const c = col.policy as NumericPolicy;
+  // Twice the value minus twice the centre, in half-units: an integer even when (L+U)/2 is off-grid.
+  return `(2 * ${col.ident} - ${ps.big(c.grid.lowerUnits + c.grid.upperUnits)})`;
+}
+
+/** Mean per cell: noisy count of values and noisy centred sum, half the budget each (methods.md §8). */
+export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
+  const c = col.policy as NumericPolicy;
+  const { columns, labels, cells } = groupLabels(src, keys);
+  const k = BigInt(rowsPerUnit(src));
+  const by = keys.length ? ` by ${columns.join(", ")}` : "";
+  const half = c.grid.step.mul(HALF);
+  // count of non-missing values: L1 = k; centred sum in half-units: L1 = k * (U-L)/g (file header).
+  const count = alloc.additive(`count of ${c.name}${by} (for the mean)`, k, fraction.mul(HALF), Rational.ONE);
+  const sum = alloc.additive(`centred sum of ${c.name}${by} (for the mean)`, k * (c.grid.upperUnits - c.grid.lowerUnits), fraction.mul(HALF), half);
+  const conf = alloc.confidence;
+  const lower = Rational.parse(c.lower);
+  const upper = Rational.parse(c.upper);
+  const centre = lower.add(upper).mul(HALF);
+  return {
+    mechanisms: [mechanismRecord(count), mechanismRecord(sum)],
+    cost: count.cost.add(sum.cost),
+    halfWidths: [hw(count, "mean:count", c.name, conf), hw(sum, "mean:centred-sum", c.name, conf)],
+    notes: [
+      ...groupedNote(src, keys, columns, cells),
+      `The mean of ${c.name} splits its budget evenly between a noisy count of values and a noisy sum centred at ${exactDecimal(centre)}.`,
+      `A mean whose noisy count is not positive is reported as unavailable, with the declared range as its interval.`,
+    ],
+    methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (methods.md §8)`],
+    size: cells,
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, seed, keys, [col.ident], (ps) => [`count(${col.ident})`, `sum(${centredExpr(col, ps)})`]);
+      const tuples = keyTuples(labels);
+      return data.map((v, i) => {
+        const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
+        const s = { noisy: addNoise(v[1], sum.law, bits), law: sum.law };
+        const r = ratioInterval({ sum: s, count: n, sumStep: half, lower, upper, confidence: conf, centre });
+        return {
+          key: tuples[i],
+          stat: "mean",
+          column: c.name,
+          value: r.estimate === null ? null : exactDecimal(r.estimate),
+          low: exactDecimal(r.estimate === null ? lower : r.low),
+          high: exactDecimal(r.estimate === null ? upper : r.high),
+        };
+      });
+    },
+  };
+}
+
+/** Variance or std per cell: noisy count, centred sum and centred sum of squares, a third each (methods.md §8). */
+export function spreadPiece(
+  alloc: Allocator,
+  src: Source,
+  keys: readonly GroupKey[],
+  col: TableColumn,
+  fraction: Rational,
+  stat: "variance" | "std",
+): Piece {
+  const c = col.policy as NumericPolicy;
+  const { columns, labels, cells } = groupLabels(src, keys);
+  const k = BigInt(rowsPerUnit(src));
+  const by = keys.length ? ` by ${columns.join(", ")}` : "";
+  const half = c.grid.step.mul(HALF);
+  const width = c.grid.upperUnits - c.grid.lowerUnits;
+  const part = fraction.mul(THIRD);
+  // count: k; centred sum (half-units): k (U-L)/g; centred squares (quarter-units): k ((U-L)/g)^2.
+  const count = alloc.additive(`count of ${c.name}${by} (for the ${stat})`, k, part, Rational.ONE);
+  const sum = alloc.additive(`centred sum of ${c.name}${by} (for the ${stat})`, k * width, part, half);
+  const squares = alloc.additive(`centred sum of squares of ${c.name}${by} (for the ${stat})`, k * width * width, part, half.mul(half));
+  const conf = alloc.confidence;
+  const lower = Rational.parse(c.lower);
+  const upper = Rational.parse(c.upper);
+  const centre = lower.add(upper).mul(HALF);
+  const maxVar = upper.sub(lower).mul(HALF).mul(upper.sub(lower).mul(HALF));
+  return {
+    mechanisms: [mechanismRecord(count), mechanismRecord(sum), mechanismRecord(squares)],
+    cost: count.cost.add(sum.cost).add(squares.cost),
+    halfWidths: [
+      hw(count, `${stat}:count`, c.name, conf),
+      hw(sum, `${stat}:centred-sum`, c.name, conf),
+      hw(squares, `${stat}:centred-squares`, c.name, conf),
+    ],
+    notes: [
+      ...groupedNote(src, keys, columns, cells),
+      `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
+    ],
+    methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
+    size: cells,
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, seed, keys, [col.ident], (ps) => {
+        const d = centredExpr(col, ps);
+        return [`count(${col.ident})`, `sum(${d})`, `sum(${d} * ${d})`];
+      });
+      const tuples = keyTuples(labels);
+      return data.map((v, i) => {
+        const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
+        const s = { noisy: addNoise(v[1], sum.law, bits), law: sum.law };
+        const q = { noisy: addNoise(v[2], squares.law, bits), law: squares.law };
+        const r = varianceInterval({ sumSquares: q, sum: s, count: n, sumStep: half, squareStep: half.mul(half), lower, upper, confidence: conf });
+        const est = r.estimate;
+        const low = est === null ? Rational.ZERO : r.low;
+        const high = est === null ? maxVar : r.high;
+        if (stat === "variance") {
+          return { key: tuples[i], stat, column: c.name, value: est === null ? null : exactDecimal(est), low: exactDecimal(low), high: exactDecimal(high) };
+        }
+        return {
+          key: tuples[i],
+          stat,
+          column: c.name,
+          value: est === null ? null : exactDecimal(sqrtRational(est, 12, "down")),
+          low: exactDecimal(sqrtRational(low, 12, "down")),
+          high: exactDecimal(sqrtRational(high, 12, "up")),
+        };
+      });
+    },
+  };
+}
+
+function round(x: number): string {
+  return String(Number(x.toPrecision(6)));
+}

@@ -1,0 +1,198 @@
+/**
+ * Turning a privacy ask into noise laws and exact costs, before any data is read.
+ *
+ * Dataset accounting decides the noise family and the unit of cost:
+ *   pure  + { epsilon }  -> discrete Laplace, cost in epsilon (methods.md §4).
+ *   zcdp  + { rho }      -> discrete Gaussian, cost in rho (methods.md §5).
+ *   zcdp  + { epsilon }  -> discrete Laplace at that epsilon, charged rho = epsilon^2/2: an
+ *                           epsilon-DP mechanism is (epsilon^2/2)-zCDP (Bun & Steinke 2016, §2).
+ *   pure  + { rho }      -> refused (a rho guarantee is not an epsilon-DP guarantee).
+ *   { within, confidence } -> accuracy first (methods.md §11): the smallest parameter whose
+ *                           half-width at that confidence is at most `within`; only for releases
+ *                           made of one noisy vector (count, sum, histogram, crosstab, grouped).
+ * Several parts of one release compose sequentially (costs add, methods.md §1).
+ */
+import { BadInputError } from "../../errors.js";
+import {
+  type NoiseLaw,
+  type PrivacyParam,
+  Rational,
+  calibrate,
+  costOf,
+  halfWidth,
+  planForHalfWidth,
+  pureToRho,
+} from "../../core/index.js";
+import type { MechanismRecord, PrivacyAsk } from "../../protocol/messages.js";
+import type { DatasetPolicy } from "../policy.js";
+
+/** One noisy vector, fully determined before the data is read. */
+export interface NoisySpec {
+  target: string;
+  sensitivity: bigint;
+  law: NoiseLaw;
+  /** Cost in the dataset's accounting unit. */
+  cost: Rational;
+  /** Value of one unit of the noisy integer. */
+  step: Rational;
+}
+
+export interface ExponentialSpec {
+  target: string;
+  /** Unit-level epsilon of the mechanism. */
+  epsilon: Rational;
+  cost: Rational;
+}
+
+export class Allocator {
+  readonly unit: "epsilon" | "rho";
+  readonly family: NoiseLaw["family"];
+  readonly confidence: number;
+  private readonly ask: { kind: "epsilon"; total: Rational } | { kind: "rho"; total: Rational } | { kind: "within"; h: Rational };
+  readonly notes: string[] = [];
+
+  constructor(dataset: DatasetPolicy, ask: PrivacyAsk, confidence: number) {
+    this.confidence = confidence;
+    const zcdp = dataset.accounting.mode === "zcdp";
+    this.unit = zcdp ? "rho" : "epsilon";
+    if ("epsilon" in ask) {
+      this.ask = { kind: "epsilon", total: parseAsk(ask.epsilon, "plan.privacy.epsilon") };
+      this.family = "discrete-laplace";
+      if (zcdp) {
+        this.notes.push(
+          `Asked in epsilon on a zCDP dataset: answered with epsilon-DP (discrete Laplace) noise and charged rho = epsilon^2/2 per part (Bun & Steinke 2016).`,
+        );
+      }
+    } else if ("rho" in ask) {
+      if (!zcdp) {
+        throw new BadInputError(`plan.privacy.rho: dataset ${dataset.name} uses pure epsilon accounting; ask with epsilon or within`);
+      }
+      this.ask = { kind: "rho", total: parseAsk(ask.rho, "plan.privacy.rho") };
+      this.family = "discrete-gaussian";
+    } else {
+      const h = Rational.parse(String(ask.within).replace("e+", "e"));
+      this.ask = { kind: "within", h };
+      this.family = zcdp ? "discrete-gaussian" : "discrete-laplace";
+    }
+  }
+
+  get accuracyFirst(): boolean {
+    return this.ask.kind === "within";
+  }
+
+  /** Cost of a noise law in the dataset's accounting unit. */
+  private costIn(law: NoiseLaw, sensitivity: bigint): Rational {
+    const p = costOf(law, sensitivity);
+    if ("epsilon" in p) return this.unit === "rho" ? pureToRho(p.epsilon) : p.epsilon;
+    return p.rho;
+  }
+
+  /** The parameter share `fraction` of the ask. */
+  private share(fraction: Rational): PrivacyParam {
+    if (this.ask.kind === "epsilon") return { epsilon: this.ask.total.mul(fraction) };
+    if (this.ask.kind === "rho") return { rho: this.ask.total.mul(fraction) };
+    throw new Error("share of an accuracy-first ask");
+  }
+
+  /** An additive-noise part: `fraction` of the budget, or the accuracy target when accuracy-first. */
+  additive(target: string, sensitivity: bigint, fraction: Rational, step: Rational): NoisySpec {
+    let law: NoiseLaw;
+    if (this.ask.kind === "within") {
+      const units = this.ask.h.div(step).floor();
+      if (units < 1n) {
+        throw new BadInputError(`plan.privacy.within: must be at least one step of the released value (${step.toDecimal(20)})`);
+      }
+      law = planForHalfWidth({ family: this.family, sensitivity, halfWidthUnits: units, confidence: this.confidence }).law;
+    } else {
+      law = calibrate(sensitivity, this.share(fraction));
+    }
+    return { target, sensitivity, law, cost: this.costIn(law, sensitivity), step };
+  }
+
+  /**
+   * An exponential-mechanism part (pure epsilon-DP). Under a rho ask the share r becomes
+   * epsilon = sqrt(2 r) rounded down, so its charge epsilon^2/2 stays within r.
+   */
+  exponential(target: string, fraction: Rational): ExponentialSpec {
+    if (this.ask.kind === "within") throw new BadInputError("plan.privacy.within: accuracy-first asks do not apply to quantiles; ask with epsilon or rho");
+    if (this.ask.kind === "epsilon") {
+      const epsilon = this.ask.total.mul(fraction);
+      return { target, epsilon, cost: this.unit === "rho" ? pureToRho(epsilon) : epsilon };
+    }
+    const r = this.ask.total.mul(fraction);
+    let epsilon = Rational.fromNumberDown(Math.sqrt(2 * r.toNumber()), 6);
+    while (epsilon.sign() > 0 && pureToRho(epsilon).gt(r)) epsilon = epsilon.mul(Rational.of(999999n, 1000000n));
+    if (epsilon.sign() <= 0) throw new BadInputError("plan.privacy.rho: too small to run a quantile");
+    return { target, epsilon, cost: pureToRho(epsilon) };
+  }
+}
+
+function parseAsk(s: string, path: string): Rational {
+  let r: Rational;
+  try {
+    r = Rational.parse(s);
+  } catch {
+    throw new BadInputError(`${path}: must be an exact positive number such as "0.5" or "1/3"`);
+  }
+  if (r.sign() <= 0) throw new BadInputError(`${path}: must be positive`);
+  return r;
+}
+
+export function mechanismRecord(s: NoisySpec): MechanismRecord {
+  return {
+    target: s.target,
+    family: s.law.family,
+    scale: s.law.family === "discrete-laplace" ? s.law.scale.toString() : s.law.sigma2.toString(),
+    sensitivity: s.sensitivity.toString(),
+    step: exactDecimal(s.step),
+    cost: s.cost.toString(),
+  };
+}
+
+export function exponentialRecord(s: ExponentialSpec, sensitivity: bigint): MechanismRecord {
+  return {
+    target: s.target,
+    family: "exponential",
+    scale: s.epsilon.toString(),
+    sensitivity: sensitivity.toString(),
+    step: "1",
+    cost: s.cost.toString(),
+  };
+}
+
+/** Half-width of a part in value units, at the release's confidence (no data needed). */
+export function halfWidthValue(s: NoisySpec, confidence: number): Rational {
+  return s.step.mul(halfWidth(s.law, confidence));
+}
+
+/** Exact decimal when the expansion terminates, else rounded to 12 fraction digits (post-processing). */
+export function exactDecimal(r: Rational): string {
+  let d = r.den;
+  while (d % 2n === 0n) d /= 2n;
+  while (d % 5n === 0n) d /= 5n;
+  return d === 1n ? r.toDecimal(1000) : r.toDecimal(12);
+}
+
+/** Square root of a non-negative rational to `digits` fraction digits, rounded down or up. */
+export function sqrtRational(r: Rational, digits: number, dir: "down" | "up"): Rational {
+  if (r.sign() <= 0) return Rational.ZERO;
+  const scale = 10n ** BigInt(2 * digits);
+  const x = (r.num * scale) / r.den; // floor(r * 10^(2d))
+  let s = isqrtBig(x);
+  if (dir === "up" && (s * s !== x || (r.num * scale) % r.den !== 0n)) s += 1n;
+  return Rational.of(s, 10n ** BigInt(digits));
+}
+
+/** floor(sqrt(x)) by Newton's method on bigints. */
+function isqrtBig(x: bigint): bigint {
+  if (x < 2n) return x;
+  let r = 1n << BigInt((x.toString(2).length >> 1) + 1);
+  for (;;) {
+    const next = (r + x / r) >> 1n;
+    if (next >= r) break;
+    r = next;
+  }
+  while (r * r > x) r -= 1n;
+  while ((r + 1n) * (r + 1n) <= x) r += 1n;
+  return r;
+}

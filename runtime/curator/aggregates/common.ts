@@ -1,0 +1,108 @@
+/**
+ * What every aggregate shares: the piece shape (prepared without data, run with data), and the
+ * one SQL shape they all use: filtered rows -> per-unit bounded rows -> GROUP BY the public keys.
+ */
+import type { Bits, Rational } from "../../core/index.js";
+import type { Condition, GroupKey, MechanismRecord, Preview, ReleaseRow } from "../../protocol/messages.js";
+import type { Engine, TableColumn, TableInfo } from "../engine.js";
+import { type GroupSpec, Params, compileGroup, compileWhere, keptRelation } from "../sql.js";
+
+/** Where an aggregate's rows come from: a dataset table and the plan's filter. */
+export interface Source {
+  t: TableInfo;
+  where: Condition | undefined;
+}
+
+/** One part of a release: everything public is known at prepare time; `run` reads the data. */
+export interface Piece {
+  mechanisms: MechanismRecord[];
+  cost: Rational;
+  halfWidths: Preview["halfWidths"];
+  notes: string[];
+  /** How the intervals of this piece are computed, in words. */
+  methods: string[];
+  /** Number of rows `run` returns, fixed by the plan and the policy (never by the data). */
+  size: number;
+  run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]>;
+}
+
+/** Rows per privacy unit after bounding (1 when each row is its own unit). */
+export function rowsPerUnit(src: Source): number {
+  return src.t.hasUnit ? src.t.dataset.unit.maxRows : 1;
+}
+
+/** Public key labels of each group key, and the declared number of cells (their product). */
+export function groupLabels(src: Source, keys: readonly GroupKey[]): { columns: string[]; labels: string[][]; cells: number } {
+  const ps = new Params();
+  const specs = keys.map((k, i) => compileGroup(k, src.t, ps, `plan.groupBy[${i}]`));
+  return { columns: specs.map((s) => s.column), labels: specs.map((s) => s.labels), cells: specs.reduce((n, s) => n * s.labels.length, 1) };
+}
+
+/** Every key tuple in row-major order (the last key varies fastest); [[]] with no keys. */
+export function keyTuples(labels: readonly string[][]): string[][] {
+  let out: string[][] = [[]];
+  for (const l of labels) out = out.flatMap((prefix) => l.map((v) => [...prefix, v]));
+  return out;
+}
+
+/**
+ * Runs `SELECT keys..., aggs... FROM kept GROUP BY keys` and returns one vector of exact integers
+ * per declared cell, in keyTuples order. Cells with no rows get zeros (every declared key is
+ * released, so no output depends on which keys occur). Rows whose key value is NULL are left out.
+ */
+export async function fetchCells(
+  engine: Engine,
+  src: Source,
+  seed: bigint,
+  keys: readonly GroupKey[],
+  cols: readonly string[],
+  aggs: (ps: Params) => string[],
+): Promise<bigint[][]> {
+  const ps = new Params();
+  const where = compileWhere(src.where, src.t, ps);
+  const groups: GroupSpec[] = keys.map((k, i) => compileGroup(k, src.t, ps, `plan.groupBy[${i}]`));
+  const rel = keptRelation(src.t, where, [...groups.map((g) => g.ident), ...cols], ps);
+  const aggList = aggs(ps);
+  const sizes = groups.map((g) => g.labels.length);
+  const cells = sizes.reduce((n, s) => n * s, 1);
+  const out: bigint[][] = Array.from({ length: cells }, () => aggList.map(() => 0n));
+  let sql: string;
+  if (groups.length === 0) {
+    sql = `SELECT ${aggList.join(", ")} FROM (${rel}) AS __kept`;
+  } else {
+    const keySel = groups.map((g, i) => `${g.expr} AS __g${i}`).join(", ");
+    const notNull = groups.map((g) => `${g.ident} IS NOT NULL`).join(" AND ");
+    const by = groups.map((_, i) => String(i + 1)).join(", ");
+    sql = `SELECT ${keySel}, ${aggList.join(", ")} FROM (${rel}) AS __kept WHERE ${notNull} GROUP BY ${by}`;
+  }
+  const rows = await engine.query(sql, ps.values(seed));
+  for (const row of rows) {
+    let index = 0;
+    for (let i = 0; i < groups.length; i++) {
+      const k = Number(row[i]);
+      if (!Number.isInteger(k) || k < 0 || k >= sizes[i]) throw new Error("internal: group index outside the declared keys");
+      index = index * sizes[i] + k;
+    }
+    out[index] = row.slice(groups.length).map(toBigInt);
+  }
+  return out;
+}
+
+function toBigInt(v: unknown): bigint {
+  if (v === null || v === undefined) return 0n;
+  if (typeof v === "bigint") return v;
+  if (typeof v === "number" && Number.isSafeInteger(v)) return BigInt(v);
+  throw new Error("internal: aggregate is not an exact integer");
+}
+
+/** Sorted (grid value, number of kept rows) pairs of one numeric column, missing values left out. */
+export async function fetchValueCounts(engine: Engine, src: Source, seed: bigint, col: TableColumn): Promise<[bigint, bigint][]> {
+  const ps = new Params();
+  const where = compileWhere(src.where, src.t, ps);
+  const rel = keptRelation(src.t, where, [col.ident], ps);
+  const rows = await engine.query(
+    `SELECT ${col.ident}, count(*) FROM (${rel}) AS __kept WHERE ${col.ident} IS NOT NULL GROUP BY 1 ORDER BY 1`,
+    ps.values(seed),
+  );
+  return rows.map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
+}

@@ -1,0 +1,62 @@
+/**
+ * describe: a summary of every public column in one release. Parts: the row count; for each
+ * numeric column its mean, std and median; for each category or boolean column the count of every
+ * declared value. The budget is split evenly across the parts (sequential composition, methods.md
+ * §1) and the split is stated in the notes. Date columns are not summarised.
+ *
+ * Rows use groupColumns ["value"]: key [null] for whole-dataset statistics, [declared value] for
+ * the per-value counts of a category or boolean column (named in `column`).
+ */
+import { Rational } from "../../core/index.js";
+import type { Bits } from "../../core/index.js";
+import type { ReleaseRow } from "../../protocol/messages.js";
+import type { Engine } from "../engine.js";
+import { countPiece, meanPiece, spreadPiece } from "./additive.js";
+import type { Allocator } from "./budget.js";
+import type { Piece, Source } from "./common.js";
+import { quantilePiece } from "./quantile.js";
+
+export function describePiece(alloc: Allocator, src: Source): Piece {
+  const cols = [...src.t.columns.values()];
+  const numeric = cols.filter((c) => c.policy.type === "integer" || c.policy.type === "number");
+  const keyed = cols.filter((c) => c.policy.type === "category" || c.policy.type === "boolean");
+  const skipped = cols.filter((c) => c.policy.type === "date").map((c) => c.policy.name);
+  const parts = 1 + 3 * numeric.length + keyed.length;
+  const share = Rational.of(1n, BigInt(parts));
+
+  type Part = { piece: Piece; column: string | null; keyed: boolean };
+  const list: Part[] = [{ piece: countPiece(alloc, src, [], share), column: null, keyed: false }];
+  for (const c of numeric) {
+    list.push({ piece: meanPiece(alloc, src, [], c, share), column: c.policy.name, keyed: false });
+    list.push({ piece: spreadPiece(alloc, src, [], c, share, "std"), column: c.policy.name, keyed: false });
+    list.push({ piece: quantilePiece(alloc, src, c, [0.5], share), column: c.policy.name, keyed: false });
+  }
+  for (const c of keyed) {
+    list.push({ piece: countPiece(alloc, src, [{ column: c.policy.name }], share), column: c.policy.name, keyed: true });
+  }
+
+  const notes = [
+    `describe splits its budget evenly over ${parts} parts: the row count${numeric.length ? `, mean, std and median of ${numeric.map((c) => c.policy.name).join(", ")}` : ""}${keyed.length ? `, value counts of ${keyed.map((c) => c.policy.name).join(", ")}` : ""} (each part gets 1/${parts}).`,
+  ];
+  if (skipped.length) notes.push(`Date columns are not summarised: ${skipped.join(", ")}.`);
+  for (const p of list) for (const n of p.piece.notes) if (!notes.includes(n)) notes.push(n);
+
+  return {
+    mechanisms: list.flatMap((p) => p.piece.mechanisms),
+    cost: list.reduce((s, p) => s.add(p.piece.cost), Rational.ZERO),
+    halfWidths: list.flatMap((p) => p.piece.halfWidths.map((h) => (p.keyed ? { ...h, column: p.column } : h))),
+    notes,
+    methods: [...new Set(list.flatMap((p) => p.piece.methods))],
+    size: list.reduce((n, p) => n + p.piece.size, 0),
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const out: ReleaseRow[] = [];
+      for (const p of list) {
+        const rows = await p.piece.run(engine, bits, seed);
+        for (const r of rows) {
+          out.push(p.keyed ? { ...r, column: p.column } : { ...r, key: [null] });
+        }
+      }
+      return out;
+    },
+  };
+}

@@ -1,0 +1,105 @@
+/**
+ * Quantiles by the exponential mechanism on the column's public grid (methods.md §9, McSherry &
+ * Talwar 2007; exact dyadic sampling in runtime/core, after Ilvento 2020).
+ *
+ * Ranks come from SQL: one GROUP BY over the kept rows gives the count of each grid value, and a
+ * merge gives r(y_j) = #{x < y_j} for every candidate y_j. Missing values are left out.
+ *
+ * Sensitivity: for p = a/b the integer utility |b r(y) - a n| moves by at most max(a, b-a) when one
+ * row is added or removed; a unit holds at most k rows, so by group privacy (methods.md §1) the
+ * mechanism runs at epsilon/k per row to be epsilon-DP per unit. Several p compose sequentially:
+ * the part's budget is split evenly among them.
+ */
+import { Rational, exponentialQuantile } from "../../core/index.js";
+import type { Bits } from "../../core/index.js";
+import type { ReleaseRow } from "../../protocol/messages.js";
+import type { Engine, TableColumn } from "../engine.js";
+import type { ColumnPolicy } from "../policy.js";
+import { decimalOf } from "../sql.js";
+import { type Allocator, type ExponentialSpec, exactDecimal, exponentialRecord } from "./budget.js";
+import { type Piece, type Source, fetchValueCounts, rowsPerUnit } from "./common.js";
+
+type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
+
+/** Most candidates considered; a finer grid is thinned to every s-th grid point (public rule). */
+export const MAX_CANDIDATES = 10001;
+
+/** "p50", "p2.5", "p99.9" */
+export function quantileStat(p: number): string {
+  return `p${decimalOf(p).mul(Rational.of(100)).toDecimal(20)}`;
+}
+
+/** Candidate grid units: lower, lower + s, ..., and always the upper bound. */
+export function candidates(c: NumericPolicy): bigint[] {
+  const lo = c.grid.lowerUnits;
+  const hi = c.grid.upperUnits;
+  const span = hi - lo;
+  const max = BigInt(MAX_CANDIDATES - 1);
+  const stride = span <= max ? 1n : (span + max - 1n) / max;
+  const out: bigint[] = [];
+  for (let u = lo; u <= hi; u += stride) out.push(u);
+  if (out[out.length - 1] !== hi) out.push(hi);
+  return out;
+}
+
+export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, ps: readonly number[], fraction: Rational): Piece {
+  const c = col.policy as NumericPolicy;
+  const k = rowsPerUnit(src);
+  const cand = candidates(c);
+  const each = fraction.div(Rational.of(ps.length));
+  const parts: { p: Rational; stat: string; spec: ExponentialSpec; sensitivity: bigint }[] = ps.map((p) => {
+    const pr = decimalOf(p);
+    const stat = quantileStat(p);
+    const spec = alloc.exponential(`${stat} of ${c.name}`, each);
+    const a = pr.num;
+    const b = pr.den;
+    // Utility |b r - a n|: per row max(a, b-a), per unit k times that.
+    const sensitivity = BigInt(k) * (a > b - a ? a : b - a);
+    return { p: pr, stat, spec, sensitivity };
+  });
+  const conf = alloc.confidence;
+  const notes = [
+    `Quantiles of ${c.name} use the exponential mechanism over ${cand.length} public candidates on its grid (step ${c.step}${cand.length < Number(c.grid.upperUnits - c.grid.lowerUnits) + 1 ? ", thinned" : ""}); values are clamped to [${c.lower}, ${c.upper}] and missing values left out.`,
+    `No value interval is given for a quantile: the guarantee is on rank. With probability at least ${conf}, beyond the best candidate's own distance, ${parts
+      .map((x) => `${x.stat} has rank within ${rankBound(x, cand.length, conf)} rows of its target`)
+      .join("; ")}.`,
+  ];
+  if (ps.length > 1) notes.push(`The ${ps.length} quantiles share their budget evenly (sequential composition).`);
+  return {
+    mechanisms: parts.map((x) => exponentialRecord(x.spec, x.sensitivity)),
+    cost: parts.reduce((s, x) => s.add(x.spec.cost), Rational.ZERO),
+    halfWidths: [],
+    notes,
+    methods: ["quantiles: no value interval (rank guarantee of the exponential mechanism, McSherry & Talwar 2007)"],
+    size: ps.length,
+    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+      const counts = await fetchValueCounts(engine, src, seed, col);
+      // Merge: counts are sorted by value; r_j = number of values strictly below candidate j.
+      const below: bigint[] = [];
+      let i = 0;
+      let acc = 0n;
+      for (const y of cand) {
+        while (i < counts.length && counts[i][0] < y) acc += counts[i++][1];
+        below.push(acc);
+      }
+      let n = acc;
+      while (i < counts.length) n += counts[i++][1];
+      return parts.map((x) => {
+        const r = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.spec.epsilon.div(Rational.of(k)), bits });
+        const v = c.grid.step.mul(cand[r.index]);
+        return { key: [], stat: x.stat, column: c.name, value: exactDecimal(v), low: null, high: null };
+      });
+    },
+  };
+}
+
+/**
+ * Rank error bound of the exponential mechanism (McSherry & Talwar 2007; methods.md §9):
+ * utility within (2 Delta/eps)(ln m + ln(1/a)) of the best with probability >= 1 - a, in units of
+ * |b r - a n|, so a rank error of that divided by b. Public (no data), rounded up for display.
+ */
+function rankBound(x: { p: Rational; spec: ExponentialSpec; sensitivity: bigint }, m: number, conf: number): string {
+  const eps = x.spec.epsilon.toNumber();
+  const u = ((2 * Number(x.sensitivity)) / eps) * (Math.log(m) + Math.log(1 / (1 - conf)));
+  return String(Math.ceil(u / Number(x.p.den)));
+}

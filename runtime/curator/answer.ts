@@ -1,0 +1,240 @@
+/**
+ * Answering a query plan: validate it against the dataset's public schema, settle the noise and
+ * the exact cost (prepare: reads no data), then run the SQL and add the noise (compute).
+ *
+ * The service (service.ts) calls prepare, checks the budget, debits, then calls compute with the
+ * CSPRNG bits. Nothing here refuses based on data: every declared key is released, the number of
+ * released rows is fixed by the plan and the policy, and a mean with a non-positive noisy count is
+ * released as unavailable rather than refused.
+ */
+import { BadInputError, UnauthorizedError, UnknownDatasetError } from "../errors.js";
+import { Rational } from "../core/index.js";
+import type { Bits } from "../core/index.js";
+import { digestOf } from "../protocol/canonical.js";
+import type { ColumnInfo, DatasetInfo, GroupKey, MechanismRecord, Preview, QueryPlan, ReleaseRow } from "../protocol/messages.js";
+import { parsePlan } from "../protocol/schema.js";
+import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/additive.js";
+import { Allocator } from "./aggregates/budget.js";
+import type { Piece, Source } from "./aggregates/common.js";
+import { describePiece } from "./aggregates/describe.js";
+import { quantilePiece } from "./aggregates/quantile.js";
+import type { Engine, TableColumn, TableInfo } from "./engine.js";
+import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
+import { Params, compileWhere, resolveColumn } from "./sql.js";
+
+export interface PreparedAsk {
+  dataset: string;
+  /** digestOf(normalized plan) */
+  digest: string;
+  /** The plan with defaults filled in. */
+  plan: QueryPlan;
+  unit: "epsilon" | "rho";
+  cost: Rational;
+  notes: string[];
+  compute(bits: Bits): Promise<ComputedRelease>;
+}
+
+export interface ComputedRelease {
+  groupColumns: string[];
+  rows: ReleaseRow[];
+  confidence: number;
+  intervalMethod: string;
+  mechanisms: MechanismRecord[];
+  notes: string[];
+}
+
+export const DEFAULT_CONFIDENCE = 0.95;
+const TWO_63 = 1n << 63n;
+
+function shown(name: string): string {
+  return JSON.stringify(name.length > 40 ? `${name.slice(0, 40)}...` : name);
+}
+
+/** Fills defaults so the same question always has the same digest. */
+function normalize(plan: QueryPlan): QueryPlan {
+  const pc = "within" in plan.privacy ? plan.privacy.confidence : undefined;
+  if (pc !== undefined && plan.confidence !== undefined && pc !== plan.confidence) {
+    throw new BadInputError("plan.privacy.confidence: differs from plan.confidence; give one confidence");
+  }
+  const confidence = plan.confidence ?? pc ?? DEFAULT_CONFIDENCE;
+  const privacy = "within" in plan.privacy ? { within: plan.privacy.within, confidence } : plan.privacy;
+  const out: QueryPlan = { v: plan.v, dataset: plan.dataset, measure: plan.measure, privacy, confidence };
+  if (plan.where !== undefined) out.where = plan.where;
+  if (plan.groupBy !== undefined) out.groupBy = plan.groupBy;
+  return out;
+}
+
+function numericColumn(t: TableInfo, name: string, path: string, what: string): TableColumn {
+  const col = resolveColumn(t, name, path);
+  if (col.policy.type !== "integer" && col.policy.type !== "number") {
+    throw new BadInputError(`${path}: ${what} needs a numeric column; ${shown(name)} is ${col.policy.type}`);
+  }
+  return col;
+}
+
+function keyedColumn(t: TableInfo, name: string, path: string): void {
+  const col = resolveColumn(t, name, path);
+  if (col.policy.type !== "category" && col.policy.type !== "boolean") {
+    throw new BadInputError(`${path}: crosstab needs category or boolean columns; ${shown(name)} is ${col.policy.type}`);
+  }
+}
+
+const ACCURACY_FIRST = new Set(["count", "sum", "histogram", "crosstab"]);
+const GROUPABLE = new Set(["count", "sum", "mean", "variance", "std"]);
+
+export class Answerer {
+  private readonly engine: Engine;
+  private readonly policy: LoadedPolicy;
+
+  constructor(engine: Engine, policy: LoadedPolicy) {
+    this.engine = engine;
+    this.policy = policy;
+  }
+
+  private dataset(name: string): DatasetPolicy {
+    const d = this.policy.datasets.get(name);
+    if (d === undefined || !this.engine.hasDataset(name)) throw new UnknownDatasetError(`no dataset named ${shown(name)}`);
+    return d;
+  }
+
+  /** Public schema of a dataset, in declaration order; the unit column is not part of it. */
+  datasetColumns(dataset: string): ColumnInfo[] {
+    return this.dataset(dataset).columns.map((c): ColumnInfo => {
+      switch (c.type) {
+        case "integer":
+        case "number":
+          return { name: c.name, type: c.type, lower: c.lower, upper: c.upper, step: c.step };
+        case "category":
+          return { name: c.name, type: "category", values: c.values.slice() };
+        case "date":
+          return { name: c.name, type: "date", lower: c.lower, upper: c.upper };
+        case "boolean":
+          return { name: c.name, type: "boolean" };
+      }
+    });
+  }
+
+  describeUnit(dataset: string): DatasetInfo["unit"] {
+    const u = this.dataset(dataset).unit;
+    return { column: u.column, maxRows: u.maxRows, maxGroups: u.maxGroups };
+  }
+
+  /** Validates the plan and settles noise and cost. Reads no data. */
+  prepare(analyst: string, raw: unknown): PreparedAsk {
+    const plan = normalize(parsePlan(raw));
+    const d = this.dataset(plan.dataset);
+    if (!d.analysts.includes(analyst)) throw new UnauthorizedError(`analyst ${shown(analyst)} may not query dataset ${d.name}`);
+    const t = this.engine.table(d.name);
+    const src: Source = { t, where: plan.where };
+    compileWhere(plan.where, t, new Params()); // validates every literal against the schema
+    const alloc = new Allocator(d, plan.privacy, plan.confidence ?? DEFAULT_CONFIDENCE);
+    const { piece, groupColumns, columnsUsed } = this.build(plan, src, alloc);
+    const notes = this.commonNotes(d, t, plan, columnsUsed, alloc, piece);
+    const engine = this.engine;
+    const mechanisms = piece.mechanisms;
+    const confidence = plan.confidence ?? DEFAULT_CONFIDENCE;
+    return {
+      dataset: d.name,
+      digest: digestOf(plan),
+      plan,
+      unit: alloc.unit,
+      cost: piece.cost,
+      notes,
+      async compute(bits: Bits): Promise<ComputedRelease> {
+        // Fresh seed for choosing which rows of a unit are kept (drawn from the CSPRNG bits).
+        const seed = bits.uniformInt(TWO_63);
+        const rows = await piece.run(engine, bits, seed);
+        if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
+        return { groupColumns, rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms, notes };
+      },
+    };
+  }
+
+  /** prepare plus the expected half-widths; reads no data and spends nothing. */
+  preview(analyst: string, raw: unknown): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[] } {
+    const prepared = this.prepare(analyst, raw);
+    const t = this.engine.table(prepared.dataset);
+    const alloc = new Allocator(t.dataset, prepared.plan.privacy, prepared.plan.confidence ?? DEFAULT_CONFIDENCE);
+    const { piece } = this.build(prepared.plan, { t, where: prepared.plan.where }, alloc);
+    return { prepared, halfWidths: piece.halfWidths, notes: prepared.notes };
+  }
+
+  private build(plan: QueryPlan, src: Source, alloc: Allocator): { piece: Piece; groupColumns: string[]; columnsUsed: string[] } {
+    const m = plan.measure;
+    const t = src.t;
+    const keys: GroupKey[] = plan.groupBy ?? [];
+    if (keys.length > 0 && !GROUPABLE.has(m.kind)) {
+      throw new BadInputError(`plan.groupBy: ${m.kind} cannot be grouped (group count, sum, mean, variance or std)`);
+    }
+    if (alloc.accuracyFirst && !ACCURACY_FIRST.has(m.kind)) {
+      throw new BadInputError(`plan.privacy.within: accuracy-first asks apply to count, sum, histogram and crosstab; ask for ${m.kind} with epsilon or rho`);
+    }
+    const seen = new Set<string>();
+    keys.forEach((k, i) => {
+      if (seen.has(k.column)) throw new BadInputError(`plan.groupBy[${i}]: groups by the same column twice`);
+      seen.add(k.column);
+    });
+    const groupColumns = keys.map((k) => k.column);
+    const one = Rational.ONE;
+    switch (m.kind) {
+      case "count":
+        return { piece: countPiece(alloc, src, keys, one), groupColumns, columnsUsed: groupColumns };
+      case "sum": {
+        const col = numericColumn(t, m.column, "plan.measure.column", "sum");
+        return { piece: sumPiece(alloc, src, keys, col, one), groupColumns, columnsUsed: [...groupColumns, m.column] };
+      }
+      case "mean": {
+        const col = numericColumn(t, m.column, "plan.measure.column", "mean");
+        return { piece: meanPiece(alloc, src, keys, col, one), groupColumns, columnsUsed: [...groupColumns, m.column] };
+      }
+      case "variance":
+      case "std": {
+        const col = numericColumn(t, m.column, "plan.measure.column", m.kind);
+        return { piece: spreadPiece(alloc, src, keys, col, one, m.kind), groupColumns, columnsUsed: [...groupColumns, m.column] };
+      }
+      case "quantile": {
+        const col = numericColumn(t, m.column, "plan.measure.column", "a quantile");
+        if (new Set(m.p).size !== m.p.length) throw new BadInputError("plan.measure.p: lists the same probability twice");
+        return { piece: quantilePiece(alloc, src, col, m.p, one), groupColumns: [], columnsUsed: [m.column] };
+      }
+      case "histogram": {
+        numericColumn(t, m.column, "plan.measure.column", "a histogram");
+        const piece = countPiece(alloc, src, [{ column: m.column, bins: m.bins }], one);
+        return { piece, groupColumns: [m.column], columnsUsed: [m.column] };
+      }
+      case "crosstab": {
+        keyedColumn(t, m.rows, "plan.measure.rows");
+        keyedColumn(t, m.cols, "plan.measure.cols");
+        if (m.rows === m.cols) throw new BadInputError("plan.measure.cols: must differ from rows");
+        const piece = countPiece(alloc, src, [{ column: m.rows }, { column: m.cols }], one);
+        return { piece, groupColumns: [m.rows, m.cols], columnsUsed: [m.rows, m.cols] };
+      }
+      case "describe":
+        return { piece: describePiece(alloc, src), groupColumns: ["value"], columnsUsed: [...t.columns.keys()] };
+    }
+  }
+
+  private commonNotes(d: DatasetPolicy, t: TableInfo, plan: QueryPlan, used: string[], alloc: Allocator, piece: Piece): string[] {
+    const conf = plan.confidence ?? DEFAULT_CONFIDENCE;
+    const notes = [
+      `Error bars are noise-only at ${conf} confidence: they cover the privacy noise, not clamping, grid rounding, dropped rows or sampling error.`,
+    ];
+    if (t.hasUnit) {
+      notes.push(
+        `Privacy unit ${d.unit.column}: each unit contributes at most ${d.unit.maxRows} row${d.unit.maxRows === 1 ? "" : "s"} (chosen at random when it has more), so estimates are over kept rows.`,
+      );
+    } else {
+      notes.push("Each row is its own privacy unit.");
+    }
+    for (const name of new Set(used)) {
+      const c = t.columns.get(name)?.policy;
+      if (c !== undefined && (c.type === "integer" || c.type === "number")) {
+        notes.push(`Values of ${c.name} are clamped to [${c.lower}, ${c.upper}] and rounded to steps of ${c.step}.`);
+      }
+    }
+    if (plan.where !== undefined) notes.push("Filters compare numeric values after clamping and rounding to the declared grid.");
+    notes.push(...alloc.notes);
+    for (const n of piece.notes) if (!notes.includes(n)) notes.push(n);
+    return notes;
+  }
+}
