@@ -8,14 +8,9 @@
  */
 import { Command, CommanderError, Option } from "commander";
 import { isHushError } from "../runtime/errors.js";
-import { runAudit } from "./commands/audit.js";
-import { runDemo } from "./commands/demo.js";
-import { runInstall } from "./commands/install.js";
-import { runKeygen } from "./commands/keygen.js";
-import { runLedger } from "./commands/ledger.js";
-import { runNotebookCommand } from "./commands/run.js";
-import { runServe } from "./commands/serve.js";
-import { runToken } from "./commands/token.js";
+
+// Each command's module is loaded only when it runs: `hush audit` must not load the kernel client,
+// the curator or DuckDB, and starts faster without them.
 
 export const EXIT = { ok: 0, problem: 1, badInput: 2, other: 3 } as const;
 
@@ -38,6 +33,7 @@ function program(): Command {
     .addOption(new Option("--user", "install for the current user (default)").conflicts("prefix"))
     .option("--prefix <dir>", "install under this prefix (e.g. a virtualenv)")
     .action(async (o: { user?: boolean; prefix?: string }) => {
+      const { runInstall } = await import("./commands/install.js");
       await runInstall(o, out);
     });
 
@@ -47,18 +43,23 @@ function program(): Command {
     .option("--listen <addr>", "tcp://HOST:PORT or ipc://PATH", "tcp://127.0.0.1:0")
     .option("--curve-key <file>", "CURVE key pair for tcp (created if missing); without it a fresh pair is made per start")
     .action(async (o: { policy: string; listen: string; curveKey?: string }) => {
+      const { runServe } = await import("./commands/serve.js");
       await runServe(o, out);
     });
 
   p.command("keygen")
     .description("create a curator signing key (Ed25519); the public key goes to reviewers")
     .requiredOption("--out <file>", "where to write the private key (PEM, mode 0600); the public key goes to FILE.pub")
-    .action((o: { out: string }) => runKeygen(o, out));
+    .action(async (o: { out: string }) => {
+      const { runKeygen } = await import("./commands/keygen.js");
+      runKeygen(o, out);
+    });
 
   p.command("token")
     .description("make an analyst token and the hash line for the policy (reads a token from stdin if one is piped in)")
     .option("--analyst <name>", "analyst name for the policy line", "ANALYST")
     .action(async (o: { analyst: string }) => {
+      const { runToken } = await import("./commands/token.js");
       await runToken(o, out);
     });
 
@@ -68,6 +69,7 @@ function program(): Command {
     .option("-o, --output <file>", "where to write the executed notebook (default: NAME.out.ipynb beside it)")
     .option("--keep-going", "run the remaining cells after a cell fails")
     .action(async (file: string, o: { output?: string; keepGoing?: boolean }) => {
+      const { runNotebookCommand } = await import("./commands/run.js");
       const r = await runNotebookCommand(file, o, out);
       if (r.failed > 0) process.exitCode = EXIT.problem;
     });
@@ -78,7 +80,8 @@ function program(): Command {
     .requiredOption("--key <pubkey>", "the curator's public key: a .pub file (PEM) or the base64 the curator prints")
     .option("--cap <epsilon>", "hold the notebook to this epsilon cap (may be stricter than the steward's)")
     .option("--json", "print the report as JSON")
-    .action((file: string, o: { key: string; cap?: string; json?: boolean }) => {
+    .action(async (file: string, o: { key: string; cap?: string; json?: boolean }) => {
+      const { runAudit } = await import("./commands/audit.js");
       const report = runAudit(file, o, out);
       if (!report.ok) process.exitCode = EXIT.problem;
     });
@@ -88,12 +91,16 @@ function program(): Command {
     .requiredOption("--policy <file>", "the steward's policy (YAML); its curator.ledger is read")
     .option("--analyst <name>", "only this analyst")
     .option("--json", "print as JSON")
-    .action((o: { policy: string; analyst?: string; json?: boolean }) => runLedger(o, out));
+    .action(async (o: { policy: string; analyst?: string; json?: boolean }) => {
+      const { runLedger } = await import("./commands/ledger.js");
+      runLedger(o, out);
+    });
 
   p.command("demo")
     .description("the demo: invented clinic data, a local curator, run notebooks/exploration.ipynb, audit the result")
     .option("--state <dir>", "state directory for the demo run (default: .hush/demo-run in the repository)")
     .action(async (o: { state?: string }) => {
+      const { runDemo } = await import("./commands/demo.js");
       const ok = await runDemo(o, out);
       if (!ok) process.exitCode = EXIT.problem;
     });

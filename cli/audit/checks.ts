@@ -71,6 +71,14 @@ function at(rel: { cell: number; executionCount: number | null }): string {
   return rel.executionCount === null ? `cell ${rel.cell}` : `cell ${rel.cell} (In [${rel.executionCount}])`;
 }
 
+/** A rational as a reader writes it: a decimal when it has a finite one, else a fraction. */
+function shown(r: Rational): string {
+  let d = r.den;
+  while (d % 2n === 0n) d /= 2n;
+  while (d % 5n === 0n) d /= 5n;
+  return d === 1n ? r.toDecimal(1000) : r.toString();
+}
+
 function exact(s: unknown): Rational | null {
   if (typeof s !== "string") return null;
   try {
@@ -119,8 +127,10 @@ function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[]): void {
       findings.push({ cell: rel.cell, kind: "malformed", message: `${at(rel)}: receipt seq ${r.seq} holds a value that is not a decimal (${rowLabel(row)})` });
       continue;
     }
+    // The signed figure must stand on its own: "24.5 ± 1.25" inside "924.5 ± 1.25" is not a match.
+    const pattern = new RegExp(`(?<![\\d.])${expected.replace(/[.*+?^${}()|[\]\\]/g, "\\$&")}(?![\\d])`);
     for (const [mime, text] of views) {
-      if (!text.includes(expected)) {
+      if (!pattern.test(text)) {
         findings.push({
           cell: rel.cell,
           kind: "shown-value",
@@ -274,7 +284,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
       findings.push({
         cell: rel.cell,
         kind: "total",
-        message: `${at(rel)}: receipt seq ${r.seq}: total ${r.total} is not the previous total ${prevTotal.toString()} plus cost ${r.cost} (cost or total changed)`,
+        message: `${at(rel)}: receipt seq ${r.seq}: total ${r.total} is not the previous total ${shown(prevTotal)} plus cost ${r.cost} (cost or total changed)`,
       });
     }
     if (cap === null || cap0 === null || !cap.eq(cap0)) {
@@ -298,14 +308,14 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
         findings.push({ cell: last.rel.cell, kind: "malformed", message: `${at(last.rel)}: zCDP receipt seq ${last.r.seq} has no delta, so its epsilon cannot be stated` });
       } else {
         eps = epsilonFromRho(total, delta);
-        totalEpsilon = eps.toDecimal();
+        totalEpsilon = shown(eps);
       }
     }
     if (opts.cap !== undefined && eps !== null && eps.gt(opts.cap)) {
       findings.push({
         cell: null,
         kind: "cap",
-        message: `the notebook spends epsilon ${eps.toDecimal()}, over the review cap ${opts.cap.toDecimal()}`,
+        message: `the notebook spends epsilon ${shown(eps)}, over the review cap ${shown(opts.cap)}`,
       });
     }
   }
@@ -324,7 +334,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     cap: last?.r.cap ?? null,
     totalEpsilon,
     delta: last?.r.delta ?? null,
-    reviewCap: opts.cap?.toDecimal() ?? null,
+    reviewCap: opts.cap === undefined ? null : shown(opts.cap),
     findings,
   };
 }

@@ -1,0 +1,78 @@
+/**
+ * A notebook assembled in the test from receipts signed by the curator's own signing code
+ * (runtime/curator/receipts.ts) with a real Ed25519 key. It stands in for an executed notebook
+ * where the kernel is not needed: the audit reads only JSON, receipts and the public key.
+ * The figures are invented; their arithmetic (exact running totals) is what matters.
+ */
+import { Rational } from "../../runtime/core/index.js";
+import type { CuratorKey } from "../../runtime/curator/keys.js";
+import { signReceipt } from "../../runtime/curator/receipts.js";
+import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
+import { formatWithError } from "../../runtime/protocol/format.js";
+import { OUTPUT_METADATA_KEY, type Receipt } from "../../runtime/protocol/messages.js";
+import { GENESIS_PREV, receiptHash } from "../../runtime/protocol/receipts.js";
+
+type Row = Receipt["result"][number];
+
+/** A chain of receipts for one analyst and dataset with the given costs and result rows. */
+export function signedChain(key: CuratorKey, who: { analyst: string; dataset: string; cap: string }, parts: { cost: string; rows: Row[] }[]): Receipt[] {
+  let prev = GENESIS_PREV;
+  let total = Rational.ZERO;
+  return parts.map((p, i) => {
+    total = total.add(Rational.parse(p.cost));
+    const r = signReceipt(
+      {
+        analyst: who.analyst,
+        dataset: who.dataset,
+        seq: i + 1,
+        digest: String(i + 1).padStart(64, "0"),
+        unit: "epsilon",
+        cost: p.cost,
+        total: total.toString(),
+        cap: who.cap,
+        result: p.rows,
+        mechanisms: [{ target: "count", family: "discrete-laplace", scale: "20", sensitivity: "1", step: "1", cost: p.cost }],
+        issuedAt: `2025-03-0${i + 1}T10:00:00.000Z`,
+        prev,
+      },
+      key,
+    );
+    prev = receiptHash(r);
+    return r;
+  });
+}
+
+function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"]>[number] {
+  const lines = r.result.map(([k, stat, column, v, lo, hi]) => {
+    const label = [...k, column === null ? stat : `${stat}(${column})`].join(" · ");
+    return `${label}: ${formatWithError(v, lo, hi)}`;
+  });
+  lines.push(`ε ${replay ? "0 (repeat)" : r.cost} · spent ${r.total} of ${r.cap}`);
+  return {
+    output_type: "display_data",
+    data: { "text/plain": lines.join("\n") },
+    metadata: { [OUTPUT_METADATA_KEY]: { receipt: r, replay, dataset: r.dataset } },
+  };
+}
+
+/** Markdown, a plain code cell, one cell per receipt, and a repeat of the second release at the end. */
+export function assembleNotebook(receipts: Receipt[]): Notebook {
+  const cells: NbCell[] = [
+    { cell_type: "markdown", source: "# Course assignment\n", metadata: {} },
+    { cell_type: "code", source: 'const v = await hush.open("visits-course")', execution_count: 1, outputs: [], metadata: {} },
+  ];
+  receipts.forEach((r, i) => {
+    cells.push({ cell_type: "code", source: `// release ${r.seq}`, execution_count: i + 2, outputs: [releaseOutput(r)], metadata: {} });
+  });
+  cells.push({
+    cell_type: "code",
+    source: "// the second question again: answered from the ledger at no cost",
+    execution_count: receipts.length + 2,
+    outputs: [releaseOutput(receipts[1], true)],
+    metadata: {},
+  });
+  return { nbformat: 4, nbformat_minor: 5, metadata: { kernelspec: { name: "hush", display_name: "TypeScript (hush)", language: "typescript" } }, cells };
+}
+
+export const rowsOf = (stat: string, column: string | null, values: [string, string, string][], keys: string[][] = [[]]): Row[] =>
+  values.map(([v, lo, hi], i) => [keys[i] ?? [], stat, column, v, lo, hi]);
