@@ -1,0 +1,57 @@
+import { describe, expect, it } from "vitest";
+import { BadInputError } from "../../runtime/errors.js";
+import { halfWidth } from "../../runtime/core/intervals.js";
+import { halfWidthFor, maxSigmaGaussian, minEpsilonLaplace, planForHalfWidth } from "../../runtime/core/planning.js";
+import { Rational } from "../../runtime/core/rational.js";
+
+const R = Rational.parse;
+const rel = (a: number, b: number): number => Math.abs(a - b) / Math.abs(b);
+
+describe("accuracy-first planning (methods.md §11), Delta = 1, H = 10, a = 0.05", () => {
+  it("[C11.2] discrete Laplace: smallest epsilon with integer half-width <= 10 -> 0.284348512423", () => {
+    expect(rel(minEpsilonLaplace(1, 10, 0.05), 0.284348512423)).toBeLessThan(1e-9);
+    const plan = planForHalfWidth({ family: "discrete-laplace", sensitivity: 1n, halfWidthUnits: 10n, confidence: 0.95 });
+    // rounded up to 6 significant digits, confirmed with the exact tail
+    expect(plan.param).toEqual({ epsilon: R("0.284349") });
+    expect(plan.halfWidthUnits).toBe(10n);
+    expect(halfWidth(plan.law, 0.95)).toBe(10n);
+    // one unit less in the 6th digit no longer reaches h = 10
+    expect(halfWidthFor({ sensitivity: 1n, param: { epsilon: R("0.284348") }, confidence: 0.95 })).toBe(11n);
+  });
+  it("[C11.4a] discrete Gaussian: largest sigma with half-width <= 10 -> 5.36501138658; [C11.4b] rho 0.0173711555124", () => {
+    const sigma = maxSigmaGaussian(10, 0.05);
+    expect(rel(sigma, 5.36501138658)).toBeLessThan(1e-9);
+    const plan = planForHalfWidth({ family: "discrete-gaussian", sensitivity: 1n, halfWidthUnits: 10n, confidence: 0.95 });
+    expect(plan.law).toEqual({ family: "discrete-gaussian", sigma2: R("28.7833") });
+    expect(plan.halfWidthUnits).toBe(10n);
+    if (!("rho" in plan.param)) throw new Error("expected rho");
+    // sigma^2 rounded down, so rho is slightly above the exact minimum
+    expect(plan.param.rho.toNumber()).toBeGreaterThanOrEqual(0.0173711555124);
+    expect(rel(plan.param.rho.toNumber(), 0.0173711555124)).toBeLessThan(1e-5);
+  });
+  it("larger sensitivities scale the cost; plans round-trip through halfWidthFor", () => {
+    for (const family of ["discrete-laplace", "discrete-gaussian"] as const) {
+      for (const [d, h] of [
+        [10000n, 29957n],
+        [3n, 0n],
+        [1n, 1n],
+        [20n, 500n],
+      ] as const) {
+        const plan = planForHalfWidth({ family, sensitivity: d, halfWidthUnits: h, confidence: 0.9 });
+        expect(plan.halfWidthUnits <= h).toBe(true);
+        expect(halfWidthFor({ sensitivity: d, param: plan.param, confidence: 0.9 })).toBe(plan.halfWidthUnits);
+      }
+    }
+    // [C6.3b] read backwards: epsilon = 1 at Delta = 10000 gives h = 29957, so planning h = 29957 costs <= 1
+    const p = planForHalfWidth({ family: "discrete-laplace", sensitivity: 10000n, halfWidthUnits: 29957n, confidence: 0.95 });
+    if (!("epsilon" in p.param)) throw new Error("expected epsilon");
+    expect(p.param.epsilon.le(R("1"))).toBe(true);
+  });
+  it("refuses bad inputs", () => {
+    expect(() => planForHalfWidth({ family: "discrete-laplace", sensitivity: 0n, halfWidthUnits: 1n, confidence: 0.95 })).toThrow(BadInputError);
+    expect(() => planForHalfWidth({ family: "discrete-laplace", sensitivity: 1n, halfWidthUnits: -1n, confidence: 0.95 })).toThrow(BadInputError);
+    expect(() => planForHalfWidth({ family: "discrete-laplace", sensitivity: 1n, halfWidthUnits: 1n, confidence: 1 })).toThrow(BadInputError);
+    expect(() => planForHalfWidth({ family: "cauchy" as never, sensitivity: 1n, halfWidthUnits: 1n, confidence: 0.5 })).toThrow(BadInputError);
+    expect(() => halfWidthFor({ sensitivity: 1n, param: { epsilon: R("0") }, confidence: 0.95 })).toThrow(BadInputError);
+  });
+});

@@ -1,0 +1,33 @@
+import { describe, expect, it } from "vitest";
+import { binomialBand, dingPValue, fisherOneSided, hypergeomUpperTail, jstat, logGamma, thinnedPValue } from "./stats.js";
+
+describe("test statistics helpers", () => {
+  it("log-gamma matches factorials and jstat", () => {
+    expect(Math.exp(logGamma(11))).toBeCloseTo(3628800, 6);
+    for (const x of [0.5, 3.7, 120.25, 20001]) expect(logGamma(x)).toBeCloseTo(jstat.gammaln(x), 8);
+  });
+
+  it("hypergeometric tail agrees with jstat on a small table", () => {
+    // jstat.hypgeom.cdf(x, N, m, n): P(X <= x), population N, m successes, n draws
+    for (const k of [3, 5, 8]) {
+      const ours = hypergeomUpperTail(k, 50, 20, 15);
+      const theirs = 1 - jstat.hypgeom.cdf(k - 1, 50, 20, 15);
+      expect(ours).toBeCloseTo(theirs, 10);
+    }
+  });
+
+  // methods.md §12.1 check values, n1 = n2 = 10000, epsilon = 1 (6 digits as shown)
+  it("[C12.3a] Fisher one-sided p, 1104/10000 vs 1000/10000 = 0.00879376", () => {
+    expect(fisherOneSided(1104, 10000, 1000, 10000)).toBeCloseTo(0.00879376, 7);
+  });
+  it("[C12.3b] thinning-averaged p, c1=3000, c2=1000 = 0.0212739; [C12.3d] min(1, 2x) = 0.0425479", () => {
+    expect(thinnedPValue(3000, 10000, 1000, 10000, 1)).toBeCloseTo(0.0212739, 6);
+    expect(dingPValue(3000, 10000, 1000, 10000, 1)).toBeCloseTo(0.0425479, 6);
+  });
+  it("[C12.3c] thinning-averaged p, c1=2600, c2=1000 = 0.819856", () => {
+    expect(thinnedPValue(2600, 10000, 1000, 10000, 1)).toBeCloseTo(0.819856, 5);
+  });
+  it("[C12.1a-b] binomial band R=10000, p=0.95, 99.9% = 9427..9570", () => {
+    expect(binomialBand(10000, 0.95, 0.001)).toEqual({ lo: 9427, hi: 9570 });
+  });
+});
