@@ -56,7 +56,7 @@ interface Pending {
 export class KernelProcess {
   private child: ChildProcess | null = null;
   private readonly pending = new Map<string, Pending>();
-  private readonly iopubListeners = new Set<(m: Message) => void>();
+  private readonly listeners = new Set<(channel: "shell" | "control" | "iopub", m: Message) => void>();
   private readonly sendQueues = new Map<zmq.Dealer, Promise<void>>();
   private stderrTail = "";
   private closed = false;
@@ -89,9 +89,9 @@ export class KernelProcess {
     hb.connect(endpoint(info, "hb"));
     const session = randomUUID();
     const k = new KernelProcess(info, path, opts, signer, session, shell, control, iopub, hb);
-    k.receive(shell);
-    k.receive(control);
-    k.receive(iopub);
+    k.receive(shell, "shell");
+    k.receive(control, "control");
+    k.receive(iopub, "iopub");
     try {
       await k.spawnAndWait();
     } catch (e: unknown) {
@@ -110,9 +110,10 @@ export class KernelProcess {
     return this.child?.pid;
   }
 
-  onIopub(listener: (m: Message) => void): () => void {
-    this.iopubListeners.add(listener);
-    return () => this.iopubListeners.delete(listener);
+  /** Sees every correctly signed message from the kernel, answered or not. */
+  onMessage(listener: (channel: "shell" | "control" | "iopub", m: Message) => void): () => void {
+    this.listeners.add(listener);
+    return () => this.listeners.delete(listener);
   }
 
   async execute(code: string, opts: ExecuteOptions = {}): Promise<ExecuteResult> {
@@ -265,18 +266,17 @@ export class KernelProcess {
     throw new UnreachableError(`the kernel did not answer kernel_info_request in time\n${this.stderrTail}`);
   }
 
-  private receive(sock: zmq.Dealer | zmq.Subscriber): void {
-    const isIopub = sock === this.iopub;
+  private receive(sock: zmq.Dealer | zmq.Subscriber, channel: "shell" | "control" | "iopub"): void {
     void (async () => {
       try {
-        for await (const frames of sock) this.handle(frames, isIopub);
+        for await (const frames of sock) this.handle(frames, channel);
       } catch (e: unknown) {
         if (!this.closed) throw e;
       }
     })();
   }
 
-  private handle(frames: Buffer[], isIopub: boolean): void {
+  private handle(frames: Buffer[], channel: "shell" | "control" | "iopub"): void {
     let msg: Message;
     try {
       msg = deserialize(frames, this.signer);
@@ -286,8 +286,8 @@ export class KernelProcess {
     }
     const parentId = (msg.parent_header as { msg_id?: string }).msg_id;
     const p = parentId ? this.pending.get(parentId) : undefined;
-    if (isIopub) {
-      for (const l of this.iopubListeners) l(msg);
+    for (const l of this.listeners) l(channel, msg);
+    if (channel === "iopub") {
       if (!p) return;
       p.iopub.push(msg);
       p.onIopub?.(msg);

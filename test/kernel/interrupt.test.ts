@@ -1,0 +1,58 @@
+/**
+ * interrupt_request (interrupt_mode "message"): the control thread raises SIGINT, which stops a
+ * synchronous cell (vm breakOnSigint) and stops waiting for an awaiting cell.
+ */
+import { existsSync, mkdtempSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { afterAll, beforeAll, expect, it } from "vitest";
+import type { KernelProcess } from "../../kernel/client/index.js";
+import { startKernel } from "./helpers.js";
+
+let k: KernelProcess;
+beforeAll(async () => {
+  k = await startKernel();
+});
+afterAll(async () => {
+  await k?.shutdown().catch(() => k.kill());
+});
+
+/** Resolves once `path` exists (checked every 20 ms; bounded by the test timeout). */
+async function fileAppears(path: string): Promise<void> {
+  while (!existsSync(path)) await new Promise((r) => setTimeout(r, 20));
+}
+
+it("interrupts a cell awaiting in a loop, then runs the next cell", async () => {
+  let started!: () => void;
+  const running = new Promise<void>((r) => (started = r));
+  // The loop checks a flag: an interrupted async cell stops being awaited, but work it already
+  // scheduled keeps running unless it looks at something like this.
+  const exec = k.execute(
+    "console.log('started'); for (let i = 0; !(globalThis as any).stopLoop; i++) await new Promise((r) => setTimeout(r, 10));",
+    { onOutput: (m) => m.header.msg_type === "stream" && started() },
+  );
+  await running;
+  await k.interrupt();
+  const r = await exec;
+  expect(r.reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  expect(r.outputs.at(-1)).toMatchObject({ output_type: "error", ename: "Interrupted" });
+  expect((await k.execute("(globalThis as any).stopLoop = true; 'next'")).reply.status).toBe("ok");
+});
+
+it("interrupts a synchronous busy loop", async () => {
+  const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
+  const exec = k.execute(
+    `import { writeFileSync } from "fs";\nwriteFileSync(${JSON.stringify(marker)}, "x");\nlet spins = 0;\nwhile (true) { spins++; }`,
+  );
+  await fileAppears(marker);
+  await k.interrupt();
+  const r = await exec;
+  expect(r.reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  const after = await k.execute("'still here'");
+  expect(after.outputs[0]).toMatchObject({ data: { "text/plain": "'still here'" } });
+});
+
+it("answers interrupt_request when nothing runs, and keeps working", async () => {
+  await k.interrupt();
+  expect((await k.execute("21 * 2")).outputs[0]).toMatchObject({ data: { "text/plain": "42" } });
+});
