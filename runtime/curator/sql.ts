@@ -280,7 +280,8 @@ export function keptRelation(t: TableInfo, where: string, cols: readonly string[
   if (!t.hasUnit) return `SELECT ${list} FROM ${t.table} WHERE ${where}`;
   const k = params.add({ type: "integer", value: t.dataset.unit.maxRows });
   const seed = params.seed();
-  const outer = cols.length === 0 ? "__one" : [...new Set(cols)].join(", ");
+  // The outer select of the window branch names the inner select's outputs (aliases when given).
+  const outer = cols.length === 0 ? "__one" : [...new Set(cols)].map((c) => c.split(" AS ").pop()).join(", ");
   return (
     `SELECT ${list} FROM ${t.table} WHERE __n <= ${k} AND (${where}) ` +
     `UNION ALL SELECT ${outer} FROM (SELECT ${list}, row_number() OVER (PARTITION BY __u ORDER BY hash(rowid, ${seed})) AS __k ` +
