@@ -34,7 +34,7 @@ function program(): Command {
     .option("--prefix <dir>", "install under this prefix (e.g. a virtualenv)")
     .action(async (o: { user?: boolean; prefix?: string }) => {
       const { runInstall } = await import("./commands/install.js");
-      await runInstall(o, out);
+      runInstall(o, out);
     });
 
   p.command("serve")
