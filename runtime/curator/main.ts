@@ -44,7 +44,18 @@ function say(line: unknown): void {
 }
 
 async function main(): Promise<void> {
-  let running: RunningCurator;
+  let running: RunningCurator | undefined;
+  let stopping = false;
+  const stop = async (why: string): Promise<void> => {
+    if (stopping) return;
+    stopping = true;
+    process.stderr.write(`hush curator: stopping (${why})\n`);
+    try {
+      await running?.close();
+    } finally {
+      process.exit(0);
+    }
+  };
   try {
     const args = parseArgs(process.argv.slice(2));
     let curve: CurveKey | undefined;
@@ -65,17 +76,6 @@ async function main(): Promise<void> {
     process.exitCode = 1;
     return;
   }
-  let stopping = false;
-  const stop = async (why: string): Promise<void> => {
-    if (stopping) return;
-    stopping = true;
-    process.stderr.write(`hush curator: stopping (${why})\n`);
-    try {
-      await running.close();
-    } finally {
-      process.exit(0);
-    }
-  };
   process.on("SIGINT", () => void stop("SIGINT"));
   process.on("SIGTERM", () => void stop("SIGTERM"));
   say({

@@ -1,4 +1,6 @@
 /** The embedded curator: a child process on an ipc socket in a private directory. */
+import { spawn } from "node:child_process";
+import { createInterface } from "node:readline";
 import { mkdtempSync, rmSync, statSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { dirname, join } from "node:path";
@@ -7,7 +9,7 @@ import { CuratorClient } from "../../runtime/client/client.js";
 import { startEmbeddedCurator } from "../../runtime/client/embedded.js";
 import { PolicyError } from "../../runtime/errors.js";
 import { verifyReceipt, loadPublicKey } from "../../runtime/protocol/receipts.js";
-import { countPlan, makeWorkspace, requireBuild, type Workspace } from "./helpers.js";
+import { ROOT, countPlan, makeWorkspace, requireBuild, type Workspace } from "./helpers.js";
 
 function alive(pid: number): boolean {
   try {
@@ -45,6 +47,24 @@ describe("embedded curator", () => {
       await cur.stop();
     }
     expect(alive(cur.pid)).toBe(false);
+  });
+
+  it("does not outlive a parent killed with SIGKILL", async () => {
+    requireBuild();
+    const parent = spawn(
+      process.execPath,
+      [join(ROOT, "test/integration/fixtures/embedded-parent.mjs"), join(ROOT, "dist/runtime/client/embedded.js"), ws.policyFile, ws.dir],
+      { stdio: ["ignore", "pipe", "inherit"] },
+    );
+    const line = await new Promise<string>((ok) => createInterface({ input: parent.stdout! }).once("line", ok));
+    const { pid } = JSON.parse(line) as { pid: number };
+    expect(alive(pid)).toBe(true);
+    const parentGone = new Promise((ok) => parent.once("exit", ok));
+    parent.kill("SIGKILL");
+    await parentGone;
+    // The curator is not our child, so there is no exit event to await: poll, bounded at 30 s.
+    for (let i = 0; i < 600 && alive(pid); i++) await new Promise((r) => setTimeout(r, 50));
+    expect(alive(pid)).toBe(false);
   });
 
   it("reports a broken policy as a PolicyError", async () => {
