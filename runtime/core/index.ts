@@ -50,5 +50,13 @@ export {
   BudgetAccount,
   Reservation,
 } from "./accounting.js";
-export { type Plan, planForHalfWidth, halfWidthFor } from "./planning.js";
+export {
+  type Plan,
+  type MeanPlan,
+  type MeanPlanArgs,
+  planForHalfWidth,
+  halfWidthFor,
+  meanPlanFor,
+  planMeanForHalfWidth,
+} from "./planning.js";
 export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";

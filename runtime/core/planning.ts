@@ -93,3 +93,73 @@ export function halfWidthFor(args: { sensitivity: bigint; param: PrivacyParam; c
   checkConfidence(args.confidence);
   return halfWidth(calibrate(args.sensitivity, args.param), args.confidence);
 }
+
+export interface MeanPlanArgs {
+  family: NoiseLaw["family"];
+  /** sensitivity of the (centred) sum in its grid units */
+  sumSensitivity: bigint;
+  /** sensitivity of the count (rows per unit) */
+  countSensitivity: bigint;
+  /** value of one sum grid unit (g, or g/2 for a centred sum in half-units) */
+  sumStep: Rational;
+  confidence: number;
+  /** public guess of the number of rows (never the true count; methods.md §11 cautions) */
+  expectedCount: number;
+  /** public guess of |mean - centre| in value units (0 when centred at a good guess) */
+  expectedOffset: number;
+}
+
+export interface MeanPlan {
+  sum: { law: NoiseLaw; param: PrivacyParam };
+  count: { law: NoiseLaw; param: PrivacyParam };
+  /** total cost of the two releases (sequential composition) */
+  total: PrivacyParam;
+  /** expected corner half-width in value units, or null when N - h_N <= 0 (the interval is the whole range) */
+  expectedHalfWidth: number | null;
+}
+
+function split(total: Rational, family: NoiseLaw["family"]): PrivacyParam {
+  const half = total.div(2n);
+  return family === "discrete-laplace" ? { epsilon: half } : { rho: half };
+}
+
+/**
+ * Expected half-width of the corner mean interval (methods.md §8, §11 "Means"):
+ * (g h_S + |m - c| h_N) / (N - h_N), with a/2 per part and an equal budget split (§8 default).
+ */
+export function meanPlanFor(args: MeanPlanArgs & { total: Rational }): MeanPlan {
+  checkConfidence(args.confidence);
+  if (!(args.expectedCount > 0) || !Number.isFinite(args.expectedCount)) throw new BadInputError("expected row count must be a positive number");
+  if (!(args.expectedOffset >= 0) || !Number.isFinite(args.expectedOffset)) throw new BadInputError("expected offset of the mean must be a non-negative number");
+  if (args.family !== "discrete-laplace" && args.family !== "discrete-gaussian") throw new BadInputError(`unknown noise family ${JSON.stringify(args.family)}`);
+  const part = split(args.total, args.family);
+  const conf = 1 - (1 - args.confidence) / 2;
+  const sumLaw = calibrate(args.sumSensitivity, part);
+  const countLaw = calibrate(args.countSensitivity, part);
+  const hS = Number(halfWidth(sumLaw, conf));
+  const hN = Number(halfWidth(countLaw, conf));
+  const denom = args.expectedCount - hN;
+  const expectedHalfWidth = denom > 0 ? (args.sumStep.toNumber() * hS + args.expectedOffset * hN) / denom : null;
+  const total: PrivacyParam = args.family === "discrete-laplace" ? { epsilon: args.total } : { rho: args.total };
+  return { sum: { law: sumLaw, param: part }, count: { law: countLaw, param: part }, total, expectedHalfWidth };
+}
+
+/** Smallest total cost (6 significant digits, rounded up) whose expected mean half-width is <= H. */
+export function planMeanForHalfWidth(args: MeanPlanArgs & { halfWidth: Rational }): MeanPlan {
+  if (!(args.halfWidth instanceof Rational) || args.halfWidth.sign() <= 0) throw new BadInputError("requested half-width must be a positive rational");
+  const H = args.halfWidth.toNumber();
+  const ok = (cost: Rational): boolean => {
+    const w = meanPlanFor({ ...args, total: cost }).expectedHalfWidth;
+    return w !== null && w <= H;
+  };
+  // bisection on ln(cost) over [1e-9, 1e9]; the half-width falls as the cost rises
+  let lo = Math.log(1e-9);
+  let hi = Math.log(1e9);
+  if (!ok(Rational.fromNumberUp(Math.exp(hi), 6))) throw new BadInputError("no affordable cost reaches this half-width; check the expected row count");
+  for (let i = 0; i < 80; i++) {
+    const mid = (lo + hi) / 2;
+    if (ok(Rational.fromNumberUp(Math.exp(mid), 6))) hi = mid;
+    else lo = mid;
+  }
+  return meanPlanFor({ ...args, total: Rational.fromNumberUp(Math.exp(hi), 6) });
+}

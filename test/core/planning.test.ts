@@ -1,7 +1,7 @@
 import { describe, expect, it } from "vitest";
 import { BadInputError } from "../../runtime/errors.js";
 import { halfWidth } from "../../runtime/core/intervals.js";
-import { halfWidthFor, maxSigmaGaussian, minEpsilonLaplace, planForHalfWidth } from "../../runtime/core/planning.js";
+import { halfWidthFor, maxSigmaGaussian, meanPlanFor, minEpsilonLaplace, planForHalfWidth, planMeanForHalfWidth } from "../../runtime/core/planning.js";
 import { Rational } from "../../runtime/core/rational.js";
 
 const R = Rational.parse;
@@ -53,5 +53,39 @@ describe("accuracy-first planning (methods.md §11), Delta = 1, H = 10, a = 0.05
     expect(() => planForHalfWidth({ family: "discrete-laplace", sensitivity: 1n, halfWidthUnits: 1n, confidence: 1 })).toThrow(BadInputError);
     expect(() => planForHalfWidth({ family: "cauchy" as never, sensitivity: 1n, halfWidthUnits: 1n, confidence: 0.5 })).toThrow(BadInputError);
     expect(() => halfWidthFor({ sensitivity: 1n, param: { epsilon: R("0") }, confidence: 0.95 })).toThrow(BadInputError);
+  });
+});
+
+describe("mean planning (methods.md §11 'Means', §8 worked example)", () => {
+  // §8 setup: values in [0, 10], g = 1, k = 1, epsilon = 1 split 0.5/0.5 -> h_S = 74 [C8.1a], h_N = 7 [C8.1b]
+  const base = {
+    family: "discrete-laplace" as const,
+    sumSensitivity: 10n,
+    countSensitivity: 1n,
+    sumStep: Rational.ONE,
+    confidence: 0.95,
+    expectedCount: 1000,
+    expectedOffset: 5,
+  };
+  it("epsilon = 1 gives the expected half-width (74 + 5*7)/(1000 - 7)", () => {
+    const p = meanPlanFor({ ...base, total: R("1") });
+    expect(p.sum.law).toEqual({ family: "discrete-laplace", scale: R("20") });
+    expect(p.count.law).toEqual({ family: "discrete-laplace", scale: R("2") });
+    expect(p.expectedHalfWidth).toBeCloseTo((74 + 5 * 7) / 993, 12);
+  });
+  it("inverts: the half-width bought by epsilon = 1 costs at most 1, and a bit less costs a wider interval", () => {
+    const p = planMeanForHalfWidth({ ...base, halfWidth: Rational.fromNumberUp((74 + 5 * 7) / 993, 12) });
+    if (!("epsilon" in p.total)) throw new Error("expected epsilon");
+    expect(p.total.epsilon.le(R("1"))).toBe(true);
+    expect(p.total.epsilon.ge(R("0.99"))).toBe(true);
+    const cheaper = meanPlanFor({ ...base, total: p.total.epsilon.mul(R("0.999")) });
+    expect(cheaper.expectedHalfWidth as number).toBeGreaterThan((74 + 5 * 7) / 993);
+  });
+  it("zCDP plans split rho equally; too few rows gives no finite half-width", () => {
+    const p = planMeanForHalfWidth({ ...base, family: "discrete-gaussian", halfWidth: R("0.5") });
+    expect("rho" in p.total && "rho" in p.sum.param).toBe(true);
+    expect(p.expectedHalfWidth as number).toBeLessThanOrEqual(0.5);
+    expect(meanPlanFor({ ...base, expectedCount: 3, total: R("0.01") }).expectedHalfWidth).toBeNull();
+    expect(() => meanPlanFor({ ...base, expectedCount: -1, total: R("1") })).toThrow(BadInputError);
   });
 });
