@@ -1,0 +1,111 @@
+/**
+ * The aggregates a sealed dataset answers, written once and shared by the table (which runs them
+ * and spends budget) and its `preview` (which only asks what they would cost). Each method builds
+ * the protocol Measure; the subclass decides what to do with it.
+ */
+import { BadInputError } from "../errors.js";
+import type { Measure } from "../protocol/messages.js";
+import type { SpendOptions } from "./privacy.js";
+
+/** Options of a histogram: the number of equal-width bins over the column's declared range, and the spend. */
+export type HistogramOptions = SpendOptions & {
+  /** Number of equal-width bins over the declared range (1 to 1000). */
+  bins: number;
+};
+
+function columnArg(v: unknown, what: string): string {
+  if (typeof v !== "string" || v.trim() === "") throw new BadInputError(`${what}: name a column (a non-empty string)`);
+  return v;
+}
+
+function probabilities(ps: unknown, what: string): number[] {
+  const list = Array.isArray(ps) ? ps : [ps];
+  if (list.length === 0) throw new BadInputError(`${what}: list at least one probability`);
+  list.forEach((p) => {
+    if (typeof p !== "number" || !Number.isFinite(p) || p <= 0 || p >= 1) {
+      throw new BadInputError(`${what}: each probability must lie strictly between 0 and 1 (e.g. 0.5 for the median), got ${String(p)}`);
+    }
+  });
+  if (new Set(list).size !== list.length) throw new BadInputError(`${what}: lists the same probability twice`);
+  return list as number[];
+}
+
+export abstract class Aggregates<R> {
+  /** Runs (or prices) one measure; `what` names the method for error messages. */
+  protected abstract measure(m: Measure, spend: SpendOptions, what: string): Promise<R>;
+
+  /** Number of rows (after the filter), per group when grouped with `.by(...)`. */
+  count(spend: SpendOptions): Promise<R> {
+    return this.measure({ kind: "count" }, spend, "count");
+  }
+
+  /** Sum of a numeric column (values clamped to its declared range). */
+  sum(column: string, spend: SpendOptions): Promise<R> {
+    return this.guard("sum", () => ({ kind: "sum", column: columnArg(column, "sum(column)") }), spend);
+  }
+
+  /** Mean of a numeric column; the budget is split between a noisy sum and a noisy count. */
+  mean(column: string, spend: SpendOptions): Promise<R> {
+    return this.guard("mean", () => ({ kind: "mean", column: columnArg(column, "mean(column)") }), spend);
+  }
+
+  /** Variance of a numeric column. */
+  variance(column: string, spend: SpendOptions): Promise<R> {
+    return this.guard("variance", () => ({ kind: "variance", column: columnArg(column, "variance(column)") }), spend);
+  }
+
+  /** Standard deviation of a numeric column. */
+  std(column: string, spend: SpendOptions): Promise<R> {
+    return this.guard("std", () => ({ kind: "std", column: columnArg(column, "std(column)") }), spend);
+  }
+
+  /** One quantile, p in (0, 1), of a numeric column (exponential mechanism on the column's grid). */
+  quantile(column: string, p: number, spend: SpendOptions): Promise<R> {
+    return this.guard("quantile", () => ({ kind: "quantile", column: columnArg(column, "quantile(column)"), p: probabilities(p, "quantile(p)") }), spend);
+  }
+
+  /** Several quantiles at once, e.g. `[0.25, 0.5, 0.75]`; the budget is split evenly between them. */
+  quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R> {
+    return this.guard("quantiles", () => ({ kind: "quantile", column: columnArg(column, "quantiles(column)"), p: probabilities(ps, "quantiles(ps)") }), spend);
+  }
+
+  /** The median (the 0.5 quantile) of a numeric column. */
+  median(column: string, spend: SpendOptions): Promise<R> {
+    return this.guard("median", () => ({ kind: "quantile", column: columnArg(column, "median(column)"), p: [0.5] }), spend);
+  }
+
+  /** Counts in equal-width bins over a numeric column's declared range: `histogram("age", { bins: 10, epsilon: 0.2 })`. */
+  histogram(column: string, opts: HistogramOptions): Promise<R> {
+    return this.guard(
+      "histogram",
+      () => {
+        const bins = (opts as { bins?: unknown } | undefined)?.bins;
+        if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > 1000) {
+          throw new BadInputError(`histogram: bins must be a whole number from 1 to 1000, got ${String(bins)}`);
+        }
+        return { kind: "histogram", column: columnArg(column, "histogram(column)"), bins };
+      },
+      opts,
+    );
+  }
+
+  /** Counts for every pair of declared values of two category (or boolean) columns. */
+  crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R> {
+    return this.guard("crosstab", () => ({ kind: "crosstab", rows: columnArg(rows, "crosstab(rows)"), cols: columnArg(cols, "crosstab(cols)") }), spend);
+  }
+
+  /** A summary of every column (count; mean, std and median of numbers; counts of categories), budget split evenly. */
+  describe(spend: SpendOptions): Promise<R> {
+    return this.measure({ kind: "describe" }, spend, "describe");
+  }
+
+  private guard(what: string, make: () => Measure, spend: SpendOptions): Promise<R> {
+    let m: Measure;
+    try {
+      m = make();
+    } catch (e: unknown) {
+      return Promise.reject(e);
+    }
+    return this.measure(m, spend, what);
+  }
+}

@@ -1,0 +1,71 @@
+/**
+ * Views of privacy spend: the session's budget report (per dataset: this kernel's spend, the
+ * analyst's total against the cap, the queries of this session) and the analyst's ledger as the
+ * curator keeps it (every receipt, across sessions).
+ */
+import type { LedgerEntry, SpendSummary } from "../protocol/messages.js";
+import type { QueryRecord } from "./session-spend.js";
+import { aligned, planText, plural, q, spendText, unitSymbol } from "./text.js";
+
+/** Spend on one dataset. */
+export interface DatasetBudget {
+  readonly dataset: string;
+  /** The analyst's spend as the curator reports it (all sessions, against the cap). */
+  readonly spend: SpendSummary;
+  /** This kernel session's part, exact, in the dataset's accounting unit. */
+  readonly sessionSpent: string;
+  /** This session's queries on the dataset, oldest first. */
+  readonly queries: readonly QueryRecord[];
+}
+
+/** The privacy budget: for each dataset, what this session spent and what remains under the cap. */
+export class BudgetReport {
+  readonly analyst: string;
+  readonly datasets: readonly DatasetBudget[];
+
+  constructor(analyst: string, datasets: DatasetBudget[]) {
+    this.analyst = analyst;
+    this.datasets = Object.freeze(datasets.map((d) => Object.freeze({ ...d, queries: Object.freeze([...d.queries]) })));
+    Object.freeze(this);
+  }
+
+  /** The budget of one dataset, if it is in the report. */
+  of(dataset: string): DatasetBudget | undefined {
+    return this.datasets.find((d) => d.dataset === dataset);
+  }
+
+  toString(): string {
+    if (this.datasets.length === 0) return `privacy budget of ${this.analyst}: no dataset opened yet (hush.open(name))`;
+    const out = [`privacy budget of ${this.analyst}`];
+    for (const d of this.datasets) {
+      const unit = d.spend.mode === "zcdp" ? "rho" : "epsilon";
+      out.push(`${d.dataset}: this session ${unitSymbol(unit)} ${q(d.sessionSpent)} · ${spendText(d.spend)}`);
+      out.push(
+        ...aligned(
+          d.queries.map((r) => [`#${r.seq} ${r.what}`, r.replay ? "replayed, no new cost" : `${unitSymbol(r.unit)} ${q(r.cost)}`]),
+          "  ",
+        ),
+      );
+    }
+    return out.join("\n");
+  }
+}
+
+/** The analyst's ledger: every release the curator has recorded (this and earlier sessions). */
+export class LedgerView {
+  readonly entries: readonly LedgerEntry[];
+
+  constructor(entries: LedgerEntry[]) {
+    this.entries = Object.freeze(entries.map((e) => Object.freeze(structuredClone(e))));
+    Object.freeze(this);
+  }
+
+  toString(): string {
+    if (this.entries.length === 0) return "ledger: no releases yet";
+    const lines = this.entries.map((e): [string, string] => [
+      `${e.dataset} #${e.seq} ${planText(e.plan)}`,
+      `${unitSymbol(e.receipt.unit)} ${q(e.cost)} → total ${q(e.total)} / ${q(e.receipt.cap)} · ${e.issuedAt}`,
+    ]);
+    return [`ledger: ${plural(this.entries.length, "release")}`, ...aligned(lines, "  ")].join("\n");
+  }
+}

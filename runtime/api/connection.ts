@@ -1,0 +1,140 @@
+/**
+ * Reaches the curator on first use: a configured one (address, analyst, token), or, with nothing
+ * configured, the embedded default — demo data and policy made if missing, a curator started as a
+ * separate local process, and a notice saying so, because an analyst must know where the data is.
+ */
+import { CuratorClient, type CuratorClientOptions } from "../client/client.js";
+import { type EmbeddedCurator, startEmbeddedCurator } from "../client/embedded.js";
+import { HushError, UnreachableError } from "../errors.js";
+import { type HushConfig } from "./config.js";
+import type { CuratorPort } from "./context.js";
+
+export interface DemoSetup {
+  policyFile: string;
+  analyst: string;
+  token: string;
+}
+
+/** The pieces the connector uses; tests replace them with stand-ins. */
+export interface ConnectDeps {
+  connect(opts: CuratorClientOptions): Promise<CuratorPort>;
+  startEmbedded(opts: { policyFile: string }): Promise<EmbeddedCurator>;
+  ensureDemoData(opts: { dir?: string }): Promise<DemoSetup>;
+}
+
+export interface Connection {
+  port: CuratorPort;
+  analyst: string;
+  address: string;
+  /** Set in embedded mode: the local curator the session started. */
+  embedded: { policyFile: string; pid: number; publicKeyB64: string } | null;
+}
+
+/** The demo scenario module, loaded only when needed (it is not part of a steward's deployment). */
+async function loadDemo(opts: { dir?: string }): Promise<DemoSetup> {
+  const spec = new URL("../../notebooks/scenario/generate.js", import.meta.url).href;
+  let mod: { ensureDemoData?: (o: { dir?: string }) => Promise<DemoSetup> };
+  try {
+    mod = (await import(spec)) as typeof mod;
+  } catch (e: unknown) {
+    throw new UnreachableError(
+      "no curator is configured (HUSH_CURATOR / HUSH_CONFIG) and the demo scenario (notebooks/scenario/generate.js) is not available to start a local one; set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN",
+      { cause: e },
+    );
+  }
+  if (typeof mod.ensureDemoData !== "function") throw new UnreachableError("the demo scenario module has no ensureDemoData()");
+  return mod.ensureDemoData(opts);
+}
+
+export const DEFAULT_DEPS: ConnectDeps = {
+  connect: (opts) => CuratorClient.connect(opts),
+  startEmbedded: (opts) => startEmbeddedCurator(opts),
+  ensureDemoData: loadDemo,
+};
+
+/** The first output of an embedded session: where the data is and how to use a real curator instead. */
+export function embeddedNotice(policyFile: string, analyst: string): string {
+  return (
+    `hush: no curator configured — started a local curator on the demo policy ${policyFile}, as analyst ${analyst}. ` +
+    "(local embedded mode: the data lives on this machine, in a separate process; cells only receive noisy aggregates. " +
+    "To use a steward's curator, set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN, or HUSH_CONFIG.)"
+  );
+}
+
+export class Connector {
+  readonly #config: () => HushConfig;
+  readonly #notice: (text: string) => void;
+  readonly #deps: ConnectDeps;
+  #pending: Promise<Connection> | null = null;
+  #embedded: EmbeddedCurator | null = null;
+  #closed = false;
+
+  constructor(config: () => HushConfig, notice: (text: string) => void, deps: Partial<ConnectDeps> = {}) {
+    this.#config = config;
+    this.#notice = notice;
+    this.#deps = { ...DEFAULT_DEPS, ...deps };
+  }
+
+  /** The connection, made on the first call; a failed attempt is retried on the next call. */
+  connection(): Promise<Connection> {
+    if (this.#closed) return Promise.reject(new UnreachableError("this hush session is closed"));
+    this.#pending ??= this.#connect().catch((e: unknown) => {
+      this.#pending = null;
+      throw e;
+    });
+    return this.#pending;
+  }
+
+  async #connect(): Promise<Connection> {
+    const cfg = this.#config();
+    if (cfg.mode === "remote") {
+      const port = await this.#deps.connect({
+        address: cfg.address,
+        analyst: cfg.analyst,
+        token: cfg.token,
+        ...(cfg.curveServerKey !== undefined ? { curveServerKey: cfg.curveServerKey } : {}),
+      });
+      return { port, analyst: cfg.analyst, address: cfg.address, embedded: null };
+    }
+    const demo = await this.#deps.ensureDemoData(cfg.demoDir !== undefined ? { dir: cfg.demoDir } : {});
+    const analyst = cfg.analyst ?? demo.analyst;
+    const token = cfg.token ?? demo.token;
+    const curator = await this.#deps.startEmbedded({ policyFile: demo.policyFile });
+    this.#embedded = curator;
+    try {
+      const port = await this.#deps.connect({ address: curator.address, analyst, token });
+      this.#notice(embeddedNotice(demo.policyFile, analyst));
+      return {
+        port,
+        analyst,
+        address: curator.address,
+        embedded: { policyFile: demo.policyFile, pid: curator.pid, publicKeyB64: curator.publicKeyB64 },
+      };
+    } catch (e: unknown) {
+      this.#embedded = null;
+      await curator.stop();
+      throw e;
+    }
+  }
+
+  /** Closes the client and stops an embedded curator. */
+  async close(): Promise<void> {
+    this.#closed = true;
+    const pending = this.#pending;
+    this.#pending = null;
+    let first: unknown = null;
+    if (pending) {
+      try {
+        const c = await pending;
+        await c.port.close();
+      } catch (e: unknown) {
+        if (!(e instanceof HushError)) first = e;
+      }
+    }
+    if (this.#embedded) {
+      await this.#embedded.stop();
+      this.#embedded = null;
+    }
+    if (first !== null) throw first;
+  }
+}

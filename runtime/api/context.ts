@@ -1,0 +1,69 @@
+/**
+ * What the cell API objects share: a way to reach the curator (lazily: the first query connects or
+ * starts the embedded curator) and this kernel session's spend record. Also the single place that
+ * turns a refusal into an error that states the remaining budget.
+ */
+import { BadInputError, HushError, OverCapError, PolicyError, ProtocolError, UnauthorizedError, UnknownDatasetError, UnreachableError } from "../errors.js";
+import type { SpendSummary } from "../protocol/messages.js";
+import type { CuratorClient } from "../client/client.js";
+import type { SessionSpend } from "./session-spend.js";
+import { remainingText } from "./text.js";
+
+/** The curator operations the API uses (CuratorClient satisfies it; tests may pass a stand-in). */
+export type CuratorPort = Pick<CuratorClient, "catalogue" | "open" | "ask" | "preview" | "spend" | "ledger" | "close">;
+
+export interface ApiContext {
+  /** The curator connection, made on first use. */
+  port(): Promise<CuratorPort>;
+  /** The analyst this session acts for, once connected. */
+  analyst(): Promise<string>;
+  readonly spend: SessionSpend;
+}
+
+/** A refusal's spend summary, when the curator sent one (over-cap errors carry it). */
+function spendOf(e: unknown): SpendSummary | undefined {
+  if (e !== null && typeof e === "object" && "spend" in e) {
+    const s = (e as { spend?: unknown }).spend;
+    if (s !== null && typeof s === "object" && typeof (s as SpendSummary).dataset === "string") return s as SpendSummary;
+  }
+  return undefined;
+}
+
+function sameKind(e: HushError, message: string): HushError {
+  const options = { cause: e };
+  switch (e.kind) {
+    case "bad-input":
+      return new BadInputError(message, options);
+    case "policy":
+      return new PolicyError(message, options);
+    case "over-cap":
+      return new OverCapError(message, options);
+    case "unauthorized":
+      return new UnauthorizedError(message, options);
+    case "unknown-dataset":
+      return new UnknownDatasetError(message, options);
+    case "protocol":
+      return new ProtocolError(message, options);
+    case "unreachable":
+      return new UnreachableError(message, options);
+    case "internal":
+      return new HushError("internal", message, options);
+  }
+}
+
+/**
+ * The same error with a sentence on the budget appended: a refused query spends nothing, and the
+ * analyst sees what remains. Non-hush errors pass through unchanged.
+ */
+export function withBudgetNote(e: unknown, ctx: ApiContext, dataset: string): unknown {
+  if (!(e instanceof HushError)) return e;
+  const s = spendOf(e);
+  if (s) ctx.spend.noteSpend(s);
+  const known = s ?? ctx.spend.latest(dataset);
+  // Only refusals are known to have spent nothing; other failures are reported as they came.
+  if (e.kind !== "bad-input" && e.kind !== "over-cap" && e.kind !== "unknown-dataset") return e;
+  const note = known ? `Nothing was spent; ${remainingText(known)}.` : "Nothing was spent.";
+  const out = sameKind(e, `${e.message}\n${note}`);
+  if (s) Object.assign(out, { spend: s });
+  return out;
+}

@@ -1,0 +1,85 @@
+/**
+ * The answer to "what would this cost, and how precise would it be?" — a preview from the curator,
+ * computed from the plan and the public policy only. Nothing is spent and nothing about the data
+ * is revealed.
+ */
+import type { Preview, SpendSummary } from "../protocol/messages.js";
+import { aligned, percent, q, spendText, unitSymbol } from "./text.js";
+
+export interface ExpectedError {
+  stat: string;
+  column: string | null;
+  /** Expected half-width of the error bar at the preview's confidence. */
+  halfWidth: number;
+  /** The same, exact, as the curator computed it. */
+  exact: string;
+}
+
+/** Cost and expected error of a query that has not been run. */
+export class CostQuote {
+  /** The curator's preview (frozen). */
+  readonly preview: Preview;
+  /** What would be asked, in words. */
+  readonly what: string;
+
+  constructor(preview: Preview, what: string) {
+    this.preview = Object.freeze(structuredClone(preview));
+    this.what = what;
+    Object.freeze(this);
+  }
+
+  /** Cost the query would debit, exact, in `unit` ("0" when it would be a replay). */
+  get cost(): string {
+    return this.preview.replay ? "0" : this.preview.cost;
+  }
+
+  /** Accounting unit of the dataset: "epsilon" (pure) or "rho" (zCDP). */
+  get unit(): "epsilon" | "rho" {
+    return this.preview.unit;
+  }
+
+  /** Expected half-width of each number the query would release. */
+  get expectedErrors(): ExpectedError[] {
+    return this.preview.halfWidths.map((h) => ({ stat: h.stat, column: h.column, halfWidth: Number(h.halfWidth), exact: h.halfWidth }));
+  }
+
+  /** Would it fit under the cap right now? */
+  get affordable(): boolean {
+    return this.preview.affordable;
+  }
+
+  /** True when the same query was already answered: running it returns the stored release for free. */
+  get replay(): boolean {
+    return this.preview.replay;
+  }
+
+  /** The analyst's spend on the dataset now. */
+  get spend(): SpendSummary {
+    return this.preview.spend;
+  }
+
+  get confidence(): number {
+    return this.preview.confidence;
+  }
+
+  get notes(): string[] {
+    return [...this.preview.notes];
+  }
+
+  toString(): string {
+    const p = this.preview;
+    const head = p.replay
+      ? `preview ${this.what}: already released, running it again costs nothing`
+      : `preview ${this.what}: would cost ${unitSymbol(p.unit)}=${q(p.cost)} · ${p.affordable ? "fits under the cap" : "does NOT fit under the cap"}`;
+    const errs = this.expectedErrors;
+    const same = errs.every((e) => e.stat === errs[0]?.stat && e.column === errs[0]?.column && e.exact === errs[0]?.exact);
+    const lines =
+      errs.length > 0 && same
+        ? [`  expected error ± ${q(errs[0].exact)} (${percent(p.confidence)})${errs.length > 1 ? ` for each of ${errs.length} numbers` : ""}`]
+        : aligned(
+            errs.map((e) => [`${e.stat}${e.column ? ` ${e.column}` : ""}`, `± ${q(e.exact)}`]),
+            "  ",
+          );
+    return [head, ...lines, `  now: ${spendText(p.spend)}`].join("\n");
+  }
+}
