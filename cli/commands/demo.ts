@@ -56,7 +56,6 @@ export async function runDemo(o: { state?: string }, out: (s: string) => void): 
         HUSH_CURATOR: curator.address,
         HUSH_ANALYST: demo.analyst,
         HUSH_TOKEN: DEMO_ANALYSTS.rowan.token,
-        HUSH_RECEIPT_KEY: curator.publicKeyB64,
       },
       onCell: (e: CellEvent) => {
         const source = joinText(nb.cells[e.index].source).trim().split("\n");
