@@ -100,11 +100,31 @@ export function createExecution(opts: ExecutionOptions): Execution {
   };
   installGlobals();
 
+  // tslab rewrites uses of earlier cells' names to `exports.<name>` but misses shorthand
+  // properties (`{ total }` stays a bare `total`). Bare names resolve on the global object, so
+  // each cell-level name also gets a global accessor onto its slot (never over a real global).
+  const exposed = new Set<string>();
+  const exposeLocals = (): void => {
+    for (const name of Object.keys(executor.locals)) {
+      if (exposed.has(name) || name in globalThis) continue;
+      Object.defineProperty(globalThis, name, {
+        configurable: true,
+        enumerable: false,
+        get: () => executor.locals[name],
+        set: (v: unknown) => {
+          executor.locals[name] = v;
+        },
+      });
+      exposed.add(name);
+    }
+  };
+
   return {
     async run(code) {
       result = null;
       failures = [];
       const ok = await executor.execute(code);
+      exposeLocals();
       if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures) };
       const r = result as { value: unknown } | null;
       return r ? { status: "ok", hasValue: true, value: r.value } : { status: "ok", hasValue: false };
@@ -127,6 +147,8 @@ export function createExecution(opts: ExecutionOptions): Execution {
     interrupt: () => executor.interrupt(),
     reset() {
       executor.reset();
+      for (const name of exposed) delete (globalThis as Record<string, unknown>)[name];
+      exposed.clear();
       installGlobals();
     },
     close: () => executor.close(),

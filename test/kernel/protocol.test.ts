@@ -91,6 +91,12 @@ describe("execute", () => {
     expect(r.outputs).toEqual([{ output_type: "execute_result", execution_count: r.reply.execution_count, data: { "text/plain": "11" }, metadata: {} }]);
   });
 
+  it("sees earlier cells' names in shorthand properties", async () => {
+    await k.execute("const shortA = 1; let shortB = 'b'");
+    const r = await k.execute("({ shortA, shortB })");
+    expect(r.outputs[0]).toMatchObject({ data: { "text/plain": "{ shortA: 1, shortB: 'b' }" } });
+  });
+
   it("captures console.log, console.error and process.stdout of the cell as streams", async () => {
     const r = await k.execute("console.log('one'); console.error('two'); void process.stdout.write('three\\n')");
     expect(r.outputs).toEqual([
