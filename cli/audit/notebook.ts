@@ -94,11 +94,13 @@ export function shownText(out: NbOutput): string {
   return typeof plain === "string" || Array.isArray(plain) ? joinText(plain as string | string[]) : "";
 }
 
-// A release display always shows an error bar and the session's privacy loss; an output showing
-// both without a receipt was typed in or copied, not released. The ε/ρ spend words are the kernel's
-// display vocabulary (runtime/api display); "±" is the error-bar sign from runtime/protocol/format.ts.
-const ERROR_BAR = /±|\[-?\d[\d.e-]*, -?\d[\d.e-]*\]/;
-const SPEND = /(ε|ρ|epsilon|rho)\s*(spent|used|=|:)|(spent|spend|budget|privacy loss)[^\n]*(ε|ρ|epsilon|rho)/i;
+// A release display shows a number with its error bar ("24.5 ± 1.25" or "12 [10, 15]", as
+// runtime/protocol/format.ts writes them) and its cost ("cost ε=0.1", "replayed, no new cost", or a
+// running "total 0.3 / 1" — the kernel's wording in runtime/api/text.ts). An output showing both
+// without a receipt was typed in or copied, not released. A preview shows only "± width" with no
+// value before it, so it is not taken for a release.
+const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.e+-]*, -?\d[\d.e+-]*\]/;
+const SPEND = /cost (ε|ρ)\s*=|replayed, no new cost|total -?[\d.e/+-]+ \/ [\d.e/+-]+|(ε|ρ)\s*(spent|used)\b/;
 
 function isHushMime(k: string): boolean {
   return k.startsWith("application/vnd.hush");

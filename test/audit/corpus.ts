@@ -17,6 +17,7 @@ import {
   deleteReleaseCell,
   editShownValue,
   forgeSignature,
+  stripReceipt,
   releaseWithSeq,
   releasesOf,
   replaceKey,
@@ -90,6 +91,12 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const bad = deleteReleaseCell(get().nb, 1);
     const r = audit(bad);
     expectFinding(r, "chain-start", releaseWithSeq(bad, 2).cell);
+  });
+
+  it("catches a release output whose receipt was removed", () => {
+    const cell = releaseWithSeq(get().nb, 2).cell;
+    const r = audit(stripReceipt(get().nb, 2));
+    expectFinding(r, "no-receipt", cell);
   });
 
   it("catches reordered cells", () => {

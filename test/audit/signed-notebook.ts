@@ -47,7 +47,8 @@ function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"
     const label = [...k, column === null ? stat : `${stat}(${column})`].join(" · ");
     return `${label}: ${formatWithError(v, lo, hi)}`;
   });
-  lines.push(`ε ${replay ? "0 (repeat)" : r.cost} · spent ${r.total} of ${r.cap}`);
+  // The kernel's cost wording (runtime/api/text.ts costText).
+  lines.push(`${replay ? "replayed, no new cost" : `cost ε=${r.cost}`} · total ${r.total} / ${r.cap}`);
   return {
     output_type: "display_data",
     data: { "text/plain": lines.join("\n") },

@@ -129,3 +129,10 @@ export function replaceKey(nb: Notebook, other: { privateKey: KeyObject; publicK
   for (const { meta } of located) meta.receipt = { ...resigned.get(meta.receipt.seq)! };
   return out;
 }
+
+/** Drops the receipt from release `seq`'s output(s), leaving the shown text: a release without a receipt. */
+export function stripReceipt(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  for (const { output } of allWithSeq(out, seq)) delete output.metadata![OUTPUT_METADATA_KEY];
+  return out;
+}
