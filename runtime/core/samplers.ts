@@ -10,7 +10,12 @@ import { BadInputError } from "../errors.js";
 import { floorDiv, isqrt, Rational } from "./rational.js";
 import { Bits, MAX_SMALL } from "./random.js";
 
-const MAX_SAFE = Number.MAX_SAFE_INTEGER;
+/**
+ * Bound for integers on the number path where a quotient is formed: with n <= 2^52 and d <= 2^48,
+ * q*d and (q+1)*d stay below 2^53 even when the float quotient is off by one, so the integer
+ * corrections below are exact.
+ */
+const LIMIT = 2 ** 52;
 
 // ---------------------------------------------------------------------------------------------
 // Bernoulli(exp(-gamma))
@@ -50,7 +55,7 @@ function expFracBig(n: bigint, d: bigint, bits: Bits): boolean {
   return (k & 1) === 1;
 }
 
-/** Algorithm B on numbers: gamma = n/d >= 0 with n < 2^53, 1 <= d <= 2^48. */
+/** Algorithm B on numbers: gamma = n/d >= 0 with n <= 2^52, 1 <= d <= 2^48. */
 function expSmall(n: number, d: number, bits: Bits): boolean {
   let q = Math.floor(n / d);
   let r = n - q * d;
@@ -79,7 +84,7 @@ function expBig(n: bigint, d: bigint, bits: Bits): boolean {
 /** Bernoulli(exp(-gamma)) for rational gamma >= 0 (CKS 2020; methods.md §5 algorithms A and B). */
 export function sampleBernoulliExp(gamma: Rational, bits: Bits): boolean {
   if (gamma.sign() < 0) throw new BadInputError(`Bernoulli(exp(-gamma)) needs gamma >= 0, got ${gamma}`);
-  if (gamma.den <= BigInt(MAX_SMALL) && gamma.num <= BigInt(MAX_SAFE)) {
+  if (gamma.den <= BigInt(MAX_SMALL) && gamma.num <= BigInt(LIMIT)) {
     return expSmall(Number(gamma.num), Number(gamma.den), bits);
   }
   return expBig(gamma.num, gamma.den, bits);
@@ -99,7 +104,7 @@ interface LaplacePlan {
 
 function laplacePlan(scale: Rational): LaplacePlan {
   if (scale.sign() <= 0) throw new BadInputError(`discrete Laplace scale must be positive, got ${scale}`);
-  const small = scale.num <= BigInt(MAX_SMALL) && scale.den <= BigInt(MAX_SAFE);
+  const small = scale.num <= BigInt(MAX_SMALL) && scale.den <= BigInt(MAX_SMALL);
   return {
     small,
     tn: small ? Number(scale.num) : 0,
@@ -116,8 +121,8 @@ function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
     if (u !== 0 && !expFracSmall(u, tn, bits)) continue; // restart; exp(-0) = 1 needs no draw
     let v = 0;
     while (expMinusOne(bits)) v++;
-    const x = u + tn * v; // exact whenever the true value is <= MAX_SAFE (rounding is monotone)
-    if (x <= MAX_SAFE) {
+    const x = u + tn * v; // exact whenever the true value is <= 2^52 (rounding is monotone)
+    if (x <= LIMIT) {
       let yn = td === 1 ? x : Math.floor(x / td);
       if (td !== 1) {
         // exact correction of the float quotient
@@ -131,7 +136,7 @@ function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
       return bits.bit() === 1 ? BigInt(-yn) : BigInt(yn);
     }
     const y = floorDiv(BigInt(u) + BigInt(tn) * BigInt(v), BigInt(td));
-    return bits.bit() === 1 ? -y : y; // y >= 2^53 / td > 0 here, so no zero case
+    return bits.bit() === 1 ? -y : y; // x > 2^52 >= td here, so y >= 1 and there is no zero case
   }
 }
 
@@ -228,21 +233,21 @@ function gaussSmall(p: GaussPlan, bits: Bits): bigint {
   for (;;) {
     const y = p.lap.small ? laplaceSmall(p.lap.tn, p.lap.td, bits) : laplaceBig(p.lap.tnBig, p.lap.tdBig, bits);
     const ay = y < 0n ? -y : y;
-    if (ay <= 94906265n) {
-      // gamma's numerator on numbers when every product stays below 2^53 (94906265^2 < 2^53)
+    if (ay <= 4503599627370496n) {
+      // gamma's numerator on numbers when it stays <= 2^52 (d <= 2^26 keeps d^2 exact)
       const yn = Number(ay);
       let n = -1;
       if (p.wide) {
         const d = Math.abs(yn - p.mN);
-        if (d <= 94906265) {
+        if (d <= 67108864) {
           const t = d * d * p.bN;
-          if (t <= MAX_SAFE) n = t;
+          if (t <= LIMIT) n = t;
         }
       } else {
         const yb = yn * p.bN;
-        if (yb <= MAX_SAFE) {
+        if (yb <= LIMIT) {
           const d = Math.abs(yb - p.aN);
-          if (d <= 94906265) n = d * d;
+          if (d <= 67108864) n = d * d;
         }
       }
       if (n >= 0) {
