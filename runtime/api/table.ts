@@ -5,7 +5,7 @@
  * never leaks into another query.
  */
 import { BadInputError } from "../errors.js";
-import type { ColumnInfo, Condition, DatasetInfo, GroupKey, Measure, QueryPlan } from "../protocol/messages.js";
+import type { ColumnInfo, Condition, DatasetInfo, GroupKey, Measure, QueryPlan, SpendSummary } from "../protocol/messages.js";
 import { PROTOCOL_VERSION } from "../protocol/messages.js";
 import { parsePlan } from "../protocol/schema.js";
 import { Aggregates } from "./aggregates.js";
@@ -126,6 +126,18 @@ export class SealedTable extends Aggregates<Answer> {
     return { ...state(this).info.unit };
   }
 
+  /** The analyst's spend on this dataset (all sessions, against the cap), as last reported by the curator. */
+  get spend(): SpendSummary {
+    const s = state(this);
+    return s.ctx.spend.latest(s.info.name) ?? s.info.spend;
+  }
+
+  /** This kernel session's spend on this dataset, exact, in the accounting unit. */
+  get sessionSpent(): string {
+    const s = state(this);
+    return s.ctx.spend.sessionSpent(s.info.name);
+  }
+
   /** The current filter, if any. */
   get filter(): Condition | undefined {
     return state(this).where;
@@ -208,7 +220,7 @@ export class SealedTable extends Aggregates<Answer> {
   override toString(): string {
     const s = state(this);
     const info = s.info;
-    const spend = s.ctx.spend.latest(info.name) ?? info.spend;
+    const spend = this.spend;
     const u = info.unit;
     const unit = u.column === null ? "each row" : `${u.column} (at most ${u.maxRows} rows per unit, in at most ${u.maxGroups} groups)`;
     const lines = [

@@ -1,0 +1,92 @@
+/**
+ * The cell API session of one kernel: the `hush` object cells see, rendering of its objects as
+ * mime bundles, and the running privacy-loss line after a cell that released something. The kernel
+ * (kernel/session-loader.ts) loads this module at run time and uses only the members below.
+ *
+ * The curator connection is lazy: nothing connects (or starts) until a cell first uses `hush`.
+ */
+import type { ConnectDeps } from "../runtime/api/connection.js";
+import { Connector } from "../runtime/api/connection.js";
+import { resolveConfig } from "../runtime/api/config.js";
+import type { ApiContext } from "../runtime/api/context.js";
+import { HUSH_DECLARATIONS } from "../runtime/api/declarations.js";
+import { Hush } from "../runtime/api/hush.js";
+import { SessionSpend } from "../runtime/api/session-spend.js";
+import { lossBundle, noticeBundle, renderValue } from "./display/bundle.js";
+import type { LossLine } from "./display/views.js";
+
+export interface MimeBundle {
+  data: Record<string, unknown>;
+  metadata: Record<string, unknown>;
+}
+
+export interface CellHost {
+  display(bundle: MimeBundle, opts?: { displayId?: string; update?: boolean }): void;
+}
+
+export class HushSession {
+  /** Exposed as the global `hush` in cells. */
+  readonly api: Hush;
+  readonly #connector: Connector;
+  readonly #spend = new SessionSpend();
+
+  private constructor(host: CellHost, env: NodeJS.ProcessEnv, deps: Partial<ConnectDeps>) {
+    this.#connector = new Connector(
+      () => resolveConfig(env),
+      (text) => host.display(noticeBundle(text)),
+      deps,
+    );
+    const ctx: ApiContext = {
+      port: async () => (await this.#connector.connection()).port,
+      analyst: async () => (await this.#connector.connection()).analyst,
+      spend: this.#spend,
+    };
+    this.api = new Hush(ctx);
+  }
+
+  /**
+   * A session for one kernel. `deps` replaces how the curator is reached (tests pass a stand-in
+   * client); by default the environment decides (see runtime/api/config.ts).
+   */
+  static create(host: CellHost, env: NodeJS.ProcessEnv = process.env, deps: Partial<ConnectDeps> = {}): HushSession {
+    return new HushSession(host, env, deps);
+  }
+
+  /** The bundle for a cell result (release, handle, budget, preview, ledger, `hush`); null for anything else. */
+  render(value: unknown): Promise<MimeBundle | null> {
+    return renderValue(value);
+  }
+
+  /**
+   * After a cell: if it released (or replayed) anything, the running privacy loss on each dataset
+   * it touched — this kernel session's spend and the analyst's total against the cap.
+   */
+  async afterCell(): Promise<MimeBundle | null> {
+    const records = this.#spend.takeCell();
+    if (records.length === 0) return null;
+    const lines: LossLine[] = [];
+    for (const dataset of [...new Set(records.map((r) => r.dataset))]) {
+      const spend = this.#spend.latest(dataset);
+      if (!spend) continue;
+      const mine = records.filter((r) => r.dataset === dataset);
+      lines.push({
+        dataset,
+        sessionSpent: this.#spend.sessionSpent(dataset),
+        spend,
+        released: mine.filter((r) => !r.replay).length,
+        replayed: mine.filter((r) => r.replay).length,
+      });
+    }
+    return lines.length ? lossBundle(lines) : null;
+  }
+
+  /** Declarations of `hush` and its types, for completion in the kernel's language service. */
+  typeDeclarations(): string {
+    return HUSH_DECLARATIONS;
+  }
+
+  /** Closes the curator connection and stops an embedded curator. */
+  close(): Promise<void> {
+    return this.#connector.close();
+  }
+}
