@@ -76,6 +76,11 @@ async function main(): Promise<void> {
     process.exitCode = 1;
     return;
   }
+  // A stray rejection must not take down a curator that is serving others; the ledger is
+  // transactional, so no half-written spend can be left behind by the failed request.
+  process.on("unhandledRejection", (reason: unknown) => {
+    process.stderr.write(`hush curator: unhandled rejection: ${reason instanceof Error ? (reason.stack ?? reason.message) : String(reason)}\n`);
+  });
   process.on("SIGINT", () => void stop("SIGINT"));
   process.on("SIGTERM", () => void stop("SIGTERM"));
   say({

@@ -155,6 +155,18 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
     expect(eps).toBeLessThanOrEqual(bs + 1e-12);
   });
 
+  it("prices an accuracy-first plan at preview and charges exactly that", async () => {
+    const plan: QueryPlan = { v: 1, dataset: "clinic_z", measure: { kind: "count" }, groupBy: [{ column: "insured" }], privacy: { within: 60 } };
+    const before = await ada.spend("clinic_z");
+    const preview = await ada.preview(plan);
+    expect(preview).toMatchObject({ unit: "rho", replay: false, affordable: true });
+    const r = await ada.ask(plan);
+    expect(r.cost).toBe(preview.cost);
+    expect(r.receipt.digest).toBe(preview.digest);
+    expect(Rational.parse(r.spend.spentRho!).eq(Rational.parse(before.spentRho!).add(Rational.parse(preview.cost)))).toBe(true);
+    expect(verifyReceipt(r.receipt, loadPublicKey(cur.ready.publicKey))).toEqual({ ok: true });
+  });
+
   it("rejects bad requests at the protocol level with clear errors, spends nothing, stays up", async () => {
     const before = await ada.spend("clinic");
     const raw = RawSpeaker.connect(cur.ready);
