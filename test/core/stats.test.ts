@@ -1,5 +1,5 @@
 import { describe, expect, it } from "vitest";
-import { binomialBand, dingPValue, fisherOneSided, hypergeomUpperTail, jstat, logGamma, thinnedPValue } from "./stats.js";
+import { binomialBand, binomialCdf, binomialLowerLimit, dingPValue, fisherOneSided, hypergeomUpperTail, jstat, logGamma, thinnedPValue } from "./stats.js";
 
 describe("test statistics helpers", () => {
   it("log-gamma matches factorials and jstat", () => {
@@ -16,18 +16,24 @@ describe("test statistics helpers", () => {
     }
   });
 
+  const sig6 = (x: number): number => Number(x.toPrecision(6));
   // methods.md §12.1 check values, n1 = n2 = 10000, epsilon = 1 (6 digits as shown)
   it("[C12.3a] Fisher one-sided p, 1104/10000 vs 1000/10000 = 0.00879376", () => {
-    expect(fisherOneSided(1104, 10000, 1000, 10000)).toBeCloseTo(0.00879376, 7);
+    expect(sig6(fisherOneSided(1104, 10000, 1000, 10000))).toBe(0.00879376);
   });
   it("[C12.3b] thinning-averaged p, c1=3000, c2=1000 = 0.0212739; [C12.3d] min(1, 2x) = 0.0425479", () => {
-    expect(thinnedPValue(3000, 10000, 1000, 10000, 1)).toBeCloseTo(0.0212739, 6);
-    expect(dingPValue(3000, 10000, 1000, 10000, 1)).toBeCloseTo(0.0425479, 6);
+    expect(sig6(thinnedPValue(3000, 10000, 1000, 10000, 1))).toBe(0.0212739);
+    expect(sig6(dingPValue(3000, 10000, 1000, 10000, 1))).toBe(0.0425479);
   });
   it("[C12.3c] thinning-averaged p, c1=2600, c2=1000 = 0.819856", () => {
-    expect(thinnedPValue(2600, 10000, 1000, 10000, 1)).toBeCloseTo(0.819856, 5);
+    expect(sig6(thinnedPValue(2600, 10000, 1000, 10000, 1))).toBe(0.819856);
   });
   it("[C12.1a-b] binomial band R=10000, p=0.95, 99.9% = 9427..9570", () => {
     expect(binomialBand(10000, 0.95, 0.001)).toEqual({ lo: 9427, hi: 9570 });
+  });
+  it("[C12.1c] P(X < 9427) = 0.000474302; [C12.1d] P(X > 9570) = 0.000475967; [C12.2] one-sided limit 9431", () => {
+    expect(sig6(binomialCdf(9426, 10000, 0.95))).toBe(0.000474302);
+    expect(sig6(1 - binomialCdf(9570, 10000, 0.95))).toBe(0.000475967);
+    expect(binomialLowerLimit(10000, 0.95, 0.001)).toBe(9431);
   });
 });

@@ -160,6 +160,23 @@ export function binomialBand(R: number, p: number, beta: number): { lo: number; 
   return { lo, hi };
 }
 
+/** P(X <= k) for X ~ Binomial(R, p), by direct summation in log space. */
+export function binomialCdf(k: number, R: number, p: number): number {
+  let cdf = 0;
+  for (let j = 0; j <= k; j++) cdf += Math.exp(logChoose(R, j) + j * Math.log(p) + (R - j) * Math.log1p(-p));
+  return Math.min(1, cdf);
+}
+
+/** One-sided lower limit: the smallest k with P(X <= k) >= beta (methods.md §12.2, [C12.2]). */
+export function binomialLowerLimit(R: number, p: number, beta: number): number {
+  let cdf = 0;
+  for (let k = 0; k <= R; k++) {
+    cdf += Math.exp(logChoose(R, k) + k * Math.log(p) + (R - k) * Math.log1p(-p));
+    if (cdf >= beta) return k;
+  }
+  return R;
+}
+
 /** Counts of integer samples. */
 export function tally(samples: Iterable<number>): Map<number, number> {
   const m = new Map<number, number>();
