@@ -104,35 +104,54 @@ export class Dispatcher {
     await this.publish("status", { execution_state: "busy" }, msg);
     const handler =
       channel === "shell" && this.aborting && type === "execute_request" ? this.opts.aborted : this.opts.handlers[type];
+    const ctx = this.context(channel, msg, after);
     try {
-      if (handler) await handler(msg, this.context(channel, msg, after));
+      if (handler) await handler(msg, ctx);
       else kernelLog(`ignored unknown message type ${type} on ${channel}`);
     } catch (e: unknown) {
       kernelLog(`handler for ${type} failed: ${e instanceof Error ? (e.stack ?? e.message) : String(e)}`);
+      // A request whose handler failed still gets an answer, so no client waits forever.
+      if (!ctx.replied && type.endsWith("_request")) {
+        await ctx
+          .reply(type.replace(/_request$/, "_reply"), {
+            status: "error",
+            ename: "KernelError",
+            evalue: `the kernel could not answer ${type}: ${errorText(e)}`,
+            traceback: [],
+          })
+          .catch(() => {});
+      }
     }
     if (channel === "shell") await output.flush();
     await this.publish("status", { execution_state: "idle" }, msg);
     for (const fn of after) await fn();
   }
 
-  private context(channel: "shell" | "control", msg: Message, after: Array<() => Promise<void> | void>): HandlerContext {
+  private context(
+    channel: "shell" | "control",
+    msg: Message,
+    after: Array<() => Promise<void> | void>,
+  ): HandlerContext & { replied: boolean } {
     const { output, session, signer } = this.opts;
-    return {
+    const ctx = {
       channel,
-      reply: async (msgType, content, metadata) => {
+      replied: false,
+      reply: async (msgType: string, content: JsonObject, metadata?: JsonObject) => {
+        ctx.replied = true;
         if (channel === "shell") await output.flush();
         const r = childOf(msg, msgType, content, session, { metadata: metadata ?? {} });
         await this.opts.send(channel, serialize(r, signer));
       },
-      publish: (msgType, content) =>
+      publish: (msgType: string, content: JsonObject) =>
         channel === "shell" ? output.publish(msgType, content) : this.publish(msgType, content, msg),
       abortQueued: () => {
         if (this.queue.length > 0) this.aborting = true;
       },
-      afterIdle: (fn) => {
+      afterIdle: (fn: () => Promise<void> | void) => {
         after.push(fn);
       },
     };
+    return ctx;
   }
 }
 

@@ -117,7 +117,13 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
     async complete_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
       const r = execution.complete(code, cursor_pos);
-      await ctx.reply("complete_reply", { status: "ok", ...r, metadata: {} });
+      await ctx.reply("complete_reply", {
+        status: "ok",
+        matches: r.matches,
+        cursor_start: toCodePoints(code, r.cursor_start),
+        cursor_end: toCodePoints(code, r.cursor_end),
+        metadata: {},
+      });
     },
 
     async inspect_request(msg, ctx) {
@@ -214,8 +220,25 @@ function executeContent(msg: Message): ExecuteContent {
   };
 }
 
+/**
+ * Code and cursor, with the cursor converted to a UTF-16 index: the spec counts cursor_pos in
+ * unicode code points (5.2+), JavaScript strings in UTF-16 code units.
+ */
 function textAndCursor(msg: Message): { code: string; cursor_pos: number } {
   const code = typeof msg.content.code === "string" ? msg.content.code : "";
   const pos = msg.content.cursor_pos;
-  return { code, cursor_pos: typeof pos === "number" && pos >= 0 && pos <= code.length ? pos : code.length };
+  if (typeof pos !== "number" || !Number.isInteger(pos) || pos < 0) return { code, cursor_pos: code.length };
+  let units = 0;
+  let points = 0;
+  for (const ch of code) {
+    if (points === pos) break;
+    units += ch.length;
+    points += 1;
+  }
+  return { code, cursor_pos: units };
+}
+
+/** UTF-16 index → code point index. */
+function toCodePoints(code: string, units: number): number {
+  return [...code.slice(0, Math.max(0, units))].length;
 }

@@ -30,10 +30,6 @@ export class Output {
     this.parent = msg;
   }
 
-  currentParent(): Message | null {
-    return this.parent;
-  }
-
   write(name: StreamName, text: string): void {
     if (text === "") return;
     if (this.pending && (this.pending.name !== name || this.pending.parent !== this.parent)) this.commit();
@@ -76,8 +72,8 @@ export class Output {
     await this.chain;
   }
 
-  /** Routes process.stdout/stderr writes of cells to iopub; returns the original writers. */
-  captureStdio(): { stdout: (s: string) => void; stderr: (s: string) => void } {
+  /** Routes process.stdout/stderr writes (cells, console.log, libraries) to iopub. */
+  captureStdio(): void {
     const out = process.stdout.write.bind(process.stdout);
     const err = process.stderr.write.bind(process.stderr);
     const hook =
@@ -95,7 +91,6 @@ export class Output {
       process.stdout.write = out;
       process.stderr.write = err;
     };
-    return { stdout: (s) => void out(s), stderr: (s) => void err(s) };
   }
 
   releaseStdio(): void {

@@ -52,7 +52,12 @@ export async function loadSession(host: CellHost, env: NodeJS.ProcessEnv = proce
     kernelLog(`cell API module ${spec} has no HushSession.create; cells run without \`hush\``);
     return NULL_SESSION;
   }
-  return mod.HushSession.create(host, env);
+  try {
+    return mod.HushSession.create(host, env);
+  } catch (e: unknown) {
+    kernelLog(`cell API failed to start (${errorText(e)}); cells run without \`hush\``);
+    return NULL_SESSION;
+  }
 }
 
 function isSessionModule(m: unknown): m is SessionModule {

@@ -8,7 +8,7 @@ import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
-import { costText, percent, planText, q, rowLabel, shownValue, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import { costText, percent, planText, q, rowLabel, shownValue, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
 import { formatDecimal } from "../../runtime/protocol/format.js";
 import type { SpendSummary } from "../../runtime/protocol/messages.js";
 import { MUTED, badge, box, budgetBar, esc, notesList, table } from "./html.js";
@@ -20,11 +20,6 @@ function interval(low: string | null, high: string | null): string {
   return low === null || high === null ? "—" : `[${esc(formatDecimal(low))}, ${esc(formatDecimal(high))}]`;
 }
 
-/** Bar amounts in the accounting unit from a spend summary. */
-function spendAmounts(s: SpendSummary): { total: string; cap: string; symbol: string } {
-  if (s.mode === "zcdp" && s.spentRho !== undefined && s.capRho !== undefined) return { total: s.spentRho, cap: s.capRho, symbol: "ρ" };
-  return { total: s.spentEpsilon, cap: s.capEpsilon, symbol: "ε" };
-}
 
 export function answerHtml(a: Answer, chartImg: string | null): string {
   const r = a.release;
@@ -47,16 +42,8 @@ export function answerHtml(a: Answer, chartImg: string | null): string {
     const n = headCells.length;
     body = table(headCells, rows, new Set([n - 2, n - 1])) + `<div style="${MUTED}">${esc(r.intervalMethod)}</div>`;
   }
-  const cost = costText({
-    cost: r.cost,
-    replay: r.replay,
-    unit: r.receipt.unit,
-    sessionSpent: a.sessionSpent,
-    total: r.receipt.total,
-    cap: r.receipt.cap,
-    spend: r.spend,
-  });
-  const bar = budgetBar({ total: r.receipt.total, cap: r.receipt.cap, sessionSpent: a.sessionSpent, symbol: unitSymbol(r.receipt.unit) });
+  const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: a.sessionSpent, spend: r.spend });
+  const bar = budgetBar({ ...spendAmounts(r.spend), sessionSpent: a.sessionSpent });
   const receipt = `<div style="font-size:11px;${MUTED}">receipt #${r.receipt.seq} for ${esc(r.receipt.analyst)} · signed by key ${esc(r.receipt.keyId)} · plan ${esc(r.digest.slice(0, 12))}</div>`;
   return box(
     head +

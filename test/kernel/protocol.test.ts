@@ -186,6 +186,11 @@ describe("display and the cell API", () => {
     expect(quiet.outputs.map((o) => o.output_type)).toEqual(["execute_result"]);
   });
 
+  it("routes tslab's own display helpers to display_data", async () => {
+    const r = await k.execute('import * as tslab from "tslab";\ntslab.display.html("<i>rich</i>")');
+    expect(r.outputs).toEqual([{ output_type: "display_data", data: { "text/html": "<i>rich</i>" }, metadata: {} }]);
+  });
+
   it("update_display_data replaces the output with the same display_id", async () => {
     const seen: string[] = [];
     const r = await k.execute("hush.progress('p1', 'step 1'); hush.progress('p1', 'step 2', true)", {
@@ -202,6 +207,13 @@ describe("language service", () => {
     const c = await k.request("shell", "complete_request", { code: "budg", cursor_pos: 4 });
     expect(c).toMatchObject({ status: "ok", cursor_start: 0, cursor_end: 4 });
     expect(c.matches).toContain("budgetLeft");
+  });
+
+  it("counts cursor positions in code points, as the spec does", async () => {
+    // "🙂" is one code point but two UTF-16 units; the cursor after "Math.fl" is code point 13.
+    const code = "'🙂🙂🙂'; Math.fl";
+    const c = await k.request("shell", "complete_request", { code, cursor_pos: [...code].length });
+    expect(c).toMatchObject({ matches: ["floor"], cursor_start: [...code].length - 2, cursor_end: [...code].length });
   });
 
   it("completes members of the hush global from its type declarations", async () => {
