@@ -61,7 +61,11 @@ export function addNoise(value: bigint, law: NoiseLaw, bits: Bits): bigint {
   return value + drawNoise(law, bits);
 }
 
-/** One exact draw of the law's noise. */
+/**
+ * One exact draw of the law's noise. The number of sampler rounds depends on the value drawn, so
+ * callers whose timing is observable should draw before touching the data (methods.md §5 timing
+ * caution) and add the noise afterwards.
+ */
 export function drawNoise(law: NoiseLaw, bits: Bits): bigint {
   if (law.family === "discrete-laplace") return sampleDiscreteLaplace(law.scale, bits);
   if (law.family === "discrete-gaussian") return sampleDiscreteGaussian(law.sigma2, bits);

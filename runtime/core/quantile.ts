@@ -88,10 +88,11 @@ export function exponentialQuantile(args: QuantileArgs): QuantileResult {
   const m = countsBelow.length;
   const { costs, sensitivity } = quantileCosts(countsBelow, n, args.p);
   // Default cap (public: depends on epsilon, Delta', m only). Beyond (2 Delta'/eps)(ln m + 40)
-  // a weight is below e^-40 of the best, and the total size stays below ~2^26 bits.
+  // a weight is below e^-40 of the best; a larger cap is allowed while the weights together stay
+  // below ~2^22 bits (it only helps heavily tied data).
   const scale = (2 * Number(sensitivity)) / epsilon.toNumber();
   const byAccuracy = Math.ceil(scale * (Math.log(m) + 40));
-  const bySize = Math.floor(2 ** 26 / (y * m));
+  const bySize = Math.floor(2 ** 22 / (y * m));
   const cap = args.costCap ?? BigInt(Math.max(byAccuracy, bySize));
   if (typeof cap !== "bigint" || cap < 1n) throw new BadInputError("cost cap must be a positive integer");
   const capped = costs.map((c) => (c > cap ? cap : c));
