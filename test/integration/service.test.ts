@@ -3,14 +3,15 @@
  * over ipc and over tcp with CURVE.
  */
 import { rmSync } from "node:fs";
+import Database from "better-sqlite3";
 import { curveKeyPair } from "zeromq";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
 import type { OverCapWithSpend } from "../../runtime/client/errors.js";
 import { Rational } from "../../runtime/core/index.js";
 import { BadInputError, OverCapError, UnknownDatasetError, UnreachableError, isHushError } from "../../runtime/errors.js";
-import { MAX_FRAME_BYTES, type QueryPlan, type Release } from "../../runtime/protocol/messages.js";
-import { loadPublicKey, verifyChain, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import { MAX_FRAME_BYTES, type QueryPlan, type Receipt, type Release } from "../../runtime/protocol/messages.js";
+import { loadPublicKey, receiptHash, verifyChain, verifyReceipt } from "../../runtime/protocol/receipts.js";
 import {
   CANARY,
   DISTRICTS,
@@ -34,6 +35,12 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
   let cur: CuratorChild;
   let ada: CuratorClient;
   const released: Release[] = [];
+  /** Every release any client of this suite received, to hold against the ledger file at the end. */
+  const received: Release[] = [];
+  const keep = (r: Release): Release => {
+    received.push(r);
+    return r;
+  };
 
   const connect = (analyst: "ada" | "ben", token?: string) =>
     CuratorClient.connect({
@@ -91,7 +98,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
       { v: 1, dataset: "clinic", measure: { kind: "mean", column: "age" }, privacy: { epsilon: "1/20" } },
     ];
     for (const p of plans) {
-      const r = await ada.ask(p);
+      const r = keep(await ada.ask(p));
       expect(r.replay).toBe(false);
       expect(verifyReceipt(r.receipt, key)).toEqual({ ok: true });
       expect(r.receipt.result).toEqual(r.rows.map((x) => [x.key, x.stat, x.column, x.value, x.low, x.high]));
@@ -110,7 +117,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
 
   it("answers an identical plan again from the ledger at no cost", async () => {
     const before = await ada.spend("clinic");
-    const again = await ada.ask(countPlan("0.1"));
+    const again = keep(await ada.ask(countPlan("0.1")));
     expect(again.replay).toBe(true);
     expect(again.cost).toBe("0");
     expect(again.rows).toEqual(released[0].rows);
@@ -123,7 +130,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
   it("refuses a query that would cross the cap, debits nothing, and says how much is left", async () => {
     const ben = await connect("ben");
     try {
-      expect((await ben.ask(countPlan("0.6"))).spend.spentEpsilon).toBe("3/5");
+      expect(keep(await ben.ask(countPlan("0.6"))).spend.spentEpsilon).toBe("3/5");
       const preview = await ben.preview(countPlan("0.5", { where: { op: "ge", column: "age", value: 30 } }));
       expect(preview).toMatchObject({ affordable: false, replay: false, cost: "1/2" });
       const err = await ben.ask(countPlan("0.5", { where: { op: "ge", column: "age", value: 30 } })).then(
@@ -136,7 +143,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
       expect(e.spend).toMatchObject({ spentEpsilon: "3/5", remainingEpsilon: "2/5", releases: 1 });
       expect((await ben.spend("clinic")).spentEpsilon).toBe("3/5");
       // Exactly the remainder still fits: the cap is inclusive and the arithmetic exact.
-      expect((await ben.ask(countPlan("0.4", { where: { op: "ge", column: "age", value: 30 } }))).spend.spentEpsilon).toBe("1");
+      expect(keep(await ben.ask(countPlan("0.4", { where: { op: "ge", column: "age", value: 30 } }))).spend.spentEpsilon).toBe("1");
       expect((await ben.ledger("clinic")).map((x) => x.total)).toEqual(["3/5", "1"]);
     } finally {
       await ben.close();
@@ -144,7 +151,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
   });
 
   it("accounts zCDP datasets in rho and reports epsilon at delta", async () => {
-    const r = await ada.ask({ v: 1, dataset: "clinic_z", measure: { kind: "count" }, privacy: { rho: "0.01" } });
+    const r = keep(await ada.ask({ v: 1, dataset: "clinic_z", measure: { kind: "count" }, privacy: { rho: "0.01" } }));
     expect(r.receipt).toMatchObject({ unit: "rho", cost: "1/100", total: "1/100", delta: "0.000001" });
     expect(r.spend).toMatchObject({ mode: "zcdp", spentRho: "1/100", delta: "0.000001" });
     // Bun & Steinke 2016, Prop. 1.3: rho-zCDP gives (rho + 2 sqrt(rho ln(1/delta)), delta)-DP; any
@@ -160,7 +167,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
     const before = await ada.spend("clinic_z");
     const preview = await ada.preview(plan);
     expect(preview).toMatchObject({ unit: "rho", replay: false, affordable: true });
-    const r = await ada.ask(plan);
+    const r = keep(await ada.ask(plan));
     expect(r.cost).toBe(preview.cost);
     expect(r.receipt.digest).toBe(preview.digest);
     expect(Rational.parse(r.spend.spentRho!).eq(Rational.parse(before.spentRho!).add(Rational.parse(preview.cost)))).toBe(true);
@@ -250,7 +257,9 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
     const send = async (body: unknown) => {
       const r = await raw.exchange([JSON.stringify({ v: 1, id: "x", analyst: "ada", token: ws.tokens.ada, body })]);
       texts.push(JSON.stringify(r));
-      return r as { ok: boolean; body?: { release?: Release } };
+      const typed = r as { ok: boolean; body?: { release?: Release } };
+      if (typed.body?.release) keep(typed.body.release);
+      return typed;
     };
     try {
       await send({ op: "catalogue" });
@@ -283,5 +292,21 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
     } finally {
       raw.close();
     }
+  });
+
+  it("leaves a ledger file that matches the received receipts one for one", () => {
+    // Read with plain SQL, not the curator's Ledger class, so a bug there cannot hide a bad row.
+    const db = new Database(ws.ledgerFile, { readonly: true, fileMustExist: true });
+    let rows: { analyst: string; dataset: string; seq: number; receipt: string; receipt_hash: string }[];
+    try {
+      rows = db.prepare("SELECT analyst, dataset, seq, receipt, receipt_hash FROM releases ORDER BY analyst, dataset, seq").all() as typeof rows;
+    } finally {
+      db.close();
+    }
+    const stored = rows.map((r) => JSON.parse(r.receipt) as Receipt);
+    rows.forEach((r, i) => expect(receiptHash(stored[i])).toBe(r.receipt_hash));
+    const got = new Map(received.map((r) => [receiptHash(r.receipt), r.receipt]));
+    expect(stored.map((r) => receiptHash(r)).sort()).toEqual([...got.keys()].sort());
+    expect(verifyChain(stored, loadPublicKey(ws.publicKeyB64))).toEqual({ ok: true, problems: [] });
   });
 });
