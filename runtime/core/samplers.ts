@@ -23,14 +23,17 @@ const LIMIT = 2 ** 52;
 
 /**
  * Algorithm A for gamma = n/d in [0, 1] on numbers (0 <= n <= d <= 2^48).
- * The K-th trial is Bernoulli(n/(d*K)), drawn as Bernoulli(n/d) AND Bernoulli(1/K) (independent, so
- * the product has the same law) to keep every modulus below 2^48 however large K grows.
+ * The K-th trial is Bernoulli(n/(d*K)) = [UniformInt(d*K) < n] while d*K <= 2^48; beyond that it is
+ * drawn as Bernoulli(n/d) AND Bernoulli(1/K), which has the same law (independent factors).
  */
 function expFracSmall(n: number, d: number, bits: Bits): boolean {
+  if (n === 0) return true;
   let k = 1;
   for (;;) {
-    if (!bits.bernoulliSmall(n, d)) break;
-    if (k > 1 && bits.uniformSmall(k) !== 0) break;
+    const dk = d * k;
+    if (dk <= MAX_SMALL) {
+      if (n !== dk && bits.uniformSmall(dk) >= n) break;
+    } else if (!bits.bernoulliSmall(n, d) || bits.uniformSmall(k) !== 0) break;
     k++;
   }
   return (k & 1) === 1;
@@ -114,8 +117,14 @@ function laplacePlan(scale: Rational): LaplacePlan {
   };
 }
 
-/** Number path of algorithm C. Falls over to bigints for X only when X would pass 2^53. */
-function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
+/** Set by laplaceNum when it returns NaN: the draw itself, which left the number range. */
+let overflowDraw = 0n;
+
+/**
+ * Number path of algorithm C. Returns the draw as a number, or NaN after storing it in overflowDraw
+ * when X passed 2^52 (then the rest of that draw is finished in bigints, never redrawn).
+ */
+function laplaceNum(tn: number, td: number, bits: Bits): number {
   for (;;) {
     const u = tn === 1 ? 0 : bits.uniformSmall(tn);
     if (u !== 0 && !expFracSmall(u, tn, bits)) continue; // restart; exp(-0) = 1 needs no draw
@@ -131,13 +140,19 @@ function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
       }
       if (yn === 0) {
         if (bits.bit() === 1) continue; // B = 1 and Y = 0: avoid counting zero twice
-        return 0n;
+        return 0;
       }
-      return bits.bit() === 1 ? BigInt(-yn) : BigInt(yn);
+      return bits.bit() === 1 ? -yn : yn;
     }
     const y = floorDiv(BigInt(u) + BigInt(tn) * BigInt(v), BigInt(td));
-    return bits.bit() === 1 ? -y : y; // x > 2^52 >= td here, so y >= 1 and there is no zero case
+    overflowDraw = bits.bit() === 1 ? -y : y; // x > 2^52 >= td here, so y >= 1 and there is no zero case
+    return NaN;
   }
+}
+
+function laplaceSmall(tn: number, td: number, bits: Bits): bigint {
+  const r = laplaceNum(tn, td, bits);
+  return r === r ? BigInt(r) : overflowDraw;
 }
 
 /** Bigint path of algorithm C, a direct transcription. */
@@ -229,33 +244,36 @@ function gaussPlan(sigma2: Rational): GaussPlan {
   };
 }
 
+/** Algorithm D on numbers (requires p.small, hence p.lap.small). */
 function gaussSmall(p: GaussPlan, bits: Bits): bigint {
   for (;;) {
-    const y = p.lap.small ? laplaceSmall(p.lap.tn, p.lap.td, bits) : laplaceBig(p.lap.tnBig, p.lap.tdBig, bits);
-    const ay = y < 0n ? -y : y;
-    if (ay <= 4503599627370496n) {
-      // gamma's numerator on numbers when it stays <= 2^52 (d <= 2^26 keeps d^2 exact)
-      const yn = Number(ay);
-      let n = -1;
-      if (p.wide) {
-        const d = Math.abs(yn - p.mN);
-        if (d <= 67108864) {
-          const t = d * d * p.bN;
-          if (t <= LIMIT) n = t;
-        }
-      } else {
-        const yb = yn * p.bN;
-        if (yb <= LIMIT) {
-          const d = Math.abs(yb - p.aN);
-          if (d <= 67108864) n = d * d;
-        }
+    const y = laplaceNum(p.lap.tn, p.lap.td, bits);
+    if (y !== y) {
+      const yb = overflowDraw;
+      if (gaussAcceptBig(p, yb < 0n ? -yb : yb, bits)) return yb;
+      continue;
+    }
+    const yn = Math.abs(y);
+    // gamma's numerator on numbers when it stays <= 2^52 (d <= 2^26 keeps d^2 exact)
+    let n = -1;
+    if (p.wide) {
+      const d = Math.abs(yn - p.mN);
+      if (d <= 67108864) {
+        const t = d * d * p.bN;
+        if (t <= LIMIT) n = t;
       }
-      if (n >= 0) {
-        if (expSmall(n, p.gDenN, bits)) return y;
-        continue;
+    } else {
+      const yb = yn * p.bN;
+      if (yb <= LIMIT) {
+        const d = Math.abs(yb - p.aN);
+        if (d <= 67108864) n = d * d;
       }
     }
-    if (gaussAcceptBig(p, ay, bits)) return y;
+    if (n >= 0) {
+      if (expSmall(n, p.gDenN, bits)) return BigInt(y);
+      continue;
+    }
+    if (gaussAcceptBig(p, BigInt(yn), bits)) return BigInt(y);
   }
 }
 
