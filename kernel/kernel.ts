@@ -68,11 +68,13 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
   const globals: Record<string, unknown> = { display };
   if (session.api) globals.hush = session.api;
   // Building the TypeScript program takes seconds; requests wait in the socket until it is done.
-  const execution: Execution = createExecution({
-    rootDir: opts.rootDir ?? process.cwd(),
-    globals,
-    declarations: DISPLAY_DECLARATION + session.typeDeclarations(),
-  });
+  let declarations = DISPLAY_DECLARATION;
+  try {
+    declarations += session.typeDeclarations();
+  } catch (e: unknown) {
+    kernelLog(`no type declarations for \`hush\` (${errorText(e)}); completion on it is unavailable`);
+  }
+  const execution: Execution = createExecution({ rootDir: opts.rootDir ?? process.cwd(), globals, declarations });
 
   let resolveClosed!: () => void;
   const closed = new Promise<void>((r) => (resolveClosed = r));
