@@ -46,7 +46,9 @@ export async function benchSamplers(opts: { quick?: boolean; repeats?: number; s
   markdown: string;
 }> {
   const repeats = Math.max(5, opts.repeats ?? 7);
-  const samples = opts.samples ?? (opts.quick ? 50_000 : 300_000);
+  // Each timed repeat lasts about this long (unless a fixed sample count is given), so that timer
+  // resolution and JIT warm-up do not dominate the short float baseline.
+  const targetSeconds = opts.quick ? 0.05 : 0.25;
   const bits = new Bits(cryptoBytes);
   const configs: Config[] = [];
   for (const s of ["1", "100", "10000"]) {
@@ -72,15 +74,20 @@ export async function benchSamplers(opts: { quick?: boolean; repeats?: number; s
   const floatRun = (n: number): void => {
     if (floatGaussianBatch(n) === Infinity) sink ^= 1n;
   };
-  // warm-up so every path is compiled before timing
-  floatRun(samples);
-  for (const c of configs) c.run(Math.min(samples, 50_000));
+  // warm-up (every path compiled) and calibration of the sample count per configuration
+  const sizeFor = (run: (n: number) => void): number => {
+    run(20_000);
+    const r = rate(run, 50_000);
+    return opts.samples ?? Math.max(50_000, Math.round(r * targetSeconds));
+  };
+  const floatN = sizeFor(floatRun);
+  const sizes = configs.map((c) => sizeFor(c.run));
   const floatRates: number[] = [];
   const rates = configs.map(() => [] as number[]);
   for (let r = 0; r < repeats; r++) {
     // the float baseline runs in every repeat, interleaved, so machine drift affects both sides
-    floatRates.push(rate(floatRun, samples));
-    for (let i = 0; i < configs.length; i++) rates[i].push(rate(configs[i].run, samples));
+    floatRates.push(rate(floatRun, floatN));
+    for (let i = 0; i < configs.length; i++) rates[i].push(rate(configs[i].run, sizes[i]));
   }
   const floatMedian = median(floatRates);
   const rows: SamplerRow[] = [
@@ -92,7 +99,7 @@ export async function benchSamplers(opts: { quick?: boolean; repeats?: number; s
   ];
   const fmt = (x: number): string => (x >= 1e6 ? `${(x / 1e6).toFixed(2)} M` : `${(x / 1e3).toFixed(0)} k`);
   const lines = [
-    `Exact samplers (runtime/core, node:crypto CSPRNG, ${samples.toLocaleString("en-US")} samples per repeat, ${repeats} repeats), against a float Gaussian in the same run.`,
+    `Exact samplers (runtime/core, node:crypto CSPRNG), ${repeats} repeats of about ${Math.round(targetSeconds * 1000)} ms each, against a float Gaussian measured in the same run (interleaved).`,
     "",
     "| sampler | samples/s (median) | min – max | times slower than float |",
     "|---|---:|---:|---:|",

@@ -2,6 +2,8 @@
  * Bench sections that come from other parts of the project (exact samplers, kernel), listed in
  * the order the report shows them, between the aggregates and the memory section.
  */
+import { benchSamplers } from "./samplers.js";
+
 export interface SectionResult {
   name: string;
   title: string;
@@ -14,4 +16,10 @@ export interface ExtraSection {
   run: (opts: { quick: boolean; dataDir: string }) => Promise<string>;
 }
 
-export const SECTIONS_EXTRA: ExtraSection[] = [];
+export const SECTIONS_EXTRA: ExtraSection[] = [
+  {
+    name: "samplers",
+    title: "Exact noise samplers",
+    run: async ({ quick }) => (await benchSamplers({ quick })).markdown,
+  },
+];
