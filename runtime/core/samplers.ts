@@ -211,7 +211,8 @@ interface GaussPlan {
   lap: LaplacePlan;
   gNum: bigint; // multiplier of the squared term in gamma's numerator
   gDen: bigint; // gamma's denominator
-  small: boolean; // gamma's denominator and the parameters fit the number path
+  small: boolean; // proposals on the number path
+  gSmall: boolean; // accept step on the number path too
   mN: number;
   aN: number;
   bN: number;
@@ -227,7 +228,10 @@ function gaussPlan(sigma2: Rational): GaussPlan {
   const lap = laplacePlan(wide ? Rational.of(a, b * m) : Rational.ONE);
   const gNum = wide ? b : 1n;
   const gDen = wide ? 2n * a : 2n * a * b;
-  const small = lap.small && gDen <= BigInt(MAX_SMALL) && gNum <= BigInt(MAX_SMALL) && a <= BigInt(MAX_SMALL) && m <= BigInt(MAX_SMALL);
+  // Number-path proposals need only lap.small; the accept step stays on numbers when gamma's
+  // denominator and the parameters are small too (gSmall), and uses bigints otherwise.
+  const small = lap.small;
+  const gSmall = gDen <= BigInt(MAX_SMALL) && gNum <= BigInt(MAX_SMALL) && a <= BigInt(MAX_SMALL) && m <= BigInt(MAX_SMALL);
   return {
     a,
     b,
@@ -237,6 +241,7 @@ function gaussPlan(sigma2: Rational): GaussPlan {
     gNum,
     gDen,
     small,
+    gSmall,
     mN: Number(m),
     aN: Number(a),
     bN: Number(b),
@@ -244,7 +249,7 @@ function gaussPlan(sigma2: Rational): GaussPlan {
   };
 }
 
-/** Algorithm D on numbers (requires p.small, hence p.lap.small). */
+/** Algorithm D with number-path proposals (requires p.small). */
 function gaussSmall(p: GaussPlan, bits: Bits): bigint {
   for (;;) {
     const y = laplaceNum(p.lap.tn, p.lap.td, bits);
@@ -256,7 +261,9 @@ function gaussSmall(p: GaussPlan, bits: Bits): bigint {
     const yn = Math.abs(y);
     // gamma's numerator on numbers when it stays <= 2^52 (d <= 2^26 keeps d^2 exact)
     let n = -1;
-    if (p.wide) {
+    if (!p.gSmall) {
+      // accept step in bigints below
+    } else if (p.wide) {
       const d = Math.abs(yn - p.mN);
       if (d <= 67108864) {
         const t = d * d * p.bN;

@@ -65,15 +65,22 @@ interface GaussSums {
   limit: number;
 }
 
-let cached: GaussSums | null = null;
+// A few recent sigma^2 values (a mean interval alternates between two laws).
+const cache = new Map<number, GaussSums>();
+const CACHE_SIZE = 8;
 
 function gaussSums(sigma2: number): GaussSums {
-  if (cached !== null && cached.sigma2 === sigma2) return cached;
+  const hit = cache.get(sigma2);
+  if (hit !== undefined) return hit;
+  const s = computeGaussSums(sigma2);
+  if (cache.size >= CACHE_SIZE) cache.delete(cache.keys().next().value as number);
+  cache.set(sigma2, s);
+  return s;
+}
+
+function computeGaussSums(sigma2: number): GaussSums {
   const sigma = Math.sqrt(sigma2);
-  if (sigma > DIRECT_SUM_LIMIT) {
-    cached = { sigma2, tail: null, total: sigma * Math.sqrt(2 * Math.PI), limit: 0 };
-    return cached;
-  }
+  if (sigma > DIRECT_SUM_LIMIT) return { sigma2, tail: null, total: sigma * Math.sqrt(2 * Math.PI), limit: 0 };
   const limit = Math.ceil(40 * sigma) + 1;
   const tail = new Float64Array(limit + 1);
   let acc = 0;
@@ -82,8 +89,7 @@ function gaussSums(sigma2: number): GaussSums {
     acc += Math.exp(-(x * x) / (2 * sigma2));
   }
   tail[0] = acc;
-  cached = { sigma2, tail, total: 1 + 2 * acc, limit };
-  return cached;
+  return { sigma2, tail, total: 1 + 2 * acc, limit };
 }
 
 /** sum_{x > h} w(x) by Euler–Maclaurin: integral + f/2 - f'/12 at a = h+1. */

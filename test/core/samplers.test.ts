@@ -18,7 +18,7 @@ import {
   sampleDiscreteLaplace,
   sampleDiscreteLaplaceBig,
 } from "../../runtime/core/samplers.js";
-import { chiSquareAgainstPmf, tally } from "./stats.js";
+import { chiSquareAgainstPmf, chiSquarePValue, jstat, tally } from "./stats.js";
 
 const LEVEL = 0.001;
 const N = 100_000;
@@ -131,6 +131,25 @@ describe("discrete Gaussian sampler (CKS 2020 algorithm D)", () => {
       checkSampler(() => sampleDiscreteGaussianBig(sigma2, bits), pmf, K, 20_000, moments(pmf, K).v);
       checkSampler(() => sampleDiscreteGaussian(sigma2, bits), pmf, K, 20_000, moments(pmf, K).v);
     }
+  });
+  it("sigma^2 = 2^50 (accept step in bigints) matches the normal limit in 20 equal-probability bins", () => {
+    // For sigma = 2^25 the discrete Gaussian equals N(0, sigma^2) rounded to integers up to O(1/sigma)
+    // (Poisson summation, methods.md §5); bins from the normal quantile function of jstat.
+    const bits = new Bits(seededBytes("gauss-2^50"));
+    const sigma2 = Rational.of(2n ** 50n);
+    const sigma = 2 ** 25;
+    const edges = Array.from({ length: 19 }, (_, i) => jstat.normal.inv((i + 1) / 20, 0, sigma) as number);
+    const counts = new Array<number>(20).fill(0);
+    const n = 20_000;
+    for (let i = 0; i < n; i++) {
+      const y = Number(sampleDiscreteGaussian(sigma2, bits));
+      let k = 0;
+      while (k < 19 && y > edges[k]) k++;
+      counts[k]++;
+    }
+    let stat = 0;
+    for (const c of counts) stat += (c - n / 20) ** 2 / (n / 20);
+    expect(chiSquarePValue(stat, 19)).toBeGreaterThan(LEVEL);
   });
   // methods.md §5 check values: [C5.6] P(X = 0) at sigma = 1 = 0.398942278267; [C5.1a] Var = 0.999999788768
   it("[C5.6] [C5.1a] the independent pmf reproduces the handbook values", () => {
