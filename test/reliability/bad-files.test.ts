@@ -118,7 +118,7 @@ interface CsvCase {
   name: string;
   write: (file: string) => void;
   /** "loads": starts and reports rows left out (at least `leftOut`); "refuses": a policy error naming `mentions`. */
-  expect: { loads: true; leftOut: number } | { loads: false; mentions: string };
+  expect: { loads: true; leftOut: number } | { loads: false; mentions: string[] };
 }
 
 const HEADER = "pid,age,amount,region,day,member";
@@ -126,10 +126,10 @@ const goodRows = (n: number) => Array.from({ length: n }, (_, i) => `${i % 50},$
 const csv = (lines: string[]) => (file: string) => fs.writeFileSync(file, lines.join("\n") + "\n");
 
 const CSV_CASES: CsvCase[] = [
-  { name: "empty file", write: (f) => fs.writeFileSync(f, ""), expect: { loads: false, mentions: "source" } },
+  { name: "empty file", write: (f) => fs.writeFileSync(f, ""), expect: { loads: false, mentions: ["source", "has no column"] } },
   { name: "header only", write: csv([HEADER]), expect: { loads: true, leftOut: 0 } },
-  { name: "missing column", write: csv(["pid,age,region,day,member", "1,30,north,2025-01-01,true"]), expect: { loads: false, mentions: "amount" } },
-  { name: "missing unit column", write: csv(["age,amount,region,day,member", "30,1,north,2025-01-01,true"]), expect: { loads: false, mentions: "unit.column" } },
+  { name: "missing column", write: csv(["pid,age,region,day,member", "1,30,north,2025-01-01,true"]), expect: { loads: false, mentions: ["amount"] } },
+  { name: "missing unit column", write: csv(["age,amount,region,day,member", "30,1,north,2025-01-01,true"]), expect: { loads: false, mentions: ["unit.column"] } },
   { name: "text in a number column", write: csv([HEADER, ...goodRows(20), `7,${MARKER},3,north,2025-01-01,true`]), expect: { loads: true, leftOut: 1 } },
   { name: "fraction in an integer column", write: csv([HEADER, ...goodRows(20), "7,30.5,3,north,2025-01-01,true"]), expect: { loads: true, leftOut: 1 } },
   { name: "undeclared category value", write: csv([HEADER, ...goodRows(20), `7,30,3,${MARKER},2025-01-01,true`]), expect: { loads: true, leftOut: 1 } },
@@ -138,9 +138,11 @@ const CSV_CASES: CsvCase[] = [
   { name: "not a boolean", write: csv([HEADER, ...goodRows(20), `7,30,3,north,2025-01-01,${MARKER}`]), expect: { loads: true, leftOut: 1 } },
   { name: "huge and non-finite numbers", write: csv([HEADER, ...goodRows(20), "7,30,1e308,north,2025-01-01,true", "7,99999999999999999999999,3,north,2025-01-01,true", "8,30,inf,north,2025-01-01,true", "9,30,NaN,north,2025-01-01,true"]), expect: { loads: true, leftOut: 2 } },
   { name: "missing unit id", write: csv([HEADER, ...goodRows(20), ",30,3,north,2025-01-01,true"]), expect: { loads: true, leftOut: 1 } },
-  { name: "ragged rows", write: csv([HEADER, ...goodRows(20), "7,30,3", `7,30,3,north,2025-01-01,true,${MARKER},extra`]), expect: { loads: false, mentions: "source" } },
-  { name: "binary garbage", write: (f) => fs.writeFileSync(f, Buffer.from(Array.from({ length: 4096 }, (_, i) => (i * 131 + 7) % 256))), expect: { loads: false, mentions: "source" } },
-  { name: "file not found", write: () => undefined, expect: { loads: false, mentions: "not found" } },
+  // DuckDB's CSV sniffer may take a longer, ragged line for the header, so the refusal can name a
+  // declared column as missing rather than the ragged line; either way it must refuse, not misread.
+  { name: "ragged rows", write: csv([HEADER, ...goodRows(20), "7,30,3", `7,30,3,north,2025-01-01,true,${MARKER},extra`]), expect: { loads: false, mentions: ["source", "has no column"] } },
+  { name: "binary garbage", write: (f) => fs.writeFileSync(f, Buffer.from(Array.from({ length: 4096 }, (_, i) => (i * 131 + 7) % 256))), expect: { loads: false, mentions: ["source", "has no column"] } },
+  { name: "file not found", write: () => undefined, expect: { loads: false, mentions: ["not found"] } },
 ];
 
 describe("bad input: data files", () => {
@@ -182,7 +184,7 @@ describe("bad input: data files", () => {
       expect(refusal, "the curator should refuse this file").not.toBeNull();
       expect(refusal!.kind).toBe("policy");
       expect(refusal!.reason).toContain("datasets.visits");
-      expect(refusal!.reason).toContain(c.expect.mentions);
+      expect(c.expect.mentions.some((m) => refusal!.reason.includes(m)), refusal!.reason).toBe(true);
       expect(refusal!.reason + refusal!.stderr).not.toContain(MARKER);
       return;
     }

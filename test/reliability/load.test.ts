@@ -114,6 +114,7 @@ describe("reliability: load", () => {
     const analystOf = (c: number) => (c < 4 ? ws.analysts[c] : ws.analysts[4 + ((c - 4) >> 1)]);
     logs = await Promise.all(Array.from({ length: CLIENTS }, (_, c) => runClient(ws, c, analystOf(c))));
     await curator.stop();
+    if (process.env.HUSH_VERBOSE) console.log(logs.map((l) => ({ a: l.analyst, fresh: l.fresh.length, replays: l.replays.length, overCap: l.refusedOverCap, bad: l.refusedBad, previews: l.previews })));
   }, 300_000);
 
   afterAll(async () => {
