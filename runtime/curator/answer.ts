@@ -44,7 +44,6 @@ export interface ComputedRelease {
 }
 
 export const DEFAULT_CONFIDENCE = 0.95;
-const TWO_63 = 1n << 63n;
 
 function shown(name: string): string {
   return JSON.stringify(name.length > 40 ? `${name.slice(0, 40)}...` : name);
@@ -141,9 +140,7 @@ export class Answerer {
       cost: piece.cost,
       notes,
       async compute(bits: Bits): Promise<ComputedRelease> {
-        // Fresh seed for choosing which rows of a unit are kept (drawn from the CSPRNG bits).
-        const seed = bits.uniformInt(TWO_63);
-        const rows = await piece.run(engine, bits, seed);
+        const rows = await piece.run(engine, bits);
         if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
         return { groupColumns, rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms, notes };
       },

@@ -6,7 +6,9 @@
  *   category column -> USMALLINT index into the declared list of values
  *   date column     -> DATE,  boolean column -> BOOLEAN
  *   __u             -> UBIGINT hash of the unit id (only when a unit column is declared)
- *   __n             -> number of rows of that unit (so bounding only touches units above maxRows)
+ *   __n             -> number of rows of that unit
+ *   __rk            -> the row's rank in a random order of its unit's rows (1 for units with at most
+ *                      maxRows rows); the random order comes from a CSPRNG seed drawn at load
  *
  * Internal column names are positional (c0, c1, ...), so no name from a plan or even from the
  * policy ever appears in query SQL; plan column names are mapped through the declared schema.
@@ -24,6 +26,7 @@
 import { existsSync } from "node:fs";
 import { DuckDBConnection, DuckDBInstance, type DuckDBPreparedStatement } from "@duckdb/node-api";
 import { PolicyError, UnknownDatasetError } from "../errors.js";
+import { Bits, cryptoBytes } from "../core/index.js";
 import type { ColumnPolicy, DatasetPolicy, LoadedPolicy } from "./policy.js";
 
 /** A value bound to a `$n` placeholder. */
@@ -63,6 +66,9 @@ export function quoteIdent(name: string): string {
 function quoteString(s: string): string {
   return `'${s.replace(/'/g, "''")}'`;
 }
+
+/** Idle connections kept for reuse. */
+const MAX_IDLE = 4;
 
 function bindAll(stmt: DuckDBPreparedStatement, params: readonly SqlParam[]): void {
   params.forEach((p, i) => {
@@ -158,23 +164,26 @@ export class Engine {
   private readonly tables: Map<string, TableInfo>;
   private readonly reports: Map<string, LoadReport>;
   private readonly policy: LoadedPolicy;
+  private readonly bits: Bits;
   private closed = false;
+  private readonly idle: DuckDBConnection[] = [];
 
-  private constructor(policy: LoadedPolicy, instance: DuckDBInstance) {
+  private constructor(policy: LoadedPolicy, instance: DuckDBInstance, bits: Bits) {
     this.policy = policy;
     this.instance = instance;
+    this.bits = bits;
     this.tables = new Map();
     this.reports = new Map();
   }
 
   /** Loads every dataset of the policy (or the named subset) into memory. */
-  static async open(policy: LoadedPolicy, opts: { datasets?: string[]; quiet?: boolean } = {}): Promise<Engine> {
+  static async open(policy: LoadedPolicy, opts: { datasets?: string[]; quiet?: boolean; bits?: Bits } = {}): Promise<Engine> {
     const names = opts.datasets ?? [...policy.datasets.keys()];
     for (const n of names) {
       if (!policy.datasets.has(n)) throw new UnknownDatasetError(`no dataset named ${JSON.stringify(n.slice(0, 64))} in the policy`);
     }
     const instance = await DuckDBInstance.create(":memory:");
-    const engine = new Engine(policy, instance);
+    const engine = new Engine(policy, instance, opts.bits ?? new Bits(cryptoBytes));
     try {
       const conn = await instance.connect();
       try {
@@ -239,9 +248,27 @@ export class Engine {
     await conn.run(
       `CREATE TEMP TABLE ${stage} AS SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${sourceCall(d)} AS src)`,
     );
-    const finals = d.columns.map((c, i) => finalSelect(c, i));
-    const unitCols = unit !== null ? ["__u", "CAST(count(*) OVER (PARTITION BY __u) AS INTEGER) AS __n"] : [];
-    await conn.run(`CREATE TABLE ${table} AS SELECT ${[...unitCols, ...finals].join(", ")} FROM ${stage} WHERE __why IS NULL`);
+    const finals = d.columns.map((c, i) => finalSelect(c, i)).join(", ");
+    if (unit === null) {
+      await conn.run(`CREATE TABLE ${table} AS SELECT ${finals} FROM ${stage} WHERE __why IS NULL`);
+    } else {
+      // __n: the unit's row count. __rk: the row's place in a uniformly random order of its unit's
+      // rows (hash of the row id under a seed from the CSPRNG), computed only for units above
+      // maxRows; rows of smaller units get 1. Queries keep rows with __rk <= maxRows.
+      const k = d.unit.maxRows;
+      const sizes = quoteIdent(`sizes${index}`);
+      await conn.run(`CREATE TEMP TABLE ${sizes} AS SELECT __u, CAST(count(*) AS INTEGER) AS __n FROM ${stage} WHERE __why IS NULL GROUP BY __u`);
+      const joined = `FROM ${stage} AS s JOIN ${sizes} AS z USING (__u) WHERE s.__why IS NULL`;
+      const stmt = await conn.prepare(
+        `CREATE TABLE ${table} AS ` +
+          `SELECT __u, z.__n, 1 AS __rk, ${finals} ${joined} AND z.__n <= ${k} ` +
+          `UNION ALL SELECT __u, z.__n, CAST(row_number() OVER (PARTITION BY __u ORDER BY hash(s.rowid, $1)) AS INTEGER) AS __rk, ${finals} ${joined} AND z.__n > ${k}`,
+      );
+      stmt.bindBigInt(1, this.bits.uniformInt(1n << 63n));
+      await stmt.run();
+      stmt.destroySync();
+      await conn.run(`DROP TABLE ${sizes}`);
+    }
     const rejected = await conn.runAndReadAll(`SELECT __why, count(*) FROM ${stage} WHERE __why IS NOT NULL GROUP BY __why ORDER BY __why`);
     const kept = await conn.runAndReadAll(`SELECT count(*) FROM ${table}`);
     await conn.run(`DROP TABLE ${stage}`);
@@ -282,24 +309,29 @@ export class Engine {
    */
   async query(sql: string, params: readonly SqlParam[]): Promise<unknown[][]> {
     if (this.closed) throw new Error("engine is closed");
-    const conn = await this.instance.connect();
+    // Connections are reused: a fresh DuckDB connection costs milliseconds on its first statement.
+    const conn = this.idle.pop() ?? (await this.instance.connect());
+    let healthy = false;
     try {
       const stmt = await conn.prepare(sql);
       try {
         bindAll(stmt, params);
         const reader = await stmt.runAndReadAll();
+        healthy = true;
         return reader.getRows() as unknown[][];
       } finally {
         stmt.destroySync();
       }
     } finally {
-      conn.closeSync();
+      if (healthy && !this.closed && this.idle.length < MAX_IDLE) this.idle.push(conn);
+      else conn.closeSync();
     }
   }
 
   async close(): Promise<void> {
     if (this.closed) return;
     this.closed = true;
+    for (const c of this.idle.splice(0)) c.closeSync();
     this.instance.closeSync();
   }
 }

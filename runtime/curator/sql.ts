@@ -18,10 +18,9 @@ import type { Condition, GroupKey, Literal } from "../protocol/messages.js";
 import type { SqlParam, TableColumn, TableInfo } from "./engine.js";
 import type { ColumnPolicy } from "./policy.js";
 
-/** Collects bound parameters; `slot` reserves one filled later (the per-query bounding seed). */
+/** Collects bound parameters in order: add() returns the placeholder ("$3") for the value. */
 export class Params {
   private readonly list: SqlParam[] = [];
-  private seedIndex = -1;
 
   add(p: SqlParam): string {
     this.list.push(p);
@@ -30,18 +29,8 @@ export class Params {
   big(v: bigint): string {
     return this.add({ type: "bigint", value: v });
   }
-  seed(): string {
-    if (this.seedIndex < 0) {
-      this.list.push({ type: "bigint", value: 0n });
-      this.seedIndex = this.list.length - 1;
-    }
-    return `$${this.seedIndex + 1}`;
-  }
-  /** The parameter list with the seed slot (if any) set. */
-  values(seed: bigint): SqlParam[] {
-    const out = this.list.slice();
-    if (this.seedIndex >= 0) out[this.seedIndex] = { type: "bigint", value: seed };
-    return out;
+  values(): SqlParam[] {
+    return this.list.slice();
   }
   get count(): number {
     return this.list.length;
@@ -213,7 +202,7 @@ export function compileWhere(cond: Condition | undefined, t: TableInfo, params: 
   }
 }
 
-/** A public grouping: the SQL expression gives the key index 0..labels.length-1 (NULL rows are left out). */
+/** A public grouping: the SQL expression gives the key index 0..labels.length-1 (NULL for a missing value). */
 export interface GroupSpec {
   column: string;
   labels: string[];
@@ -248,7 +237,7 @@ export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: 
   switch (c.type) {
     case "category":
       if (bins !== undefined) throw new BadInputError(`${path}.bins: category column ${shown(c.name)} is grouped by its declared values; leave bins out`);
-      return { column: c.name, labels: c.values.slice(), expr: `CAST(${col.ident} AS INTEGER)`, ident: col.ident };
+      return { column: c.name, labels: c.values.slice(), expr: col.ident, ident: col.ident };
     case "boolean":
       if (bins !== undefined) throw new BadInputError(`${path}.bins: boolean column ${shown(c.name)} takes no bins`);
       return { column: c.name, labels: ["false", "true"], expr: `CAST(${col.ident} AS INTEGER)`, ident: col.ident };
@@ -270,21 +259,25 @@ export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: 
  * The rows an aggregate may see: the filtered rows, with each unit's contribution bounded to at
  * most maxRows rows chosen uniformly at random (methods.md §7, "Enforcing the bounds").
  *
- * Units with at most maxRows rows in the whole table keep all their rows (no work). For the others,
- * a window ranks the unit's filtered rows by hash(rowid, seed) with a fresh seed from the CSPRNG
- * bound as a parameter, and keeps the first maxRows. The selection for a unit depends only on its
- * own rows and the seed, which is what the stability argument needs.
+ * The engine stores __rk, each row's rank in a uniformly random order of its unit's rows (drawn
+ * from the CSPRNG at load; 1 for units with at most maxRows rows). Without a filter the kept rows
+ * are simply __rk <= maxRows. With a filter, rows are bounded after filtering: units with at most
+ * maxRows rows keep every matching row, and for larger units a window keeps the maxRows matching
+ * rows that come first in the random order, which is a uniformly random subset of the matching
+ * rows. Either way the selection for a unit depends only on its own rows and the random order,
+ * which is what the stability argument needs.
  */
 export function keptRelation(t: TableInfo, where: string, cols: readonly string[], params: Params): string {
-  const list = cols.length === 0 ? "1 AS __one" : [...new Set(cols)].join(", ");
+  const uniq = [...new Set(cols)];
+  const list = uniq.length === 0 ? "1 AS __one" : uniq.join(", ");
   if (!t.hasUnit) return `SELECT ${list} FROM ${t.table} WHERE ${where}`;
   const k = params.add({ type: "integer", value: t.dataset.unit.maxRows });
-  const seed = params.seed();
+  if (where === "TRUE") return `SELECT ${list} FROM ${t.table} WHERE __rk <= ${k}`;
   // The outer select of the window branch names the inner select's outputs (aliases when given).
-  const outer = cols.length === 0 ? "__one" : [...new Set(cols)].map((c) => c.split(" AS ").pop()).join(", ");
+  const outer = uniq.length === 0 ? "__one" : uniq.map((c) => c.split(" AS ").pop()).join(", ");
   return (
     `SELECT ${list} FROM ${t.table} WHERE __n <= ${k} AND (${where}) ` +
-    `UNION ALL SELECT ${outer} FROM (SELECT ${list}, row_number() OVER (PARTITION BY __u ORDER BY hash(rowid, ${seed})) AS __k ` +
+    `UNION ALL SELECT ${outer} FROM (SELECT ${list}, row_number() OVER (PARTITION BY __u ORDER BY __rk) AS __k ` +
     `FROM ${t.table} WHERE __n > ${k} AND (${where})) WHERE __k <= ${k}`
   );
 }

@@ -18,7 +18,6 @@ import type { Bits } from "../../core/index.js";
 import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
-import type { Params } from "../sql.js";
 import { type Allocator, type NoisySpec, exactDecimal, halfWidthValue, mechanismRecord, sqrtRational } from "./budget.js";
 import { type Piece, type Source, fetchCells, groupLabels, keyTuples, rowsPerUnit } from "./common.js";
 
@@ -62,8 +61,8 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
     notes: groupedNote(src, keys, columns, cells),
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, seed, keys, [], () => ["count(*)"]);
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [], () => ["count(*)"]);
       const tuples = keyTuples(labels);
       return data.map((v, i) => noisyRow(tuples[i], stat, null, addNoise(v[0], spec.law, bits), spec, conf));
     },
@@ -85,18 +84,22 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
     notes: groupedNote(src, keys, columns, cells),
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, seed, keys, [col.ident], () => [`sum(${col.ident})`]);
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [col.ident], () => [`sum(${col.ident})`]);
       const tuples = keyTuples(labels);
       return data.map((v, i) => noisyRow(tuples[i], "sum", c.name, addNoise(v[0], spec.law, bits), spec, conf));
     },
   };
 }
 
-function centredExpr(col: TableColumn, ps: Params): string {
-  const c = col.policy as NumericPolicy;
-  // Twice the value minus twice the centre, in half-units: an integer even when (L+U)/2 is off-grid.
-  return `(2 * ${col.ident} - ${ps.big(c.grid.lowerUnits + c.grid.upperUnits)})`;
+/**
+ * Centred sums from plain ones, in exact integers: with C2 = L/g + U/g (twice the centre, in grid
+ * units) each row contributes d = 2x - C2 half-units, so sum d = 2 S - C2 N and
+ * sum d^2 = 4 Q - 4 C2 S + C2^2 N. SQL only computes count, sum and sum of squares of grid units.
+ */
+function centred(c: NumericPolicy, n: bigint, s: bigint, q = 0n): { d: bigint; d2: bigint } {
+  const c2 = c.grid.lowerUnits + c.grid.upperUnits;
+  return { d: 2n * s - c2 * n, d2: 4n * q - 4n * c2 * s + c2 * c2 * n };
 }
 
 /** Mean per cell: noisy count of values and noisy centred sum, half the budget each (methods.md §8). */
@@ -124,12 +127,12 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     ],
     methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (methods.md §8)`],
     size: cells,
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, seed, keys, [col.ident], (ps) => [`count(${col.ident})`, `sum(${centredExpr(col, ps)})`]);
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [col.ident], () => [`count(${col.ident})`, `sum(${col.ident})`]);
       const tuples = keyTuples(labels);
       return data.map((v, i) => {
         const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
-        const s = { noisy: addNoise(v[1], sum.law, bits), law: sum.law };
+        const s = { noisy: addNoise(centred(c, v[0], v[1]).d, sum.law, bits), law: sum.law };
         const r = ratioInterval({ sum: s, count: n, sumStep: half, lower, upper, confidence: conf, centre });
         return {
           key: tuples[i],
@@ -183,16 +186,19 @@ export function spreadPiece(
     ],
     methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, seed, keys, [col.ident], (ps) => {
-        const d = centredExpr(col, ps);
-        return [`count(${col.ident})`, `sum(${d})`, `sum(${d} * ${d})`];
-      });
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+      // |units| <= 2^31 (policy limit), so a square fits BIGINT and DuckDB sums it as HUGEINT.
+      const data = await fetchCells(engine, src, keys, [col.ident], () => [
+        `count(${col.ident})`,
+        `sum(${col.ident})`,
+        `sum(${col.ident} * ${col.ident})`,
+      ]);
       const tuples = keyTuples(labels);
       return data.map((v, i) => {
+        const cs = centred(c, v[0], v[1], v[2]);
         const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
-        const s = { noisy: addNoise(v[1], sum.law, bits), law: sum.law };
-        const q = { noisy: addNoise(v[2], squares.law, bits), law: squares.law };
+        const s = { noisy: addNoise(cs.d, sum.law, bits), law: sum.law };
+        const q = { noisy: addNoise(cs.d2, squares.law, bits), law: squares.law };
         const r = varianceInterval({ sumSquares: q, sum: s, count: n, sumStep: half, squareStep: half.mul(half), lower, upper, confidence: conf });
         const est = r.estimate;
         const low = est === null ? Rational.ZERO : r.low;

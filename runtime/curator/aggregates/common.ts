@@ -23,7 +23,7 @@ export interface Piece {
   methods: string[];
   /** Number of rows `run` returns, fixed by the plan and the policy (never by the data). */
   size: number;
-  run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]>;
+  run(engine: Engine, bits: Bits): Promise<ReleaseRow[]>;
 }
 
 /** Rows per privacy unit after bounding (1 when each row is its own unit). */
@@ -48,12 +48,11 @@ export function keyTuples(labels: readonly string[][]): string[][] {
 /**
  * Runs `SELECT keys..., aggs... FROM kept GROUP BY keys` and returns one vector of exact integers
  * per declared cell, in keyTuples order. Cells with no rows get zeros (every declared key is
- * released, so no output depends on which keys occur). Rows whose key value is NULL are left out.
+ * released, so no output depends on which keys occur). Rows whose key value is missing are left out.
  */
 export async function fetchCells(
   engine: Engine,
   src: Source,
-  seed: bigint,
   keys: readonly GroupKey[],
   cols: readonly string[],
   aggs: (ps: Params) => string[],
@@ -71,12 +70,13 @@ export async function fetchCells(
     sql = `SELECT ${aggList.join(", ")} FROM (${rel}) AS __kept`;
   } else {
     const keySel = groups.map((g, i) => `${g.expr} AS __g${i}`).join(", ");
-    const notNull = groups.map((g) => `${g.ident} IS NOT NULL`).join(" AND ");
     const by = groups.map((_, i) => String(i + 1)).join(", ");
-    sql = `SELECT ${keySel}, ${aggList.join(", ")} FROM (${rel}) AS __kept WHERE ${notNull} GROUP BY ${by}`;
+    sql = `SELECT ${keySel}, ${aggList.join(", ")} FROM (${rel}) AS __kept GROUP BY ${by}`;
   }
-  const rows = await engine.query(sql, ps.values(seed));
+  const rows = await engine.query(sql, ps.values());
   for (const row of rows) {
+    // A missing key value is not a declared key: those rows are left out (a public rule).
+    if (row.slice(0, groups.length).some((k) => k === null)) continue;
     let index = 0;
     for (let i = 0; i < groups.length; i++) {
       const k = Number(row[i]);
@@ -95,14 +95,23 @@ function toBigInt(v: unknown): bigint {
   throw new Error("internal: aggregate is not an exact integer");
 }
 
-/** Sorted (grid value, number of kept rows) pairs of one numeric column, missing values left out. */
-export async function fetchValueCounts(engine: Engine, src: Source, seed: bigint, col: TableColumn): Promise<[bigint, bigint][]> {
+/**
+ * Sorted (bucket, number of kept rows) pairs of one numeric column, missing values left out;
+ * `bucket` maps the column's identifier to an integer expression (binds its own parameters).
+ */
+export async function fetchBuckets(
+  engine: Engine,
+  src: Source,
+  col: TableColumn,
+  bucket: (ident: string, ps: Params) => string,
+): Promise<[bigint, bigint][]> {
   const ps = new Params();
   const where = compileWhere(src.where, src.t, ps);
   const rel = keptRelation(src.t, where, [col.ident], ps);
+  const b = bucket(col.ident, ps);
   const rows = await engine.query(
-    `SELECT ${col.ident}, count(*) FROM (${rel}) AS __kept WHERE ${col.ident} IS NOT NULL GROUP BY 1 ORDER BY 1`,
-    ps.values(seed),
+    `SELECT ${b} AS __b, count(*) FROM (${rel}) AS __kept WHERE ${col.ident} IS NOT NULL GROUP BY 1 ORDER BY 1`,
+    ps.values(),
   );
   return rows.map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
 }

@@ -48,10 +48,10 @@ export function describePiece(alloc: Allocator, src: Source): Piece {
     notes,
     methods: [...new Set(list.flatMap((p) => p.piece.methods))],
     size: list.reduce((n, p) => n + p.piece.size, 0),
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
       const out: ReleaseRow[] = [];
       for (const p of list) {
-        const rows = await p.piece.run(engine, bits, seed);
+        const rows = await p.piece.run(engine, bits);
         for (const r of rows) {
           out.push(p.keyed ? { ...r, column: p.column } : { ...r, key: [null] });
         }

@@ -17,7 +17,7 @@ import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
 import { decimalOf } from "../sql.js";
 import { type Allocator, type ExponentialSpec, exactDecimal, exponentialRecord } from "./budget.js";
-import { type Piece, type Source, fetchValueCounts, rowsPerUnit } from "./common.js";
+import { type Piece, type Source, fetchBuckets, rowsPerUnit } from "./common.js";
 
 type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
 
@@ -72,14 +72,20 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     notes,
     methods: ["quantiles: no value interval (rank guarantee of the exponential mechanism, McSherry & Talwar 2007)"],
     size: ps.length,
-    async run(engine: Engine, bits: Bits, seed: bigint): Promise<ReleaseRow[]> {
-      const counts = await fetchValueCounts(engine, src, seed, col);
-      // Merge: counts are sorted by value; r_j = number of values strictly below candidate j.
+    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+      // Bucket b(x) = number of candidates <= x, so r(y_j) = #{x < y_j} = #{b(x) <= j}. With
+      // candidates lo + j s (j < m - 1) and hi last: b = min((x - lo) // s + 1, m - 1), and m at hi.
+      const stride = cand.length > 1 ? cand[1] - cand[0] : 1n;
+      const m = BigInt(cand.length);
+      const counts = await fetchBuckets(engine, src, col, (id, ps) => {
+        const hi = ps.big(c.grid.upperUnits);
+        return `CASE WHEN ${id} >= ${hi} THEN ${ps.big(m)} ELSE LEAST((${id} - ${ps.big(c.grid.lowerUnits)}) // ${ps.big(stride)} + 1, ${ps.big(m - 1n)}) END`;
+      });
       const below: bigint[] = [];
       let i = 0;
       let acc = 0n;
-      for (const y of cand) {
-        while (i < counts.length && counts[i][0] < y) acc += counts[i++][1];
+      for (let j = 0n; j < m; j++) {
+        while (i < counts.length && counts[i][0] <= j) acc += counts[i++][1];
         below.push(acc);
       }
       let n = acc;
