@@ -37,6 +37,7 @@ export {
   ratioInterval,
   varianceInterval,
   checkConfidence,
+  DEFAULT_CONFIDENCE,
 } from "./intervals.js";
 export {
   type AccountingMode,

@@ -25,6 +25,9 @@ export interface IntervalResult {
   coverage: number;
 }
 
+/** Confidence used when the caller does not choose one (the default, 95%). */
+export const DEFAULT_CONFIDENCE = 0.95;
+
 /** Throws unless 0 < c < 1. */
 export function checkConfidence(c: number): void {
   if (typeof c !== "number" || !Number.isFinite(c) || c <= 0 || c >= 1) {
@@ -55,7 +58,7 @@ const MARGIN = 1 + 1e-12;
  * Smallest integer h >= 0 with P(|noise| > h) <= 1 - confidence. A closed-form or normal start is
  * confirmed by the tail sums and moved until tail(h) <= a < tail(h - 1) (methods.md §4 cautions).
  */
-export function halfWidth(law: NoiseLaw, confidence: number): bigint {
+export function halfWidth(law: NoiseLaw, confidence: number = DEFAULT_CONFIDENCE): bigint {
   checkConfidence(confidence);
   checkLaw(law);
   const a = 1 - confidence;
