@@ -59,5 +59,7 @@ export {
   halfWidthFor,
   meanPlanFor,
   planMeanForHalfWidth,
+  laplaceReference,
+  gaussianReference,
 } from "./planning.js";
 export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";

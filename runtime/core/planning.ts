@@ -5,7 +5,7 @@
  * the exact tail of the law actually returned.
  */
 import { BadInputError } from "../errors.js";
-import { checkConfidence, halfWidth } from "./intervals.js";
+import { checkConfidence, halfWidth, normalQuantile } from "./intervals.js";
 import { calibrate, costOf, type NoiseLaw, type PrivacyParam } from "./mechanisms.js";
 import { Rational } from "./rational.js";
 import { gaussianTail } from "./tails.js";
@@ -52,6 +52,29 @@ export function maxSigmaGaussian(h: number, a: number): number {
     else hi = mid;
   }
   return lo;
+}
+
+/**
+ * Continuous references for fast previews (methods.md §3 and §11; the project never releases
+ * continuous noise): the Laplace mechanism with b = Delta/epsilon has half-width b ln(1/a) and
+ * variance 2 b^2, so epsilon = Delta ln(1/a)/H; the Gaussian has sigma = H / z_(1-a/2) and
+ * rho = Delta^2/(2 sigma^2).
+ */
+export function laplaceReference(args: { sensitivity: number; a: number; halfWidth?: number; epsilon?: number }): {
+  epsilon: number;
+  halfWidth: number;
+  variance: number;
+} {
+  const { sensitivity: d, a } = args;
+  const epsilon = args.epsilon ?? (d * Math.log(1 / a)) / (args.halfWidth as number);
+  const b = d / epsilon;
+  return { epsilon, halfWidth: b * Math.log(1 / a), variance: 2 * b * b };
+}
+
+export function gaussianReference(args: { sensitivity: number; a: number; halfWidth: number }): { z: number; sigma: number; rho: number } {
+  const z = normalQuantile(1 - args.a / 2);
+  const sigma = args.halfWidth / z;
+  return { z, sigma, rho: (args.sensitivity * args.sensitivity) / (2 * sigma * sigma) };
 }
 
 /** Smallest cost whose noise has half-width <= halfWidthUnits at the confidence. */

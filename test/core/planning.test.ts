@@ -1,13 +1,27 @@
 import { describe, expect, it } from "vitest";
 import { BadInputError } from "../../runtime/errors.js";
 import { halfWidth } from "../../runtime/core/intervals.js";
-import { halfWidthFor, maxSigmaGaussian, meanPlanFor, minEpsilonLaplace, planForHalfWidth, planMeanForHalfWidth } from "../../runtime/core/planning.js";
+import { gaussianReference, halfWidthFor, laplaceReference, maxSigmaGaussian, meanPlanFor, minEpsilonLaplace, planForHalfWidth, planMeanForHalfWidth } from "../../runtime/core/planning.js";
 import { Rational } from "../../runtime/core/rational.js";
 
 const R = Rational.parse;
 const rel = (a: number, b: number): number => Math.abs(a - b) / Math.abs(b);
 
 describe("accuracy-first planning (methods.md §11), Delta = 1, H = 10, a = 0.05", () => {
+  it("[C11.1] Laplace reference epsilon 0.299573227355; [C11.3a-c] z 1.95996398454, sigma 5.10213456925, rho 0.0192072941035", () => {
+    expect(rel(laplaceReference({ sensitivity: 1, a: 0.05, halfWidth: 10 }).epsilon, 0.299573227355)).toBeLessThan(1e-9);
+    const g = gaussianReference({ sensitivity: 1, a: 0.05, halfWidth: 10 });
+    expect(rel(g.z, 1.95996398454)).toBeLessThan(1e-9);
+    expect(rel(g.sigma, 5.10213456925)).toBeLessThan(1e-9);
+    expect(rel(g.rho, 0.0192072941035)).toBeLessThan(1e-9);
+  });
+  it("[C3.1-4] continuous Laplace half-widths 2.99573227355, 29.9573227355, 59.9146454711 and variance 800", () => {
+    expect(rel(laplaceReference({ sensitivity: 1, a: 0.05, epsilon: 1 }).halfWidth, 2.99573227355)).toBeLessThan(1e-9);
+    expect(rel(laplaceReference({ sensitivity: 1, a: 0.05, epsilon: 0.1 }).halfWidth, 29.9573227355)).toBeLessThan(1e-9);
+    const r = laplaceReference({ sensitivity: 10, a: 0.05, epsilon: 0.5 });
+    expect(rel(r.halfWidth, 59.9146454711)).toBeLessThan(1e-9);
+    expect(rel(r.variance, 800)).toBeLessThan(1e-9);
+  });
   it("[C11.2] discrete Laplace: smallest epsilon with integer half-width <= 10 -> 0.284348512423", () => {
     expect(rel(minEpsilonLaplace(1, 10, 0.05), 0.284348512423)).toBeLessThan(1e-9);
     const plan = planForHalfWidth({ family: "discrete-laplace", sensitivity: 1n, halfWidthUnits: 10n, confidence: 0.95 });
