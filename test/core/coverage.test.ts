@@ -5,7 +5,7 @@
  * conservative mean interval against the one-sided limit 9431 ([C12.2]). Fixed seeds.
  */
 import { describe, expect, it } from "vitest";
-import { halfWidth, ratioInterval, tailProbability } from "../../runtime/core/intervals.js";
+import { halfWidth, ratioInterval, tailProbability, varianceInterval } from "../../runtime/core/intervals.js";
 import { addNoise, calibrate, type NoiseLaw } from "../../runtime/core/mechanisms.js";
 import { makeGrid, sumSensitivity, toGridUnits } from "../../runtime/core/fixedpoint.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
@@ -89,5 +89,36 @@ describe("coverage of 95% intervals, 10,000 releases each", () => {
       }
       expect(hits, name).toBeGreaterThanOrEqual(9431);
     }
+  });
+
+  it("variance by the box method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
+    // 400 rows in [0, 10], g = 1, centred at 5: half-units d = 2x - 10 (|d| <= 10), squares d^2 <= 100
+    const bits = new Bits(seededBytes("cov-var-data"));
+    const xs = Array.from({ length: 400 }, () => bits.uniformSmall(11));
+    const n = BigInt(xs.length);
+    const S = xs.reduce((a, x) => a + BigInt(2 * x - 10), 0n);
+    const Q = xs.reduce((a, x) => a + BigInt((2 * x - 10) ** 2), 0n);
+    const half = R("1/2");
+    // population variance of the data, exactly
+    const truth = Rational.of(Q, n).mul(half.mul(half)).sub(Rational.of(S, n).mul(half).mul(Rational.of(S, n).mul(half)));
+    const third = R("1/3");
+    const countLaw = calibrate(1n, { epsilon: third });
+    const sumLaw = calibrate(10n, { epsilon: third });
+    const sqLaw = calibrate(100n, { epsilon: third });
+    let hits = 0;
+    for (let i = 0; i < RUNS; i++) {
+      const r = varianceInterval({
+        count: { noisy: addNoise(n, countLaw, bits), law: countLaw },
+        sum: { noisy: addNoise(S, sumLaw, bits), law: sumLaw },
+        sumSquares: { noisy: addNoise(Q, sqLaw, bits), law: sqLaw },
+        sumStep: half,
+        squareStep: half.mul(half),
+        lower: R("0"),
+        upper: R("10"),
+        confidence: 0.95,
+      });
+      if (r.low.le(truth) && truth.le(r.high)) hits++;
+    }
+    expect(hits).toBeGreaterThanOrEqual(9431);
   });
 });
