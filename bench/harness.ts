@@ -66,6 +66,8 @@ export interface MachineFacts {
   node: string;
   platform: string;
   date: string;
+  /** 1-minute load average at the start: other work on the machine skews every figure. */
+  load: string;
 }
 
 export function machineFacts(): MachineFacts {
@@ -77,6 +79,7 @@ export function machineFacts(): MachineFacts {
     node: process.version,
     platform: `${os.type()} ${os.release()} ${os.arch()}`,
     date: new Date().toISOString(),
+    load: os.loadavg().map((l) => l.toFixed(2)).join(" / "),
   };
 }
 
@@ -116,6 +119,7 @@ export function machineMarkdown(m: MachineFacts): string {
       ["node", m.node],
       ["OS", m.platform],
       ["date (UTC)", m.date],
+      ["load average at start (1/5/15 min)", m.load],
     ],
   );
 }

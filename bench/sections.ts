@@ -2,6 +2,8 @@
  * Bench sections that come from other parts of the project (exact samplers, kernel), listed in
  * the order the report shows them, between the aggregates and the memory section.
  */
+import { benchKernel } from "./kernel.js";
+import { benchKernelDp } from "./kernel-dp.js";
 import { benchSamplers } from "./samplers.js";
 
 export interface SectionResult {
@@ -21,5 +23,15 @@ export const SECTIONS_EXTRA: ExtraSection[] = [
     name: "samplers",
     title: "Exact noise samplers",
     run: async ({ quick }) => (await benchSamplers({ quick })).markdown,
+  },
+  {
+    name: "kernel",
+    title: "Kernel overhead",
+    run: async ({ quick }) => (await benchKernel({ quick })).markdown,
+  },
+  {
+    name: "kernel-dp",
+    title: "DP count end to end through the kernel",
+    run: benchKernelDp,
   },
 ];
