@@ -227,7 +227,8 @@ export function binExpr(col: TableColumn, bins: number, params: Params): string 
   const span = params.big(c.grid.upperUnits - c.grid.lowerUnits);
   const b = params.big(BigInt(bins));
   const last = params.big(BigInt(bins - 1));
-  return `LEAST((${col.ident} - ${lo}) * ${b} // ${span}, ${last})`;
+  // DuckDB's LEAST skips NULLs, so a missing value must stay NULL explicitly (it is then left out).
+  return `CASE WHEN ${col.ident} IS NULL THEN NULL ELSE LEAST((${col.ident} - ${lo}) * ${b} // ${span}, ${last}) END`;
 }
 
 export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: string): GroupSpec {
@@ -280,4 +281,15 @@ export function keptRelation(t: TableInfo, where: string, cols: readonly string[
     `UNION ALL SELECT ${outer} FROM (SELECT ${list}, row_number() OVER (PARTITION BY __u ORDER BY __rk) AS __k ` +
     `FROM ${t.table} WHERE __n > ${k} AND (${where})) WHERE __k <= ${k}`
   );
+}
+
+/**
+ * The kept rows as a FROM fragment for an aggregate: `"d0" AS __kept WHERE ...` when no window is
+ * needed (so DuckDB sees a plain filtered scan, as fast as the same query without privacy), else
+ * the keptRelation subquery. Callers append only GROUP BY / ORDER BY.
+ */
+export function keptFrom(t: TableInfo, where: string, cols: readonly string[], params: Params): string {
+  if (!t.hasUnit) return `${t.table} AS __kept WHERE ${where}`;
+  if (where === "TRUE") return `${t.table} AS __kept WHERE __rk <= ${params.add({ type: "integer", value: t.dataset.unit.maxRows })}`;
+  return `(${keptRelation(t, where, cols, params)}) AS __kept`;
 }

@@ -234,6 +234,28 @@ describe("large epsilon recovers the bounded, clamped truth of the fixture", () 
     expect(Number(r.rows[0].value)).toBe(keptCount);
   });
 
+  it("histogram of the row-level dataset leaves the row with no age out", async () => {
+    const ages = lines
+      .filter(([, age, wait, district, date]) => age !== "" && /^\d+$/.test(age) && (wait === "" || Number.isFinite(Number(wait))) && DISTRICTS.includes(district) && date >= "2025-01-01" && date <= "2025-12-31")
+      .map((l) => Math.min(100, Number(l[1])));
+    const r = await ask(plan({ measure: { kind: "histogram", column: "age", bins: 4 }, privacy: { epsilon: "1000000" } }, "rows"));
+    const expected = [0, 1, 2, 3].map((j) => ages.filter((a) => Math.min(3, Math.floor(a / 25)) === j).length);
+    expect(r.rows.map((x) => Number(x.value))).toEqual(expected);
+    expect(expected.reduce((a, b) => a + b, 0)).toBe(ages.length);
+  });
+
+  it("median of the row-level dataset has the smallest rank cost |2 r(y) - n| (methods.md §9), missing ages left out", async () => {
+    const ages = lines
+      .filter(([, age, wait, district, date]) => age !== "" && /^\d+$/.test(age) && (wait === "" || Number.isFinite(Number(wait))) && DISTRICTS.includes(district) && date >= "2025-01-01" && date <= "2025-12-31")
+      .map((l) => Math.min(100, Number(l[1])));
+    const cost = (y: number) => Math.abs(2 * ages.filter((a) => a < y).length - ages.length);
+    const best = Math.min(...Array.from({ length: 101 }, (_, y) => cost(y)));
+    for (const seed of [1, 2, 3]) {
+      const r = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5] }, privacy: { epsilon: "1000000" } }, "rows"), seed);
+      expect(cost(Number(r.rows[0].value))).toBe(best);
+    }
+  });
+
   it("grouped count of the row-level dataset", async () => {
     const rowsFit = lines.filter(
       ([, age, wait, district, date]) =>

@@ -5,7 +5,7 @@
 import type { Bits, Rational } from "../../core/index.js";
 import type { Condition, GroupKey, MechanismRecord, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn, TableInfo } from "../engine.js";
-import { type GroupSpec, Params, compileGroup, compileWhere, keptRelation } from "../sql.js";
+import { type GroupSpec, Params, compileGroup, compileWhere, keptFrom } from "../sql.js";
 
 /** Where an aggregate's rows come from: a dataset table and the plan's filter. */
 export interface Source {
@@ -60,18 +60,18 @@ export async function fetchCells(
   const ps = new Params();
   const where = compileWhere(src.where, src.t, ps);
   const groups: GroupSpec[] = keys.map((k, i) => compileGroup(k, src.t, ps, `plan.groupBy[${i}]`));
-  const rel = keptRelation(src.t, where, [...groups.map((g) => g.ident), ...cols], ps);
+  const from = keptFrom(src.t, where, [...groups.map((g) => g.ident), ...cols], ps);
   const aggList = aggs(ps);
   const sizes = groups.map((g) => g.labels.length);
   const cells = sizes.reduce((n, s) => n * s, 1);
   const out: bigint[][] = Array.from({ length: cells }, () => aggList.map(() => 0n));
   let sql: string;
   if (groups.length === 0) {
-    sql = `SELECT ${aggList.join(", ")} FROM (${rel}) AS __kept`;
+    sql = `SELECT ${aggList.join(", ")} FROM ${from}`;
   } else {
     const keySel = groups.map((g, i) => `${g.expr} AS __g${i}`).join(", ");
     const by = groups.map((_, i) => String(i + 1)).join(", ");
-    sql = `SELECT ${keySel}, ${aggList.join(", ")} FROM (${rel}) AS __kept GROUP BY ${by}`;
+    sql = `SELECT ${keySel}, ${aggList.join(", ")} FROM ${from} GROUP BY ${by}`;
   }
   const rows = await engine.query(sql, ps.values());
   for (const row of rows) {
@@ -96,8 +96,9 @@ function toBigInt(v: unknown): bigint {
 }
 
 /**
- * Sorted (bucket, number of kept rows) pairs of one numeric column, missing values left out;
- * `bucket` maps the column's identifier to an integer expression (binds its own parameters).
+ * Sorted (bucket, number of kept rows) pairs of one numeric column; `bucket` maps the column's
+ * identifier to an integer expression (binding its own parameters) that is NULL for a missing
+ * value, and those rows are left out.
  */
 export async function fetchBuckets(
   engine: Engine,
@@ -107,11 +108,12 @@ export async function fetchBuckets(
 ): Promise<[bigint, bigint][]> {
   const ps = new Params();
   const where = compileWhere(src.where, src.t, ps);
-  const rel = keptRelation(src.t, where, [col.ident], ps);
+  const from = keptFrom(src.t, where, [col.ident], ps);
   const b = bucket(col.ident, ps);
   const rows = await engine.query(
-    `SELECT ${b} AS __b, count(*) FROM (${rel}) AS __kept WHERE ${col.ident} IS NOT NULL GROUP BY 1 ORDER BY 1`,
+    `SELECT ${b} AS __b, count(*) FROM ${from} GROUP BY 1 ORDER BY 1`,
     ps.values(),
   );
-  return rows.map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
+  // The bucket of a missing value is NULL: left out.
+  return rows.filter((r) => r[0] !== null).map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
 }

@@ -79,7 +79,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
       const m = BigInt(cand.length);
       const counts = await fetchBuckets(engine, src, col, (id, ps) => {
         const hi = ps.big(c.grid.upperUnits);
-        return `CASE WHEN ${id} >= ${hi} THEN ${ps.big(m)} ELSE LEAST((${id} - ${ps.big(c.grid.lowerUnits)}) // ${ps.big(stride)} + 1, ${ps.big(m - 1n)}) END`;
+        return `CASE WHEN ${id} IS NULL THEN NULL WHEN ${id} >= ${hi} THEN ${ps.big(m)} ELSE LEAST((${id} - ${ps.big(c.grid.lowerUnits)}) // ${ps.big(stride)} + 1, ${ps.big(m - 1n)}) END`;
       });
       const below: bigint[] = [];
       let i = 0;
