@@ -7,6 +7,11 @@
  * the one dispatch path. An `interrupt_request` additionally raises SIGINT on this process first:
  * a synchronous cell runs under `vm` with `breakOnSigint`, so the signal stops it; an awaiting cell
  * is stopped by the main thread's SIGINT listener. Badly signed messages are dropped here.
+ *
+ * The main thread reports each cell's start and end (it can post while a cell blocks it later),
+ * so SIGINT is raised only while a cell runs, and raised again until that cell ends: a signal
+ * that lands while the cell is still being compiled is taken by the listener, not by `vm`, and
+ * would otherwise leave a busy loop running.
  */
 import { parentPort, workerData } from "node:worker_threads";
 import * as zmq from "zeromq";
@@ -18,7 +23,14 @@ export type ToMain =
   | { type: "ready" }
   | { type: "message"; frames: Uint8Array[] }
   | { type: "failed"; message: string };
-export type ToControl = { type: "send"; frames: Uint8Array[] } | { type: "close" };
+export type ToControl =
+  | { type: "send"; frames: Uint8Array[] }
+  | { type: "cell"; running: boolean }
+  | { type: "close" };
+
+/** Interval between repeated SIGINTs while the interrupted cell still runs, and their number. */
+const REPEAT_MS = 150;
+const REPEAT_MAX = 40;
 
 async function main(): Promise<void> {
   const port = parentPort;
@@ -38,7 +50,24 @@ async function main(): Promise<void> {
   }
 
   let sending: Promise<void> = Promise.resolve();
+  let cell = 0; // increases when a cell starts
+  let running = false;
+  const interrupt = (): void => {
+    if (!running) return;
+    const target = cell;
+    process.kill(process.pid, "SIGINT");
+    let repeats = 0;
+    const timer = setInterval(() => {
+      if (!running || cell !== target || ++repeats > REPEAT_MAX) clearInterval(timer);
+      else process.kill(process.pid, "SIGINT");
+    }, REPEAT_MS);
+  };
   port.on("message", (m: ToControl) => {
+    if (m.type === "cell") {
+      if (m.running) cell += 1;
+      running = m.running;
+      return;
+    }
     if (m.type === "close") {
       void sending.finally(() => {
         control.close();
@@ -60,7 +89,7 @@ async function main(): Promise<void> {
     for await (const frames of control) {
       const type = verifiedType(frames, signer);
       if (type === null) continue;
-      if (type === "interrupt_request") process.kill(process.pid, "SIGINT");
+      if (type === "interrupt_request") interrupt();
       port.postMessage({ type: "message", frames } satisfies ToMain);
     }
   } catch (e: unknown) {

@@ -16,6 +16,8 @@ export interface KernelParts {
   execution: Execution;
   session: CellSession;
   history: History;
+  /** Told when a cell starts and ends running (interrupts target only a running cell). */
+  cellRunning(running: boolean): void;
   /** Closes sockets and the session, then ends the process. */
   exit(): Promise<void>;
 }
@@ -79,9 +81,15 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       const counted = !c.silent && c.store_history;
       if (counted) executionCount += 1;
       const count = executionCount;
-      if (!c.silent) await ctx.publish("execute_input", { code: c.code, execution_count: count });
-
-      const outcome = await execution.run(c.code);
+      // Reported before execute_input, so an interrupt sent on seeing it finds the cell running.
+      parts.cellRunning(true);
+      let outcome: Awaited<ReturnType<Execution["run"]>>;
+      try {
+        if (!c.silent) await ctx.publish("execute_input", { code: c.code, execution_count: count });
+        outcome = await execution.run(c.code);
+      } finally {
+        parts.cellRunning(false);
+      }
       let resultText: string | null = null;
       if (outcome.status === "ok" && outcome.hasValue) {
         try {
@@ -160,8 +168,8 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
     async comm_close() {},
 
     async interrupt_request(_msg, ctx) {
-      // The control thread has already raised SIGINT, whose listener interrupts the cell; doing
-      // it here again could hit the next queued cell instead.
+      // The control thread has already raised SIGINT (if a cell runs), whose listener interrupts
+      // the cell; doing it here again could hit the next queued cell instead.
       await ctx.reply("interrupt_reply", { status: "ok" });
     },
 

@@ -90,7 +90,13 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
     resolveClosed();
   };
 
-  const { table, aborted } = createHandlers({ execution, session, history: new History(), exit });
+  const { table, aborted } = createHandlers({
+    execution,
+    session,
+    history: new History(),
+    cellRunning: (running) => sockets.cellRunning(running),
+    exit,
+  });
   dispatcher = new Dispatcher({ signer, session: sessionId, send: sockets.send, output, handlers: table, aborted });
   const d = dispatcher;
 

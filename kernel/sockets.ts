@@ -40,6 +40,8 @@ export interface KernelSockets {
   /** Resolves once all iopub messages queued so far have been handed to ZeroMQ. */
   iopubDrained(): Promise<void>;
   onControl(listener: (frames: Buffer[]) => void): void;
+  /** Tells the control thread whether a cell is running (interrupts only target a running cell). */
+  cellRunning(running: boolean): void;
   close(): Promise<void>;
 }
 
@@ -81,6 +83,9 @@ export async function openSockets(info: ConnectionInfo): Promise<KernelSockets> 
     iopubDrained: () => queues.iopub.drained(),
     onControl(listener) {
       controlListener = listener;
+    },
+    cellRunning(running) {
+      worker.postMessage({ type: "cell", running } satisfies ToControl);
     },
     async close() {
       await Promise.all(Object.values(queues).map((q) => q.drained()));

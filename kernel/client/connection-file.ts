@@ -1,6 +1,6 @@
 /**
- * Writes a connection file for a kernel we start: loopback tcp, five ports picked by binding
- * port 0, a random signing key.
+ * Writes a connection file for a kernel we start: loopback tcp with five ports picked by binding
+ * port 0 (or ipc paths in a temp dir), and a random signing key.
  */
 import { randomBytes } from "node:crypto";
 import { mkdtempSync, writeFileSync } from "node:fs";
@@ -29,11 +29,16 @@ export async function freePorts(n: number, host = "127.0.0.1"): Promise<number[]
   return ports;
 }
 
-export async function writeConnectionFile(dir?: string): Promise<{ path: string; info: ConnectionInfo }> {
-  const [shell, iopub, stdin, control, hb] = await freePorts(5);
+export async function writeConnectionFile(
+  opts: { dir?: string; transport?: "tcp" | "ipc" } = {},
+): Promise<{ path: string; info: ConnectionInfo }> {
+  const d = opts.dir ?? mkdtempSync(join(tmpdir(), "hush-kernel-"));
+  const ipc = opts.transport === "ipc";
+  // ipc endpoints are files "<ip>-<port>" (jupyter_client's convention), here inside our temp dir.
+  const [shell, iopub, stdin, control, hb] = ipc ? [1, 2, 3, 4, 5] : await freePorts(5);
   const info: ConnectionInfo = {
-    transport: "tcp",
-    ip: "127.0.0.1",
+    transport: ipc ? "ipc" : "tcp",
+    ip: ipc ? join(d, "kernel") : "127.0.0.1",
     shell_port: shell,
     iopub_port: iopub,
     stdin_port: stdin,
@@ -43,7 +48,6 @@ export async function writeConnectionFile(dir?: string): Promise<{ path: string;
     signature_scheme: "hmac-sha256",
     kernel_name: "hush",
   };
-  const d = dir ?? mkdtempSync(join(tmpdir(), "hush-kernel-"));
   const path = join(d, "connection.json");
   writeFileSync(path, JSON.stringify(info, null, 2), { mode: 0o600 });
   return { path, info };

@@ -20,6 +20,8 @@ export interface StartOptions {
   argv?: string[];
   env?: Record<string, string>;
   cwd?: string;
+  /** Loopback tcp (default) or ipc sockets in a temp dir. */
+  transport?: "tcp" | "ipc";
   /** How long to wait for the first kernel_info_reply (default 120 s). */
   startTimeoutMs?: number;
 }
@@ -75,7 +77,7 @@ export class KernelProcess {
   ) {}
 
   static async start(opts: StartOptions = {}): Promise<KernelProcess> {
-    const { path, info } = await writeConnectionFile();
+    const { path, info } = await writeConnectionFile({ transport: opts.transport });
     const signer = new Signer(info.signature_scheme, info.key);
     const shell = new zmq.Dealer();
     const control = new zmq.Dealer();

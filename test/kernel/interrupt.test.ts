@@ -52,6 +52,21 @@ it("interrupts a synchronous busy loop", async () => {
   expect(after.outputs[0]).toMatchObject({ data: { "text/plain": "'still here'" } });
 });
 
+it("interrupts a busy loop even when the interrupt lands while the cell is still compiling", async () => {
+  let announced!: () => void;
+  const inputSeen = new Promise<void>((r) => (announced = r));
+  // Interrupting as soon as execute_input arrives usually lands while TypeScript still compiles
+  // the cell, before the loop runs under vm; the control thread repeats SIGINT until it ends.
+  const exec = k.execute("let n = 0;\nwhile (true) { n++; }");
+  const off = k.onMessage((ch, m) => {
+    if (ch === "iopub" && m.header.msg_type === "execute_input" && m.content.code === "let n = 0;\nwhile (true) { n++; }") announced();
+  });
+  await inputSeen;
+  off();
+  await k.interrupt();
+  expect((await exec).reply).toMatchObject({ status: "error", ename: "Interrupted" });
+});
+
 it("answers interrupt_request when nothing runs, and keeps working", async () => {
   await k.interrupt();
   expect((await k.execute("21 * 2")).outputs[0]).toMatchObject({ data: { "text/plain": "42" } });
