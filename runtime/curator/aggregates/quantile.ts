@@ -22,7 +22,7 @@ import { type Piece, type Source, fetchBuckets, rowsPerUnit } from "./common.js"
 type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
 
 /** Most candidates considered; a finer grid is thinned to every s-th grid point (public rule). */
-export const MAX_CANDIDATES = 10001;
+export const MAX_CANDIDATES = 2001;
 
 /** "p50", "p2.5", "p99.9" */
 export function quantileStat(p: number): string {
