@@ -19,6 +19,8 @@ export interface HandlerContext {
   reply(msgType: string, content: JsonObject, metadata?: JsonObject): Promise<void>;
   /** Publishes on iopub with this request as parent, in output order. */
   publish(msgType: string, content: JsonObject): Promise<void>;
+  /** Publish nothing more for this request (silent execution); busy/idle still go out. */
+  muteOutput(): void;
   /** Answer execute requests already queued as aborted (stop_on_error). */
   abortQueued(): void;
   /** Runs once `idle` for this request has been published (e.g. exit after shutdown). */
@@ -144,6 +146,9 @@ export class Dispatcher {
       },
       publish: (msgType: string, content: JsonObject) =>
         channel === "shell" ? output.publish(msgType, content) : this.publish(msgType, content, msg),
+      muteOutput: () => {
+        if (channel === "shell") output.mute();
+      },
       abortQueued: () => {
         if (this.queue.length > 0) this.aborting = true;
       },

@@ -78,6 +78,8 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async execute_request(msg, ctx) {
       const c = executeContent(msg);
+      // Spec "Execute": silent code broadcasts nothing on iopub and has no execute_result.
+      if (c.silent) ctx.muteOutput();
       const counted = !c.silent && c.store_history;
       if (counted) executionCount += 1;
       const count = executionCount;

@@ -20,6 +20,7 @@ export class Output {
   private chain: Promise<void> = Promise.resolve();
   private pending: { name: StreamName; text: string; parent: Message | null } | null = null;
   private scheduled = false;
+  private muted = false;
   private restore: (() => void) | null = null;
 
   constructor(private readonly publishNow: Publish) {}
@@ -28,10 +29,16 @@ export class Output {
   setParent(msg: Message): void {
     this.commit();
     this.parent = msg;
+    this.muted = false;
+  }
+
+  /** Drops everything the current request produces (execute_request with silent=true). */
+  mute(): void {
+    this.muted = true;
   }
 
   write(name: StreamName, text: string): void {
-    if (text === "") return;
+    if (text === "" || this.muted) return;
     if (this.pending && (this.pending.name !== name || this.pending.parent !== this.parent)) this.commit();
     if (!this.pending) this.pending = { name, text: "", parent: this.parent };
     this.pending.text += text;
@@ -41,6 +48,7 @@ export class Output {
 
   /** Publishes a message after everything produced before it. */
   publish(msgType: string, content: Record<string, unknown>): Promise<void> {
+    if (this.muted) return Promise.resolve();
     const parent = this.parent;
     return this.enqueue(() => this.publishNow(msgType, content, parent));
   }
@@ -50,6 +58,7 @@ export class Output {
    * output produced after this call waits for it. A null content publishes nothing.
    */
   publishLater(msgType: string, content: () => Promise<Record<string, unknown> | null>): Promise<void> {
+    if (this.muted) return Promise.resolve();
     const parent = this.parent;
     return this.enqueue(async () => {
       const c = await content();

@@ -68,7 +68,11 @@ describe("execute", () => {
     const a = await k.execute("const countA = 1");
     const b = await k.execute("const countB = 2");
     expect(b.reply.execution_count).toBe((a.reply.execution_count as number) + 1);
-    const s = await k.roundTrip("shell", "execute_request", { code: "countA", silent: true, store_history: true });
+    const s = await k.roundTrip("shell", "execute_request", {
+      code: "console.log('hidden'); display('hidden too'); countA",
+      silent: true,
+      store_history: true,
+    });
     expect(s.reply.content.execution_count).toBe(b.reply.execution_count);
     expect(types(s.iopub)).toEqual(["status", "status"]); // silent: nothing but busy/idle
     const n = await k.execute("countA + countB", { storeHistory: false });
