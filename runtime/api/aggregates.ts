@@ -31,53 +31,55 @@ function probabilities(ps: unknown, what: string): number[] {
 }
 
 export abstract class Aggregates<R> {
-  /** Runs (or prices) one measure; `what` names the method for error messages. */
-  protected abstract measure(m: Measure, spend: SpendOptions, what: string): Promise<R>;
+  /**
+   * Runs (or prices) one measure. `make` builds it and may throw on bad arguments, so the subclass
+   * reports every refusal the same way; `what` names the method for error messages.
+   */
+  protected abstract measure(make: () => Measure, spend: SpendOptions, what: string): Promise<R>;
 
   /** Number of rows (after the filter), per group when grouped with `.by(...)`. */
   count(spend: SpendOptions): Promise<R> {
-    return this.measure({ kind: "count" }, spend, "count");
+    return this.measure(() => ({ kind: "count" }), spend, "count");
   }
 
   /** Sum of a numeric column (values clamped to its declared range). */
   sum(column: string, spend: SpendOptions): Promise<R> {
-    return this.guard("sum", () => ({ kind: "sum", column: columnArg(column, "sum(column)") }), spend);
+    return this.measure(() => ({ kind: "sum", column: columnArg(column, "sum(column)") }), spend, "sum");
   }
 
   /** Mean of a numeric column; the budget is split between a noisy sum and a noisy count. */
   mean(column: string, spend: SpendOptions): Promise<R> {
-    return this.guard("mean", () => ({ kind: "mean", column: columnArg(column, "mean(column)") }), spend);
+    return this.measure(() => ({ kind: "mean", column: columnArg(column, "mean(column)") }), spend, "mean");
   }
 
   /** Variance of a numeric column. */
   variance(column: string, spend: SpendOptions): Promise<R> {
-    return this.guard("variance", () => ({ kind: "variance", column: columnArg(column, "variance(column)") }), spend);
+    return this.measure(() => ({ kind: "variance", column: columnArg(column, "variance(column)") }), spend, "variance");
   }
 
   /** Standard deviation of a numeric column. */
   std(column: string, spend: SpendOptions): Promise<R> {
-    return this.guard("std", () => ({ kind: "std", column: columnArg(column, "std(column)") }), spend);
+    return this.measure(() => ({ kind: "std", column: columnArg(column, "std(column)") }), spend, "std");
   }
 
   /** One quantile, p in (0, 1), of a numeric column (exponential mechanism on the column's grid). */
   quantile(column: string, p: number, spend: SpendOptions): Promise<R> {
-    return this.guard("quantile", () => ({ kind: "quantile", column: columnArg(column, "quantile(column)"), p: probabilities(p, "quantile(p)") }), spend);
+    return this.measure(() => ({ kind: "quantile", column: columnArg(column, "quantile(column)"), p: probabilities(p, "quantile(p)") }), spend, "quantile");
   }
 
   /** Several quantiles at once, e.g. `[0.25, 0.5, 0.75]`; the budget is split evenly between them. */
   quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R> {
-    return this.guard("quantiles", () => ({ kind: "quantile", column: columnArg(column, "quantiles(column)"), p: probabilities(ps, "quantiles(ps)") }), spend);
+    return this.measure(() => ({ kind: "quantile", column: columnArg(column, "quantiles(column)"), p: probabilities(ps, "quantiles(ps)") }), spend, "quantiles");
   }
 
   /** The median (the 0.5 quantile) of a numeric column. */
   median(column: string, spend: SpendOptions): Promise<R> {
-    return this.guard("median", () => ({ kind: "quantile", column: columnArg(column, "median(column)"), p: [0.5] }), spend);
+    return this.measure(() => ({ kind: "quantile", column: columnArg(column, "median(column)"), p: [0.5] }), spend, "median");
   }
 
   /** Counts in equal-width bins over a numeric column's declared range: `histogram("age", { bins: 10, epsilon: 0.2 })`. */
   histogram(column: string, opts: HistogramOptions): Promise<R> {
-    return this.guard(
-      "histogram",
+    return this.measure(
       () => {
         const bins = (opts as { bins?: unknown } | undefined)?.bins;
         if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > 1000) {
@@ -86,26 +88,17 @@ export abstract class Aggregates<R> {
         return { kind: "histogram", column: columnArg(column, "histogram(column)"), bins };
       },
       opts,
+      "histogram",
     );
   }
 
   /** Counts for every pair of declared values of two category (or boolean) columns. */
   crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R> {
-    return this.guard("crosstab", () => ({ kind: "crosstab", rows: columnArg(rows, "crosstab(rows)"), cols: columnArg(cols, "crosstab(cols)") }), spend);
+    return this.measure(() => ({ kind: "crosstab", rows: columnArg(rows, "crosstab(rows)"), cols: columnArg(cols, "crosstab(cols)") }), spend, "crosstab");
   }
 
   /** A summary of every column (count; mean, std and median of numbers; counts of categories), budget split evenly. */
   describe(spend: SpendOptions): Promise<R> {
-    return this.measure({ kind: "describe" }, spend, "describe");
-  }
-
-  private guard(what: string, make: () => Measure, spend: SpendOptions): Promise<R> {
-    let m: Measure;
-    try {
-      m = make();
-    } catch (e: unknown) {
-      return Promise.reject(e);
-    }
-    return this.measure(m, spend, what);
+    return this.measure(() => ({ kind: "describe" }), spend, "describe");
   }
 }

@@ -137,15 +137,7 @@ export class Answer {
   /** One line for a single number; a small table for grouped results. */
   toString(): string {
     const r = this.release;
-    const cost = costText({
-      cost: r.cost,
-      replay: r.replay,
-      unit: r.receipt.unit,
-      sessionSpent: this.sessionSpent,
-      total: r.receipt.total,
-      cap: r.receipt.cap,
-      spend: r.spend,
-    });
+    const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: this.sessionSpent, spend: r.spend });
     if (this.isScalar) return `${this.what} = ${shownValue(r.rows[0])} (${percent(r.confidence)}) · ${cost}`;
     const uniform = uniformStat(r.rows);
     const lines = aligned(r.rows.map((row) => [rowLabel(row, !uniform), shownValue(row)]));

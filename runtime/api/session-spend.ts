@@ -8,6 +8,7 @@
  */
 import { Rational } from "../core/index.js";
 import type { Receipt, Release, SpendSummary } from "../protocol/messages.js";
+import { spendAmounts } from "./text.js";
 
 export interface QueryRecord {
   /** Receipt sequence number (per analyst and dataset). */
@@ -40,6 +41,8 @@ export class SessionSpend {
     this.spent.set(release.dataset, after);
     this.noteSpend(release.spend);
     const r = release.receipt;
+    // A replay carries its original receipt; the analyst's total is the current one.
+    const now = spendAmounts(release.spend);
     const record: QueryRecord = Object.freeze({
       seq: r.seq,
       dataset: release.dataset,
@@ -47,8 +50,8 @@ export class SessionSpend {
       cost,
       unit: r.unit,
       replay: release.replay,
-      total: r.total,
-      cap: r.cap,
+      total: now.total,
+      cap: now.cap,
       issuedAt: r.issuedAt,
     });
     this.records.push(record);

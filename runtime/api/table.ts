@@ -203,10 +203,10 @@ export class SealedTable extends Aggregates<Answer> {
     ]);
   }
 
-  protected override async measure(m: Measure, spend: SpendOptions, what: string): Promise<Answer> {
+  protected override async measure(make: () => Measure, spend: SpendOptions, what: string): Promise<Answer> {
     const s = state(this);
     try {
-      const plan = makePlan(s, m, spend, what);
+      const plan = makePlan(s, make(), spend, what);
       const port = await s.ctx.port();
       const release = await port.ask(plan);
       const { sessionSpent } = s.ctx.spend.record(release, planText(plan));
@@ -260,10 +260,10 @@ export class CostPreview extends Aggregates<CostQuote> {
     Object.freeze(this);
   }
 
-  protected override async measure(m: Measure, spend: SpendOptions, what: string): Promise<CostQuote> {
+  protected override async measure(make: () => Measure, spend: SpendOptions, what: string): Promise<CostQuote> {
     const s = state(this.#table);
     try {
-      const plan = makePlan(s, m, spend, what);
+      const plan = makePlan(s, make(), spend, what);
       const port = await s.ctx.port();
       const preview = await port.preview(plan);
       s.ctx.spend.noteSpend(preview.spend);

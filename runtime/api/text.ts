@@ -75,12 +75,21 @@ export function uniformStat(rows: readonly ReleaseRow[]): boolean {
   return rows.every((r) => r.stat === rows[0]?.stat && r.column === rows[0]?.column);
 }
 
-/** The cost part of a release line: "cost ε=0.1 · session 0.3 · total 0.5 / 3". */
-export function costText(a: { cost: string; replay: boolean; unit: "epsilon" | "rho"; sessionSpent: string; total: string; cap: string; spend: SpendSummary }): string {
-  const sym = unitSymbol(a.unit);
-  const cost = a.replay ? `replayed, no new cost` : `cost ${sym}=${q(a.cost)}`;
-  let s = `${cost} · session ${q(a.sessionSpent)} · total ${q(a.total)} / ${q(a.cap)}`;
-  if (a.unit === "rho" && a.spend.delta !== undefined) s += ` (ε ${q(a.spend.spentEpsilon)} of ${q(a.spend.capEpsilon)} at δ=${q(a.spend.delta)})`;
+/** The analyst's total and cap in the dataset's accounting unit (ρ for zCDP datasets, else ε). */
+export function spendAmounts(s: SpendSummary): { total: string; cap: string; symbol: string; unit: "epsilon" | "rho" } {
+  if (s.mode === "zcdp" && s.spentRho !== undefined && s.capRho !== undefined) return { total: s.spentRho, cap: s.capRho, symbol: "ρ", unit: "rho" };
+  return { total: s.spentEpsilon, cap: s.capEpsilon, symbol: "ε", unit: "epsilon" };
+}
+
+/**
+ * The cost part of a release line: "cost ε=0.1 · session 0.3 · total 0.5 / 3". The total is the
+ * analyst's current one (a replayed release carries its original receipt, but the spend is now).
+ */
+export function costText(a: { cost: string; replay: boolean; sessionSpent: string; spend: SpendSummary }): string {
+  const amt = spendAmounts(a.spend);
+  const cost = a.replay ? `replayed, no new cost` : `cost ${amt.symbol}=${q(a.cost)}`;
+  let s = `${cost} · session ${q(a.sessionSpent)} · total ${q(amt.total)} / ${q(amt.cap)}`;
+  if (amt.unit === "rho" && a.spend.delta !== undefined) s += ` (ε ${q(a.spend.spentEpsilon)} of ${q(a.spend.capEpsilon)} at δ=${q(a.spend.delta)})`;
   return s;
 }
 
