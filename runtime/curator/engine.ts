@@ -232,23 +232,26 @@ export class Engine {
     const arms: string[] = [];
     if (unit !== null) {
       const u = `src.${quoteIdent(unit)}`;
-      staged.push(`hash(CAST(${u} AS VARCHAR)) AS __u`);
-      staged.push(`CAST(${u} AS VARCHAR) AS __uraw`);
-      arms.push(`WHEN __uraw IS NULL OR trim(__uraw) = '' THEN 'unit id missing'`);
+      // Hash of the id in its own type (a collision can only merge units, see the header).
+      staged.push(`hash(${u}) AS __u`);
+      staged.push(d.format === "csv" ? `(${u} IS NULL OR trim(${u}) = '') AS __nou` : `${u} IS NULL AS __nou`);
+      arms.push(`WHEN __nou THEN 'unit id missing'`);
     }
     d.columns.forEach((c, i) => {
       staged.push(...stagingSelect(c, i));
     });
-    // Reasons are computed in the staging pass, where both raw and typed values are visible.
+    // Reasons are computed in the staging pass, where both raw and typed values are visible; only
+    // the final column values and the reason are materialised.
     const reasonSql = (() => {
       const all = [...arms];
       d.columns.forEach((c, i) => all.push(...rejectArms(c, i)));
       return all.length === 0 ? "CAST(NULL AS VARCHAR)" : `CASE ${all.join(" ")} END`;
     })();
+    const stagedFinals = [...(unit !== null ? ["__u"] : []), ...d.columns.map((c, i) => finalSelect(c, i)), "__why"].join(", ");
     await conn.run(
-      `CREATE TEMP TABLE ${stage} AS SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${sourceCall(d)} AS src)`,
+      `CREATE TEMP TABLE ${stage} AS SELECT ${stagedFinals} FROM (SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${sourceCall(d)} AS src))`,
     );
-    const finals = d.columns.map((c, i) => finalSelect(c, i)).join(", ");
+    const finals = d.columns.map((_, i) => `c${i}`).join(", ");
     if (unit === null) {
       await conn.run(`CREATE TABLE ${table} AS SELECT ${finals} FROM ${stage} WHERE __why IS NULL`);
     } else {
