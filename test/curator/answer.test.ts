@@ -135,6 +135,34 @@ describe("costs and sensitivities", () => {
     ]);
   });
 
+  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (methods.md §9)", async () => {
+    const q = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5, 0.9] }, privacy: { epsilon: "2" } }));
+    expect(q.mechanisms).toEqual([
+      { target: "p50 of age", family: "exponential", scale: "1", sensitivity: "4", step: "1", cost: "1" },
+      { target: "p90 of age", family: "exponential", scale: "1", sensitivity: "36", step: "1", cost: "1" },
+    ]);
+    for (const r of q.rows) expect([r.low, r.high]).toEqual([null, null]);
+  });
+
+  it("quantiles on a fine grid use at most 2001 evenly spaced public candidates", () => {
+    const file = tempPolicy(
+      policyWith(`    source: ${join(FIXTURES, "visits.csv")}
+    accounting: { mode: pure, cap: { epsilon: "5" } }
+    analysts: [ada]
+    columns:
+      wait_minutes: { type: number, range: [0, 1000], step: "0.01" }
+`),
+    );
+    return open(file).then(async (o) => {
+      const r = await o.answerer.prepare("ada", plan({ measure: { kind: "quantile", column: "wait_minutes", p: [0.5] } }, "d")).compute(bits(2));
+      // 100000 steps of 0.01 thinned to 2000 steps of 0.5
+      expect(r.mechanisms[0].step).toBe("0.5");
+      expect(onGrid(r.rows[0].value!, "0.5")).toBe(true);
+      expect(r.notes.join(" ")).toMatch(/2001 public candidates/);
+      await o.engine.close();
+    });
+  });
+
   it("splits describe evenly and says so (1 count + 3 x 2 numeric + 2 keyed columns = 9 parts)", () => {
     const d = ctx.answerer.prepare("ada", plan({ measure: { kind: "describe" }, privacy: { epsilon: "6" } }));
     expect(d.cost.toString()).toBe("6");

@@ -149,13 +149,14 @@ export function mechanismRecord(s: NoisySpec): MechanismRecord {
   };
 }
 
-export function exponentialRecord(s: ExponentialSpec, sensitivity: bigint): MechanismRecord {
+/** Exponential mechanism: scale is the unit-level epsilon, sensitivity that of the rank utility, step the candidate grid's. */
+export function exponentialRecord(s: ExponentialSpec, sensitivity: bigint, step: Rational): MechanismRecord {
   return {
     target: s.target,
     family: "exponential",
     scale: s.epsilon.toString(),
     sensitivity: sensitivity.toString(),
-    step: "1",
+    step: exactDecimal(step),
     cost: s.cost.toString(),
   };
 }

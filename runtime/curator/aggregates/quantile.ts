@@ -66,7 +66,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
   ];
   if (ps.length > 1) notes.push(`The ${ps.length} quantiles share their budget evenly (sequential composition).`);
   return {
-    mechanisms: parts.map((x) => exponentialRecord(x.spec, x.sensitivity)),
+    mechanisms: parts.map((x) => exponentialRecord(x.spec, x.sensitivity, c.grid.step.mul(cand.length > 1 ? cand[1] - cand[0] : 1n))),
     cost: parts.reduce((s, x) => s.add(x.spec.cost), Rational.ZERO),
     halfWidths: [],
     notes,
