@@ -93,13 +93,11 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
         parts.cellRunning(false);
       }
       let resultText: string | null = null;
-      if (outcome.status === "ok" && outcome.hasValue) {
+      if (outcome.status === "ok" && outcome.hasValue && !c.silent) {
         try {
           const bundle = await render(outcome.value);
           resultText = typeof bundle.data["text/plain"] === "string" ? bundle.data["text/plain"] : null;
-          if (!c.silent) {
-            await ctx.publish("execute_result", { execution_count: count, data: bundle.data, metadata: bundle.metadata });
-          }
+          await ctx.publish("execute_result", { execution_count: count, data: bundle.data, metadata: bundle.metadata });
         } catch (e: unknown) {
           await ctx.publish("stream", { name: "stderr", text: `hush: could not display the result: ${errorText(e)}\n` });
         }
@@ -118,10 +116,10 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
         });
         return;
       }
+      if (c.stop_on_error) ctx.abortQueued();
       await ctx.reply("execute_reply", { status: "error", execution_count: count, ...errorContent(outcome) }, {
         status: "error",
       });
-      if (c.stop_on_error) ctx.abortQueued();
     },
 
     async complete_request(msg, ctx) {

@@ -89,7 +89,8 @@ export function vegaLiteSpec(a: Answer): TopLevelSpec {
 
 /** The chart as an SVG document, rendered headless. */
 export async function renderSvg(spec: TopLevelSpec): Promise<string> {
-  const compiled = compile(spec).spec;
+  // Vega tags the inline data objects it ingests; work on a copy so the published spec stays plain JSON.
+  const compiled = compile(structuredClone(spec)).spec;
   const view = new vega.View(vega.parse(compiled), { renderer: "none" });
   try {
     return await view.toSVG();
