@@ -63,12 +63,12 @@ export class Answer {
 
   /** The estimate of a one-number result (null when unavailable); use `.rows` for grouped results. */
   get value(): number | null {
-    return num(this.scalarRow().value);
+    return num(this.#scalarRow().value);
   }
 
   /** Error bar [low, high] of a one-number result (noise only), or null when there is none. */
   get interval(): [number, number] | null {
-    const r = this.scalarRow();
+    const r = this.#scalarRow();
     return r.low === null || r.high === null ? null : [Number(r.low), Number(r.high)];
   }
 
@@ -148,7 +148,7 @@ export class Answer {
     return this.release;
   }
 
-  private scalarRow(): ReleaseRow {
+  #scalarRow(): ReleaseRow {
     if (!this.isScalar) {
       throw new BadInputError(`this result has ${this.release.rows.length} numbers (${this.what}); read them from .rows or .get(key)`);
     }

@@ -109,27 +109,27 @@ export class Column {
   }
   /** Equal to a value (a declared category value, a number, a date "YYYY-MM-DD" or a boolean). */
   eq(value: Literal): Filter {
-    return this.cmp("eq", value);
+    return this.#cmp("eq", value);
   }
   /** Not equal to a value. */
   ne(value: Literal): Filter {
-    return this.cmp("ne", value);
+    return this.#cmp("ne", value);
   }
   /** Less than (numeric and date columns). */
   lt(value: Literal): Filter {
-    return this.cmp("lt", value);
+    return this.#cmp("lt", value);
   }
   /** Less than or equal (numeric and date columns). */
   le(value: Literal): Filter {
-    return this.cmp("le", value);
+    return this.#cmp("le", value);
   }
   /** Greater than (numeric and date columns). */
   gt(value: Literal): Filter {
-    return this.cmp("gt", value);
+    return this.#cmp("gt", value);
   }
   /** Greater than or equal (numeric and date columns). */
   ge(value: Literal): Filter {
-    return this.cmp("ge", value);
+    return this.#cmp("ge", value);
   }
   /** One of the listed values. */
   isIn(values: Literal[]): Filter {
@@ -150,7 +150,7 @@ export class Column {
   notNull(): Filter {
     return this.isNull().not();
   }
-  private cmp(op: "eq" | "ne" | "lt" | "le" | "gt" | "ge", value: Literal): Filter {
+  #cmp(op: "eq" | "ne" | "lt" | "le" | "gt" | "ge", value: Literal): Filter {
     return new Filter({ op, column: this.name, value: literal(value, `col(${JSON.stringify(this.name)}).${op}(value)`) });
   }
 }
