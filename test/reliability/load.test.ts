@@ -8,6 +8,8 @@
  *   every ledger row was received by a client (no crash here, so nothing is lost in between);
  * - each receipt verifies against the curator key, and each analyst's ledger is one intact chain;
  * - refused requests cost nothing: the ledger total equals the sum of the fresh releases' costs.
+ *
+ * HUSH_HEAVY=1 runs 1000 requests per client.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
@@ -18,9 +20,11 @@ import { CuratorProcess } from "../../bench/curator-process.js";
 import { ledgerProblems, readLedger, sumOf } from "./checks.js";
 import { makeRelWorkspace, mix32, plan, type RelWorkspace } from "./fixtures.js";
 
+const HEAVY = process.env.HUSH_HEAVY === "1";
 const CLIENTS = 8;
-const QUERIES_PER_CLIENT = 100;
-const CAP = "1";
+/** HUSH_HEAVY=1: 1000 requests per client and a cap 5 times larger. */
+const QUERIES_PER_CLIENT = HEAVY ? 1000 : 100;
+const CAP = HEAVY ? "5" : "1";
 
 interface ClientLog {
   analyst: string;
@@ -115,7 +119,7 @@ describe("reliability: load", () => {
     logs = await Promise.all(Array.from({ length: CLIENTS }, (_, c) => runClient(ws, c, analystOf(c))));
     await curator.stop();
     if (process.env.HUSH_VERBOSE) console.log(logs.map((l) => ({ a: l.analyst, fresh: l.fresh.length, replays: l.replays.length, overCap: l.refusedOverCap, bad: l.refusedBad, previews: l.previews })));
-  }, 300_000);
+  }, HEAVY ? 1_800_000 : 300_000);
 
   afterAll(async () => {
     await curator?.stop();
