@@ -100,6 +100,21 @@ function normalised(text: string): string {
     .replace(/\s+/g, " ");
 }
 
+function wellFormedRows(result: unknown): boolean {
+  return (
+    Array.isArray(result) &&
+    result.every(
+      (row: unknown) =>
+        Array.isArray(row) &&
+        row.length === 6 &&
+        Array.isArray(row[0]) &&
+        (row[0] as unknown[]).every((k) => k === null || typeof k === "string") &&
+        typeof row[1] === "string" &&
+        row.slice(2).every((x: unknown) => x === null || typeof x === "string"),
+    )
+  );
+}
+
 function rowLabel(row: Receipt["result"][number]): string {
   const [key, stat, column] = row;
   const what = column === null ? stat : `${stat} of ${column}`;
@@ -182,7 +197,9 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   for (const rel of releases) {
     const r = rel.meta.receipt;
     const sig = verifyReceipt(r, publicKey);
-    if (!sig.ok && (typeof r.keyId !== "string" || typeof r.seq !== "number" || typeof r.analyst !== "string")) {
+    // A receipt of the wrong shape is reported once and kept out of every later check, so hostile
+    // JSON cannot crash the audit or pass as part of the chain.
+    if (!sig.ok && (sig.problem?.startsWith("not a hush receipt") === true || !wellFormedRows(r.result))) {
       findings.push({ cell: rel.cell, kind: "malformed", message: `${at(rel)}: the output's receipt is not a hush receipt (${sig.problem ?? "bad shape"})` });
       continue;
     }

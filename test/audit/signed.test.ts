@@ -2,9 +2,12 @@
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { afterAll, beforeAll, describe } from "vitest";
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.js";
+import { auditNotebook } from "../../cli/audit/checks.js";
+import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
+import { clone, releaseWithSeq } from "./tamper.js";
 import { assembleNotebook, rowsOf, signedChain } from "./signed-notebook.js";
 
 describe("notebook audit on a signed, assembled notebook", () => {
@@ -31,4 +34,20 @@ describe("notebook audit on a signed, assembled notebook", () => {
   });
   afterAll(() => rmSync(fx.dir, { recursive: true, force: true }));
   auditCorpus(() => fx);
+
+  it("reports receipts of the wrong shape as malformed instead of failing on them", () => {
+    const bad = clone(fx.nb);
+    const garbage: unknown[] = [
+      { format: "hush-receipt/1", seq: "one" },
+      { ...releaseWithSeq(bad, 2).meta.receipt, result: [1, 2, 3] },
+      { ...releaseWithSeq(bad, 3).meta.receipt, result: [[["x"], "count", null, { v: 1 }, null, null]] },
+    ];
+    const located = [1, 2, 3].map((seq) => releaseWithSeq(bad, seq));
+    located.forEach((l, i) => {
+      (l.output.metadata![OUTPUT_METADATA_KEY] as { receipt: unknown }).receipt = garbage[i];
+    });
+    const r = auditNotebook(bad, fx.key);
+    expect(r.ok).toBe(false);
+    for (const l of located) expect(r.findings.some((f) => f.kind === "malformed" && f.cell === l.cell)).toBe(true);
+  });
 });
