@@ -262,14 +262,20 @@ export class Engine {
       const sizes = quoteIdent(`sizes${index}`);
       await conn.run(`CREATE TEMP TABLE ${sizes} AS SELECT __u, CAST(count(*) AS INTEGER) AS __n FROM ${stage} WHERE __why IS NULL GROUP BY __u`);
       const joined = `FROM ${stage} AS s JOIN ${sizes} AS z USING (__u) WHERE s.__why IS NULL`;
+      const big = quoteIdent(`big${index}`);
       const stmt = await conn.prepare(
-        `CREATE TABLE ${table} AS ` +
-          `SELECT __u, z.__n, 1 AS __rk, ${finals} ${joined} AND z.__n <= ${k} ` +
-          `UNION ALL SELECT __u, z.__n, CAST(row_number() OVER (PARTITION BY __u ORDER BY hash(s.rowid, $1)) AS INTEGER) AS __rk, ${finals} ${joined} AND z.__n > ${k}`,
+        `CREATE TEMP TABLE ${big} AS SELECT __u, z.__n, CAST(row_number() OVER (PARTITION BY __u ORDER BY hash(s.rowid, $1)) AS INTEGER) AS __rk, ${finals} ${joined} AND z.__n > ${k}`,
       );
       stmt.bindBigInt(1, this.bits.uniformInt(1n << 63n));
       await stmt.run();
       stmt.destroySync();
+      // Rows kept without a filter come first, so the scans of unfiltered queries see row groups
+      // whose __rk statistics already satisfy the bound.
+      await conn.run(
+        `CREATE TABLE ${table} AS SELECT __u, z.__n, 1 AS __rk, ${finals} ${joined} AND z.__n <= ${k} ` +
+          `UNION ALL SELECT * FROM ${big} WHERE __rk <= ${k} UNION ALL SELECT * FROM ${big} WHERE __rk > ${k}`,
+      );
+      await conn.run(`DROP TABLE ${big}`);
       await conn.run(`DROP TABLE ${sizes}`);
     }
     const rejected = await conn.runAndReadAll(`SELECT __why, count(*) FROM ${stage} WHERE __why IS NOT NULL GROUP BY __why ORDER BY __why`);
