@@ -102,10 +102,6 @@ export function shownText(out: NbOutput): string {
 const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.e+-]*, -?\d[\d.e+-]*\]/;
 const SPEND = /cost (ε|ρ)\s*=|replayed, no new cost|total -?[\d.e/+-]+ \/ [\d.e/+-]+|(ε|ρ)\s*(spent|used)\b/;
 
-function isHushMime(k: string): boolean {
-  return k.startsWith("application/vnd.hush");
-}
-
 export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {
   const releases: FoundRelease[] = [];
   const suspects: Suspect[] = [];
@@ -128,11 +124,6 @@ export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects
           meta: { receipt: m.receipt as Receipt, replay: m.replay === true, dataset: String(m.dataset ?? "") },
           out,
         });
-        return;
-      }
-      const hushMime = Object.keys(out.data ?? {}).find(isHushMime);
-      if (hushMime !== undefined) {
-        suspects.push({ cell: ci, output: oi, executionCount, why: `it has a ${hushMime} bundle but no receipt` });
         return;
       }
       const text = shownText(out);

@@ -73,7 +73,7 @@ export function runLedger(o: { policy: string; analyst?: string; json?: boolean 
     out(`${JSON.stringify(lines, null, 2)}\n`);
     return;
   }
-  const dec = (s: string): string => formatDecimal(Rational.parse(s).toDecimal(), 6);
+  const dec = (s: string): string => formatDecimal(s, 6);
   const table = [["analyst", "dataset", "releases", "spent", "cap", "remaining", "last release"]];
   for (const l of lines) {
     const unit = l.mode === "pure" ? "ε" : "ρ";
