@@ -184,8 +184,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   const findings: Finding[] = [];
   const { releases, suspects } = findReleases(nb);
   for (const s of suspects) {
-    const where = s.executionCount === null ? `cell ${s.cell}` : `cell ${s.cell} (In [${s.executionCount}])`;
-    findings.push({ cell: s.cell, kind: "no-receipt", message: `${where}: output ${s.output} looks like a release but ${s.why}` });
+    findings.push({ cell: s.cell, kind: "no-receipt", message: `${at(s)}: output ${s.output} looks like a release but ${s.why}` });
   }
 
   // ---- notebook order ----------------------------------------------------------------------
