@@ -33,7 +33,7 @@ function hw(spec: NoisySpec, stat: string, column: string | null, confidence: nu
   return { stat, column, halfWidth: exactDecimal(halfWidthValue(spec, confidence)) };
 }
 
-function groupedNote(src: Source, keys: readonly GroupKey[], columns: string[], cells: number): string[] {
+function groupedNote(keys: readonly GroupKey[], columns: string[], cells: number): string[] {
   if (keys.length === 0) return [];
   return [
     `All ${cells} declared key${cells === 1 ? "" : "s"} of ${columns.join(" x ")} are reported, including keys with no rows; rows with a missing ${columns.join(" or ")} are left out.`,
@@ -58,7 +58,7 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
     halfWidths: [hw(spec, stat, null, conf)],
-    notes: groupedNote(src, keys, columns, cells),
+    notes: groupedNote(keys, columns, cells),
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
@@ -81,7 +81,7 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
     halfWidths: [hw(spec, "sum", c.name, conf)],
-    notes: groupedNote(src, keys, columns, cells),
+    notes: groupedNote(keys, columns, cells),
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
@@ -121,7 +121,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     cost: count.cost.add(sum.cost),
     halfWidths: [hw(count, "mean:count", c.name, conf), hw(sum, "mean:centred-sum", c.name, conf)],
     notes: [
-      ...groupedNote(src, keys, columns, cells),
+      ...groupedNote(keys, columns, cells),
       `The mean of ${c.name} splits its budget evenly between a noisy count of values and a noisy sum centred at ${exactDecimal(centre)}.`,
       `A mean whose noisy count is not positive is reported as unavailable, with the declared range as its interval.`,
     ],
@@ -181,7 +181,7 @@ export function spreadPiece(
       hw(squares, `${stat}:centred-squares`, c.name, conf),
     ],
     notes: [
-      ...groupedNote(src, keys, columns, cells),
+      ...groupedNote(keys, columns, cells),
       `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
     ],
     methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
