@@ -159,6 +159,15 @@ function finalSelect(c: ColumnPolicy, i: number): string {
   }
 }
 
+/** What determines a loaded table: the file, its format, the declared columns and the unit. */
+function tableKey(d: DatasetPolicy): string {
+  const cols = d.columns.map((c) => {
+    const { grid: _grid, ...rest } = c as ColumnPolicy & { grid?: unknown };
+    return rest;
+  });
+  return JSON.stringify([d.source, d.format, cols, d.unit.column, d.unit.maxRows]);
+}
+
 export class Engine {
   private readonly instance: DuckDBInstance;
   private readonly tables: Map<string, TableInfo>;
@@ -189,14 +198,21 @@ export class Engine {
       try {
         for (const [i, n] of names.entries()) {
           const d = policy.datasets.get(n)!;
-          await engine.load(conn, d, i);
+          // Datasets that differ only in caps or analysts (same file, schema and unit) share one table.
+          const same = [...engine.tables.values()].find((t) => tableKey(t.dataset) === tableKey(d));
+          if (same !== undefined) {
+            engine.tables.set(n, { ...same, dataset: d });
+            engine.reports.set(n, engine.reports.get(same.dataset.name)!);
+          } else {
+            await engine.load(conn, d, i);
+          }
           if (!opts.quiet) {
             const r = engine.reports.get(n)!;
             const why = Object.entries(r.reasons)
               .map(([k, v]) => `${k}: ${v}`)
               .join("; ");
             process.stderr.write(
-              `hush curator: dataset ${n}: loaded ${r.rows} rows, left out ${r.rejected}${r.rejected > 0 ? ` (${why})` : ""}\n`,
+              `hush curator: dataset ${n}: ${same !== undefined ? `shares the table of ${same.dataset.name}: ` : ""}loaded ${r.rows} rows, left out ${r.rejected}${r.rejected > 0 ? ` (${why})` : ""}\n`,
             );
           }
         }

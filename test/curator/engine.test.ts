@@ -77,6 +77,24 @@ describe("loading", () => {
     await expect(Engine.open(loadPolicy(missing), { quiet: true })).rejects.toThrow(PolicyError);
   });
 
+  it("shares one table among datasets that differ only in caps and analysts", async () => {
+    const body = (cap: string) => `    source: data.csv
+    accounting: { mode: pure, cap: { epsilon: "${cap}" } }
+    analysts: [ada]
+    columns:
+      age: { type: integer, range: [0, 100] }
+`;
+    const file = tempPolicy(`${policyWith(body("1"))}  e:\n${body("2")}  f:\n${body("3").replace("range: [0, 100]", "range: [0, 50]")}`, {
+      "data.csv": "age\n3\n70\nx\n",
+    });
+    const e = await Engine.open(loadPolicy(file), { quiet: true });
+    expect(e.table("e").table).toBe(e.table("d").table);
+    expect(e.table("e").dataset.accounting.capEpsilon.toString()).toBe("2");
+    expect(e.table("f").table).not.toBe(e.table("d").table); // another range: its own table
+    expect(e.loadReport("e")).toEqual({ rows: 2, rejected: 1, reasons: { "age: not a number": 1 } });
+    await e.close();
+  });
+
   it("loads Parquet sources the same way", async () => {
     const csv = join(ctx.policy.dir, "visits.csv");
     const dir = tempPolicy("x: 1\n").replace(/policy\.yaml$/, "");
