@@ -38,8 +38,7 @@ export class BudgetReport {
     if (this.datasets.length === 0) return `privacy budget of ${this.analyst}: no dataset opened yet (hush.open(name))`;
     const out = [`privacy budget of ${this.analyst}`];
     for (const d of this.datasets) {
-      const unit = d.spend.mode === "zcdp" ? "rho" : "epsilon";
-      out.push(`${d.dataset}: this session ${unitSymbol(unit)} ${q(d.sessionSpent)} · ${spendText(d.spend)}`);
+      out.push(`${d.dataset}: ${spendText(d.spend)} · this session ${q(d.sessionSpent)}`);
       out.push(
         ...aligned(
           d.queries.map((r) => [`#${r.seq} ${r.what}`, r.replay ? "replayed, no new cost" : `${unitSymbol(r.unit)} ${q(r.cost)}`]),

@@ -62,7 +62,11 @@ export function withBudgetNote(e: unknown, ctx: ApiContext, dataset: string): un
   const known = s ?? ctx.spend.latest(dataset);
   // Only refusals are known to have spent nothing; other failures are reported as they came.
   if (e.kind !== "bad-input" && e.kind !== "over-cap" && e.kind !== "unknown-dataset") return e;
-  const note = known ? `Nothing was spent; ${remainingText(known)}.` : "Nothing was spent.";
+  // The curator's own refusal may already say that nothing was spent; say it once.
+  const said = /nothing was spent/i.test(e.message);
+  const remains = known ? remainingText(known) : null;
+  const note = said ? (remains ? `${remains}.` : "") : remains ? `Nothing was spent; ${remains}.` : "Nothing was spent.";
+  if (note === "") return e;
   const out = sameKind(e, `${e.message}\n${note}`);
   if (s) Object.assign(out, { spend: s });
   return out;

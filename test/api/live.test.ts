@@ -82,7 +82,7 @@ describe("cell API on a real curator", () => {
       expect(b.metadata.hush, `release ${i}`).toMatchObject({ dataset: "clinic", replay: i === 5 });
       expect(JSON.stringify(b)).not.toContain(CANARY);
     }
-    expect(releases[0].data["text/plain"]).toMatch(/^count = \d+ ± \d+(\.\d+)? \(95%\) · cost ε=0\.1 · session 0\.1 · total 0\.1 \/ 2$/);
+    expect(releases[0].data["text/plain"]).toMatch(/^count = -?\d+ ± \d+(\.\d+)? \(95%\) · cost ε=0\.1 · session 0\.1 · total 0\.1 \/ 2$/);
     expect((releases[2].data["image/svg+xml"] as string).startsWith("<svg")).toBe(true);
     expect(releases[5].data["text/html"]).toContain("replayed — no new cost");
 
@@ -96,7 +96,7 @@ describe("cell API on a real curator", () => {
   test("the audit notices when a displayed number is edited (so the check above could fail)", () => {
     const edited = structuredClone(releases);
     const text = edited[0].data["text/plain"] as string;
-    edited[0].data["text/plain"] = text.replace(/= (\d+)/, (_m, n: string) => `= ${Number(n) + 1}`);
+    edited[0].data["text/plain"] = text.replace(/= (-?\d+)/, (_m, n: string) => `= ${Number(n) + 1}`);
     const report = auditNotebook(notebookOf(edited), loadPublicKey(curator.publicKeyB64));
     expect(report.ok).toBe(false);
     expect(report.findings.map((f) => f.kind)).toContain("shown-value");
@@ -123,7 +123,7 @@ describe("cell API on a real curator", () => {
     const p = clinic.count({ epsilon: 5 });
     await expect(p).rejects.toThrow(OverCapError);
     const left = formatDecimal(before.remainingEpsilon).replace(".", "\\.");
-    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*\\nNothing was spent; ε ${left} of 2 remains on clinic for ada\\.$`, "s"));
+    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic for ada\\.$`, "s"));
     expect((await session.api.budget("clinic")).of("clinic")!.spend).toEqual(before);
   });
 

@@ -271,7 +271,7 @@ describe("releases, previews, budget, ledger", () => {
     expect(a).not.toBeNull();
     const b = await hush.budget("clinic_z");
     expect(b.of("clinic_z")?.sessionSpent).toBe("3/100");
-    expect(String(b)).toContain("clinic_z: this session ρ 0.03 · ρ 0.03 of 0.05 used · 0.02 remaining");
+    expect(String(b)).toContain("clinic_z: ρ 0.03 of 0.05 used · 0.02 remaining (ε 0 of 1 at δ=0.000001) · 2 releases · this session 0.03");
     const l = await hush.ledger();
     expect(l).toBeInstanceOf(LedgerView);
     expect(l.entries.map((e) => e.seq)).toEqual([1, 2]);

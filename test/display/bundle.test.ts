@@ -144,7 +144,7 @@ describe("other bundles", () => {
     const t = await hush.open("clinic");
     await t.count({ epsilon: 0.25 });
     const views = [t, await t.preview.sum("age", { epsilon: 0.1 }), await hush.budget(), await hush.ledger(), hush];
-    const expected = [/sealed dataset/, /would cost ε=0\.1/, /this session ε 0\.25/, /clinic #1 count/, /hush\.open/];
+    const expected = [/sealed dataset/, /would cost ε=0\.1/, /ε 0\.25 of 1 used · 0\.75 remaining · 1 release · this session 0\.25/, /clinic #1 count/, /hush\.open/];
     for (const [i, v] of views.entries()) {
       const b = (await session.render(v))!;
       expect(b.data["text/plain"]).toMatch(expected[i]);
