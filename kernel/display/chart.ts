@@ -53,13 +53,18 @@ export function vegaLiteSpec(a: Answer): TopLevelSpec {
   const xTitle = r.groupColumns[0];
   const series = r.groupColumns.length > 1;
   const data = points(a);
-  const x = { field: "label", type: "nominal" as const, sort: null, title: xTitle, axis: { labelAngle: data.length > 8 ? -45 : 0 } };
+  const outer = new Set(data.map((p) => p.label));
+  const step = series ? 14 : Math.max(12, Math.min(60, Math.floor(480 / Math.max(1, outer.size))));
+  // Tilt the axis labels when they would not fit side by side (about 7 px per character at 10 px).
+  const room = series ? step * Math.max(1, data.length / Math.max(1, outer.size)) : step;
+  const longest = Math.max(0, ...[...outer].map((l) => l.length));
+  const x = { field: "label", type: "nominal" as const, sort: null, title: xTitle, axis: { labelAngle: longest * 7 > room ? -45 : 0 } };
   const offset = series ? { xOffset: { field: "series", type: "nominal" as const, sort: null } } : {};
   const colour = series ? { color: { field: "series", type: "nominal" as const, sort: null, title: r.groupColumns.slice(1).join(" · ") } } : {};
   const spec: TopLevelSpec = {
     $schema: "https://vega.github.io/schema/vega-lite/v5.json",
     title: { text: a.what, subtitle: `error bars: ${percent(r.confidence)} noise-only intervals` },
-    width: { step: series ? 14 : Math.max(12, Math.min(40, Math.floor(480 / Math.max(1, data.length)))) },
+    width: { step },
     height: 220,
     data: { values: data.map((p) => ({ ...p })) },
     layer: [
