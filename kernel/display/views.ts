@@ -147,7 +147,8 @@ export function lossText(lines: readonly LossLine[]): string {
     .map((l) => {
       const s = spendAmounts(l.spend);
       const what = [l.released ? `${l.released} new` : "", l.replayed ? `${l.replayed} replayed` : ""].filter(Boolean).join(", ");
-      return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total ${s.symbol} ${q(s.total)} of ${q(s.cap)} (${what})`;
+      const eps = s.unit === "rho" && l.spend.delta !== undefined ? `, ε ${q(l.spend.spentEpsilon)} of ${q(l.spend.capEpsilon)} at δ=${q(l.spend.delta)}` : "";
+      return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total ${s.symbol} ${q(s.total)} of ${q(s.cap)}${eps} (${what})`;
     })
     .join("\n");
 }

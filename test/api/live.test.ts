@@ -143,6 +143,8 @@ describe("cell API on a real curator", () => {
     expect(String(a)).toMatch(/cost ρ=0\.001 · session 0\.001 · total 0\.001 \/ [\d.]+ \(ε [\d.]+ of 1 at δ=0\.000001\)$/);
     const b = (await session.render(a))!;
     expect(b.data["text/html"]).toContain("ρ 0.001 of");
+    const loss = (await session.afterCell())!;
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
   });
 
   test("budget and ledger", async () => {
