@@ -169,9 +169,13 @@ export function halfWidthValue(s: NoisySpec, confidence: number): Rational {
 /** Exact decimal when the expansion terminates, else rounded to 12 fraction digits (post-processing). */
 export function exactDecimal(r: Rational): string {
   let d = r.den;
-  while (d % 2n === 0n) d /= 2n;
-  while (d % 5n === 0n) d /= 5n;
-  return d === 1n ? r.toDecimal(1000) : r.toDecimal(12);
+  let twos = 0;
+  let fives = 0;
+  while (d % 2n === 0n) { d /= 2n; twos++; }
+  while (d % 5n === 0n) { d /= 5n; fives++; }
+  // A denominator 2^a 5^b terminates after exactly max(a, b) fraction digits; asking for just
+  // those (not 1000) keeps this off the release path's profile (it was its largest JS item).
+  return d === 1n ? r.toDecimal(Math.max(twos, fives)) : r.toDecimal(12);
 }
 
 /** Square root of a non-negative rational to `digits` fraction digits, rounded down or up. */
