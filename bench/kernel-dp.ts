@@ -20,7 +20,7 @@ export const KERNEL_DP_TARGET_MS = 100;
 
 export async function benchKernelDp(opts: { quick: boolean; dataDir: string }): Promise<string> {
   const rows = opts.quick ? 100_000 : 1_000_000;
-  const runs = opts.quick ? 5 : 40;
+  const runs = opts.quick ? 5 : 60;
   progress(`kernel DP count: ${rowsLabel(rows)} rows, ${runs} runs`);
   const parquet = await ensureBenchData(rows, opts.dataDir);
   const ws = benchWorkspace(parquet, { unit: true, prefix: "kdp" });
