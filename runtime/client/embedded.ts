@@ -4,7 +4,7 @@
  * DuckDB engine and the signing key never live in the kernel that runs cell code.
  */
 import { spawn, type ChildProcess } from "node:child_process";
-import { existsSync, mkdtempSync, rmSync } from "node:fs";
+import { existsSync, mkdtempSync, rmSync, writeSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
 import { createInterface } from "node:readline";
@@ -52,7 +52,14 @@ export async function startEmbeddedCurator(opts: { policyFile: string; stateDir?
 
   let stderrTail = "";
   child.stderr?.on("data", (chunk: Buffer) => {
-    process.stderr.write(chunk);
+    // The curator's log (load reports for the steward) goes to this process's own stderr file
+    // descriptor, below any capture of process.stderr: a kernel shows it in its server log, never
+    // in a cell's output, where an analyst would read it.
+    try {
+      writeSync(2, chunk);
+    } catch {
+      // stderr closed: the log is lost, the curator keeps running
+    }
     stderrTail = (stderrTail + chunk.toString("utf8")).slice(-2000);
   });
 

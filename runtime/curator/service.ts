@@ -441,7 +441,7 @@ export class CuratorService {
             spend: this.summary(analyst, d, ctx.total, ctx.seq),
             replay: false,
             receipt,
-            notes: [...prepared.notes, ...computed.notes],
+            notes: [...new Set([...prepared.notes, ...computed.notes])],
           };
           return { release, receipt };
         },
