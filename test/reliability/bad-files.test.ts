@@ -150,6 +150,7 @@ describe("bad input: data files", () => {
   const started: CuratorProcess[] = [];
   afterAll(async () => {
     await Promise.all(started.map((p) => p.stop()));
+    fs.rmSync(root, { recursive: true, force: true });
   });
 
   it.each(CSV_CASES.map((c) => [c.name, c] as const))("%s", async (_name, c) => {

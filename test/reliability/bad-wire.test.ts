@@ -9,6 +9,7 @@
  * envelope problems are "protocol", problems inside a plan "bad-input", wrong credentials
  * "unauthorized", datasets not granted "unknown-dataset".
  */
+import fs from "node:fs";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { MAX_FRAME_BYTES, type QueryPlan, type Response, type SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
@@ -65,6 +66,7 @@ beforeAll(async () => {
 afterAll(async () => {
   speaker?.close();
   await curator?.stop();
+  if (ws) fs.rmSync(ws.dir, { recursive: true, force: true });
 });
 
 // ---- query plans -----------------------------------------------------------------------------

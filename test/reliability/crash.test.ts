@@ -10,6 +10,7 @@
  *
  * HUSH_HEAVY=1 runs 100 kills instead of 22.
  */
+import fs from "node:fs";
 import { describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
 import { isHushError } from "../../runtime/errors.js";
@@ -116,6 +117,7 @@ describe("reliability: crash", () => {
       for (const r of received) expect(verifyReceipt(r, key)).toEqual({ ok: true });
       const mine = rows.filter((r) => r.analyst === a);
       expect(sumOf([spend.spentEpsilon]).eq(sumOf([mine[mine.length - 1].total]))).toBe(true);
+      fs.rmSync(ws.dir, { recursive: true, force: true });
     },
     HEAVY ? 1_800_000 : 300_000,
   );

@@ -11,6 +11,7 @@
  *
  * HUSH_HEAVY=1 runs 1000 requests per client.
  */
+import fs from "node:fs";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
 import { isHushError } from "../../runtime/errors.js";
@@ -123,6 +124,7 @@ describe("reliability: load", () => {
 
   afterAll(async () => {
     await curator?.stop();
+    if (ws) fs.rmSync(ws.dir, { recursive: true, force: true });
   });
 
   it("answers every request as expected (no unexpected errors)", () => {
