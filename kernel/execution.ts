@@ -13,6 +13,7 @@ import { createRequire } from "node:module";
 import { format, inspect } from "node:util";
 import type * as TsExecutor from "tslab/dist/executor.js";
 import type * as TsConverter from "tslab/dist/converter.js";
+import { hasTopLevelAwait } from "./top-level-await.js";
 
 const require = createRequire(import.meta.url);
 const { createExecutor } = require("tslab/dist/executor") as typeof TsExecutor;
@@ -66,7 +67,15 @@ export function createExecution(opts: ExecutionOptions): Execution {
   // Declarations of earlier cells arrive as `prevDecl`; the globals ride in front of them inside a
   // `declare global` block, which tslab never copies into the next cell's declarations.
   const withGlobals: TsConverter.Converter = {
-    convert: (prev, src) => node.convert(globalBlock + prev, src),
+    convert: (prev, src) => {
+      const converted = node.convert(globalBlock + prev, src);
+      // tslab misses top-level awaits that TypeScript re-parsed (see top-level-await.ts); without
+      // this the cell would run in a plain function and fail to parse.
+      if (converted.output && !converted.hasToplevelAwait && hasTopLevelAwait(converted.output)) {
+        converted.hasToplevelAwait = true;
+      }
+      return converted;
+    },
     inspect: (prev, src, pos) => node.inspect(globalBlock + prev, src, pos),
     complete: (prev, src, pos) => node.complete(globalBlock + prev, src, pos),
     addModule: (name, content, meta) => node.addModule(name, content, meta),
