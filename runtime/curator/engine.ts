@@ -16,14 +16,15 @@
  * Rows that do not fit the declared schema are left out and counted per reason, for the steward
  * only (loadReport and one line on stderr): unparseable numbers, dates or booleans, non-finite
  * numbers, non-whole numbers in integer columns, category values outside the declared list, dates
- * outside the declared range, missing unit ids. Numbers outside their declared range are NOT
+ * outside the declared range, missing unit ids, and CSV lines with the wrong number of fields (the
+ * CSV header comes from the file's first line, never from DuckDB's sniffer). Numbers outside their declared range are NOT
  * rejected but clamped to it: clamping is what bounds the sensitivity (methods.md §6 recipe), and
  * dropping such rows would make a row's presence depend on its value. Empty cells are NULL.
  *
  * Hash collisions of unit ids can only merge two units into one, which keeps fewer rows of each
  * (maxRows bounds the merged unit); they can never let one unit exceed its bound.
  */
-import { existsSync } from "node:fs";
+import { closeSync, existsSync, openSync, readSync } from "node:fs";
 import { DuckDBConnection, DuckDBInstance, type DuckDBPreparedStatement } from "@duckdb/node-api";
 import { PolicyError, UnknownDatasetError } from "../errors.js";
 import { Bits, cryptoBytes } from "../core/index.js";
@@ -90,15 +91,107 @@ function bindAll(stmt: DuckDBPreparedStatement, params: readonly SqlParam[]): vo
   });
 }
 
-function sourceCall(d: DatasetPolicy): string {
-  return d.format === "csv"
-    ? `read_csv(${quoteString(d.source)}, header = true, all_varchar = true)`
-    : `read_parquet(${quoteString(d.source)})`;
+/** How a CSV file is read: its header names (from its first line) and the delimiter. */
+interface CsvLayout {
+  header: string[];
+  delim: string;
+}
+
+/** The header line may be at most this long (bytes). */
+const MAX_HEADER_BYTES = 1 << 20;
+
+/**
+ * Reads the first line of a CSV file in Node and splits it into names (RFC 4180 quoting; a UTF-8
+ * BOM and a trailing CR are dropped). The header is read here rather than by DuckDB's sniffer,
+ * because the sniffer can take a ragged data line for the header and then misname every column.
+ * The delimiter is a comma, or a tab or semicolon when the header line has no comma.
+ * Returns null when the first line is not a well-formed header (open quote, too long).
+ */
+function readCsvLayout(file: string): CsvLayout | null {
+  const fd = openSync(file, "r");
+  let bytes: Buffer;
+  try {
+    const buf = Buffer.alloc(MAX_HEADER_BYTES + 1);
+    const n = readSync(fd, buf, 0, buf.length, 0);
+    bytes = buf.subarray(0, n);
+  } finally {
+    closeSync(fd);
+  }
+  let text = bytes.toString("utf8");
+  if (text.startsWith("\uFEFF")) text = text.slice(1);
+  // End of the first line: the first newline outside quotes.
+  let inQuote = false;
+  let end = -1;
+  for (let i = 0; i < text.length; i++) {
+    const ch = text[i];
+    if (ch === '"') inQuote = !inQuote;
+    else if (ch === "\n" && !inQuote) {
+      end = i;
+      break;
+    }
+  }
+  if (end < 0) {
+    if (bytes.length > MAX_HEADER_BYTES || inQuote) return null;
+    end = text.length;
+  }
+  const line = text.slice(0, end).replace(/\r$/, "");
+  const delim = line.includes(",") || line.length === 0 ? "," : line.includes("\t") ? "\t" : line.includes(";") ? ";" : ",";
+  const header: string[] = [];
+  let field = "";
+  let quoted = false;
+  for (let i = 0; i < line.length; i++) {
+    const ch = line[i];
+    if (quoted) {
+      if (ch === '"' && line[i + 1] === '"') {
+        field += '"';
+        i++;
+      } else if (ch === '"') quoted = false;
+      else field += ch;
+    } else if (ch === '"') quoted = true;
+    else if (ch === delim) {
+      header.push(field);
+      field = "";
+    } else field += ch;
+  }
+  if (line.length > 0) header.push(field);
+  return { header, delim };
+}
+
+/** Line-level CSV problems (DuckDB reject error types) as steward-facing reasons; never values. */
+function csvRejectReason(errorType: string): string {
+  switch (errorType) {
+    case "MISSING COLUMNS":
+    case "TOO MANY COLUMNS":
+      return "wrong number of fields";
+    case "INVALID UNICODE":
+      return "not valid UTF-8";
+    case "UNQUOTED VALUE":
+      return "malformed quoting";
+    case "LINE SIZE OVER MAXIMUM":
+      return "line too long";
+    default:
+      return "malformed line";
+  }
+}
+
+/**
+ * The source as a table function. CSV: no sniffing; header skipped, every column read as text
+ * under a positional name (h0, h1, ...), and lines that cannot be split into exactly the header's
+ * fields are skipped and recorded in the rejects tables (counted as rows left out).
+ */
+function sourceCall(d: DatasetPolicy, csv: { layout: CsvLayout; rejects: string; scans: string } | null): string {
+  if (d.format !== "csv" || csv === null) return `read_parquet(${quoteString(d.source)})`;
+  const cols = csv.layout.header.map((_, j) => `${quoteString(`h${j}`)}: 'VARCHAR'`).join(", ");
+  return (
+    `read_csv(${quoteString(d.source)}, header = true, auto_detect = false, delim = ${quoteString(csv.layout.delim)}, ` +
+    `quote = '"', escape = '"', columns = {${cols}}, ignore_errors = true, store_rejects = true, ` +
+    `rejects_table = ${quoteString(csv.rejects)}, rejects_scan = ${quoteString(csv.scans)})`
+  );
 }
 
 /** Typed value and a "was something there" flag for one column of the staging table. */
-function stagingSelect(c: ColumnPolicy, i: number): string[] {
-  const src = `src.${quoteIdent(c.from)}`;
+function stagingSelect(c: ColumnPolicy, i: number, srcName: (name: string) => string): string[] {
+  const src = `src.${quoteIdent(srcName(c.from))}`;
   const present = `${src} IS NOT NULL AS p${i}`;
   switch (c.type) {
     case "integer":
@@ -230,31 +323,50 @@ export class Engine {
     const where = `policy ${this.policy.file}: datasets.${d.name}`;
     if (!existsSync(d.source)) throw new PolicyError(`${where}.source: file not found`);
     let header: string[];
-    try {
-      const r = await conn.runAndReadAll(`DESCRIBE SELECT * FROM ${sourceCall(d)}`);
-      header = r.getRows().map((row) => String(row[0]));
-    } catch (e) {
-      throw new PolicyError(`${where}.source: cannot be read as ${d.format} (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+    let csv: { layout: CsvLayout; rejects: string; scans: string } | null = null;
+    if (d.format === "csv") {
+      let layout: CsvLayout | null;
+      try {
+        layout = readCsvLayout(d.source);
+      } catch (e) {
+        throw new PolicyError(`${where}.source: cannot be read (${e instanceof Error && "code" in e ? String(e.code) : "error"})`);
+      }
+      if (layout === null) throw new PolicyError(`${where}.source: line 1 is not a CSV header (an open quote, or longer than ${MAX_HEADER_BYTES} bytes)`);
+      csv = { layout, rejects: `rejects${index}`, scans: `rejectscans${index}` };
+      header = layout.header;
+    } else {
+      try {
+        const r = await conn.runAndReadAll(`DESCRIBE SELECT * FROM ${sourceCall(d, null)}`);
+        header = r.getRows().map((row) => String(row[0]));
+      } catch (e) {
+        throw new PolicyError(`${where}.source: cannot be read as ${d.format} (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+      }
     }
+    const twice = (name: string) => header.indexOf(name) !== header.lastIndexOf(name);
     for (const c of d.columns) {
       if (!header.includes(c.from)) throw new PolicyError(`${where}.columns.${c.name}: the data file has no column ${JSON.stringify(c.from)}`);
+      if (twice(c.from)) throw new PolicyError(`${where}.columns.${c.name}: the data file has more than one column ${JSON.stringify(c.from)}`);
     }
     const unit = d.unit.column;
     if (unit !== null && !header.includes(unit)) throw new PolicyError(`${where}.unit.column: the data file has no column ${JSON.stringify(unit)}`);
+    if (unit !== null && twice(unit)) throw new PolicyError(`${where}.unit.column: the data file has more than one column ${JSON.stringify(unit)}`);
+    // CSV columns are read under positional names (h0, h1, ...); Parquet columns under their own.
+    const srcName = (name: string) => (csv === null ? name : `h${header.indexOf(name)}`);
+    const source = sourceCall(d, csv);
 
     const stage = quoteIdent(`stage${index}`);
     const table = quoteIdent(`d${index}`);
     const staged: string[] = [];
     const arms: string[] = [];
     if (unit !== null) {
-      const u = `src.${quoteIdent(unit)}`;
+      const u = `src.${quoteIdent(srcName(unit))}`;
       // Hash of the id in its own type (a collision can only merge units, see the header).
       staged.push(`hash(${u}) AS __u`);
       staged.push(d.format === "csv" ? `(${u} IS NULL OR trim(${u}) = '') AS __nou` : `${u} IS NULL AS __nou`);
       arms.push(`WHEN __nou THEN 'unit id missing'`);
     }
     d.columns.forEach((c, i) => {
-      staged.push(...stagingSelect(c, i));
+      staged.push(...stagingSelect(c, i, srcName));
     });
     // Reasons are computed in the staging pass, where both raw and typed values are visible; only
     // the final column values and the reason are materialised.
@@ -264,9 +376,15 @@ export class Engine {
       return all.length === 0 ? "CAST(NULL AS VARCHAR)" : `CASE ${all.join(" ")} END`;
     })();
     const stagedFinals = [...(unit !== null ? ["__u"] : []), ...d.columns.map((c, i) => finalSelect(c, i)), "__why"].join(", ");
-    await conn.run(
-      `CREATE TEMP TABLE ${stage} AS SELECT ${stagedFinals} FROM (SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${sourceCall(d)} AS src))`,
-    );
+    try {
+      await conn.run(
+        `CREATE TEMP TABLE ${stage} AS SELECT ${stagedFinals} FROM (SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${source} AS src))`,
+      );
+    } catch (e) {
+      // DuckDB's message quotes the offending line; only its number is passed on.
+      const line = e instanceof Error ? /line:?\s*(\d+)/i.exec(e.message)?.[1] : undefined;
+      throw new PolicyError(`${where}.source: cannot be read as ${d.format}${line !== undefined ? ` (problem at line ${line})` : ""}`);
+    }
     const finals = d.columns.map((_, i) => `c${i}`).join(", ");
     if (unit === null) {
       await conn.run(`CREATE TABLE ${table} AS SELECT ${finals} FROM ${stage} WHERE __why IS NULL`);
@@ -303,6 +421,20 @@ export class Engine {
     for (const [why, n] of rejected.getRows()) {
       reasons[String(why)] = Number(n);
       total += Number(n);
+    }
+    if (csv !== null) {
+      // Lines DuckDB could not split into the header's fields; one reason per line (a line with
+      // several extra fields is reported once per field).
+      const bad = await conn.runAndReadAll(
+        `SELECT min(error_type) FROM ${quoteIdent(csv.rejects)} GROUP BY scan_id, file_id, line`,
+      );
+      for (const [type] of bad.getRows()) {
+        const why = csvRejectReason(String(type));
+        reasons[why] = (reasons[why] ?? 0) + 1;
+        total += 1;
+      }
+      await conn.run(`DROP TABLE ${quoteIdent(csv.rejects)}`);
+      await conn.run(`DROP TABLE ${quoteIdent(csv.scans)}`);
     }
     this.reports.set(d.name, { rows: Number(kept.getRows()[0][0]), rejected: total, reasons });
     const columns = new Map<string, TableColumn>();

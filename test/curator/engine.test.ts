@@ -77,6 +77,50 @@ describe("loading", () => {
     await expect(Engine.open(loadPolicy(missing), { quiet: true })).rejects.toThrow(PolicyError);
   });
 
+  it("counts ragged CSV lines as rows left out and reads the header from the first line", async () => {
+    // A longer ragged line early in the file once made DuckDB's sniffer take it for the header
+    // (bench/RESULTS.md, reliability tests); the header must come from line 1 whatever follows.
+    const body = `    source: data.csv
+    accounting: { mode: pure, cap: { epsilon: "1" } }
+    analysts: [ada]
+    columns:
+      age: { type: integer, range: [0, 100] }
+      place: { type: category, values: ["a, b", c], from: "Place, town" }
+`;
+    const file = tempPolicy(policyWith(body), {
+      "data.csv": '\uFEFFage,"Place, town"\r\n3,c,SECRET-7,extra\r\n4\r\n5,"a, b"\r\n6,c\r\nx,c\r\n7,"c",1,2,3\r\n',
+    });
+    const e = await Engine.open(loadPolicy(file), { quiet: true });
+    // Lines 2, 3 and 7 have the wrong number of fields (each counted once); line 6 has text for age.
+    expect(e.loadReport("d")).toEqual({ rows: 2, rejected: 4, reasons: { "wrong number of fields": 3, "age: not a number": 1 } });
+    const t = e.table("d");
+    const rows = await e.query(`SELECT ${t.columns.get("age")!.ident}, ${t.columns.get("place")!.ident} FROM ${t.table} ORDER BY 1`, []);
+    expect(rows).toEqual([
+      [5n, 0],
+      [6n, 1],
+    ]);
+    await e.close();
+  });
+
+  it("refuses a CSV whose first line is not a header, naming the line but no value", async () => {
+    const body = `    source: data.csv
+    accounting: { mode: pure, cap: { epsilon: "1" } }
+    analysts: [ada]
+    columns:
+      age: { type: integer, range: [0, 100] }
+`;
+    const open1 = tempPolicy(policyWith(body), { "data.csv": 'age,"SECRET-8\n' });
+    const err = await Engine.open(loadPolicy(open1), { quiet: true }).then(
+      () => null,
+      (x: unknown) => x,
+    );
+    expect(err).toBeInstanceOf(PolicyError);
+    expect((err as Error).message).toMatch(/datasets\.d\.source: line 1 is not a CSV header/);
+    expect((err as Error).message).not.toContain("SECRET");
+    const dup = tempPolicy(policyWith(body), { "data.csv": "age,age\n1,2\n" });
+    await expect(Engine.open(loadPolicy(dup), { quiet: true })).rejects.toThrow(/columns\.age: the data file has more than one column "age"/);
+  });
+
   it("shares one table among datasets that differ only in caps and analysts", async () => {
     const body = (cap: string) => `    source: data.csv
     accounting: { mode: pure, cap: { epsilon: "${cap}" } }

@@ -138,9 +138,9 @@ const CSV_CASES: CsvCase[] = [
   { name: "not a boolean", write: csv([HEADER, ...goodRows(20), `7,30,3,north,2025-01-01,${MARKER}`]), expect: { loads: true, leftOut: 1 } },
   { name: "huge and non-finite numbers", write: csv([HEADER, ...goodRows(20), "7,30,1e308,north,2025-01-01,true", "7,99999999999999999999999,3,north,2025-01-01,true", "8,30,inf,north,2025-01-01,true", "9,30,NaN,north,2025-01-01,true"]), expect: { loads: true, leftOut: 2 } },
   { name: "missing unit id", write: csv([HEADER, ...goodRows(20), ",30,3,north,2025-01-01,true"]), expect: { loads: true, leftOut: 1 } },
-  // DuckDB's CSV sniffer may take a longer, ragged line for the header, so the refusal can name a
-  // declared column as missing rather than the ragged line; either way it must refuse, not misread.
-  { name: "ragged rows", write: csv([HEADER, ...goodRows(20), "7,30,3", `7,30,3,north,2025-01-01,true,${MARKER},extra`]), expect: { loads: false, mentions: ["source", "has no column"] } },
+  // The engine reads the header from line 1 and counts lines with the wrong number of fields as
+  // rows left out (DuckDB's sniffer once took the longer ragged line for the header).
+  { name: "ragged rows", write: csv([HEADER, ...goodRows(20), "7,30,3", `7,30,3,north,2025-01-01,true,${MARKER},extra`]), expect: { loads: true, leftOut: 2 } },
   { name: "binary garbage", write: (f) => fs.writeFileSync(f, Buffer.from(Array.from({ length: 4096 }, (_, i) => (i * 131 + 7) % 256))), expect: { loads: false, mentions: ["source", "has no column"] } },
   { name: "file not found", write: () => undefined, expect: { loads: false, mentions: ["not found"] } },
 ];
