@@ -138,7 +138,12 @@ export class Answer {
   toString(): string {
     const r = this.release;
     const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: this.sessionSpent, spend: r.spend });
-    if (this.isScalar) return `${this.what} = ${shownValue(r.rows[0])} (${percent(r.confidence)}) · ${cost}`;
+    if (this.isScalar) {
+      const row = r.rows[0];
+      // A quantile from the exponential mechanism has a rank guarantee, not a value interval (notes).
+      const bar = row.value !== null && (row.low === null || row.high === null) ? "no value interval, see notes" : percent(r.confidence);
+      return `${this.what} = ${shownValue(row)} (${bar}) · ${cost}`;
+    }
     const uniform = uniformStat(r.rows);
     const lines = aligned(r.rows.map((row) => [rowLabel(row, !uniform), shownValue(row)]));
     return [`${this.what} (${percent(r.confidence)}, noise-only error bars):`, ...lines, cost].join("\n");

@@ -211,6 +211,13 @@ describe("releases, previews, budget, ledger", () => {
     expect(Object.isFrozen(a.release.rows[0])).toBe(true);
   });
 
+  test("a quantile's one-liner says it has no value interval instead of showing a bare confidence", async () => {
+    const { hush } = await fakeSession();
+    const t = await hush.open("clinic");
+    const a = await t.median("wait_minutes", { epsilon: 0.1 });
+    expect(String(a)).toMatch(/^median wait_minutes = 30\.5 \(no value interval, see notes\) · cost ε=0\.1/);
+  });
+
   test("grouped answers: rows by key; .value refuses with a pointer to .rows", async () => {
     const { hush } = await fakeSession();
     const t = await hush.open("clinic");
