@@ -80,7 +80,7 @@ export function quoteHtml(c: CostQuote): string {
 
 export function tableHtml(t: SealedTable): string {
   const u = t.unit;
-  const unit = u.column === null ? "each row" : `${u.column} (at most ${u.maxRows} rows per unit, in at most ${u.maxGroups} groups)`;
+  const unit = u.column === null ? "each row" : `${u.column} (at most ${u.maxRows} rows per unit)`;
   const cols = table(
     ["column", "type and declared values"],
     t.columns.map((c) => [esc(c.name), esc(columnText(c))]),

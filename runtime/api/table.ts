@@ -222,7 +222,7 @@ export class SealedTable extends Aggregates<Answer> {
     const info = s.info;
     const spend = this.spend;
     const u = info.unit;
-    const unit = u.column === null ? "each row" : `${u.column} (at most ${u.maxRows} rows per unit, in at most ${u.maxGroups} groups)`;
+    const unit = u.column === null ? "each row" : `${u.column} (at most ${u.maxRows} rows per unit)`;
     const lines = [
       `${info.name} — sealed dataset: aggregates only, each with privacy noise`,
       `  ${info.description}`,
