@@ -56,7 +56,9 @@ export const DEFAULT_DEPS: ConnectDeps = {
 export function embeddedNotice(policyFile: string, analyst: string): string {
   return (
     `hush: no curator configured — started a local curator on the demo policy ${policyFile}, as analyst ${analyst}. ` +
-    "(local embedded mode: the data lives on this machine, in a separate process; cells only receive noisy aggregates. " +
+    "(local embedded mode: the data lives on this machine, in a separate process; cells only receive noisy aggregates " +
+    "and every release is debited and signed. It does not protect the data from anyone who can read its files under " +
+    "this user account: for that, the curator must run on the steward's machine or account. " +
     "To use a steward's curator, set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN, or HUSH_CONFIG.)"
   );
 }
