@@ -8,5 +8,8 @@ export default defineConfig({
     pool: "forks",
     fileParallelism: true,
     maxWorkers: 2,
+    // The JSON report lets .ci/run print one plain closing line ("N passed, N failed, N skipped").
+    reporters: ["default", "json"],
+    outputFile: { json: ".hush/test-report.json" },
   },
 });
