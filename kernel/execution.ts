@@ -16,19 +16,37 @@ import type * as TsConverter from "tslab/dist/converter.js";
 import { hasTopLevelAwait } from "./top-level-await.js";
 
 const require = createRequire(import.meta.url);
-const { createExecutor } = require("tslab/dist/executor") as typeof TsExecutor;
-const { createConverter, isCompleteCode } = require("tslab/dist/converter") as typeof TsConverter;
-const { printQuickInfo } = require("tslab/dist/inspect") as {
-  printQuickInfo(info: unknown): string;
-};
-const ts = require("@tslab/typescript-for-tslab") as {
+
+interface Ts {
   version: string;
   createSourceFile(name: string, text: string, target: number, setParents?: boolean, kind?: number): unknown;
   ScriptTarget: { Latest: number };
   ScriptKind: { TSX: number };
-};
+}
+interface Tslab {
+  createExecutor: typeof TsExecutor.createExecutor;
+  createConverter: typeof TsConverter.createConverter;
+  isCompleteCode: typeof TsConverter.isCompleteCode;
+  printQuickInfo(info: unknown): string;
+  ts: Ts;
+}
 
-export const TYPESCRIPT_VERSION = ts.version;
+// tslab and its TypeScript load on first use (about 0.4 s), not when the kernel starts, so the
+// kernel can answer kernel_info before them.
+let loaded: Tslab | null = null;
+function tslab(): Tslab {
+  loaded ??= {
+    createExecutor: (require("tslab/dist/executor") as typeof TsExecutor).createExecutor,
+    createConverter: (require("tslab/dist/converter") as typeof TsConverter).createConverter,
+    isCompleteCode: (require("tslab/dist/converter") as typeof TsConverter).isCompleteCode,
+    printQuickInfo: (require("tslab/dist/inspect") as { printQuickInfo(info: unknown): string }).printQuickInfo,
+    ts: require("@tslab/typescript-for-tslab") as Ts,
+  };
+  return loaded;
+}
+
+/** TypeScript version of the language service, read without loading the compiler. */
+export const TYPESCRIPT_VERSION = (require("@tslab/typescript-for-tslab/package.json") as { version: string }).version;
 
 export interface CellError {
   ename: string;
@@ -62,6 +80,7 @@ export interface ExecutionOptions {
 const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`"];
 
 export function createExecution(opts: ExecutionOptions): Execution {
+  const { createConverter, createExecutor, printQuickInfo } = tslab();
   const node = createConverter({ isJS: false, isBrowser: false });
   const globalBlock = asGlobalBlock(opts.declarations);
   // Declarations of earlier cells arrive as `prevDecl`; the globals ride in front of them inside a
@@ -148,11 +167,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
       const text = printQuickInfo(info);
       return text === "" ? null : text;
     },
-    isComplete(code) {
-      const r = isCompleteCode(code);
-      if (!r.completed) return { status: "incomplete", indent: r.indent ?? "" };
-      return hasParseErrors(code) ? { status: "invalid" } : { status: "complete" };
-    },
+    isComplete,
     interrupt: () => executor.interrupt(),
     reset() {
       executor.reset();
@@ -164,6 +179,13 @@ export function createExecution(opts: ExecutionOptions): Execution {
   };
 }
 
+/** is_complete: needs only the parser, not the TypeScript program. */
+export function isComplete(code: string): { status: "complete" | "incomplete" | "invalid"; indent?: string } {
+  const r = tslab().isCompleteCode(code);
+  if (!r.completed) return { status: "incomplete", indent: r.indent ?? "" };
+  return hasParseErrors(code) ? { status: "invalid" } : { status: "complete" };
+}
+
 /** Wraps top-level ambient declarations into one `declare global { ... }` block. */
 export function asGlobalBlock(dts: string): string {
   if (dts.trim() === "") return "";
@@ -173,6 +195,7 @@ export function asGlobalBlock(dts: string): string {
 }
 
 function hasParseErrors(code: string): boolean {
+  const { ts } = tslab();
   const sf = ts.createSourceFile("cell.tsx", code, ts.ScriptTarget.Latest, false, ts.ScriptKind.TSX) as {
     parseDiagnostics?: unknown[];
   };

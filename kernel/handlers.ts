@@ -5,16 +5,29 @@
  */
 import { inspect } from "node:util";
 import type { HandlerContext, Handler, HandlerTable } from "./dispatch.js";
-import type { Execution, CellError } from "./execution.js";
+import { isComplete, type Execution, type CellError } from "./execution.js";
 import type { History } from "./history.js";
 import { kernelInfo } from "./kernel-info.js";
 import { errorText } from "./log.js";
 import type { CellSession, MimeBundle } from "./session-loader.js";
 import type { JsonObject, Message } from "./wire.js";
 
-export interface KernelParts {
+/** The language hook and the cell API session: what running a cell needs. */
+export interface Engine {
   execution: Execution;
   session: CellSession;
+}
+
+export interface KernelParts {
+  /**
+   * The engine, built on the first call (seconds: the TypeScript program); later calls share it.
+   * Requests that need it wait for it; kernel_info, history and shutdown do not.
+   */
+  engine(): Promise<Engine>;
+  /** Starts building the engine in the background, if not started yet. */
+  warm(): void;
+  /** Closes the cell API session if it was ever loaded. */
+  closeSession(): Promise<void>;
   history: History;
   /** Told when a cell starts and ends running (interrupts target only a running cell). */
   cellRunning(running: boolean): void;
@@ -37,14 +50,15 @@ export function plainBundle(value: unknown): MimeBundle {
 }
 
 export function createHandlers(parts: KernelParts): { table: HandlerTable; aborted: Handler } {
-  const { execution, session, history } = parts;
+  const { history } = parts;
   let executionCount = 0;
 
-  const render = async (value: unknown): Promise<MimeBundle> => (await session.render(value)) ?? plainBundle(value);
+  const render = async (session: CellSession, value: unknown): Promise<MimeBundle> =>
+    (await session.render(value)) ?? plainBundle(value);
 
   const errorContent = (e: CellError): JsonObject => ({ ename: e.ename, evalue: e.evalue, traceback: e.traceback });
 
-  async function evaluateExpressions(exprs: Record<string, unknown>): Promise<JsonObject> {
+  async function evaluateExpressions({ execution, session }: Engine, exprs: Record<string, unknown>): Promise<JsonObject> {
     const out: JsonObject = {};
     for (const [name, expr] of Object.entries(exprs)) {
       if (typeof expr !== "string") {
@@ -54,14 +68,14 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       const r = await execution.run(expr);
       if (r.status === "error") out[name] = { status: "error", ...errorContent(r) };
       else {
-        const b = r.hasValue ? await render(r.value) : plainBundle(undefined);
+        const b = r.hasValue ? await render(session, r.value) : plainBundle(undefined);
         out[name] = { status: "ok", data: b.data, metadata: b.metadata };
       }
     }
     return out;
   }
 
-  async function publishAfterCell(ctx: HandlerContext): Promise<void> {
+  async function publishAfterCell(session: CellSession, ctx: HandlerContext): Promise<void> {
     let line: MimeBundle | null = null;
     try {
       line = await session.afterCell();
@@ -74,6 +88,9 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
   const table: Record<string, Handler> = {
     async kernel_info_request(_msg, ctx) {
       await ctx.reply("kernel_info_reply", kernelInfo());
+      // Clients ask this first, to know the kernel is up; the TypeScript program is built after
+      // the answer, so the notebook shows the kernel ready while it builds.
+      ctx.afterIdle(() => parts.warm());
     },
 
     async execute_request(msg, ctx) {
@@ -83,6 +100,8 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       const counted = !c.silent && c.store_history;
       if (counted) executionCount += 1;
       const count = executionCount;
+      const engine = await parts.engine();
+      const { execution, session } = engine;
       // Reported before execute_input, so an interrupt sent on seeing it finds the cell running.
       parts.cellRunning(true);
       let outcome: Awaited<ReturnType<Execution["run"]>>;
@@ -95,7 +114,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       let resultText: string | null = null;
       if (outcome.status === "ok" && outcome.hasValue && !c.silent) {
         try {
-          const bundle = await render(outcome.value);
+          const bundle = await render(session, outcome.value);
           resultText = typeof bundle.data["text/plain"] === "string" ? bundle.data["text/plain"] : null;
           await ctx.publish("execute_result", { execution_count: count, data: bundle.data, metadata: bundle.metadata });
         } catch (e: unknown) {
@@ -103,8 +122,8 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
         }
       }
       if (outcome.status === "error" && !c.silent) await ctx.publish("error", errorContent(outcome));
-      const userExpressions = outcome.status === "ok" ? await evaluateExpressions(c.user_expressions) : {};
-      if (!c.silent) await publishAfterCell(ctx);
+      const userExpressions = outcome.status === "ok" ? await evaluateExpressions(engine, c.user_expressions) : {};
+      if (!c.silent) await publishAfterCell(session, ctx);
       if (counted) history.add({ line: count, input: c.code, output: resultText });
 
       if (outcome.status === "ok") {
@@ -124,6 +143,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async complete_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
+      const { execution } = await parts.engine();
       const r = execution.complete(code, cursor_pos);
       await ctx.reply("complete_reply", {
         status: "ok",
@@ -136,6 +156,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async inspect_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
+      const { execution } = await parts.engine();
       const text = execution.inspect(code, cursor_pos);
       await ctx.reply("inspect_reply", {
         status: "ok",
@@ -147,7 +168,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async is_complete_request(msg, ctx) {
       const code = typeof msg.content.code === "string" ? msg.content.code : "";
-      await ctx.reply("is_complete_reply", execution.isComplete(code));
+      await ctx.reply("is_complete_reply", isComplete(code));
     },
 
     async history_request(msg, ctx) {
@@ -178,7 +199,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
     async shutdown_request(msg, ctx) {
       const restart = msg.content.restart === true;
       try {
-        await session.close();
+        await parts.closeSession();
       } catch {
         // Exiting anyway: the curator connection ends with the process.
       }

@@ -7,7 +7,7 @@ import { randomUUID } from "node:crypto";
 import type { ConnectionInfo } from "./connection.js";
 import { Dispatcher } from "./dispatch.js";
 import { createExecution, describeThrown, type Execution } from "./execution.js";
-import { createHandlers, plainBundle } from "./handlers.js";
+import { createHandlers, plainBundle, type Engine } from "./handlers.js";
 import { History } from "./history.js";
 import { errorText, kernelLog } from "./log.js";
 import { Output } from "./output.js";
@@ -51,30 +51,43 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
       void output.publish(o.update ? "update_display_data" : "display_data", displayContent(bundle, o));
     },
   };
-  const session: CellSession = await loadSession(host);
-  const render = async (value: unknown): Promise<MimeBundle> => (await session.render(value)) ?? plainBundle(value);
   const display = (value: unknown, o: DisplayOptions = {}): void => {
     void output.publishLater(o.update ? "update_display_data" : "display_data", async () => {
       try {
-        return displayContent(await render(value), o);
+        const bundle = (await (await engine()).session.render(value)) ?? plainBundle(value);
+        return displayContent(bundle, o);
       } catch (e: unknown) {
         output.write("stderr", `display failed: ${describeThrown(e).evalue}\n`);
         return null;
       }
     });
   };
-  routeTslabDisplay(output);
 
-  const globals: Record<string, unknown> = { display };
-  if (session.api) globals.hush = session.api;
-  // Building the TypeScript program takes seconds; requests wait in the socket until it is done.
-  let declarations = DISPLAY_DECLARATION;
-  try {
-    declarations += session.typeDeclarations();
-  } catch (e: unknown) {
-    kernelLog(`no type declarations for \`hush\` (${errorText(e)}); completion on it is unavailable`);
-  }
-  const execution: Execution = createExecution({ rootDir: opts.rootDir ?? process.cwd(), globals, declarations });
+  // The cell API session and the TypeScript program (seconds to build) come after the first
+  // kernel_info_reply, so the client sees the kernel up sooner; requests that need them wait.
+  let built: Promise<Engine> | null = null;
+  let execution: Execution | null = null;
+  const engine = (): Promise<Engine> =>
+    (built ??= (async () => {
+      const session: CellSession = await loadSession(host);
+      routeTslabDisplay(output);
+      const globals: Record<string, unknown> = { display };
+      if (session.api) globals.hush = session.api;
+      let declarations = DISPLAY_DECLARATION;
+      try {
+        declarations += session.typeDeclarations();
+      } catch (e: unknown) {
+        kernelLog(`no type declarations for \`hush\` (${errorText(e)}); completion on it is unavailable`);
+      }
+      execution = createExecution({ rootDir: opts.rootDir ?? process.cwd(), globals, declarations });
+      return { session, execution };
+    })());
+  const warm = (): void => {
+    engine().catch((e: unknown) => kernelLog(`could not prepare cells: ${errorText(e)}`));
+  };
+  const closeSession = async (): Promise<void> => {
+    if (built) await (await built).session.close();
+  };
 
   let resolveClosed!: () => void;
   const closed = new Promise<void>((r) => (resolveClosed = r));
@@ -85,14 +98,15 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
     dispatcher?.stop();
     await output.flush();
     output.releaseStdio();
-    execution.close();
+    execution?.close();
     await sockets.close();
     resolveClosed();
   };
 
   const { table, aborted } = createHandlers({
-    execution,
-    session,
+    engine,
+    warm,
+    closeSession,
     history: new History(),
     cellRunning: (running) => sockets.cellRunning(running),
     exit,
@@ -101,14 +115,13 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
   const d = dispatcher;
 
   output.captureStdio();
-  process.on("SIGINT", () => execution.interrupt());
+  process.on("SIGINT", () => execution?.interrupt());
   process.on("uncaughtException", (e) => output.write("stderr", `Uncaught ${describeThrown(e).traceback.join("\n")}\n`));
   process.on("unhandledRejection", (e) =>
     output.write("stderr", `Unhandled rejection ${describeThrown(e).traceback.join("\n")}\n`),
   );
   process.once("SIGTERM", () => {
-    void session
-      .close()
+    void closeSession()
       .catch(() => {})
       .then(exit);
   });

@@ -34,19 +34,21 @@ interface Ts {
 }
 
 const require = createRequire(import.meta.url);
-const ts = require("@tslab/typescript-for-tslab") as Ts;
+let ts: Ts | null = null;
 
 /** True when the JavaScript `code` awaits (or loops with `for await`) outside any function. */
 export function hasTopLevelAwait(code: string): boolean {
   // Cheap exit for the common cell without the keyword at all.
   if (!/\bawait\b/.test(code)) return false;
+  ts ??= require("@tslab/typescript-for-tslab") as Ts;
+  const t = ts;
   // The trailing export makes the parser treat the text as a module, where `await` is reserved.
-  const file = ts.createSourceFile("cell.js", `${code}\nexport {};\n`, ts.ScriptTarget.Latest, false, ts.ScriptKind.JS);
+  const file = t.createSourceFile("cell.js", `${code}\nexport {};\n`, t.ScriptTarget.Latest, false, t.ScriptKind.JS);
   const visit = (node: Node): true | undefined => {
-    if (ts.isFunctionLike(node) || ts.isClassLike(node) || ts.isModuleDeclaration(node)) return undefined;
-    if (ts.isAwaitExpression(node)) return true;
-    if (ts.isForOfStatement(node) && node.awaitModifier) return true;
-    return ts.forEachChild(node, visit);
+    if (t.isFunctionLike(node) || t.isClassLike(node) || t.isModuleDeclaration(node)) return undefined;
+    if (t.isAwaitExpression(node)) return true;
+    if (t.isForOfStatement(node) && node.awaitModifier) return true;
+    return t.forEachChild(node, visit);
   };
-  return ts.forEachChild(file, visit) === true;
+  return t.forEachChild(file, visit) === true;
 }
