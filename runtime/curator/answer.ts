@@ -10,7 +10,8 @@
 import { BadInputError, UnauthorizedError, UnknownDatasetError } from "../errors.js";
 import { Rational } from "../core/index.js";
 import type { Bits } from "../core/index.js";
-import { digestOf } from "../protocol/canonical.js";
+import { createHash } from "node:crypto";
+import { canonicalJson } from "../protocol/canonical.js";
 import type { ColumnInfo, DatasetInfo, GroupKey, MechanismRecord, Preview, QueryPlan, ReleaseRow } from "../protocol/messages.js";
 import { parsePlan } from "../protocol/schema.js";
 import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/additive.js";
@@ -81,7 +82,22 @@ function keyedColumn(t: TableInfo, name: string, path: string): void {
 const ACCURACY_FIRST = new Set(["count", "sum", "histogram", "crosstab"]);
 const GROUPABLE = new Set(["count", "sum", "mean", "variance", "std"]);
 
+/** Plans kept by Answerer's memo. */
+const MEMO_SIZE = 256;
+
+/** What a plan settles to before any data is read (memoised per canonical plan). */
+interface Settled {
+  plan: QueryPlan;
+  d: DatasetPolicy;
+  digest: string;
+  unit: "epsilon" | "rho";
+  piece: Piece;
+  groupColumns: string[];
+  notes: string[];
+}
+
 export class Answerer {
+  private readonly memo = new Map<string, Settled>();
   private readonly engine: Engine;
   private readonly policy: LoadedPolicy;
 
@@ -118,31 +134,56 @@ export class Answerer {
     return { column: u.column, maxRows: u.maxRows, maxGroups: u.maxGroups };
   }
 
-  /** Validates the plan and settles noise and cost. Reads no data. */
-  prepare(analyst: string, raw: unknown): PreparedAsk {
-    const plan = normalize(parsePlan(raw));
+  /**
+   * The data-free result of a normalized plan, memoised by its canonical JSON (a bounded LRU):
+   * a repeated plan (a replay, a preview followed by its ask) skips planning in exact rationals,
+   * the sha256 digest and the notes. The entry depends only on the plan and the policy, both
+   * immutable here; authorization is checked on every call, outside the memo.
+   */
+  private settle(plan: QueryPlan): Settled {
+    const canon = canonicalJson(plan);
+    const hit = this.memo.get(canon);
+    if (hit !== undefined) {
+      this.memo.delete(canon); // re-inserted: Map order is least recently used first
+      this.memo.set(canon, hit);
+      return hit;
+    }
     const d = this.dataset(plan.dataset);
-    if (!d.analysts.includes(analyst)) throw new UnauthorizedError(`analyst ${shown(analyst)} may not query dataset ${d.name}`);
     const t = this.engine.table(d.name);
     const src: Source = { t, where: plan.where };
     compileWhere(plan.where, t, new Params()); // validates every literal against the schema
     const alloc = new Allocator(d, plan.privacy, plan.confidence ?? DEFAULT_CONFIDENCE);
     const { piece, groupColumns, columnsUsed } = this.build(plan, src, alloc);
     const notes = this.commonNotes(d, t, plan, columnsUsed, alloc, piece);
+    // Same bytes as digestOf(plan): sha256 hex of the canonical JSON, computed once here.
+    const digest = createHash("sha256").update(canon).digest("hex");
+    const entry: Settled = { plan, d, digest, unit: alloc.unit, piece, groupColumns, notes };
+    if (this.memo.size >= MEMO_SIZE) this.memo.delete(this.memo.keys().next().value!);
+    this.memo.set(canon, entry);
+    return entry;
+  }
+
+  /** Validates the plan and settles noise and cost. Reads no data. */
+  prepare(analyst: string, raw: unknown): PreparedAsk {
+    const plan = normalize(parsePlan(raw));
+    const d = this.dataset(plan.dataset);
+    if (!d.analysts.includes(analyst)) throw new UnauthorizedError(`analyst ${shown(analyst)} may not query dataset ${d.name}`);
+    const s = this.settle(plan);
     const engine = this.engine;
+    const { piece, groupColumns, notes } = s;
     const mechanisms = piece.mechanisms;
     const confidence = plan.confidence ?? DEFAULT_CONFIDENCE;
     return {
-      dataset: d.name,
-      digest: digestOf(plan),
+      dataset: s.d.name,
+      digest: s.digest,
       plan,
-      unit: alloc.unit,
+      unit: s.unit,
       cost: piece.cost,
-      notes,
+      notes: notes.slice(),
       async compute(bits: Bits): Promise<ComputedRelease> {
         const rows = await piece.run(engine, bits);
         if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
-        return { groupColumns, rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms, notes };
+        return { groupColumns: groupColumns.slice(), rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms: mechanisms.map((m) => ({ ...m })), notes: notes.slice() };
       },
     };
   }
@@ -150,10 +191,8 @@ export class Answerer {
   /** prepare plus the expected half-widths; reads no data and spends nothing. */
   preview(analyst: string, raw: unknown): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[] } {
     const prepared = this.prepare(analyst, raw);
-    const t = this.engine.table(prepared.dataset);
-    const alloc = new Allocator(t.dataset, prepared.plan.privacy, prepared.plan.confidence ?? DEFAULT_CONFIDENCE);
-    const { piece } = this.build(prepared.plan, { t, where: prepared.plan.where }, alloc);
-    return { prepared, halfWidths: piece.halfWidths, notes: prepared.notes };
+    const { piece } = this.settle(prepared.plan);
+    return { prepared, halfWidths: piece.halfWidths.map((h) => ({ ...h })), notes: prepared.notes };
   }
 
   private build(plan: QueryPlan, src: Source, alloc: Allocator): { piece: Piece; groupColumns: string[]; columnsUsed: string[] } {

@@ -70,6 +70,19 @@ function quoteString(s: string): string {
 
 /** Idle connections kept for reuse. */
 const MAX_IDLE = 4;
+/** Prepared statements kept per connection (least recently used dropped first). */
+const MAX_STATEMENTS = 64;
+
+interface PooledConnection {
+  conn: DuckDBConnection;
+  statements: Map<string, DuckDBPreparedStatement>;
+}
+
+function closePooled(p: PooledConnection): void {
+  for (const s of p.statements.values()) s.destroySync();
+  p.statements.clear();
+  p.conn.closeSync();
+}
 
 function bindAll(stmt: DuckDBPreparedStatement, params: readonly SqlParam[]): void {
   params.forEach((p, i) => {
@@ -268,7 +281,7 @@ export class Engine {
   private readonly policy: LoadedPolicy;
   private readonly bits: Bits;
   private closed = false;
-  private readonly idle: DuckDBConnection[] = [];
+  private readonly idle: PooledConnection[] = [];
 
   private constructor(policy: LoadedPolicy, instance: DuckDBInstance, bits: Bits) {
     this.policy = policy;
@@ -467,28 +480,38 @@ export class Engine {
   async query(sql: string, params: readonly SqlParam[]): Promise<unknown[][]> {
     if (this.closed) throw new Error("engine is closed");
     // Connections are reused: a fresh DuckDB connection costs milliseconds on its first statement.
-    const conn = this.idle.pop() ?? (await this.instance.connect());
+    // Each keeps its prepared statements by SQL text: every plan of one shape has the same text
+    // (all values are bound), so DuckDB parses and plans it once per connection, not per release.
+    const pooled = this.idle.pop() ?? { conn: await this.instance.connect(), statements: new Map<string, DuckDBPreparedStatement>() };
     let healthy = false;
     try {
-      const stmt = await conn.prepare(sql);
-      try {
-        bindAll(stmt, params);
-        const reader = await stmt.runAndReadAll();
-        healthy = true;
-        return reader.getRows() as unknown[][];
-      } finally {
-        stmt.destroySync();
+      let stmt = pooled.statements.get(sql);
+      if (stmt === undefined) {
+        stmt = await pooled.conn.prepare(sql);
+        if (pooled.statements.size >= MAX_STATEMENTS) {
+          const [oldest, old] = pooled.statements.entries().next().value!;
+          pooled.statements.delete(oldest);
+          old.destroySync();
+        }
+      } else {
+        pooled.statements.delete(sql); // re-inserted below: Map order is least recently used first
       }
+      pooled.statements.set(sql, stmt);
+      stmt.clearBindings();
+      bindAll(stmt, params);
+      const reader = await stmt.runAndReadAll();
+      healthy = true;
+      return reader.getRows() as unknown[][];
     } finally {
-      if (healthy && !this.closed && this.idle.length < MAX_IDLE) this.idle.push(conn);
-      else conn.closeSync();
+      if (healthy && !this.closed && this.idle.length < MAX_IDLE) this.idle.push(pooled);
+      else closePooled(pooled);
     }
   }
 
   async close(): Promise<void> {
     if (this.closed) return;
     this.closed = true;
-    for (const c of this.idle.splice(0)) c.closeSync();
+    for (const c of this.idle.splice(0)) closePooled(c);
     this.instance.closeSync();
   }
 }

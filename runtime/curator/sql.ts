@@ -284,12 +284,13 @@ export function keptRelation(t: TableInfo, where: string, cols: readonly string[
 }
 
 /**
- * The kept rows as a FROM fragment for an aggregate: `"d0" AS __kept WHERE ...` when no window is
+ * The kept rows as a FROM fragment for an aggregate: `"d0" AS __kept [WHERE ...]` when no window is
  * needed (so DuckDB sees a plain filtered scan, as fast as the same query without privacy), else
  * the keptRelation subquery. Callers append only GROUP BY / ORDER BY.
  */
 export function keptFrom(t: TableInfo, where: string, cols: readonly string[], params: Params): string {
-  if (!t.hasUnit) return `${t.table} AS __kept WHERE ${where}`;
+  // No filter: no WHERE at all, the same statement shape as the plain aggregate.
+  if (!t.hasUnit) return where === "TRUE" ? `${t.table} AS __kept` : `${t.table} AS __kept WHERE ${where}`;
   if (where === "TRUE") return `${t.table} AS __kept WHERE __rk <= ${params.add({ type: "integer", value: t.dataset.unit.maxRows })}`;
   return `(${keptRelation(t, where, cols, params)}) AS __kept`;
 }

@@ -297,3 +297,25 @@ describe("SQL parameterization", () => {
     }
   });
 });
+
+describe("prepared statements kept per connection", () => {
+  it("re-binds a kept statement on every call and survives evicting old ones", async () => {
+    const t = ctx.engine.table("visits");
+    const age = t.columns.get("age")!.ident;
+    const sql = `SELECT count(*) FROM ${t.table} WHERE ${age} <= $1`;
+    // Reference counts with the bound value spelled into fresh SQL (one statement per call).
+    const direct = async (v: bigint) => (await ctx.engine.query(`SELECT count(*) FROM ${t.table} WHERE ${age} <= ${v} AND ${v - 1n} = ${v - 1n}`, []))[0][0];
+    for (const v of [30n, 60n, 30n, 100n, 0n]) {
+      expect((await ctx.engine.query(sql, [{ type: "bigint", value: v }]))[0][0]).toBe(await direct(v));
+    }
+    // More distinct statements than a connection keeps (64): the oldest are dropped, answers stay right.
+    for (let i = 0; i < 80; i++) {
+      const r = await ctx.engine.query(`SELECT ${i} + $1`, [{ type: "integer", value: 1 }]);
+      expect(Number(r[0][0])).toBe(i + 1);
+    }
+    expect((await ctx.engine.query(sql, [{ type: "bigint", value: 60n }]))[0][0]).toBe(await direct(60n));
+    // Parallel calls use separate connections, each with its own statements.
+    const many = await Promise.all([10n, 20n, 30n, 40n, 50n, 60n].map((v) => ctx.engine.query(sql, [{ type: "bigint", value: v }])));
+    for (const [i, v] of [10n, 20n, 30n, 40n, 50n, 60n].entries()) expect(many[i][0][0]).toBe(await direct(v));
+  });
+});

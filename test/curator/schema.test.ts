@@ -6,6 +6,7 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { readFileSync } from "node:fs";
 import { join } from "node:path";
+import { digestOf } from "../../runtime/protocol/canonical.js";
 import { BadInputError, HushError, ProtocolError, UnauthorizedError, UnknownDatasetError } from "../../runtime/errors.js";
 import { parsePlan, parseRequest } from "../../runtime/protocol/schema.js";
 import { FIXTURES, type Opened, open } from "../fixtures/curator-helpers.js";
@@ -173,6 +174,19 @@ describe("authorisation and good plans", () => {
   it("refuses an analyst not listed on the dataset", () => {
     expect(() => ctx.answerer.prepare("ben", base())).toThrow(UnauthorizedError);
     expect(() => ctx.answerer.prepare("'; DROP TABLE d0; --", base())).toThrow(UnauthorizedError);
+  });
+
+  it("checks the analyst on every call, also for a plan settled before (memoised)", () => {
+    const first = ctx.answerer.prepare("ada", base());
+    expect(() => ctx.answerer.prepare("ben", base())).toThrow(UnauthorizedError);
+    const again = ctx.answerer.prepare("ada", base());
+    // The memo returns the same settled plan; its digest is sha256 of the canonical JSON.
+    expect(again.digest).toBe(first.digest);
+    expect(again.digest).toBe(digestOf(again.plan));
+    expect(again.cost.toString()).toBe(first.cost.toString());
+    // Callers may change what they get without changing what the next caller gets.
+    again.notes.push("changed");
+    expect(ctx.answerer.prepare("ada", base()).notes).toEqual(first.notes);
   });
 
   it("fills defaults and gives the same digest for the same question", () => {

@@ -41,8 +41,8 @@ function groupedNote(keys: readonly GroupKey[], columns: string[], cells: number
   ];
 }
 
-function noisyRow(key: string[], stat: string, column: string | null, noisy: bigint, spec: NoisySpec, confidence: number): ReleaseRow {
-  const h = halfWidthValue(spec, confidence);
+/** `h`: the part's half-width in value units, settled once per piece (it does not depend on the data). */
+function noisyRow(key: string[], stat: string, column: string | null, noisy: bigint, spec: NoisySpec, h: Rational): ReleaseRow {
   const v = spec.step.mul(noisy);
   return { key, stat, column, value: exactDecimal(v), low: exactDecimal(v.sub(h)), high: exactDecimal(v.add(h)) };
 }
@@ -54,17 +54,18 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
   // L1 = L2 = k for the whole count vector (see the file header).
   const spec = alloc.additive(keys.length === 0 ? "count" : `count by ${columns.join(", ")}`, BigInt(k), fraction, Rational.ONE);
   const conf = alloc.confidence;
+  const h = halfWidthValue(spec, conf);
   return {
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
-    halfWidths: [hw(spec, stat, null, conf)],
+    halfWidths: [{ stat, column: null, halfWidth: exactDecimal(h) }],
     notes: groupedNote(keys, columns, cells),
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [], () => ["count(*)"]);
       const tuples = keyTuples(labels);
-      return data.map((v, i) => noisyRow(tuples[i], stat, null, addNoise(v[0], spec.law, bits), spec, conf));
+      return data.map((v, i) => noisyRow(tuples[i], stat, null, addNoise(v[0], spec.law, bits), spec, h));
     },
   };
 }
@@ -77,17 +78,18 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
   const sens = sumSensitivity(c.grid, rowsPerUnit(src));
   const spec = alloc.additive(`sum of ${c.name}${keys.length ? ` by ${columns.join(", ")}` : ""}`, sens, fraction, c.grid.step);
   const conf = alloc.confidence;
+  const h = halfWidthValue(spec, conf);
   return {
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
-    halfWidths: [hw(spec, "sum", c.name, conf)],
+    halfWidths: [{ stat: "sum", column: c.name, halfWidth: exactDecimal(h) }],
     notes: groupedNote(keys, columns, cells),
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [col.ident], () => [`sum(${col.ident})`]);
       const tuples = keyTuples(labels);
-      return data.map((v, i) => noisyRow(tuples[i], "sum", c.name, addNoise(v[0], spec.law, bits), spec, conf));
+      return data.map((v, i) => noisyRow(tuples[i], "sum", c.name, addNoise(v[0], spec.law, bits), spec, h));
     },
   };
 }
