@@ -192,7 +192,8 @@ export class Answerer {
   preview(analyst: string, raw: unknown): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[] } {
     const prepared = this.prepare(analyst, raw);
     const { piece } = this.settle(prepared.plan);
-    return { prepared, halfWidths: piece.halfWidths.map((h) => ({ ...h })), notes: prepared.notes };
+    const extra = (piece.previewNotes ?? []).filter((n) => !prepared.notes.includes(n));
+    return { prepared, halfWidths: piece.halfWidths.map((h) => ({ ...h })), notes: [...prepared.notes, ...extra] };
   }
 
   private build(plan: QueryPlan, src: Source, alloc: Allocator): { piece: Piece; groupColumns: string[]; columnsUsed: string[] } {

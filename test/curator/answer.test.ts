@@ -203,6 +203,34 @@ describe("intervals and previews", () => {
     expect(Number(row.high) - Number(row.value)).toBe(Number(h));
   });
 
+  it("mean preview names its parts in words, with half-widths in value units and a note", () => {
+    ctx.statements.length = 0;
+    const pv = ctx.answerer.preview("ada", plan({ measure: { kind: "mean", column: "wait_minutes" } }, "visits"));
+    expect(ctx.statements).toHaveLength(0);
+    expect(pv.halfWidths.map((h) => [h.stat, h.column])).toEqual([
+      ["count (part of mean)", "wait_minutes"],
+      ["sum of wait_minutes (part of mean)", "wait_minutes"],
+    ]);
+    // Half the budget each (epsilon 1/2), k = 4 rows per unit. Count: t = 4 / (1/2) = 8.
+    const count = halfWidth({ family: "discrete-laplace", scale: Rational.of(8) }, 0.95);
+    expect(pv.halfWidths[0].halfWidth).toBe(count.toString());
+    // Sum in half-steps of 0.25 minutes, sensitivity k (U-L)/g = 4 * 480 = 1920, t = 3840; in minutes x 0.25.
+    const sum = Rational.of(1n, 4n).mul(halfWidth({ family: "discrete-laplace", scale: Rational.of(3840) }, 0.95));
+    expect(Rational.parse(pv.halfWidths[1].halfWidth).toString()).toBe(sum.toString());
+    // Value units, not internal ones: a Laplace tail P(|X| > h) = exp(-h/b) gives h = b ln(1/0.05)
+    // (common practice; the discrete law's tail is within one step of it), b = 3840 * 0.25 = 960 minutes.
+    expect(Math.abs(Number(pv.halfWidths[1].halfWidth) - 960 * Math.log(20))).toBeLessThan(1);
+    expect(pv.notes.some((n) => /error bar depends on the noisy count.*given with the release/.test(n))).toBe(true);
+    // The note is about previews: a release does not carry it.
+    expect(pv.prepared.notes.some((n) => n.includes("error bar depends"))).toBe(false);
+  });
+
+  it("variance preview labels its three parts", () => {
+    const pv = ctx.answerer.preview("ada", plan({ measure: { kind: "std", column: "age" } }, "visits"));
+    expect(pv.halfWidths.map((h) => h.stat)).toEqual(["count (part of std)", "sum of age (part of std)", "sum of squares of age (part of std; squared units)"]);
+    expect(pv.notes.some((n) => n.startsWith("The std's error bar depends on the noisy count"))).toBe(true);
+  });
+
   it("row-level count at epsilon 1 has 95% half-width 3 (methods.md [C4.2a], t = 1)", () => {
     const file = tempPolicy(
       policyWith(`    source: ${join(FIXTURES, "visits.csv")}

@@ -121,7 +121,12 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
   return {
     mechanisms: [mechanismRecord(count), mechanismRecord(sum)],
     cost: count.cost.add(sum.cost),
-    halfWidths: [hw(count, "mean:count", c.name, conf), hw(sum, "mean:centred-sum", c.name, conf)],
+    // In words and value units: the count in values, the sum in units of the column (its noise is
+    // the same whatever centre the sum is taken about).
+    halfWidths: [hw(count, "count (part of mean)", c.name, conf), hw(sum, `sum of ${c.name} (part of mean)`, c.name, conf)],
+    previewNotes: [
+      `The mean's error bar depends on the noisy count of values, which is private, so it is given with the release. The half-widths shown are for the mean's two noisy parts: the count of ${c.name} values and the sum of ${c.name} (taken about ${exactDecimal(centre)}, in ${c.name}'s units).`,
+    ],
     notes: [
       ...groupedNote(keys, columns, cells),
       `The mean of ${c.name} splits its budget evenly between a noisy count of values and a noisy sum centred at ${exactDecimal(centre)}.`,
@@ -178,9 +183,12 @@ export function spreadPiece(
     mechanisms: [mechanismRecord(count), mechanismRecord(sum), mechanismRecord(squares)],
     cost: count.cost.add(sum.cost).add(squares.cost),
     halfWidths: [
-      hw(count, `${stat}:count`, c.name, conf),
-      hw(sum, `${stat}:centred-sum`, c.name, conf),
-      hw(squares, `${stat}:centred-squares`, c.name, conf),
+      hw(count, `count (part of ${stat})`, c.name, conf),
+      hw(sum, `sum of ${c.name} (part of ${stat})`, c.name, conf),
+      hw(squares, `sum of squares of ${c.name} (part of ${stat}; squared units)`, c.name, conf),
+    ],
+    previewNotes: [
+      `The ${stat}'s error bar depends on the noisy count of values, which is private, so it is given with the release. The half-widths shown are for its three noisy parts: the count of ${c.name} values, the sum of ${c.name} and the sum of its squares (both taken about ${exactDecimal(centre)}; the sum in ${c.name}'s units, the squares in squared units).`,
     ],
     notes: [
       ...groupedNote(keys, columns, cells),

@@ -19,6 +19,8 @@ export interface Piece {
   cost: Rational;
   halfWidths: Preview["halfWidths"];
   notes: string[];
+  /** Notes for a preview only (about what its half-widths are), not carried into releases. */
+  previewNotes?: string[];
   /** How the intervals of this piece are computed, in words. */
   methods: string[];
   /** Number of rows `run` returns, fixed by the plan and the policy (never by the data). */

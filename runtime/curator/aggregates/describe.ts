@@ -46,6 +46,7 @@ export function describePiece(alloc: Allocator, src: Source): Piece {
     cost: list.reduce((s, p) => s.add(p.piece.cost), Rational.ZERO),
     halfWidths: list.flatMap((p) => p.piece.halfWidths.map((h) => (p.keyed ? { ...h, column: p.column } : h))),
     notes,
+    previewNotes: [...new Set(list.flatMap((p) => p.piece.previewNotes ?? []))],
     methods: [...new Set(list.flatMap((p) => p.piece.methods))],
     size: list.reduce((n, p) => n + p.piece.size, 0),
     async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
