@@ -24,7 +24,7 @@ export interface KernelParts {
    * Requests that need it wait for it; kernel_info, history and shutdown do not.
    */
   engine(): Promise<Engine>;
-  /** Starts building the engine in the background, if not started yet. */
+  /** Schedules building the engine in the background, if not scheduled yet. */
   warm(): void;
   /** Closes the cell API session if it was ever loaded. */
   closeSession(): Promise<void>;
@@ -89,7 +89,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
     async kernel_info_request(_msg, ctx) {
       await ctx.reply("kernel_info_reply", kernelInfo());
       // Clients ask this first, to know the kernel is up; the TypeScript program is built after
-      // the answer, so the notebook shows the kernel ready while it builds.
+      // the answer (shortly after, see kernel.ts), so the notebook shows the kernel ready sooner.
       ctx.afterIdle(() => parts.warm());
     },
 

@@ -26,6 +26,9 @@ const DISPLAY_DECLARATION = `
 declare function display(value: unknown, opts?: { displayId?: string; update?: boolean }): void;
 `;
 
+/** Wait after the first kernel_info_reply before building the engine unasked (see `warm`). */
+const WARM_DELAY_MS = 1500;
+
 export interface RunningKernel {
   /** Resolves when the kernel has shut down. */
   closed: Promise<void>;
@@ -82,8 +85,15 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
       execution = createExecution({ rootDir: opts.rootDir ?? process.cwd(), globals, declarations });
       return { session, execution };
     })());
+  // Building blocks the main thread for seconds. A client that missed the idle of its first
+  // kernel_info (its iopub subscription was not live yet) asks again about a second later
+  // (KernelProcess.waitReady); starting the build after that keeps its second answer quick too.
+  // A request that needs the engine earlier starts the build at once.
+  let warmTimer: NodeJS.Timeout | null = null;
   const warm = (): void => {
-    engine().catch((e: unknown) => kernelLog(`could not prepare cells: ${errorText(e)}`));
+    warmTimer ??= setTimeout(() => {
+      engine().catch((e: unknown) => kernelLog(`could not prepare cells: ${errorText(e)}`));
+    }, WARM_DELAY_MS);
   };
   const closeSession = async (): Promise<void> => {
     if (built) await (await built).session.close();
@@ -96,6 +106,7 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
     if (exiting) return;
     exiting = true;
     dispatcher?.stop();
+    if (warmTimer) clearTimeout(warmTimer);
     await output.flush();
     output.releaseStdio();
     execution?.close();

@@ -28,6 +28,9 @@ it("shutdown replies, closes the session and ends the process", async () => {
   const closedFile = join(mkdtempSync(join(tmpdir(), "hush-life-")), "closed");
   const k = await startKernel({ env: { FAKE_SESSION_CLOSED_FILE: closedFile } });
   const pid = k.pid as number;
+  // The session loads with the cell engine (after kernel_info, or on the first cell); a kernel
+  // shut down before that has no session to close.
+  expect((await k.execute("1")).reply.status).toBe("ok");
   const reply = await k.request("control", "shutdown_request", { restart: false });
   expect(reply).toEqual({ status: "ok", restart: false });
   await new Promise<void>((resolve) => {
