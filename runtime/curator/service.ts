@@ -30,6 +30,7 @@ import { parseRequest } from "../protocol/schema.js";
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
+import { exactDecimal } from "./aggregates/budget.js";
 import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
 import { verifyToken } from "./tokens.js";
 
@@ -91,21 +92,6 @@ class KeyedLock {
   }
 }
 
-/** An exact decimal when the rational has one (denominator 2^a 5^b), else "n/d". */
-function exactDecimal(r: Rational): string {
-  let den = r.den;
-  let twos = 0;
-  let fives = 0;
-  while (den % 2n === 0n) { den /= 2n; twos++; }
-  while (den % 5n === 0n) { den /= 5n; fives++; }
-  if (den !== 1n) return r.toString();
-  const digits = Math.max(twos, fives);
-  const scaled = (r.num * 10n ** BigInt(digits)) / r.den;
-  const neg = scaled < 0n;
-  const abs = (neg ? -scaled : scaled).toString().padStart(digits + 1, "0");
-  const text = digits === 0 ? abs : `${abs.slice(0, -digits)}.${abs.slice(-digits)}`;
-  return neg ? `-${text}` : text;
-}
 
 function sha256(text: string): Buffer {
   return createHash("sha256").update(text, "utf8").digest();

@@ -20,6 +20,7 @@ import {
   calibrate,
   costOf,
   halfWidth,
+  isqrt,
   planForHalfWidth,
   pureToRho,
 } from "../../core/index.js";
@@ -183,21 +184,8 @@ export function sqrtRational(r: Rational, digits: number, dir: "down" | "up"): R
   if (r.sign() <= 0) return Rational.ZERO;
   const scale = 10n ** BigInt(2 * digits);
   const x = (r.num * scale) / r.den; // floor(r * 10^(2d))
-  let s = isqrtBig(x);
+  let s = isqrt(x);
   if (dir === "up" && (s * s !== x || (r.num * scale) % r.den !== 0n)) s += 1n;
   return Rational.of(s, 10n ** BigInt(digits));
 }
 
-/** floor(sqrt(x)) by Newton's method on bigints. */
-function isqrtBig(x: bigint): bigint {
-  if (x < 2n) return x;
-  let r = 1n << BigInt((x.toString(2).length >> 1) + 1);
-  for (;;) {
-    const next = (r + x / r) >> 1n;
-    if (next >= r) break;
-    r = next;
-  }
-  while (r * r > x) r -= 1n;
-  while ((r + 1n) * (r + 1n) <= x) r += 1n;
-  return r;
-}
