@@ -31,6 +31,7 @@ import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { exactDecimal } from "./aggregates/budget.js";
+import type { ComputedRelease } from "./answer.js";
 import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
 import { verifyToken } from "./tokens.js";
 
@@ -42,14 +43,7 @@ export interface PreparedRelease {
   unit: "epsilon" | "rho";
   cost: Rational;
   notes: string[];
-  compute(bits: Bits): Promise<{
-    groupColumns: string[];
-    rows: ReleaseRow[];
-    confidence: number;
-    intervalMethod: string;
-    mechanisms: MechanismRecord[];
-    notes: string[];
-  }>;
+  compute(bits: Bits): Promise<ComputedRelease>;
 }
 
 export interface AnswerSource {
