@@ -3,6 +3,9 @@
  * configured, the embedded default — demo data and policy made if missing, a curator started as a
  * separate local process, and a notice saying so, because an analyst must know where the data is.
  */
+import { execFile } from "node:child_process";
+import { existsSync } from "node:fs";
+import { fileURLToPath } from "node:url";
 import { CuratorClient, type CuratorClientOptions } from "../client/client.js";
 import { type EmbeddedCurator, startEmbeddedCurator } from "../client/embedded.js";
 import { HushError, UnreachableError } from "../errors.js";
@@ -30,20 +33,34 @@ export interface Connection {
   embedded: { policyFile: string; pid: number; publicKeyB64: string } | null;
 }
 
-/** The demo scenario module, loaded only when needed (it is not part of a steward's deployment). */
+/**
+ * The demo scenario, prepared in a child process (`notebooks/scenario/prepare.js`): the notebook side
+ * never generates the data or holds the curator's key in its own memory, and the demo code is not
+ * part of a steward's deployment.
+ */
 async function loadDemo(opts: { dir?: string }): Promise<DemoSetup> {
-  const spec = new URL("../../notebooks/scenario/generate.js", import.meta.url).href;
-  let mod: { ensureDemoData?: (o: { dir?: string }) => Promise<DemoSetup> };
-  try {
-    mod = (await import(spec)) as typeof mod;
-  } catch (e: unknown) {
+  // Beside this file when it runs compiled (dist/), or in dist/ when it runs from source (tests).
+  const script = [
+    fileURLToPath(new URL("../../notebooks/scenario/prepare.js", import.meta.url)),
+    fileURLToPath(new URL("../../dist/notebooks/scenario/prepare.js", import.meta.url)),
+  ].find((f) => existsSync(f));
+  if (script === undefined) {
     throw new UnreachableError(
-      "no curator is configured (HUSH_CURATOR / HUSH_CONFIG) and the demo scenario (notebooks/scenario/generate.js) is not available to start a local one; set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN",
-      { cause: e },
+      "no curator is configured (HUSH_CURATOR / HUSH_CONFIG) and the demo scenario (notebooks/scenario/prepare.js) is not available to start a local one; set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN",
     );
   }
-  if (typeof mod.ensureDemoData !== "function") throw new UnreachableError("the demo scenario module has no ensureDemoData()");
-  return mod.ensureDemoData(opts);
+  const args = [script, ...(opts.dir !== undefined ? ["--dir", opts.dir] : [])];
+  const out = await new Promise<string>((resolveOut, rejectOut) => {
+    execFile(process.execPath, args, { encoding: "utf8", timeout: 120_000 }, (err, stdout, stderr) => {
+      if (err) rejectOut(new UnreachableError(`could not prepare the demo data for the embedded curator: ${stderr.trim() || err.message}`));
+      else resolveOut(stdout);
+    });
+  });
+  const setup = JSON.parse(out.trim().split("\n").pop() ?? "") as Partial<DemoSetup>;
+  if (typeof setup.policyFile !== "string" || typeof setup.analyst !== "string" || typeof setup.token !== "string") {
+    throw new UnreachableError("the demo preparation printed no policy, analyst and token");
+  }
+  return { policyFile: setup.policyFile, analyst: setup.analyst, token: setup.token };
 }
 
 export const DEFAULT_DEPS: ConnectDeps = {
