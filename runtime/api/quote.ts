@@ -77,7 +77,8 @@ export class CostQuote {
       errs.length > 0 && same
         ? [`  expected error ± ${q(errs[0].exact)} (${percent(p.confidence)})${errs.length > 1 ? ` for each of ${errs.length} numbers` : ""}`]
         : aligned(
-            errs.map((e) => [`${e.stat}${e.column ? ` ${e.column}` : ""}`, `± ${q(e.exact)}`]),
+            // The curator's labels for the parts of a mean already name the column.
+            errs.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${q(e.exact)} (${percent(p.confidence)})`]),
             "  ",
           );
     return [head, ...lines, `  now: ${spendText(p.spend)}`].join("\n");
