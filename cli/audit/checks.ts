@@ -10,10 +10,10 @@
  */
 import type { KeyObject } from "node:crypto";
 import { Rational, epsilonFromRho } from "../../runtime/core/index.js";
-import { formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { GENESIS_PREV, keyIdOf, receiptHash, verifyReceipt } from "../../runtime/protocol/receipts.js";
-import { type FoundRelease, type Notebook, findReleases, joinText } from "./notebook.js";
+import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
+import { checkShown } from "./views.js";
 
 export type FindingKind =
   | "malformed" // not a receipt at all
@@ -88,18 +88,6 @@ function exact(s: unknown): Rational | null {
   }
 }
 
-/** Text with HTML tags and entities reduced to plain words and single spaces, so a table row compares like a line. */
-function normalised(text: string): string {
-  return text
-    .replace(/<[^>]*>/g, " ")
-    .replace(/&plusmn;|&#177;|&#xb1;/gi, "±")
-    .replace(/&nbsp;|&#160;/gi, " ")
-    .replace(/&lt;/g, "<")
-    .replace(/&gt;/g, ">")
-    .replace(/&amp;/g, "&")
-    .replace(/\s+/g, " ");
-}
-
 function wellFormedRows(result: unknown): boolean {
   return (
     Array.isArray(result) &&
@@ -113,65 +101,6 @@ function wellFormedRows(result: unknown): boolean {
         row.slice(2).every((x: unknown) => x === null || typeof x === "string"),
     )
   );
-}
-
-function rowLabel(row: Receipt["result"][number]): string {
-  const [key, stat, column] = row;
-  const what = column === null ? stat : `${stat} of ${column}`;
-  return key.length === 0 ? what : `${what} for ${key.map((k) => (k === null ? "(missing)" : k)).join(" / ")}`;
-}
-
-/** Does every signed number appear, as the shared formatter shows it, in each human-readable bundle? */
-function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[]): void {
-  const data = rel.out.data ?? {};
-  const views: [string, string][] = [];
-  for (const mime of ["text/plain", "text/html", "text/markdown"]) {
-    const v = data[mime];
-    if (typeof v === "string" || Array.isArray(v)) views.push([mime, normalised(joinText(v as string | string[]))]);
-  }
-  if (!views.some(([m]) => m === "text/plain")) {
-    findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: release output (receipt seq ${r.seq}) has no text/plain view to check` });
-  }
-  for (const row of r.result) {
-    const [, , , value, low, high] = row;
-    if (value === null) continue;
-    let expected: string;
-    try {
-      expected = formatWithError(value, low, high);
-    } catch {
-      findings.push({ cell: rel.cell, kind: "malformed", message: `${at(rel)}: receipt seq ${r.seq} holds a value that is not a decimal (${rowLabel(row)})` });
-      continue;
-    }
-    // The signed figure must stand on its own: "24.5 ± 1.25" inside "924.5 ± 1.25" is not a match.
-    const pattern = new RegExp(`(?<![\\d.])${expected.replace(/[.*+?^${}()|[\]\\]/g, "\\$&")}(?![\\d])`);
-    for (const [mime, text] of views) {
-      if (!pattern.test(text)) {
-        findings.push({
-          cell: rel.cell,
-          kind: "shown-value",
-          message: `${at(rel)}: ${mime} does not show the signed ${rowLabel(row)} "${expected}" (receipt seq ${r.seq}); the shown value was edited`,
-        });
-      }
-    }
-  }
-  // Structured bundles (JSON mime types) that carry rows must carry exactly the signed rows.
-  for (const [mime, v] of Object.entries(data)) {
-    if (!(mime === "application/json" || mime.endsWith("+json")) || v === null || typeof v !== "object") continue;
-    const rows = (v as { rows?: unknown }).rows;
-    if (!Array.isArray(rows)) continue;
-    const shown = rows.map((x) => {
-      const o = (x ?? {}) as Record<string, unknown>;
-      return JSON.stringify([o.key ?? [], o.stat, o.column ?? null, o.value ?? null, o.low ?? null, o.high ?? null]);
-    });
-    const signed = r.result.map((x) => JSON.stringify(x));
-    if (shown.length !== signed.length || shown.some((s, i) => s !== signed[i])) {
-      findings.push({
-        cell: rel.cell,
-        kind: "bundle-value",
-        message: `${at(rel)}: the ${mime} bundle's rows differ from the values signed in receipt seq ${r.seq}`,
-      });
-    }
-  }
 }
 
 interface Placed {
@@ -218,7 +147,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     if (rel.meta.dataset !== r.dataset) {
       findings.push({ cell: rel.cell, kind: "label", message: `${at(rel)}: output says dataset "${rel.meta.dataset}" but its receipt is for "${r.dataset}"` });
     }
-    checkShown(rel, r, findings);
+    checkShown(rel, r, findings, at);
 
     owner ??= { analyst: r.analyst, dataset: r.dataset };
     if (r.analyst !== owner.analyst || r.dataset !== owner.dataset) {

@@ -4,7 +4,9 @@
  */
 import { readFileSync } from "node:fs";
 import { BadInputError } from "../../runtime/errors.js";
+import { formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
+import { figuresIn, normalised } from "./views.js";
 
 export interface NbOutput {
   output_type: string;
@@ -103,9 +105,39 @@ export function shownText(out: NbOutput): string {
 const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.e+-]*, -?\d[\d.e+-]*\]|\d \(no value interval/;
 const SPEND = /cost (ε|ρ)\s*=|replayed, no new cost|total -?[\d.e/+-]+ \/ [\d.e/+-]+|(ε|ρ)\s*(spent|used)\b/;
 
+/** Every figure some receipt in the notebook signed, as the shared formatter shows it. */
+function signedFigures(nb: Notebook): Set<string> {
+  const figures = new Set<string>();
+  for (const cell of nb.cells) {
+    for (const out of Array.isArray(cell.outputs) ? cell.outputs : []) {
+      const result = (out?.metadata?.[OUTPUT_METADATA_KEY] as { receipt?: { result?: unknown } } | null | undefined)?.receipt?.result;
+      if (!Array.isArray(result)) continue;
+      for (const row of result) {
+        try {
+          if (Array.isArray(row) && typeof row[3] === "string") figures.add(formatWithError(row[3], row[4] ?? null, row[5] ?? null));
+        } catch {
+          // a malformed receipt is reported where it stands
+        }
+      }
+    }
+  }
+  return figures;
+}
+
+/** Everything a reader sees of an output without a receipt: its text views and stream text. */
+function allText(out: NbOutput): string {
+  const parts = [shownText(out)];
+  for (const mime of ["text/html", "text/markdown"]) {
+    const v = out.data?.[mime];
+    if (typeof v === "string" || Array.isArray(v)) parts.push(Array.isArray(v) ? v.map(String).join("") : v);
+  }
+  return normalised(parts.join("\n"));
+}
+
 export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {
   const releases: FoundRelease[] = [];
   const suspects: Suspect[] = [];
+  const signed = signedFigures(nb);
   nb.cells.forEach((cell, ci) => {
     if (cell.cell_type !== "code") return;
     const executionCount = typeof cell.execution_count === "number" ? cell.execution_count : null;
@@ -130,6 +162,13 @@ export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects
       const text = shownText(out);
       if (ERROR_BAR.test(text) && SPEND.test(text)) {
         suspects.push({ cell: ci, output: oi, executionCount, why: "it shows an error bar and a privacy spend but carries no receipt" });
+        return;
+      }
+      // A figure with an error bar that no receipt signed was typed in or computed off the books.
+      // Repeating a signed figure (console.log of an answer) is fine.
+      const unsigned = figuresIn(allText(out)).find((f) => !signed.has(f));
+      if (unsigned !== undefined) {
+        suspects.push({ cell: ci, output: oi, executionCount, why: `it shows "${unsigned}", a figure with an error bar that no receipt in this notebook signed` });
       }
     });
   });

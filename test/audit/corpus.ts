@@ -11,8 +11,17 @@ import { expect, it } from "vitest";
 import { type AuditReport, type FindingKind, auditNotebook } from "../../cli/audit/checks.js";
 import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
+import { formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
+  MADE_UP,
+  addMadeUpRow,
+  allWithSeq,
+  concealSignedInPlain,
+  editChartValue,
+  fakeStreamLine,
+  hideSignedInHtml,
+  swapGroupFigures,
   changeCost,
   deleteReleaseCell,
   editShownValue,
@@ -154,6 +163,88 @@ export function auditCorpus(get: () => CorpusFixture): void {
     expect(cli.stdout).toMatch(/^verdict: FAIL/m);
     // The same cap at the total itself passes: the bound is "at most".
     expect(runCli(["audit", file, "--key", keyFile, "--cap", total.toString()]).code).toBe(0);
+  });
+
+  it("catches a made-up extra row added to a release output", () => {
+    const bad = addMadeUpRow(get().nb, 2);
+    const r = audit(bad);
+    expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
+    expect(r.findings.find((f) => f.kind === "shown-value")!.message).toContain(MADE_UP);
+  });
+
+  it("catches two groups' figures swapped (each signed, shown under the wrong group)", () => {
+    const bad = swapGroupFigures(get().nb, 2);
+    expectFinding(audit(bad), "shown-value", releaseWithSeq(bad, 2).cell);
+  });
+
+  it("catches an edited figure in text/html with the signed one hidden beside it", () => {
+    const bad = hideSignedInHtml(get().nb, 1);
+    const r = audit(bad);
+    expectFinding(r, "shown-value", releaseWithSeq(bad, 1).cell);
+    expect(r.findings.some((f) => f.kind === "shown-value" && f.message.includes("text/html") && f.message.includes(MADE_UP))).toBe(true);
+  });
+
+  it("catches an edited figure in text/plain with the signed one behind a terminal escape", () => {
+    const bad = concealSignedInPlain(get().nb, 1);
+    const r = audit(bad);
+    expectFinding(r, "shown-value", releaseWithSeq(bad, 1).cell);
+    expect(r.findings.some((f) => f.message.includes("control characters"))).toBe(true);
+  });
+
+  it("catches an edited value in the Vega-Lite chart of a grouped release", () => {
+    const bad = editChartValue(get().nb, 2);
+    expectFinding(audit(bad), "bundle-value", releaseWithSeq(bad, 2).cell);
+  });
+
+  it("catches a printed release-looking line with a made-up figure and no receipt (stream output)", () => {
+    const bad = fakeStreamLine(get().nb, 2);
+    const r = audit(bad);
+    expectFinding(r, "no-receipt", releaseWithSeq(bad, 2).cell);
+    expect(r.findings.find((f) => f.kind === "no-receipt")!.message).toContain(MADE_UP);
+  });
+
+  it("does not flag a printed copy of a signed figure (console.log of an answer without spend words)", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 2);
+    const row = rel.meta.receipt.result.find((x) => x[3] !== null && x[4] !== null)!;
+    out.cells[rel.cell].outputs!.push({ output_type: "stream", name: "stdout", text: `${formatWithError(row[3], row[4], row[5])}\n` });
+    expect(audit(out).findings).toEqual([]);
+  });
+
+  it("limit: a deleted last release cannot be seen without the ledger (the audit passes the shorter chain)", () => {
+    const last = Math.max(...releasesOf(get().nb).map((x) => x.meta.receipt.seq));
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const cells = new Set(allWithSeq(out, last).map((x) => x.cell));
+    out.cells = out.cells.filter((_, i) => !cells.has(i));
+    const r = audit(out);
+    expect(r.findings).toEqual([]);
+    expect(r.receipts).toBe(last - 1);
+  });
+
+  it("reports hostile receipts and outputs as findings, never a crash or a pass", () => {
+    const variants: ((r: Record<string, unknown>, o: Record<string, unknown>) => void)[] = [
+      (r) => void (r.cost = "1e999999999"),
+      (r) => void (r.total = "9".repeat(5000)),
+      (r) => void ((r.result as unknown[][])[0][3] = "1e999999999"),
+      (r) => void (r.seq = 1e300),
+      (r) => void (r.seq = -1),
+      (r) => void (r.seq = 1.5),
+      (r) => void (r.unit = "rho"),
+      (r) => void (r.cap = "1/0"),
+      (r) => void delete r.sig,
+      (_r, o) => void (o.data = null),
+      (_r, o) => void (o.data = { "text/plain": [5, null] }),
+      (_r, o) => void (o.metadata = { hush: { receipt: null } }),
+      (_r, o) => void (o.metadata = { hush: { receipt: { format: "hush-receipt/1", seq: "1" }, dataset: 7 } }),
+    ];
+    variants.forEach((edit, i) => {
+      const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+      const rel = releaseWithSeq(out, 1);
+      edit(rel.meta.receipt as unknown as Record<string, unknown>, rel.output as unknown as Record<string, unknown>);
+      let r: AuditReport | undefined;
+      expect(() => (r = audit(out)), `variant ${i}`).not.toThrow();
+      expect(r!.ok, `variant ${i}`).toBe(false);
+    });
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {

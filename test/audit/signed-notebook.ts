@@ -49,9 +49,29 @@ function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"
   });
   // The kernel's cost wording (runtime/api/text.ts costText).
   lines.push(`${replay ? "replayed, no new cost" : `cost ε=${r.cost}`} · total ${r.total} / ${r.cap}`);
+  const data: Record<string, unknown> = { "text/plain": lines.join("\n") };
+  // Grouped releases carry a Vega-Lite chart whose inline data are the signed rows, shaped as
+  // kernel/display/chart.ts writes them (numbers as JS numbers, the shown text beside them).
+  if (r.result.some((row) => row[0].length > 0)) {
+    data["application/vnd.vegalite.v5+json"] = {
+      $schema: "https://vega.github.io/schema/vega-lite/v5.json",
+      data: {
+        values: r.result.map(([k, , , v, lo, hi]) => ({
+          label: k[0] ?? "",
+          series: k.slice(1).join(" · "),
+          value: Number(v),
+          low: lo === null ? null : Number(lo),
+          high: hi === null ? null : Number(hi),
+          shown: formatWithError(v, lo, hi),
+        })),
+      },
+      mark: "bar",
+      encoding: { x: { field: "label", type: "nominal" }, y: { field: "value", type: "quantitative" } },
+    };
+  }
   return {
     output_type: "display_data",
-    data: { "text/plain": lines.join("\n") },
+    data,
     metadata: { [OUTPUT_METADATA_KEY]: { receipt: r, replay, dataset: r.dataset } },
   };
 }

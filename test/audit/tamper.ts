@@ -136,3 +136,77 @@ export function stripReceipt(nb: Notebook, seq: number): Notebook {
   for (const { output } of allWithSeq(out, seq)) delete output.metadata![OUTPUT_METADATA_KEY];
   return out;
 }
+
+/** A figure with an error bar that no receipt in the test notebooks signs. */
+export const MADE_UP = "4242.5 ± 1.5";
+
+function firstFigure(rel: Located): string {
+  const row = rel.meta.receipt.result.find((r) => r[3] !== null && r[4] !== null)!;
+  return formatWithError(row[3], row[4], row[5]);
+}
+
+function mapText(o: NbOutput, mimes: string[], f: (s: string) => string): void {
+  for (const mime of mimes) {
+    const v = o.data?.[mime];
+    if (typeof v === "string" || Array.isArray(v)) o.data![mime] = f(Array.isArray(v) ? (v as string[]).join("") : v);
+  }
+}
+
+/** Adds a made-up row (a group that was never released) after the first figure of release `seq`, in every text view. */
+export function addMadeUpRow(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const shown = firstFigure(rel);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(shown, `${shown}\n  Atlantis  ${MADE_UP}`));
+  return out;
+}
+
+/** Swaps the first two figures of release `seq` in every text view: each group shows another group's number. */
+export function swapGroupFigures(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const figs = rel.meta.receipt.result.filter((r) => r[3] !== null).map((r) => formatWithError(r[3], r[4], r[5]));
+  if (figs.length < 2 || figs[0] === figs[1]) throw new Error(`release seq ${seq} has no two distinct figures to swap`);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(figs[0], "\u0000").replace(figs[1], figs[0]).replace("\u0000", figs[1]));
+  return out;
+}
+
+/** Gives release `seq` a text/html view that shows an edited figure and keeps the signed one in a hidden span. */
+export function hideSignedInHtml(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const shown = firstFigure(rel);
+  const plain = textOf(rel.output);
+  const html = rel.output.data!["text/html"];
+  const base = html === undefined ? `<pre>${plain}</pre>` : Array.isArray(html) ? (html as string[]).join("") : String(html);
+  rel.output.data!["text/html"] = base.replace(shown, `${MADE_UP}<span style="display:none">${shown}</span>`);
+  return out;
+}
+
+/** Shows an edited figure in text/plain and keeps the signed one behind an ANSI "conceal" escape. */
+export function concealSignedInPlain(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const shown = firstFigure(rel);
+  mapText(rel.output, ["text/plain"], (s) => s.replace(shown, `${MADE_UP}\u001b[8m${shown}\u001b[0m`));
+  return out;
+}
+
+/** Changes the first data point of release `seq`'s Vega-Lite chart, leaving text and receipt alone. */
+export function editChartValue(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const mime = Object.keys(rel.output.data ?? {}).find((m) => /vegalite/.test(m));
+  if (mime === undefined) throw new Error(`release seq ${seq} has no chart`);
+  const spec = rel.output.data![mime] as { data: { values: { value: number }[] } };
+  spec.data.values[0].value = spec.data.values[0].value * 2 + 1;
+  return out;
+}
+
+/** Prints a release-looking line with a made-up figure (console.log) in release `seq`'s cell, with no receipt and no spend. */
+export function fakeStreamLine(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  out.cells[rel.cell].outputs!.push({ output_type: "stream", name: "stdout", text: [`count = ${MADE_UP} (95%)\n`] });
+  return out;
+}
