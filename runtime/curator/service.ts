@@ -344,7 +344,9 @@ export class CuratorService {
       cost: prepared.cost.toString(),
       unit: prepared.unit,
       halfWidths,
-      confidence: plan.confidence ?? 0.95,
+      // The prepared plan is normalized: its confidence is the one the half-widths were computed
+      // at, also when it was given only inside an accuracy-first ask.
+      confidence: (prepared.plan as QueryPlan).confidence ?? plan.confidence ?? 0.95,
       affordable: replay || spent.add(prepared.cost).le(this.capOf(d)),
       replay,
       spend: this.summary(analyst, d, spent, releases),
