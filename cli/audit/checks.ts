@@ -252,8 +252,18 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
       if (delta === null) {
         findings.push({ cell: last.rel.cell, kind: "malformed", message: `${at(last.rel)}: zCDP receipt seq ${last.r.seq} has no delta, so its epsilon cannot be stated` });
       } else {
-        eps = epsilonFromRho(total, delta);
-        totalEpsilon = shown(eps);
+        // A forged delta outside (0, 1) or a negative total would make the conversion refuse:
+        // that is a finding at the receipt, not unreadable input.
+        try {
+          eps = epsilonFromRho(total, delta);
+          totalEpsilon = shown(eps);
+        } catch {
+          findings.push({
+            cell: last.rel.cell,
+            kind: "malformed",
+            message: `${at(last.rel)}: zCDP receipt seq ${last.r.seq} has total "${last.r.total}" at delta "${last.r.delta ?? ""}", which has no epsilon (delta must lie in (0, 1), the total must not be negative)`,
+          });
+        }
       }
     }
     if (opts.cap !== undefined && eps !== null && eps.gt(opts.cap)) {

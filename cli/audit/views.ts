@@ -147,6 +147,10 @@ function chartProblem(spec: unknown, signed: { row: Row; figure: string }[]): st
   return problem;
 }
 
+// Views the audit reads, plus the chart image the kernel renders from the checked Vega-Lite data
+// (the image itself is not checked: README, "Auditing a notebook").
+const CHECKED_MIMES = /^(text\/plain|text\/html|text\/markdown|image\/svg\+xml|application\/json|application\/vnd\.vegalite\.v\d+\+json)$/;
+
 /** Does every view of the output show the signed figures and only those? */
 export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): void {
   const data = rel.out.data !== null && typeof rel.out.data === "object" ? rel.out.data : {};
@@ -171,7 +175,17 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     }
   }
   for (const [mime, v] of Object.entries(data)) {
-    if (!(mime === "application/json" || mime.endsWith("+json")) || v === null || typeof v !== "object") continue;
+    // A frontend shows the richest view it can render, so a view the audit cannot read (a
+    // picture, LaTeX, script) could show any number. The kernel writes none but the chart's SVG.
+    if (!CHECKED_MIMES.test(mime)) {
+      findings.push({ cell: rel.cell, kind: "bundle-value", message: `${at(rel)}: the output carries a ${mime} view, which the kernel does not write and the audit cannot check (receipt seq ${r.seq})` });
+      continue;
+    }
+    if (!mime.endsWith("json")) continue;
+    if (v === null || typeof v !== "object") {
+      findings.push({ cell: rel.cell, kind: "bundle-value", message: `${at(rel)}: the ${mime} view is not a JSON object (receipt seq ${r.seq})` });
+      continue;
+    }
     if (/^application\/vnd\.vegalite\.v\d+\+json$/.test(mime)) {
       const problem = chartProblem(v, signed);
       if (problem !== null) {
@@ -179,9 +193,12 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
       }
       continue;
     }
-    // Other structured bundles that carry rows must carry exactly the signed rows.
+    // application/json must carry the signed rows (a JSON tree viewer would show any other numbers).
     const rows = (v as { rows?: unknown }).rows;
-    if (!Array.isArray(rows)) continue;
+    if (!Array.isArray(rows)) {
+      findings.push({ cell: rel.cell, kind: "bundle-value", message: `${at(rel)}: the ${mime} view carries no "rows" to compare with receipt seq ${r.seq}` });
+      continue;
+    }
     const shown = rows.map((x) => {
       const o = (x ?? {}) as Record<string, unknown>;
       return JSON.stringify([o.key ?? [], o.stat, o.column ?? null, o.value ?? null, o.low ?? null, o.high ?? null]);

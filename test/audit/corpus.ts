@@ -16,6 +16,7 @@ import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
   MADE_UP,
   addMadeUpRow,
+  addUncheckedView,
   allWithSeq,
   concealSignedInPlain,
   editChartValue,
@@ -245,6 +246,30 @@ export function auditCorpus(get: () => CorpusFixture): void {
       expect(() => (r = audit(out)), `variant ${i}`).not.toThrow();
       expect(r!.ok, `variant ${i}`).toBe(false);
     });
+  });
+
+  it("catches a view the audit cannot read (LaTeX, or JSON without rows) added to a release output", () => {
+    for (const mime of ["text/latex", "image/png", "application/json"]) {
+      const bad = addUncheckedView(get().nb, 1, mime);
+      const r = audit(bad);
+      expectFinding(r, "bundle-value", releaseWithSeq(bad, 1).cell);
+      expect(r.findings.find((f) => f.kind === "bundle-value")!.message).toContain(mime);
+    }
+  });
+
+  it("reports a zCDP receipt whose delta or total has no epsilon as a finding, not an error (with --cap)", () => {
+    const last = Math.max(...releasesOf(get().nb).map((x) => x.meta.receipt.seq));
+    for (const [delta, total] of [["2", null], ["0", null], ["0.000001", "-1"]] as const) {
+      const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+      for (const { meta } of allWithSeq(out, last)) {
+        meta.receipt.unit = "rho";
+        meta.receipt.delta = delta;
+        if (total !== null) meta.receipt.total = total;
+      }
+      let r: AuditReport | undefined;
+      expect(() => (r = audit(out, "1"))).not.toThrow();
+      expect(r!.findings.some((f) => f.kind === "malformed" && /has no epsilon/.test(f.message)), `delta ${delta}`).toBe(true);
+    }
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {

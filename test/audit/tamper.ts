@@ -210,3 +210,11 @@ export function fakeStreamLine(nb: Notebook, seq: number): Notebook {
   out.cells[rel.cell].outputs!.push({ output_type: "stream", name: "stdout", text: [`count = ${MADE_UP} (95%)\n`] });
   return out;
 }
+
+/** Adds a view the audit cannot read (LaTeX, which frontends prefer to text/plain) showing a made-up figure. */
+export function addUncheckedView(nb: Notebook, seq: number, mime = "text/latex"): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  rel.output.data![mime] = mime.endsWith("json") ? { value: MADE_UP } : `$${MADE_UP.replace("±", "\\pm")}$`;
+  return out;
+}
