@@ -5,7 +5,7 @@
  * signed (an extra made-up row, or an edited number beside a hidden original). Structured bundles
  * (JSON rows, the Vega-Lite chart's data) must carry exactly the signed numbers.
  */
-import { formatWithError } from "../../runtime/protocol/format.js";
+import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import type { Finding } from "./checks.js";
 import type { FoundRelease } from "./notebook.js";
@@ -106,6 +106,24 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
   return null;
 }
 
+/**
+ * The cost a release line states ("cost ε=0.1", runtime/api/text.ts costText, 6 significant
+ * digits) must be the signed cost in the signed unit. The running total beside it is the
+ * analyst's total when the cell ran (a replay shows today's), so only the audit's own total counts.
+ */
+function costProblem(text: string, r: Receipt): string | null {
+  let want: string;
+  try {
+    want = `cost ${r.unit === "rho" ? "ρ" : "ε"}=${formatDecimal(r.cost, 6)}`;
+  } catch {
+    return null; // a cost that is not a number is reported by the chain checks
+  }
+  for (const m of text.matchAll(/cost (ε|ρ)\s*=\s*([^\s·,;)]*)/g)) {
+    if (m[0] !== want) return `states "${m[0]}", but receipt seq ${r.seq} signed "${want}"`;
+  }
+  return null;
+}
+
 function sameNumber(shown: unknown, signed: string | null): boolean {
   return signed === null ? shown === null || shown === undefined : typeof shown === "number" && shown === Number(signed);
 }
@@ -173,6 +191,8 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     if (problem !== null) {
       findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${problem} (receipt seq ${r.seq}); the shown values were edited` });
     }
+    const cost = costProblem(text, r);
+    if (cost !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${cost}; the stated cost was edited` });
   }
   for (const [mime, v] of Object.entries(data)) {
     // A frontend shows the richest view it can render, so a view the audit cannot read (a

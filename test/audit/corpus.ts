@@ -17,6 +17,7 @@ import {
   MADE_UP,
   addMadeUpRow,
   addUncheckedView,
+  editStatedCost,
   allWithSeq,
   concealSignedInPlain,
   editChartValue,
@@ -270,6 +271,13 @@ export function auditCorpus(get: () => CorpusFixture): void {
       expect(() => (r = audit(out, "1"))).not.toThrow();
       expect(r!.findings.some((f) => f.kind === "malformed" && /has no epsilon/.test(f.message)), `delta ${delta}`).toBe(true);
     }
+  });
+
+  it("catches an edited cost in the release line (the receipt's cost left alone)", () => {
+    const bad = editStatedCost(get().nb, 2);
+    const r = audit(bad);
+    expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
+    expect(r.findings.find((f) => f.kind === "shown-value")!.message).toMatch(/stated cost was edited/);
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {

@@ -8,7 +8,7 @@ import { Rational } from "../../runtime/core/index.js";
 import type { CuratorKey } from "../../runtime/curator/keys.js";
 import { signReceipt } from "../../runtime/curator/receipts.js";
 import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
-import { formatWithError } from "../../runtime/protocol/format.js";
+import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type Receipt } from "../../runtime/protocol/messages.js";
 import { GENESIS_PREV, receiptHash } from "../../runtime/protocol/receipts.js";
 
@@ -48,7 +48,8 @@ function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"
     return `${label}: ${formatWithError(v, lo, hi)}`;
   });
   // The kernel's cost wording (runtime/api/text.ts costText).
-  lines.push(`${replay ? "replayed, no new cost" : `cost ε=${r.cost}`} · total ${r.total} / ${r.cap}`);
+  const q = (x: string): string => formatDecimal(x, 6);
+  lines.push(`${replay ? "replayed, no new cost" : `cost ε=${q(r.cost)}`} · total ${q(r.total)} / ${q(r.cap)}`);
   const data: Record<string, unknown> = { "text/plain": lines.join("\n") };
   // Grouped releases carry a Vega-Lite chart whose inline data are the signed rows, shaped as
   // kernel/display/chart.ts writes them (numbers as JS numbers, the shown text beside them).

@@ -218,3 +218,12 @@ export function addUncheckedView(nb: Notebook, seq: number, mime = "text/latex")
   rel.output.data![mime] = mime.endsWith("json") ? { value: MADE_UP } : `$${MADE_UP.replace("±", "\\pm")}$`;
   return out;
 }
+
+/** Edits the cost a release line states ("cost ε=0.1" becomes "cost ε=0.01"), leaving the receipt alone. */
+export function editStatedCost(nb: Notebook, seq: number): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  if (!/cost (ε|ρ)=/.test(textOf(rel.output))) throw new Error(`release seq ${seq} states no cost`);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(/cost (ε|ρ)=0?\.?/, (m) => (m.endsWith(".") ? `${m}0` : `${m}0.0`)));
+  return out;
+}
