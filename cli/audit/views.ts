@@ -124,6 +124,24 @@ function costProblem(text: string, r: Receipt): string | null {
   return null;
 }
 
+/**
+ * HTML the audit can read as text. The kernel writes plain markup, inline styles and one chart
+ * image (the output's own image/svg+xml); scripts, style sheets, inline SVG, frames, other images or
+ * CSS pictures could draw numbers the text check does not see.
+ */
+function htmlProblem(raw: string, data: Record<string, unknown>): string | null {
+  const active = /<\s*(script|style|iframe|frame|object|embed|svg|canvas|math|link|meta|base|template|video|audio|picture|source)\b|\son\w+\s*=|javascript:|url\s*\(/i.exec(raw);
+  if (active !== null) return `holds "${active[0].trim()}", which can show text the audit does not read`;
+  const svg = data["image/svg+xml"];
+  const svgText = typeof svg === "string" ? svg : Array.isArray(svg) ? svg.map(String).join("") : null;
+  const chart = svgText === null ? null : `data:image/svg+xml;base64,${Buffer.from(svgText, "utf8").toString("base64")}`;
+  for (const img of raw.matchAll(/<\s*img\b[^>]*>/gi)) {
+    const src = /\ssrc\s*=\s*"([^"]*)"/i.exec(img[0])?.[1];
+    if (src === undefined || src !== chart) return "shows an image that is not the output's own chart";
+  }
+  return null;
+}
+
 function sameNumber(shown: unknown, signed: string | null): boolean {
   return signed === null ? shown === null || shown === undefined : typeof shown === "number" && shown === Number(signed);
 }
@@ -180,6 +198,10 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     const raw = Array.isArray(v) ? v.map(String).join("") : (v as string);
     if (CONTROL.test(raw.replace(/[\n\t\r]/g, ""))) {
       findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} holds control characters (terminal escapes can hide or recolour text); receipt seq ${r.seq}` });
+    }
+    if (mime === "text/html") {
+      const problem = htmlProblem(raw, data);
+      if (problem !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/html ${problem} (receipt seq ${r.seq})` });
     }
     views.push([mime, normalised(raw)]);
   }

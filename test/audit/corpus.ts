@@ -17,6 +17,7 @@ import {
   MADE_UP,
   addMadeUpRow,
   addUncheckedView,
+  addActiveHtml,
   editStatedCost,
   allWithSeq,
   concealSignedInPlain,
@@ -278,6 +279,22 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const r = audit(bad);
     expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
     expect(r.findings.find((f) => f.kind === "shown-value")!.message).toMatch(/stated cost was edited/);
+  });
+
+  it("catches HTML that can draw figures the audit cannot read (script, style sheet, inline SVG, foreign image)", () => {
+    const markups = [
+      `<script>document.body.innerText = "x"</script>`,
+      `<style>pre::after { content: "\\34 242" }</style>`,
+      `<svg><text>4242</text></svg>`,
+      `<img src="data:image/png;base64,AAAA">`,
+      `<div style="background:url(data:image/png;base64,AAAA)"></div>`,
+      `<div onmouseover="this.innerText='4242'">x</div>`,
+    ];
+    for (const m of markups) {
+      const bad = addActiveHtml(get().nb, 1, m);
+      const r = audit(bad);
+      expect(r.findings.some((f) => f.kind === "shown-value" && f.cell === releaseWithSeq(bad, 1).cell && f.message.includes("text/html")), m).toBe(true);
+    }
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {

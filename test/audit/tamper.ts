@@ -227,3 +227,13 @@ export function editStatedCost(nb: Notebook, seq: number): Notebook {
   mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(/cost (ε|ρ)=0?\.?/, (m) => (m.endsWith(".") ? `${m}0` : `${m}0.0`)));
   return out;
 }
+
+/** Adds markup to release `seq`'s text/html that can draw text the audit does not read (a script, a style sheet, another image). */
+export function addActiveHtml(nb: Notebook, seq: number, markup: string): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const html = rel.output.data!["text/html"];
+  const base = html === undefined ? `<pre>${textOf(rel.output)}</pre>` : Array.isArray(html) ? (html as string[]).join("") : String(html);
+  rel.output.data!["text/html"] = base + markup;
+  return out;
+}
