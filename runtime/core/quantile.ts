@@ -97,26 +97,46 @@ export function exponentialQuantile(args: QuantileArgs): QuantileResult {
   if (typeof cap !== "bigint" || cap < 1n) throw new BadInputError("cost cap must be a positive integer");
   const capped = costs.map((c) => (c > cap ? cap : c));
   const x = dyadicBase(epsilon, sensitivity, y);
-  // Dividing every weight by the same x^cMin 2^0 is a normalisation and leaves the law unchanged.
+  // Dividing every weight by the same beta^cMin is a normalisation and leaves the law unchanged.
   let cMin = capped[0];
   for (const c of capped) if (c < cMin) cMin = c;
-  const weights = dyadicWeights(
+  // Rejection sampling with the law of the weights W_j (dyadicWeights), without forming them:
+  // propose j uniformly, accept with probability beta^(c_j - cMin), drawn as c_j - cMin independent
+  // Bernoulli(x / 2^y) trials that must all succeed. The output is j with probability proportional
+  // to beta^(c_j - cMin), exactly as the single UniformInt over the summed weights. Forming the
+  // weights costs about y (C - cMin) bits per candidate, which at small epsilon (large cap) took
+  // minutes of bigint arithmetic; here each proposal needs at most about 1/(1 - beta) trials on
+  // average, and at most m / sum_j beta^(c_j - cMin) <= m proposals are expected.
+  const one = 1n << BigInt(y);
+  const index = drawByRejection(
     capped.map((c) => c - cMin),
     x,
-    y,
+    one,
+    bits,
   );
-  let total = 0n;
-  for (const w of weights) total += w;
-  const r = bits.uniformInt(total);
-  let acc = 0n;
-  let index = m - 1;
-  for (let j = 0; j < m; j++) {
-    acc += weights[j];
-    if (acc > r) {
-      index = j;
-      break;
-    }
-  }
   const beta = Number(x) / 2 ** y;
   return { index, epsilonUsed: epsilon, baseNum: x, baseBits: y, epsilonEffective: 2 * Number(sensitivity) * Math.log(1 / beta) };
+}
+
+/** j with probability proportional to (x/one)^d_j, by uniform proposals and Bernoulli(x/one) trials. */
+function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): number {
+  const m = d.length;
+  if (x >= one) return bits.uniformSmall(m); // beta = 1: every trial succeeds, the law is uniform
+  const small = one <= 281474976710656n; // 2^48: the number path of Bits
+  const xn = Number(x);
+  const on = Number(one);
+  for (;;) {
+    const j = bits.uniformSmall(m);
+    let left = d[j];
+    let accepted = true;
+    while (left > 0n) {
+      const ok = small ? bits.uniformSmall(on) < xn : bits.bernoulli(x, one);
+      if (!ok) {
+        accepted = false;
+        break;
+      }
+      left--;
+    }
+    if (accepted) return j;
+  }
 }
