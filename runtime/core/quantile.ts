@@ -2,7 +2,8 @@
  * Quantiles by the exponential mechanism (McSherry & Talwar 2007) on a public candidate grid,
  * sampled exactly with a dyadic base in the spirit of Ilvento (2020), methods.md §9. Weights are
  * integers x^c * 2^(y (C - c)) proportional to beta^c with beta = x/2^y >= exp(-epsilon/(2 Delta')),
- * and the draw is one UniformInt over their sum: no floating point touches the selection.
+ * and the draw has the law of one UniformInt over their sum (methods.md §9 step 3), realised by
+ * rejection with exact Bernoulli(x/2^y) trials: no floating point touches the selection.
  */
 import { BadInputError } from "../errors.js";
 import { Rational } from "./rational.js";
