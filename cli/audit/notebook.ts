@@ -6,7 +6,7 @@ import { readFileSync } from "node:fs";
 import { BadInputError } from "../../runtime/errors.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
-import { figuresIn, normalised } from "./views.js";
+import { figuresIn, normalised, plainText } from "./views.js";
 
 export interface NbOutput {
   output_type: string;
@@ -126,12 +126,12 @@ function signedFigures(nb: Notebook): Set<string> {
 
 /** Everything a reader sees of an output without a receipt: its text views and stream text. */
 function allText(out: NbOutput): string {
-  const parts = [shownText(out)];
+  const parts = [plainText(String(shownText(out)))];
   for (const mime of ["text/html", "text/markdown"]) {
     const v = out.data?.[mime];
-    if (typeof v === "string" || Array.isArray(v)) parts.push(Array.isArray(v) ? v.map(String).join("") : v);
+    if (typeof v === "string" || Array.isArray(v)) parts.push(normalised(Array.isArray(v) ? v.map(String).join("") : v));
   }
-  return normalised(parts.join("\n"));
+  return parts.join("\n");
 }
 
 export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {

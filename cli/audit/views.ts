@@ -30,23 +30,35 @@ export function figuresIn(text: string): string[] {
  * cannot show a number the checks do not see.
  */
 export function normalised(text: string): string {
-  return text
-    .normalize("NFKC")
-    .replace(/<[^>]*>/g, " ")
-    .replace(/&plusmn;|&#177;|&#xb1;/gi, "±")
-    .replace(/&nbsp;|&#160;/gi, " ")
-    .replace(/&#39;|&#x27;|&apos;/gi, "'")
-    .replace(/&quot;|&#34;/gi, '"')
-    .replace(/&lt;/g, "<")
-    .replace(/&gt;/g, ">")
-    .replace(/&amp;/g, "&")
-    .replace(/\s+/g, " ");
+  return plainText(
+    text
+      .replace(/<[^>]*>/g, " ")
+      // Numeric references first, so digits written as &#52; are digits; &amp; last, so "&amp;lt;" stays "&lt;".
+      .replace(/&#(\d{1,7});/g, (m, d: string) => codePoint(Number(d)) ?? m)
+      .replace(/&#x([0-9a-f]{1,6});/gi, (m, h: string) => codePoint(parseInt(h, 16)) ?? m)
+      .replace(/&plusmn;|&pm;|&PlusMinus;/g, "±")
+      .replace(/&nbsp;/gi, " ")
+      .replace(/&apos;/gi, "'")
+      .replace(/&quot;/gi, '"')
+      .replace(/&lt;/g, "<")
+      .replace(/&gt;/g, ">")
+      .replace(/&amp;/g, "&"),
+  );
 }
 
-// Terminal escapes and other control characters: Jupyter renders ANSI colours in text/plain, so
-// they could hide the signed figure or colour a fake one in; the kernel never writes them.
-// eslint-disable-next-line no-control-regex
-const CONTROL = /[\u0000-\u0008\u000b-\u001f\u007f-\u009f]/;
+function codePoint(n: number): string | null {
+  return n <= 0x10ffff && (n < 0xd800 || n > 0xdfff) ? String.fromCodePoint(n) : null;
+}
+
+/** Plain text with look-alike characters folded (NFKC) and runs of white space made one space; no markup removed. */
+export function plainText(text: string): string {
+  return text.normalize("NFKC").replace(/\s+/g, " ");
+}
+
+// Terminal escapes and other control characters (Jupyter renders ANSI colours in text/plain, so
+// they could hide the signed figure or colour a fake one in), and invisible format characters
+// (zero-width spaces, bidi overrides that draw "5.2424" as "4242.5"). The kernel writes none.
+const CONTROL = /[\p{Cc}\p{Cf}]/u;
 
 export function rowLabel(row: Row): string {
   const [key, stat, column] = row;
@@ -83,9 +95,10 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
   for (const { row, figure } of signed) {
     for (const k of row[0]) {
       if (k === null) continue; // the kernel leaves a missing key out of the label
-      const at = text.indexOf(normalised(k).trim(), cursor);
+      const shownKey = plainText(k).trim();
+      const at = text.indexOf(shownKey, cursor);
       if (at < 0) return `does not show the group "${k}" of the signed ${rowLabel(row)} "${figure}" in the signed order`;
-      cursor = at + normalised(k).trim().length;
+      cursor = at + shownKey.length;
     }
     const pattern = new RegExp(`(?<![\\d.])${escaped(figure)}(?![\\d])`, "g");
     pattern.lastIndex = cursor;
@@ -196,14 +209,15 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     const v = data[mime];
     if (typeof v !== "string" && !Array.isArray(v)) continue;
     const raw = Array.isArray(v) ? v.map(String).join("") : (v as string);
-    if (CONTROL.test(raw.replace(/[\n\t\r]/g, ""))) {
-      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} holds control characters (terminal escapes can hide or recolour text); receipt seq ${r.seq}` });
+    const decoded = mime === "text/plain" ? raw : normalised(raw);
+    if (CONTROL.test(raw.replace(/[\n\t\r]/g, "")) || CONTROL.test(decoded.replace(/[\n\t\r]/g, ""))) {
+      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} holds control or invisible format characters (terminal escapes, zero-width or bidi characters can hide or reorder text); receipt seq ${r.seq}` });
     }
     if (mime === "text/html") {
       const problem = htmlProblem(raw, data);
       if (problem !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/html ${problem} (receipt seq ${r.seq})` });
     }
-    views.push([mime, normalised(raw)]);
+    views.push([mime, mime === "text/plain" ? plainText(raw) : decoded]);
   }
   if (!views.some(([m]) => m === "text/plain")) {
     findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: release output (receipt seq ${r.seq}) has no text/plain view to check` });

@@ -191,7 +191,19 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const bad = concealSignedInPlain(get().nb, 1);
     const r = audit(bad);
     expectFinding(r, "shown-value", releaseWithSeq(bad, 1).cell);
-    expect(r.findings.some((f) => f.message.includes("control characters"))).toBe(true);
+    expect(r.findings.some((f) => f.message.includes("control or invisible"))).toBe(true);
+  });
+
+  it("catches digits reordered by a bidi override, and figures written as HTML character references", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const plain = rel.output.data!["text/plain"];
+    rel.output.data!["text/plain"] = `${Array.isArray(plain) ? plain.join("") : String(plain)}\n\u202e5.2424`;
+    const r = audit(out);
+    expectFinding(r, "shown-value", rel.cell);
+    const html = addActiveHtml(get().nb, 1, `<b>&#52;&#50;&#52;&#50;.5 &#177; 1.5</b>`);
+    const rh = audit(html);
+    expect(rh.findings.some((f) => f.kind === "shown-value" && f.message.includes("text/html") && f.message.includes(MADE_UP))).toBe(true);
   });
 
   it("catches an edited value in the Vega-Lite chart of a grouped release", () => {
