@@ -12,11 +12,20 @@ export function verdictLine(r: AuditReport): string {
   return `verdict: FAIL (${r.findings.length} finding${r.findings.length === 1 ? "" : "s"})`;
 }
 
+/** A receipt amount for the summary; a forged one that is not a number is quoted as it stands (the findings say why). */
+function amount(x: string): string {
+  try {
+    return formatDecimal(x, 6);
+  } catch {
+    return JSON.stringify(String(x).slice(0, 40));
+  }
+}
+
 function spendText(r: AuditReport): string {
   if (r.total === null || r.cap === null) return "no spend shown";
   const sym = r.unit === "rho" ? "ρ" : "ε";
-  let s = `${sym} ${formatDecimal(r.total, 6)} of cap ${formatDecimal(r.cap, 6)}`;
-  if (r.unit === "rho" && r.totalEpsilon !== null) s += ` (ε ${formatDecimal(r.totalEpsilon, 6)} at δ ${r.delta ?? "?"})`;
+  let s = `${sym} ${amount(r.total)} of cap ${amount(r.cap)}`;
+  if (r.unit === "rho" && r.totalEpsilon !== null) s += ` (ε ${amount(r.totalEpsilon)} at δ ${r.delta ?? "?"})`;
   if (r.reviewCap !== null) s += `; review cap ε ${r.reviewCap}`;
   return s;
 }

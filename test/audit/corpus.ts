@@ -309,6 +309,19 @@ export function auditCorpus(get: () => CorpusFixture): void {
     }
   });
 
+  it("prints the report (exit 1, never an internal error) when the last receipt's total and cap are not numbers", () => {
+    const last = Math.max(...releasesOf(get().nb).map((x) => x.meta.receipt.seq));
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    for (const { meta } of allWithSeq(out, last)) {
+      meta.receipt.total = "abc";
+      meta.receipt.cap = "1e99999999999";
+    }
+    const cli = runCli(["audit", save("bad-amounts.ipynb", out), "--key", get().keyFile]);
+    expect(cli.stderr).toBe("");
+    expect(cli.stdout).toMatch(/^verdict: FAIL/m);
+    expect(cli.code).toBe(1);
+  });
+
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {
     const { keyFile } = get();
     const good = save("good.ipynb", get().nb);
