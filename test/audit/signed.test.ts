@@ -4,6 +4,9 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.js";
+import { signReceipt } from "../../runtime/curator/receipts.js";
+import { Rational } from "../../runtime/core/index.js";
+import { GENESIS_PREV } from "../../runtime/protocol/receipts.js";
 import { auditNotebook } from "../../cli/audit/checks.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
@@ -49,5 +52,38 @@ describe("notebook audit on a signed, assembled notebook", () => {
     const r = auditNotebook(bad, fx.key);
     expect(r.ok).toBe(false);
     for (const l of located) expect(r.findings.some((f) => f.kind === "malformed" && f.cell === l.cell)).toBe(true);
+  });
+
+  it("holds a zCDP notebook to --cap in epsilon (the rho total converted at the receipt's delta), not in rho", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const r = signReceipt(
+      {
+        analyst: "kit",
+        dataset: "visits-zcdp",
+        seq: 1,
+        digest: "1".padStart(64, "0"),
+        unit: "rho",
+        cost: "1/200",
+        total: "1/200",
+        cap: "1/20",
+        delta: "0.000001",
+        result: rowsOf("count", null, [["199871", "199811", "199931"]]),
+        mechanisms: [{ target: "count", family: "discrete-gaussian", scale: "10", sensitivity: "1", step: "1", cost: "1/200" }],
+        issuedAt: "2025-03-01T10:00:00.000Z",
+        prev: GENESIS_PREV,
+      },
+      key,
+    );
+    const nb = assembleNotebook([r, r]);
+    for (const c of nb.cells) for (const o of c.outputs ?? []) if (typeof o.data?.["text/plain"] === "string") o.data["text/plain"] = (o.data["text/plain"] as string).replace("cost ε=", "cost ρ=");
+    // rho = 0.005 is below a cap of 0.01, but as epsilon at delta 1e-6 it is about half:
+    // eps <= rho + 2 sqrt(rho ln(1/delta)) (Bun & Steinke 2016, Prop. 1.3) = 0.5307.
+    const clean = auditNotebook(nb, fx.key);
+    expect(clean.findings).toEqual([]);
+    const eps = Rational.parse(clean.totalEpsilon!).toNumber();
+    expect(eps).toBeLessThanOrEqual(0.005 + 2 * Math.sqrt(0.005 * Math.log(1e6)) + 1e-9);
+    expect(eps).toBeGreaterThan(0.3);
+    expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.01") }).findings.map((f) => f.kind)).toEqual(["cap"]);
+    expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.54") }).findings).toEqual([]);
   });
 });
