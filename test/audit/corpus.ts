@@ -322,6 +322,28 @@ export function auditCorpus(get: () => CorpusFixture): void {
     expect(cli.code).toBe(1);
   });
 
+  it("catches receipts moved between release outputs (each output then shows another receipt's figures)", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const a = releaseWithSeq(out, 1);
+    const b = releaseWithSeq(out, 2);
+    [a.output.metadata!.hush, b.output.metadata!.hush] = [b.output.metadata!.hush, a.output.metadata!.hush];
+    const r = audit(out);
+    expectFinding(r, "shown-value", a.cell);
+    expectFinding(r, "shown-value", b.cell);
+  });
+
+  it("catches a duplicated release cell whose copy shows an edited figure under the same receipt", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 2);
+    const copy = JSON.parse(JSON.stringify(out.cells[rel.cell])) as Notebook["cells"][number];
+    out.cells.splice(rel.cell + 1, 0, copy);
+    const edited = addMadeUpRow({ ...out, cells: [copy] }, 2);
+    out.cells[rel.cell + 1] = edited.cells[0];
+    const r = audit(out);
+    expectFinding(r, "shown-value", rel.cell + 1);
+    expect(r.findings.every((f) => f.cell === rel.cell + 1)).toBe(true);
+  });
+
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {
     const { keyFile } = get();
     const good = save("good.ipynb", get().nb);
