@@ -108,7 +108,13 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
   }
   // Nothing beyond: every figure with an error bar is a signed one, once, in order.
   const expected = signed.map((s) => s.figure).filter((f) => WHOLE_FIGURE.test(f));
-  const seen = figuresIn(text);
+  // Group keys are read as labels, not as parts of a figure: in an HTML table a numeric key cell
+  // followed by a bin key "[90, 100]" would otherwise read as the figure "2024 [90, 100]".
+  // Only bracketed keys (bins) can complete such a figure, and only they are set aside, so a key
+  // like "5" cannot eat the digits of a figure.
+  const keys = [...new Set(signed.flatMap((x) => x.row[0]).filter((k): k is string => k !== null && k.includes("[")))];
+  const unlabelled = keys.reduce((t, k) => t.split(plainText(k).trim()).join(" ¦ "), text);
+  const seen = figuresIn(unlabelled);
   const extra = seen.find((f, i) => f !== expected[i]);
   if (seen.length !== expected.length || extra !== undefined) {
     const unsigned = seen.find((f) => !expected.includes(f));

@@ -86,4 +86,18 @@ describe("notebook audit on a signed, assembled notebook", () => {
     expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.01") }).findings.map((f) => f.kind)).toEqual(["cap"]);
     expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.54") }).findings).toEqual([]);
   });
+
+  it("reads a numeric group key before a bin key in an HTML table as labels, not as a figure (no false finding)", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const rows = rowsOf("count", null, [["5995", "5755", "6235"], ["6120", "5880", "6360"]], [["2024", "[90, 100]"], ["2025", "[90, 100]"]]);
+    const [r] = signedChain(key, { analyst: "kit", dataset: "visits-course", cap: "1" }, [{ cost: "0.1", rows }]);
+    const nb = assembleNotebook([r, r]);
+    for (const c of nb.cells) {
+      for (const o of c.outputs ?? []) {
+        if (o.data === undefined) continue;
+        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table>`;
+      }
+    }
+    expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+  });
 });
