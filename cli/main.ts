@@ -79,8 +79,10 @@ function program(): Command {
     .argument("<notebook>", "the .ipynb to audit")
     .requiredOption("--key <pubkey>", "the curator's public key: a .pub file (PEM) or the base64 the curator prints")
     .option("--cap <epsilon>", "hold the notebook to this epsilon cap (may be stricter than the steward's)")
+    .option("--analyst <name>", "the analyst whose notebook this should be (a copied notebook verifies under its author's name)")
+    .option("--dataset <name>", "the dataset the releases should be on")
     .option("--json", "print the report as JSON")
-    .action(async (file: string, o: { key: string; cap?: string; json?: boolean }) => {
+    .action(async (file: string, o: { key: string; cap?: string; json?: boolean; analyst?: string; dataset?: string }) => {
       const { runAudit } = await import("./commands/audit.js");
       const report = runAudit(file, o, out);
       if (!report.ok) process.exitCode = EXIT.problem;

@@ -20,6 +20,7 @@ export type FindingKind =
   | "signature" // signature does not match the contents
   | "key" // signed by another key
   | "mixed" // another analyst or dataset
+  | "owner" // not the analyst or dataset the reviewer expected (--analyst, --dataset)
   | "label" // output metadata names another dataset than its receipt
   | "no-receipt" // looks like a release, has no receipt
   | "shown-value" // the text shown is not the signed value
@@ -65,6 +66,9 @@ export interface AuditReport {
 export interface AuditOptions {
   /** A cap in epsilon the reviewer holds the notebook to (may be stricter than the steward's). */
   cap?: Rational;
+  /** Whose notebook the reviewer expects (e.g. the student who handed it in), and on which dataset. */
+  analyst?: string;
+  dataset?: string;
 }
 
 function at(rel: { cell: number; executionCount: number | null }): string {
@@ -271,6 +275,23 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
         cell: null,
         kind: "cap",
         message: `the notebook spends epsilon ${shown(eps)}, over the review cap ${shown(opts.cap)}`,
+      });
+    }
+  }
+
+  // A copied notebook verifies under its real author's name: only the reviewer knows whose it should be.
+  for (const [what, expected, actual] of [
+    ["analyst", opts.analyst, owner?.analyst],
+    ["dataset", opts.dataset, owner?.dataset],
+  ] as const) {
+    if (expected !== undefined && actual !== expected) {
+      findings.push({
+        cell: null,
+        kind: "owner",
+        message:
+          actual === undefined
+            ? `expected releases of ${what} ${JSON.stringify(expected)}, but the notebook has no receipt`
+            : `the receipts are for ${what} ${JSON.stringify(actual)}, not ${JSON.stringify(expected)} as expected`,
       });
     }
   }

@@ -1,4 +1,4 @@
-/** `hush audit NOTEBOOK --key PUBKEY [--cap EPS] [--json]`: exit 0 clean, 1 findings, 2 unreadable input. */
+/** `hush audit NOTEBOOK --key PUBKEY [--cap EPS] [--analyst NAME] [--dataset NAME] [--json]`: exit 0 clean, 1 findings, 2 unreadable input. */
 import { existsSync, readFileSync } from "node:fs";
 import type { KeyObject } from "node:crypto";
 import { Rational } from "../../runtime/core/index.js";
@@ -35,11 +35,19 @@ export function parseCapArg(cap: string | undefined): Rational | undefined {
   return r;
 }
 
-export function runAudit(file: string, opts: { key: string; cap?: string; json?: boolean }, out: (s: string) => void): AuditReport {
+export function runAudit(
+  file: string,
+  opts: { key: string; cap?: string; json?: boolean; analyst?: string; dataset?: string },
+  out: (s: string) => void,
+): AuditReport {
   const key = readKeyArg(opts.key);
   const cap = parseCapArg(opts.cap);
   const nb = readNotebook(file);
-  const report = auditNotebook(nb, key, cap === undefined ? {} : { cap });
+  const report = auditNotebook(nb, key, {
+    ...(cap === undefined ? {} : { cap }),
+    ...(opts.analyst === undefined ? {} : { analyst: opts.analyst }),
+    ...(opts.dataset === undefined ? {} : { dataset: opts.dataset }),
+  });
   out(opts.json === true ? `${JSON.stringify({ notebook: file, ...report }, null, 2)}\n` : formatReport(file, report));
   return report;
 }

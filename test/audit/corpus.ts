@@ -168,6 +168,18 @@ export function auditCorpus(get: () => CorpusFixture): void {
     expect(runCli(["audit", file, "--key", keyFile, "--cap", total.toString()]).code).toBe(0);
   });
 
+  it("holds the notebook to the analyst and dataset the reviewer expects (--analyst, --dataset)", () => {
+    const { nb, keyFile } = get();
+    const mine = audit(nb);
+    const file = save("owner.ipynb", nb);
+    const as = (args: string[]) => runCli(["audit", file, "--key", keyFile, ...args]);
+    expect(as(["--analyst", mine.analyst!, "--dataset", mine.dataset!]).code).toBe(0);
+    const other = as(["--analyst", `${mine.analyst!}-classmate`]);
+    expect(other.code).toBe(1);
+    expect(other.stdout).toContain(`the receipts are for analyst "${mine.analyst!}", not "${mine.analyst!}-classmate" as expected`);
+    expect(as(["--dataset", "some-other-dataset"]).code).toBe(1);
+  });
+
   it("catches a made-up extra row added to a release output", () => {
     const bad = addMadeUpRow(get().nb, 2);
     const r = audit(bad);
