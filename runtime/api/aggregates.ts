@@ -5,6 +5,7 @@
  */
 import { BadInputError } from "../errors.js";
 import type { Measure } from "../protocol/messages.js";
+import { PLAN_LIMITS } from "../protocol/schema.js";
 import type { SpendOptions } from "./privacy.js";
 
 /** Options of a histogram: the number of equal-width bins over the column's declared range, and the spend. */
@@ -82,8 +83,8 @@ export abstract class Aggregates<R> {
     return this.measure(
       () => {
         const bins = (opts as { bins?: unknown } | undefined)?.bins;
-        if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > 1000) {
-          throw new BadInputError(`histogram: bins must be a whole number from 1 to 1000, got ${String(bins)}`);
+        if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > PLAN_LIMITS.maxBins) {
+          throw new BadInputError(`histogram: bins must be a whole number from 1 to ${PLAN_LIMITS.maxBins}, got ${String(bins)}`);
         }
         return { kind: "histogram", column: columnArg(column, "histogram(column)"), bins };
       },

@@ -7,7 +7,7 @@
 import { BadInputError } from "../errors.js";
 import type { ColumnInfo, Condition, DatasetInfo, GroupKey, Measure, QueryPlan, SpendSummary } from "../protocol/messages.js";
 import { PROTOCOL_VERSION } from "../protocol/messages.js";
-import { parsePlan } from "../protocol/schema.js";
+import { PLAN_LIMITS, parsePlan } from "../protocol/schema.js";
 import { Aggregates } from "./aggregates.js";
 import { Answer } from "./answer.js";
 import { BudgetReport } from "./budget.js";
@@ -179,8 +179,8 @@ export class SealedTable extends Aggregates<Answer> {
       throw new BadInputError(`by: grouping by the date column ${column} is not supported (filter by date ranges instead)`);
     } else {
       if (bins === undefined) throw new BadInputError(`by: ${column} is numeric; say how many equal-width bins, e.g. .by("${column}", { bins: 10 })`);
-      if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > 1000) {
-        throw new BadInputError(`by: bins must be a whole number from 1 to 1000, got ${String(bins)}`);
+      if (typeof bins !== "number" || !Number.isInteger(bins) || bins < 1 || bins > PLAN_LIMITS.maxBins) {
+        throw new BadInputError(`by: bins must be a whole number from 1 to ${PLAN_LIMITS.maxBins}, got ${String(bins)}`);
       }
       key = { column, bins };
     }

@@ -85,7 +85,7 @@ const bins = z
 
 const groupKey = z.union(
   [z.strictObject({ column: name }), z.strictObject({ column: name, bins })],
-  { error: "must be { column } or { column, bins } with bins a whole number from 1 to 1000" },
+  { error: `must be { column } or { column, bins } with bins a whole number from 1 to ${PLAN_LIMITS.maxBins}` },
 );
 
 const probability = finiteNumber.refine((p) => p > 0 && p < 1, { message: "must lie strictly between 0 and 1" });
