@@ -26,6 +26,10 @@ import { MAX_REPLY_BYTES } from "../protocol/reply-schema.js";
 import { errorFromWire } from "./errors.js";
 import { MalformedReplyError, readReply } from "./reply-frame.js";
 
+const LOST = (address: string): string =>
+  `the connection to the curator at ${address} dropped while the request was in flight ` +
+  "(asking again is safe: a release already paid for comes back as a free replay)";
+
 /** The most a caller may raise maxReplyBytes to (the socket then holds up to twice this). */
 const HARD_REPLY_CEILING = 1024 * 1024 * 1024;
 
@@ -62,6 +66,10 @@ export class CuratorClient {
     private readonly socket: Dealer,
     private readonly opts: Required<Omit<CuratorClientOptions, "curveServerKey">>,
   ) {
+    // A dropped connection loses the replies to requests the curator had already read (a reconnect
+    // gets a new routing id), and libzmq drops the connection itself when a reply frame is over the
+    // socket's size limit. Either way those replies will never come: fail the requests now.
+    socket.events.on("disconnect", () => this.connectionLost());
     void this.receiveLoop();
   }
 
@@ -87,9 +95,9 @@ export class CuratorClient {
     const own = opts.curveServerKey !== undefined ? curveKeyPair() : undefined;
     const socket = new Dealer({
       linger: 0,
-      // Frames past twice the limit are dropped by libzmq before they are held in memory (the
-      // request then meets its timeout); frames between the limit and that are refused by
-      // readReply, which fails the request they name at once.
+      // A frame past twice the limit makes libzmq drop the connection before the frame is held in
+      // memory (the requests in flight then fail as unreachable); frames between the limit and that
+      // are refused by readReply, which fails the request they name.
       maxMessageSize: 2 * maxReplyBytes,
       ...(own ? { curveServerKey: opts.curveServerKey, curvePublicKey: own.publicKey, curveSecretKey: own.secretKey } : {}),
     });
@@ -107,6 +115,25 @@ export class CuratorClient {
       for await (const frames of this.socket) this.deliver(frames);
     } catch (e: unknown) {
       if (!this.closed) this.failAll(new UnreachableError(`connection to the curator at ${this.opts.address} failed`, { cause: e }));
+    }
+  }
+
+  private connectionLost(): void {
+    if (this.closed) return;
+    this.failAll(new UnreachableError(LOST(this.opts.address)));
+    // libzmq reconnects by itself after an ordinary drop (a curator restart), but ends the
+    // connection for good after a protocol error such as a frame over maxMessageSize. Connecting
+    // afresh covers both; requests sent from now on are queued until the curator is reached.
+    try {
+      this.socket.disconnect(this.opts.address);
+    } catch (e: unknown) {
+      process.stderr.write(`hush client: while reconnecting to ${this.opts.address}: ${e instanceof Error ? e.message : String(e)}\n`);
+    }
+    try {
+      this.socket.connect(this.opts.address);
+    } catch (e: unknown) {
+      // Not expected (the same address connected before); later requests meet their timeouts.
+      process.stderr.write(`hush client: cannot reconnect to ${this.opts.address}: ${e instanceof Error ? e.message : String(e)}\n`);
     }
   }
 

@@ -37,6 +37,8 @@ export class FakeRouter {
     const curve = transport === "tcp" ? curveKeyPair() : undefined;
     const router = new Router({
       linger: 0,
+      // Wait at the high-water mark instead of dropping, so a flood arrives whole.
+      mandatory: true,
       ...(curve ? { curveServer: true, curveSecretKey: curve.secretKey, curvePublicKey: curve.publicKey } : {}),
     });
     await router.bind(transport === "tcp" ? "tcp://127.0.0.1:*" : `ipc://${join(dir, "c.sock")}`);

@@ -11,7 +11,7 @@ import { randomUUID } from "node:crypto";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import type { CuratorClient } from "../../runtime/client/client.js";
 import { MalformedReplyError, type ReplyProblem } from "../../runtime/client/reply-frame.js";
-import { ProtocolError, UnauthorizedError } from "../../runtime/errors.js";
+import { ProtocolError, UnauthorizedError, UnreachableError } from "../../runtime/errors.js";
 import type { Release, SpendSummary } from "../../runtime/protocol/messages.js";
 import { FakeRouter, type Transport } from "./fake-router.js";
 
@@ -278,5 +278,34 @@ describe.each<Transport>(["ipc", "tcp"])("client replies over %s", (transport) =
     await fake.send(peer, ok(request.id, spendBody()));
     expect(await p).toEqual(SPEND);
     expect(client.droppedReplies - before).toBe(2000);
+  });
+
+  it("a frame past twice the limit is dropped by the socket unread; the request fails as unreachable and the client reconnects", QUICK, async () => {
+    const p = client.spend("clinic");
+    const { peer, request } = await fake.next();
+    await fake.send(peer, `{"v":1,"id":"${request.id}","ok":true,"body":"${"x".repeat(3 * MAX_REPLY)}"}`);
+    const e = await p.then(() => expect.fail("resolved"), (err: unknown) => err);
+    expect(e).toBeInstanceOf(UnreachableError);
+    expect((e as Error).message).toMatch(/dropped while the request was in flight/);
+    // The DEALER reconnects by itself; the next request is answered.
+    const next = client.spend("clinic");
+    const again = await fake.next();
+    await fake.send(again.peer, ok(again.request.id, spendBody()));
+    expect(await next).toEqual(SPEND);
+  });
+});
+
+describe.each<Transport>(["ipc", "tcp"])("curator gone over %s", (transport) => {
+  it("a request in flight when the curator goes away fails at once as unreachable", QUICK, async () => {
+    const fake = await FakeRouter.start(transport);
+    const client = await fake.connect({ timeoutMs: 60_000 });
+    try {
+      const p = client.spend("clinic");
+      await fake.next();
+      await fake.close();
+      await expect(p).rejects.toBeInstanceOf(UnreachableError);
+    } finally {
+      await client.close();
+    }
   });
 });
