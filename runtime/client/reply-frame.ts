@@ -14,6 +14,7 @@ export type ReplyProblem =
   | "frames" // not exactly one frame
   | "not-utf8"
   | "not-json"
+  | "too-deep" // nested past MAX_REPLY_DEPTH; refused before JSON.parse
   | "not-object" // JSON, but not an object
   | "version" // another protocol version
   | "shape" // fails the reply schema
@@ -57,6 +58,42 @@ function bad(problem: ReplyProblem, id: string | null, message: string): ReadRep
 
 const utf8 = new TextDecoder("utf-8", { fatal: true });
 
+/**
+ * Deepest nesting of arrays and objects a reply may have. The deepest real reply is a ledger entry
+ * holding a plan whose filter nests PLAN_LIMITS.maxDepth (12) conditions, two JSON levels each,
+ * under about eight levels of envelope: under 40. Refused before JSON.parse because V8 parses deep
+ * nesting slowly (measured on the shared build machine, Node 20: 2.5-4.4 s for a 2 MB frame a
+ * million levels deep, 10-15 s for 8 MB), which would stall the kernel; the scan takes ~1 ms.
+ */
+export const MAX_REPLY_DEPTH = 64;
+
+const QUOTE = 0x22;
+const BACKSLASH = 0x5c;
+const OPEN_BRACKET = 0x5b;
+const OPEN_BRACE = 0x7b;
+const CLOSE_BRACKET = 0x5d;
+const CLOSE_BRACE = 0x7d;
+
+/**
+ * True when brackets and braces outside strings nest deeper than `max`. One pass over the bytes;
+ * safe on UTF-8 because no byte of a multi-byte character is ASCII.
+ */
+function nestsDeeperThan(frame: Buffer, max: number): boolean {
+  let depth = 0;
+  let inString = false;
+  for (let i = 0; i < frame.length; i++) {
+    const b = frame[i];
+    if (inString) {
+      if (b === BACKSLASH) i++;
+      else if (b === QUOTE) inString = false;
+    } else if (b === QUOTE) inString = true;
+    else if (b === OPEN_BRACKET || b === OPEN_BRACE) {
+      if (++depth > max) return true;
+    } else if (b === CLOSE_BRACKET || b === CLOSE_BRACE) depth--;
+  }
+  return false;
+}
+
 /** Reads the frames of one reply, refusing more than `limit` bytes unread. */
 export function readReply(frames: readonly Buffer[], limit: number): ReadReply {
   const frame = frames[frames.length - 1];
@@ -65,6 +102,9 @@ export function readReply(frames: readonly Buffer[], limit: number): ReadReply {
     return bad("too-large", peekId(frame), `a frame of ${frame.length} bytes is over the limit of ${limit} bytes`);
   }
   if (frames.length !== 1) return bad("frames", peekId(frame), `${frames.length} frames where one was expected`);
+  if (nestsDeeperThan(frame, MAX_REPLY_DEPTH)) {
+    return bad("too-deep", peekId(frame), `the frame nests deeper than ${MAX_REPLY_DEPTH} levels`);
+  }
   let text: string;
   try {
     text = utf8.decode(frame);

@@ -108,9 +108,21 @@ const CASES: Case[] = [
     problem: "too-large",
   },
   {
-    name: "a deep nest that fits the limit",
+    name: "a nest 1500 levels deep that fits the size limit",
     op: "spend",
     frames: (id) => [`{"v":1,"id":"${id}","ok":true,"body":{"op":"spend","spend":${"[".repeat(1500)}${"]".repeat(1500)}}}`],
+    problem: "too-deep",
+  },
+  {
+    name: "a nest just past the depth limit inside the body",
+    op: "spend",
+    frames: (id) => [`{"v":1,"id":"${id}","ok":true,"body":{"op":"spend","spend":${"[".repeat(63)}${"]".repeat(63)}}}`],
+    problem: "too-deep",
+  },
+  {
+    name: "a nest that fits the depth limit",
+    op: "spend",
+    frames: (id) => [`{"v":1,"id":"${id}","ok":true,"body":{"op":"spend","spend":${"[".repeat(62)}${"]".repeat(62)}}}`],
     problem: "shape",
   },
   {
@@ -194,16 +206,24 @@ describe.each<Transport>(["ipc", "tcp"])("client replies over %s", (transport) =
     expect(await next).toEqual(SPEND);
   });
 
-  it("a body nested a million levels deep is refused by the schema without recursing", QUICK, async () => {
+  it("a body nested a million levels deep is refused before it is parsed", QUICK, async () => {
     const roomy = await fake.connect({ timeoutMs: 60_000, maxReplyBytes: 4 * 1024 * 1024 });
     try {
       const p = roomy.spend("clinic");
       const { peer, request } = await fake.next();
       await fake.send(peer, `{"v":1,"id":"${request.id}","ok":true,"body":{"op":"spend","spend":${"[".repeat(1_000_000)}${"]".repeat(1_000_000)}}}`);
-      await expect(p).rejects.toMatchObject({ name: "MalformedReplyError", problem: "shape" });
+      await expect(p).rejects.toMatchObject({ name: "MalformedReplyError", problem: "too-deep" });
     } finally {
       await roomy.close();
     }
+  });
+
+  it("brackets and escaped quotes inside strings do not count toward the depth", QUICK, async () => {
+    const odd = { ...SPEND, analyst: `\\"${"[{".repeat(300)}\\`, dataset: `"\\"${"{".repeat(100)}` };
+    const p = client.spend("clinic");
+    const { peer, request } = await fake.next();
+    await fake.send(peer, ok(request.id, spendBody(odd)));
+    expect(await p).toEqual(odd);
   });
 
   it("a shape problem names the path and the rule, not the value", QUICK, async () => {
