@@ -30,6 +30,9 @@ const LOST = (address: string): string =>
   `the connection to the curator at ${address} dropped while the request was in flight ` +
   "(asking again is safe: a release already paid for comes back as a free replay)";
 
+/** How long after a drop to wait for libzmq's own reconnect (its first retry comes after ~100 ms). */
+const REVIVE_AFTER_MS = 1_000;
+
 /** The most a caller may raise maxReplyBytes to (the socket then holds up to twice this). */
 const HARD_REPLY_CEILING = 1024 * 1024 * 1024;
 
@@ -52,6 +55,8 @@ interface Waiting {
   resolve(body: ResponseBody): void;
   reject(e: Error): void;
   timer: NodeJS.Timeout;
+  /** The request as sent, kept for a resend after a reconnect. */
+  frame: Buffer;
 }
 
 const Z85_KEY = /^[0-9a-zA-Z.\-:+=^!/*?&<>()[\]{}@%$#]{40}$/;
@@ -61,6 +66,8 @@ export class CuratorClient {
   private sendTail: Promise<void> = Promise.resolve();
   private closed = false;
   private droppedCount = 0;
+  /** Set while a dropped connection waits to hear that libzmq will reconnect by itself. */
+  private revive: NodeJS.Timeout | undefined;
 
   private constructor(
     private readonly socket: Dealer,
@@ -70,6 +77,7 @@ export class CuratorClient {
     // gets a new routing id), and libzmq drops the connection itself when a reply frame is over the
     // socket's size limit. Either way those replies will never come: fail the requests now.
     socket.events.on("disconnect", () => this.connectionLost());
+    socket.events.on("connect:retry", () => clearTimeout(this.revive));
     void this.receiveLoop();
   }
 
@@ -121,28 +129,38 @@ export class CuratorClient {
   private connectionLost(): void {
     if (this.closed) return;
     this.failAll(new UnreachableError(LOST(this.opts.address)));
-    // libzmq reconnects by itself after an ordinary drop (a curator restart), but ends the
-    // connection for good after a protocol error such as a frame over maxMessageSize. Connecting
-    // afresh covers both; requests sent from now on are queued until the curator is reached.
+    // libzmq schedules a reconnect after an ordinary drop (a curator restart) and says so with a
+    // "connect:retry" event at once; after a protocol error, such as a frame over maxMessageSize,
+    // it ends the connection for good and says nothing more. So: if no retry is heard soon,
+    // connect afresh. (Doing it after an ordinary drop too would close the live connection
+    // libzmq has made meanwhile, which is a disconnect again; the wait keeps that from looping.)
+    clearTimeout(this.revive);
+    this.revive = setTimeout(() => this.reconnect(), REVIVE_AFTER_MS);
+    this.revive.unref();
+  }
+
+  private reconnect(): void {
+    if (this.closed) return;
     try {
       this.socket.disconnect(this.opts.address);
-    } catch (e: unknown) {
-      process.stderr.write(`hush client: while reconnecting to ${this.opts.address}: ${e instanceof Error ? e.message : String(e)}\n`);
-    }
-    try {
       this.socket.connect(this.opts.address);
     } catch (e: unknown) {
-      // Not expected (the same address connected before); later requests meet their timeouts.
+      // Not expected (the same address was connected before); later requests meet their timeouts.
       process.stderr.write(`hush client: cannot reconnect to ${this.opts.address}: ${e instanceof Error ? e.message : String(e)}\n`);
+      return;
     }
+    // Requests made since the drop went into the dead connection's queue, which disconnect() has
+    // just thrown away: send them again. Were one delivered after all (libzmq had reconnected
+    // unheard), the curator answers it twice; the second reply names no pending request and is
+    // dropped, and a repeated ask is a free replay of the same release.
+    for (const w of this.waiting.values()) this.send(w.id, w.frame);
   }
 
   /** Settles the request a reply names; a reply that names none is logged and dropped. */
   private deliver(frames: Buffer[]): void {
     const read = readReply(frames, this.opts.maxReplyBytes);
     const id = read.ok ? read.reply.id : read.id;
-    const named = id !== null && id !== "" ? this.waiting.get(id) : undefined;
-    let w = named;
+    let w = id !== null && id !== "" ? this.waiting.get(id) : undefined;
     if (w === undefined && (id === null || id === "") && this.waiting.size === 1) {
       // A reply that names no request: the curator answers a request frame it could not read with
       // id "", and a damaged frame may hide its id. With exactly one request in flight it can only
@@ -207,18 +225,23 @@ export class CuratorClient {
         resolve: (b) => resolve(b as Extract<ResponseBody, { op: Op }>),
         reject,
         timer,
+        frame,
       });
-      // One send at a time per socket (a zeromq rule); the queue keeps order.
-      this.sendTail = this.sendTail.then(() =>
-        this.socket.send(frame).catch((e: unknown) => {
-          const w = this.waiting.get(id);
-          if (w === undefined) return;
-          this.waiting.delete(id);
-          clearTimeout(w.timer);
-          w.reject(e instanceof HushError ? e : new UnreachableError(`cannot send to the curator at ${this.opts.address}`, { cause: e }));
-        }),
-      );
+      this.send(id, frame);
     });
+  }
+
+  /** Queues one request frame: one send at a time per socket (a zeromq rule); the queue keeps order. */
+  private send(id: string, frame: Buffer): void {
+    this.sendTail = this.sendTail.then(() =>
+      this.socket.send(frame).catch((e: unknown) => {
+        const w = this.waiting.get(id);
+        if (w === undefined) return;
+        this.waiting.delete(id);
+        clearTimeout(w.timer);
+        w.reject(e instanceof HushError ? e : new UnreachableError(`cannot send to the curator at ${this.opts.address}`, { cause: e }));
+      }),
+    );
   }
 
   async catalogue(): Promise<{ datasets: { name: string; description: string }[]; publicKey: string }> {
@@ -249,6 +272,7 @@ export class CuratorClient {
   async close(): Promise<void> {
     if (this.closed) return;
     this.closed = true;
+    clearTimeout(this.revive);
     this.failAll(new UnreachableError("the curator client was closed"));
     await this.sendTail;
     this.socket.close();

@@ -7,6 +7,7 @@
 import { ProtocolError } from "../errors.js";
 import { PROTOCOL_VERSION, type Response } from "../protocol/messages.js";
 import { describeReplyIssues, responseSchema } from "../protocol/reply-schema.js";
+import { PLAN_LIMITS } from "../protocol/schema.js";
 
 /** What was wrong with a reply, for callers and tests that branch on it. */
 export type ReplyProblem =
@@ -60,12 +61,13 @@ const utf8 = new TextDecoder("utf-8", { fatal: true });
 
 /**
  * Deepest nesting of arrays and objects a reply may have. The deepest real reply is a ledger entry
- * holding a plan whose filter nests PLAN_LIMITS.maxDepth (12) conditions, two JSON levels each,
- * under about eight levels of envelope: under 40. Refused before JSON.parse because V8 parses deep
+ * holding a plan whose filter nests PLAN_LIMITS.maxDepth conditions, at most two JSON levels each
+ * ({ op: "and", of: [...] }), under about eight levels of envelope; 40 leaves room for both
+ * (64 with today's maxDepth of 12). Refused before JSON.parse because V8 parses deep
  * nesting slowly (measured on the shared build machine, Node 20: 2.5-4.4 s for a 2 MB frame a
  * million levels deep, 10-15 s for 8 MB), which would stall the kernel; the scan takes ~1 ms.
  */
-export const MAX_REPLY_DEPTH = 64;
+export const MAX_REPLY_DEPTH = 2 * PLAN_LIMITS.maxDepth + 40;
 
 const QUOTE = 0x22;
 const BACKSLASH = 0x5c;

@@ -32,8 +32,9 @@ export class FakeRouter {
     this.loop = this.receive();
   }
 
-  static async start(transport: Transport): Promise<FakeRouter> {
-    const dir = mkdtempSync(join(tmpdir(), "hc-"));
+  /** `ipcDir` reuses a folder (and so the address) of a router closed before: a curator restart. */
+  static async start(transport: Transport, ipcDir?: string): Promise<FakeRouter> {
+    const dir = ipcDir ?? mkdtempSync(join(tmpdir(), "hc-"));
     const curve = transport === "tcp" ? curveKeyPair() : undefined;
     const router = new Router({
       linger: 0,
@@ -81,10 +82,14 @@ export class FakeRouter {
     });
   }
 
-  async close(): Promise<void> {
+  get folder(): string {
+    return this.dir;
+  }
+
+  async close(keepFolder = false): Promise<void> {
     await this.sendTail.catch(() => undefined);
     this.router.close();
     await this.loop;
-    rmSync(this.dir, { recursive: true, force: true });
+    if (!keepFolder) rmSync(this.dir, { recursive: true, force: true });
   }
 }

@@ -328,4 +328,32 @@ describe.each<Transport>(["ipc", "tcp"])("curator gone over %s", (transport) => 
       await client.close();
     }
   });
+
+  if (transport === "ipc") {
+    it("after a curator restart at the same address, the client is answered again", QUICK, async () => {
+      let fake = await FakeRouter.start("ipc");
+      const client = await fake.connect({ timeoutMs: 60_000 });
+      try {
+        const p = client.spend("clinic");
+        await fake.next();
+        const dir = fake.folder;
+        await fake.close(true);
+        await expect(p).rejects.toBeInstanceOf(UnreachableError);
+        fake = await FakeRouter.start("ipc", dir);
+        const next = client.spend("clinic");
+        const { peer, request } = await fake.next();
+        await fake.send(peer, ok(request.id, spendBody()));
+        expect(await next).toEqual(SPEND);
+        // Exactly one connection: a second request goes out once, on it, and is answered once.
+        const third = client.spend("clinic");
+        const r3 = await fake.next();
+        await fake.send(r3.peer, ok(r3.request.id, spendBody()));
+        expect(await third).toEqual(SPEND);
+        expect(r3.peer.equals(peer)).toBe(true);
+      } finally {
+        await client.close();
+        await fake.close();
+      }
+    });
+  }
 });
