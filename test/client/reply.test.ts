@@ -9,9 +9,9 @@
  */
 import { randomUUID } from "node:crypto";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
-import type { CuratorClient } from "../../runtime/client/client.js";
+import { CuratorClient } from "../../runtime/client/client.js";
 import { MalformedReplyError, type ReplyProblem } from "../../runtime/client/reply-frame.js";
-import { ProtocolError, UnauthorizedError, UnreachableError } from "../../runtime/errors.js";
+import { BadInputError, ProtocolError, UnauthorizedError, UnreachableError } from "../../runtime/errors.js";
 import type { Release, SpendSummary } from "../../runtime/protocol/messages.js";
 import { FakeRouter, type Transport } from "./fake-router.js";
 
@@ -356,4 +356,10 @@ describe.each<Transport>(["ipc", "tcp"])("curator gone over %s", (transport) => 
       }
     });
   }
+});
+
+describe("reply size option", () => {
+  it.each([0, 10, 1023, 1.5, Number.NaN, Number.POSITIVE_INFINITY, 2 ** 40])("maxReplyBytes %s is refused before connecting", async (maxReplyBytes) => {
+    await expect(CuratorClient.connect({ address: "ipc:///nonexistent/c.sock", analyst: "ada", token: "t", maxReplyBytes })).rejects.toBeInstanceOf(BadInputError);
+  });
 });
