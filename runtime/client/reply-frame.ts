@@ -62,10 +62,10 @@ const utf8 = new TextDecoder("utf-8", { fatal: true });
 /**
  * Deepest nesting of arrays and objects a reply may have. The deepest real reply is a ledger entry
  * holding a plan whose filter nests PLAN_LIMITS.maxDepth conditions, at most two JSON levels each
- * ({ op: "and", of: [...] }), under about eight levels of envelope; 40 leaves room for both
- * (64 with today's maxDepth of 12). Refused before JSON.parse because V8 parses deep
- * nesting slowly (measured on the shared build machine, Node 20: 2.5-4.4 s for a 2 MB frame a
- * million levels deep, 10-15 s for 8 MB), which would stall the kernel; the scan takes ~1 ms.
+ * ({ op: "and", of: [...] }); 40 more cover the envelope around it (about eight levels) and the
+ * lists inside a condition, with room to spare: 64 with today's maxDepth of 12. Refused before
+ * JSON.parse because V8 parses deep nesting slowly (measured on the shared build machine, Node 20:
+ * 2.5-4.4 s for a 2 MB frame a million levels deep, 10-15 s for 8 MB), which would stall the kernel.
  */
 export const MAX_REPLY_DEPTH = 2 * PLAN_LIMITS.maxDepth + 40;
 
