@@ -1,11 +1,14 @@
 /**
  * The notebook side's connection to a curator: one zeromq DEALER socket, JSON request frames matched
  * to replies by id, several requests may be in flight. Curator errors come back as the matching
- * HushError subclass; no reply within the timeout is an UnreachableError.
+ * HushError subclass; no reply within the timeout is an UnreachableError. Every reply is checked
+ * against the reply schema first (reply-frame.ts): a malformed one fails the request it names at
+ * once with a MalformedReplyError (a ProtocolError), and one that names no pending request is
+ * logged and dropped without touching the others.
  */
 import { randomUUID } from "node:crypto";
 import { curveKeyPair, Dealer } from "zeromq";
-import { BadInputError, HushError, ProtocolError, UnreachableError } from "../errors.js";
+import { BadInputError, HushError, UnreachableError } from "../errors.js";
 import {
   MAX_FRAME_BYTES,
   PROTOCOL_VERSION,
@@ -16,11 +19,22 @@ import {
   type Release,
   type Request,
   type RequestBody,
-  type Response,
   type ResponseBody,
   type SpendSummary,
 } from "../protocol/messages.js";
+import { MAX_REPLY_BYTES } from "../protocol/reply-schema.js";
 import { errorFromWire } from "./errors.js";
+import { MalformedReplyError, readReply } from "./reply-frame.js";
+
+const LOST = (address: string): string =>
+  `the connection to the curator at ${address} dropped while the request was in flight ` +
+  "(asking again is safe: a release already paid for comes back as a free replay)";
+
+/** How long after a drop to wait for libzmq's own reconnect (its first retry comes after ~100 ms). */
+const REVIVE_AFTER_MS = 1_000;
+
+/** The most a caller may raise maxReplyBytes to (the socket then holds up to twice this). */
+const HARD_REPLY_CEILING = 1024 * 1024 * 1024;
 
 export interface CuratorClientOptions {
   /** "ipc:///path/curator.sock" or "tcp://127.0.0.1:5555". */
@@ -31,12 +45,18 @@ export interface CuratorClientOptions {
   curveServerKey?: string;
   /** How long to wait for each reply; default 60 s. */
   timeoutMs?: number;
+  /** Largest reply frame read; larger ones fail their request unread. Default MAX_REPLY_BYTES (32 MiB). */
+  maxReplyBytes?: number;
 }
 
 interface Waiting {
+  id: string;
+  op: RequestBody["op"];
   resolve(body: ResponseBody): void;
   reject(e: Error): void;
   timer: NodeJS.Timeout;
+  /** The request as sent, kept for a resend after a reconnect. */
+  frame: Buffer;
 }
 
 const Z85_KEY = /^[0-9a-zA-Z.\-:+=^!/*?&<>()[\]{}@%$#]{40}$/;
@@ -45,11 +65,19 @@ export class CuratorClient {
   private readonly waiting = new Map<string, Waiting>();
   private sendTail: Promise<void> = Promise.resolve();
   private closed = false;
+  private droppedCount = 0;
+  /** Set while a dropped connection waits to hear that libzmq will reconnect by itself. */
+  private revive: NodeJS.Timeout | undefined;
 
   private constructor(
     private readonly socket: Dealer,
     private readonly opts: Required<Omit<CuratorClientOptions, "curveServerKey">>,
   ) {
+    // A dropped connection loses the replies to requests the curator had already read (a reconnect
+    // gets a new routing id), and libzmq drops the connection itself when a reply frame is over the
+    // socket's size limit. Either way those replies will never come: fail the requests now.
+    socket.events.on("disconnect", () => this.connectionLost());
+    socket.events.on("connect:retry", () => clearTimeout(this.revive));
     void this.receiveLoop();
   }
 
@@ -66,11 +94,19 @@ export class CuratorClient {
     }
     const timeoutMs = opts.timeoutMs ?? 60_000;
     if (!Number.isFinite(timeoutMs) || timeoutMs <= 0) throw new BadInputError("timeoutMs must be a positive number");
+    const maxReplyBytes = opts.maxReplyBytes ?? MAX_REPLY_BYTES;
+    if (!Number.isSafeInteger(maxReplyBytes) || maxReplyBytes < 1024 || maxReplyBytes > HARD_REPLY_CEILING) {
+      throw new BadInputError(`maxReplyBytes must be a whole number from 1024 to ${HARD_REPLY_CEILING}`);
+    }
     // A fresh client key pair per connection: identity is the analyst token, CURVE gives encryption
     // and pins the server.
     const own = opts.curveServerKey !== undefined ? curveKeyPair() : undefined;
     const socket = new Dealer({
       linger: 0,
+      // A frame past twice the limit makes libzmq drop the connection before the frame is held in
+      // memory (the requests in flight then fail as unreachable); frames between the limit and that
+      // are refused by readReply, which fails the request they name.
+      maxMessageSize: 2 * maxReplyBytes,
       ...(own ? { curveServerKey: opts.curveServerKey, curvePublicKey: own.publicKey, curveSecretKey: own.secretKey } : {}),
     });
     try {
@@ -79,39 +115,86 @@ export class CuratorClient {
       socket.close();
       throw new UnreachableError(`cannot connect to the curator at ${opts.address}`, { cause: e });
     }
-    return new CuratorClient(socket, { address: opts.address, analyst: opts.analyst, token: opts.token, timeoutMs });
+    return new CuratorClient(socket, { address: opts.address, analyst: opts.analyst, token: opts.token, timeoutMs, maxReplyBytes });
   }
 
   private async receiveLoop(): Promise<void> {
     try {
-      for await (const frames of this.socket) {
-        const reply = this.decode(frames[frames.length - 1]);
-        if (reply === null) continue;
-        let id = reply.id;
-        // A reply without an id answers a frame the curator could not read (too large, not JSON):
-        // it belongs to the oldest request still waiting.
-        if (id === "" && !this.waiting.has(id)) id = this.waiting.keys().next().value ?? "";
-        const w = this.waiting.get(id);
-        if (w === undefined) continue;
-        this.waiting.delete(id);
-        clearTimeout(w.timer);
-        if (reply.ok) w.resolve(reply.body);
-        else w.reject(errorFromWire(reply.error));
-      }
+      for await (const frames of this.socket) this.deliver(frames);
     } catch (e: unknown) {
       if (!this.closed) this.failAll(new UnreachableError(`connection to the curator at ${this.opts.address} failed`, { cause: e }));
     }
   }
 
-  private decode(frame: Buffer | undefined): Response | null {
-    if (frame === undefined) return null;
+  private connectionLost(): void {
+    if (this.closed) return;
+    this.failAll(new UnreachableError(LOST(this.opts.address)));
+    // libzmq schedules a reconnect after an ordinary drop (a curator restart) and says so with a
+    // "connect:retry" event at once; after a protocol error, such as a frame over maxMessageSize,
+    // it ends the connection for good and says nothing more. So: if no retry is heard soon,
+    // connect afresh. (Doing it after an ordinary drop too would close the live connection
+    // libzmq has made meanwhile, which is a disconnect again; the wait keeps that from looping.)
+    clearTimeout(this.revive);
+    this.revive = setTimeout(() => this.reconnect(), REVIVE_AFTER_MS);
+    this.revive.unref();
+  }
+
+  private reconnect(): void {
+    if (this.closed) return;
     try {
-      const r = JSON.parse(frame.toString("utf8")) as Response;
-      if (typeof r !== "object" || r === null || typeof r.id !== "string" || typeof r.ok !== "boolean") return null;
-      return r;
-    } catch {
-      return null;
+      this.socket.disconnect(this.opts.address);
+      this.socket.connect(this.opts.address);
+    } catch (e: unknown) {
+      // Not expected (the same address was connected before); later requests meet their timeouts.
+      process.stderr.write(`hush client: cannot reconnect to ${this.opts.address}: ${e instanceof Error ? e.message : String(e)}\n`);
+      return;
     }
+    // Requests made since the drop went into the dead connection's queue, which disconnect() has
+    // just thrown away: send them again. Were one delivered after all (libzmq had reconnected
+    // unheard), the curator answers it twice; the second reply names no pending request and is
+    // dropped, and a repeated ask is a free replay of the same release.
+    for (const w of this.waiting.values()) this.send(w.id, w.frame);
+  }
+
+  /** Settles the request a reply names; a reply that names none is logged and dropped. */
+  private deliver(frames: Buffer[]): void {
+    const read = readReply(frames, this.opts.maxReplyBytes);
+    const id = read.ok ? read.reply.id : read.id;
+    let w = id !== null && id !== "" ? this.waiting.get(id) : undefined;
+    if (w === undefined && (id === null || id === "") && this.waiting.size === 1) {
+      // A reply that names no request: the curator answers a request frame it could not read with
+      // id "", and a damaged frame may hide its id. With exactly one request in flight it can only
+      // be that request's reply (or a stray for one already given up on, which fails the newer one
+      // early; a connection that sends garbage deserves no better). With several in flight we
+      // cannot tell whose it is, so each keeps waiting for its own reply or timeout.
+      w = this.waiting.values().next().value;
+    }
+    if (w === undefined) {
+      const why = read.ok ? (id === "" ? "a reply that names no request" : "a reply for no pending request") : read.error.message;
+      this.dropped(why);
+      return;
+    }
+    this.waiting.delete(w.id);
+    clearTimeout(w.timer);
+    if (!read.ok) w.reject(read.error);
+    else if (!read.reply.ok) w.reject(errorFromWire(read.reply.error));
+    else if (read.reply.id === "") w.reject(new MalformedReplyError("no-id", "malformed reply from the curator: a result that names no request"));
+    else if (read.reply.body.op !== w.op) {
+      w.reject(new MalformedReplyError("wrong-op", `malformed reply from the curator: a ${read.reply.body.op} result for a ${w.op} request`));
+    } else w.resolve(read.reply.body);
+  }
+
+  /** Logs a dropped reply: the first few, then one line per thousand, so a flood cannot fill the log. */
+  private dropped(why: string): void {
+    this.droppedCount++;
+    if (this.droppedCount <= 10 || this.droppedCount % 1000 === 0) {
+      process.stderr.write(`hush client: dropped reply ${this.droppedCount} from ${this.opts.address}: ${why}\n`);
+    }
+  }
+
+  /** Replies that named no pending request and were dropped (for diagnostics and tests). */
+  get droppedReplies(): number {
+    return this.droppedCount;
   }
 
   private failAll(e: Error): void {
@@ -136,24 +219,29 @@ export class CuratorClient {
         reject(new UnreachableError(`no reply from the curator at ${this.opts.address} within ${this.opts.timeoutMs} ms`));
       }, this.opts.timeoutMs);
       this.waiting.set(id, {
-        resolve: (b) => {
-          if (b.op !== body.op) reject(new ProtocolError(`curator answered a ${body.op} request with ${String(b.op)}`));
-          else resolve(b as Extract<ResponseBody, { op: Op }>);
-        },
+        id,
+        op: body.op,
+        // deliver() has checked that the body's op is this request's op.
+        resolve: (b) => resolve(b as Extract<ResponseBody, { op: Op }>),
         reject,
         timer,
+        frame,
       });
-      // One send at a time per socket (a zeromq rule); the queue keeps order.
-      this.sendTail = this.sendTail.then(() =>
-        this.socket.send(frame).catch((e: unknown) => {
-          const w = this.waiting.get(id);
-          if (w === undefined) return;
-          this.waiting.delete(id);
-          clearTimeout(w.timer);
-          w.reject(e instanceof HushError ? e : new UnreachableError(`cannot send to the curator at ${this.opts.address}`, { cause: e }));
-        }),
-      );
+      this.send(id, frame);
     });
+  }
+
+  /** Queues one request frame: one send at a time per socket (a zeromq rule); the queue keeps order. */
+  private send(id: string, frame: Buffer): void {
+    this.sendTail = this.sendTail.then(() =>
+      this.socket.send(frame).catch((e: unknown) => {
+        const w = this.waiting.get(id);
+        if (w === undefined) return;
+        this.waiting.delete(id);
+        clearTimeout(w.timer);
+        w.reject(e instanceof HushError ? e : new UnreachableError(`cannot send to the curator at ${this.opts.address}`, { cause: e }));
+      }),
+    );
   }
 
   async catalogue(): Promise<{ datasets: { name: string; description: string }[]; publicKey: string }> {
@@ -184,6 +272,7 @@ export class CuratorClient {
   async close(): Promise<void> {
     if (this.closed) return;
     this.closed = true;
+    clearTimeout(this.revive);
     this.failAll(new UnreachableError("the curator client was closed"));
     await this.sendTail;
     this.socket.close();
