@@ -6,7 +6,8 @@ import { readFileSync } from "node:fs";
 import { BadInputError } from "../../runtime/errors.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
-import { figuresIn, normalised, plainText } from "./views.js";
+import { figureText, figuresIn, oddCharacters, oddCharactersText } from "./figure-text.js";
+import { htmlText } from "./html-text.js";
 
 export interface NbOutput {
   output_type: string;
@@ -124,14 +125,37 @@ function signedFigures(nb: Notebook): Set<string> {
   return figures;
 }
 
-/** Everything a reader sees of an output without a receipt: its text views and stream text. */
+/** Everything a reader sees of an output without a receipt: its text views and stream text, decoded. */
 function allText(out: NbOutput): string {
-  const parts = [plainText(String(shownText(out)))];
+  const parts = [shownText(out)];
   for (const mime of ["text/html", "text/markdown"]) {
     const v = out.data?.[mime];
-    if (typeof v === "string" || Array.isArray(v)) parts.push(normalised(Array.isArray(v) ? v.map(String).join("") : v));
+    if (typeof v !== "string" && !Array.isArray(v)) continue;
+    const raw = Array.isArray(v) ? v.map(String).join("") : v;
+    // Markup outside release outputs is the analyst's own (it may show anything but signed-looking
+    // figures), so only its text is read here; release outputs are held to the kernel's markup (views.ts).
+    parts.push(mime === "text/html" ? htmlText(raw, null).text : raw);
   }
   return parts.join("\n");
+}
+
+/**
+ * Why a line of an output without a receipt shows something that looks like a figure a receipt
+ * signed but may read otherwise, or null. Only lines with an error bar are read, so an analyst's
+ * own words, emoji or scripts elsewhere are not judged.
+ */
+function unsignedProblem(text: string, signed: Set<string>): string | null {
+  const folded = figureText(text);
+  for (const f of figuresIn(folded)) {
+    if (!signed.has(f.text)) return `it shows "${f.text}", a figure with an error bar that no receipt in this notebook signed`;
+    if (!f.alone) return `it shows the figure "${f.text}" run into the characters beside it, so a reader may see another number`;
+  }
+  for (const line of text.split("\n")) {
+    if (!/±|\[.*,.*\]/.test(line) || figuresIn(figureText(line)).length === 0) continue;
+    const odd = oddCharacters(line);
+    if (odd.length > 0) return `it shows a figure with an error bar beside ${oddCharactersText(odd)}, which the kernel never writes`;
+  }
+  return null;
 }
 
 export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {
@@ -166,10 +190,8 @@ export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects
       }
       // A figure with an error bar that no receipt signed was typed in or computed off the books.
       // Repeating a signed figure (console.log of an answer) is fine.
-      const unsigned = figuresIn(allText(out)).find((f) => !signed.has(f));
-      if (unsigned !== undefined) {
-        suspects.push({ cell: ci, output: oi, executionCount, why: `it shows "${unsigned}", a figure with an error bar that no receipt in this notebook signed` });
-      }
+      const why = unsignedProblem(allText(out), signed);
+      if (why !== null) suspects.push({ cell: ci, output: oi, executionCount, why });
     });
   });
   return { releases, suspects };
