@@ -124,9 +124,9 @@ function oddness(ch: string, before: string, after: string): string | null {
   if (/[\p{Co}\p{Cn}\p{Cs}]/u.test(ch)) return "a private-use or unassigned character (a font can draw it as anything)";
   if (/\p{M}/u.test(ch)) return /\p{L}/u.test(before) ? null : "a combining mark on a character that is not a letter";
   if (ch.charCodeAt(0) < 0x80) return null;
-  if (/\p{Nd}/u.test(ch)) return "a digit of another numeral system";
   const compat = ch.normalize("NFKC");
   if (compat !== ch && FIGURE_CHARS.test(compat)) return `a character drawn as "${compat}" in another form (superscript, fraction, full-width or similar)`;
+  if (/\p{Nd}/u.test(ch)) return "a digit of another numeral system";
   if (DASH_ONE.test(ch) && (/\p{N}/u.test(before) || /[\p{N}.]/u.test(after))) return "a dash or minus sign next to a digit";
   if (/\p{N}/u.test(before) && /\p{N}/u.test(after)) return "a mark between two digits (it can be read as a decimal point or separator)";
   if (/\p{No}/u.test(ch)) return "a number sign of another form";
@@ -150,8 +150,8 @@ export function oddCharacters(text: string): OddCharacter[] {
     const context = chars
       .slice(Math.max(0, i - 8), i + 9)
       .join("")
-      .replace(/[\p{C}\p{M}]/gu, (c) => `<${hex(c)}>`)
-      .replace(/\s+/g, " ");
+      .replace(/[\t\n\r]+/g, " ")
+      .replace(/[\p{C}\p{M}]/gu, (c) => `<${hex(c)}>`);
     odd.push({ codePoint: hex(ch), what: why, context });
   });
   return odd;

@@ -16,6 +16,9 @@ import { formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
   MADE_UP,
+  READING_TAMPERS,
+  printEditedFigure,
+  rewriteFigure,
   addMadeUpRow,
   addUncheckedView,
   addActiveHtml,
@@ -355,6 +358,31 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const r = audit(out);
     expectFinding(r, "shown-value", rel.cell + 1);
     expect(r.findings.every((f) => f.cell === rel.cell + 1)).toBe(true);
+  });
+
+  // A reader must see the signed number: each edit below keeps the signed digits in the text but
+  // makes a person read another number (a minus, a digit in front, an exponent), or hides a digit.
+  for (const t of READING_TAMPERS) {
+    it(`catches a figure a reader sees otherwise than signed: ${t.name}`, () => {
+      const bad = rewriteFigure(get().nb, 1, t);
+      expectFinding(audit(bad), "shown-value", releaseWithSeq(bad, 1).cell);
+    });
+  }
+
+  for (const name of ["U+2212 minus sign before the value", "the value's last digit as a superscript (an exponent)", "1 and a no-break space before the value", "a Thai 1 before the value"]) {
+    it(`catches a printed copy of a signed figure that reads otherwise (no receipt): ${name}`, () => {
+      const t = READING_TAMPERS.find((x) => x.name === name)!;
+      const bad = printEditedFigure(get().nb, 1, t);
+      expectFinding(audit(bad), "no-receipt", releaseWithSeq(bad, 1).cell);
+    });
+  }
+
+  it("catches an HTML output without a receipt showing a signed figure after &minus;", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const row = rel.meta.receipt.result.find((x) => x[3] !== null && x[4] !== null)!;
+    out.cells[rel.cell].outputs!.push({ output_type: "display_data", metadata: {}, data: { "text/plain": "a note", "text/html": `<p>&minus;${formatWithError(row[3], row[4], row[5])}</p>` } });
+    expectFinding(audit(out), "no-receipt", rel.cell);
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {
