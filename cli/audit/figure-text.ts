@@ -133,6 +133,9 @@ function oddness(ch: string, before: string, after: string): string | null {
   return null;
 }
 
+/** Enough to say what was found; a view full of them is not described character by character. */
+const MOST_ODD = 100;
+
 /**
  * The characters in `text` (decoded, not folded) that can make a person read a figure the folded
  * text does not hold. The kernel writes none of them around a figure; group keys are the data's
@@ -143,6 +146,7 @@ export function oddCharacters(text: string): OddCharacter[] {
   const odd: OddCharacter[] = [];
   let base = "";
   chars.forEach((ch, i) => {
+    if (odd.length >= MOST_ODD) return;
     const isMark = /\p{M}/u.test(ch);
     const why = oddness(ch, isMark ? base : (chars[i - 1] ?? ""), chars[i + 1] ?? "");
     if (!isMark) base = ch;
@@ -160,6 +164,6 @@ export function oddCharacters(text: string): OddCharacter[] {
 /** One sentence for a list of odd characters: what was found and where, the first few of them. */
 export function oddCharactersText(odd: OddCharacter[]): string {
   const shown = odd.slice(0, 3).map((o) => `${o.codePoint}, ${o.what}, in "${o.context.trim()}"`);
-  const more = odd.length > 3 ? `; and ${odd.length - 3} more` : "";
+  const more = odd.length > 3 ? `; and ${odd.length >= MOST_ODD ? "many" : odd.length - 3} more` : "";
   return `${shown.join("; ")}${more}`;
 }

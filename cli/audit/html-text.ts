@@ -10,7 +10,7 @@
  * while the audit reads it, or draw text the audit does not read, so each is reported; the text is
  * still read, so a figure under it is compared too.
  */
-import { type DefaultTreeAdapterTypes as T, parseFragment } from "parse5";
+import { type DefaultTreeAdapterTypes as T, parse, parseFragment } from "parse5";
 
 export interface HtmlText {
   /** What a person reads: block ends and <br> as line breaks, table cells separated by tabs. */
@@ -51,22 +51,44 @@ function isElement(n: T.Node): n is T.Element {
   return "tagName" in n;
 }
 
-/** Does the element hold text a person can see (not only white space)? */
-function holdsText(el: T.Element): boolean {
-  const stack: T.Node[] = [...el.childNodes];
+/**
+ * Which elements hold text a person can see (not only white space), in one pass from the leaves
+ * up, so a deeply nested view costs linear time.
+ */
+function textHolders(root: T.ParentNode): Set<T.Element> {
+  const order: T.Element[] = [];
+  const stack: T.Node[] = [...root.childNodes];
   while (stack.length > 0) {
     const n = stack.pop()!;
-    if (n.nodeName === "#text" && /\S/.test((n as T.TextNode).value)) return true;
-    if (isElement(n)) stack.push(...n.childNodes);
+    if (!isElement(n)) continue;
+    order.push(n);
+    stack.push(...n.childNodes);
+    if (n.nodeName === "template") stack.push(...(n as T.Template).content.childNodes);
   }
-  return false;
+  const holders = new Set<T.Element>();
+  for (let i = order.length - 1; i >= 0; i--) {
+    const el = order[i];
+    const kids = el.nodeName === "template" ? [...el.childNodes, ...(el as T.Template).content.childNodes] : el.childNodes;
+    if (kids.some((k) => (k.nodeName === "#text" && /\S/.test((k as T.TextNode).value)) || (isElement(k) && holders.has(k)))) holders.add(el);
+  }
+  return holders;
 }
 
-const LENGTH = /^(?:0|\d+(?:\.\d+)?(?:px|em|rem|%|pt))$/;
+const LENGTH = /^(?:0|(\d+(?:\.\d+)?)(px|em|rem|%|pt))$/;
+// Spacing large enough to push text out of the output area; the kernel's largest is 10px.
+const MOST: Record<string, number> = { px: 40, pt: 30, em: 3, rem: 3, "%": 10 };
 
-function lengths(v: string): boolean {
-  return v.split(/\s+/).every((x) => LENGTH.test(x));
+/** Non-negative lengths (negative ones can lay text over text), none of them larger than MOST. */
+function lengths(v: string, capped = false): boolean {
+  return v.split(/\s+/).every((x) => {
+    const m = LENGTH.exec(x);
+    return m !== null && (!capped || m[1] === undefined || Number(m[1]) <= MOST[m[2]]);
+  });
 }
+
+// Generic families and the kernel's own (kernel/display/html.ts box()): a named symbol font
+// ("Wingdings") draws digits as pictures.
+const FONTS = new Set(["system-ui", "-apple-system", "segoe ui", "sans-serif", "serif", "monospace", "ui-monospace", "ui-sans-serif", "arial", "helvetica"]);
 
 function px(v: string): number | null {
   const m = /^(\d+(?:\.\d+)?)px$/.exec(v);
@@ -94,7 +116,7 @@ function styleProblem(prop: string, value: string, el: T.Element, text: boolean)
   const ok = ((): boolean => {
     switch (prop) {
       case "font-family":
-        return /^[\w\s,'"-]+$/.test(v);
+        return v.split(",").every((f) => FONTS.has(f.trim().replace(/^['"]|['"]$/g, "")));
       case "font-size": {
         // Text smaller than this cannot be read; the kernel writes 11px to 18px.
         const n = px(v);
@@ -141,7 +163,7 @@ function styleProblem(prop: string, value: string, el: T.Element, text: boolean)
         // A background behind text can match the text's colour; the kernel colours only empty bars.
         return v === "transparent" || (!text && /^(#[0-9a-f]{3,6}|transparent)$/.test(v));
     }
-    if (/^(margin|padding)(-(top|right|bottom|left))?$/.test(prop)) return lengths(v);
+    if (/^(margin|padding)(-(top|right|bottom|left))?$/.test(prop)) return lengths(v, true);
     if (/^border(-(top|right|bottom|left))?(-(width|style|color))?$/.test(prop)) {
       return /^(none|0|(\d+(\.\d+)?px\s+)?(solid|dashed|dotted)(\s+(#[0-9a-f]{3,6}|currentcolor))?)$/.test(v);
     }
@@ -177,11 +199,10 @@ function declarations(style: string): [string, string][] {
  * The element's layout and what in its markup the audit cannot judge. `chart` is the data: URI of
  * the output's own chart image, the only image the kernel shows.
  */
-function judge(el: T.Element, chart: string | null, problems: string[]): Layout {
+function judge(el: T.Element, chart: string | null, text: boolean, problems: string[]): Layout {
   const tag = el.tagName.toLowerCase();
   let layout: Layout = TAGS[tag] ?? "inline";
   if (el.namespaceURI !== HTML_NS || TAGS[tag] === undefined) problems.push(`<${tag}>`);
-  const text = holdsText(el);
   for (const { name, value } of el.attrs) {
     if (name === "style") {
       // CSS escapes, comments and functions (url(), var(), attr()) can spell anything.
@@ -216,6 +237,14 @@ function judge(el: T.Element, chart: string | null, problems: string[]): Layout 
   return layout;
 }
 
+/** A <div> in a document in no-quirks mode, the context a frontend parses an output's HTML in. */
+function outputElement(): T.Element {
+  const doc = parse("<!DOCTYPE html><html><head></head><body><div></div></body></html>");
+  const html = doc.childNodes.find(isElement)!;
+  const body = html.childNodes.filter(isElement).find((e) => e.tagName === "body")!;
+  return body.childNodes.find(isElement)!;
+}
+
 /** Reads a text/html view. Iterative, so deeply nested markup cannot exhaust the stack. */
 export function htmlText(raw: string, chart: string | null): HtmlText {
   const problems: string[] = [];
@@ -227,7 +256,11 @@ export function htmlText(raw: string, chart: string | null): HtmlText {
     last = s[s.length - 1];
   };
   type Item = { node: T.Node; pre: boolean } | { close: string };
-  const stack: Item[] = [{ node: parseFragment(raw), pre: false }];
+  // Parsed in the context of a <div>, as innerHTML of an output element is: a stray <td> outside a
+  // table is then dropped and its text runs on, as a browser draws it.
+  const root = parseFragment(outputElement(), raw, {});
+  const holders = textHolders(root);
+  const stack: Item[] = [{ node: root, pre: false }];
   while (stack.length > 0) {
     const item = stack.pop()!;
     if ("close" in item) {
@@ -248,7 +281,7 @@ export function htmlText(raw: string, chart: string | null): HtmlText {
     let layout: Layout = "inline";
     let keep = pre;
     if (isElement(node)) {
-      layout = judge(node, chart, problems);
+      layout = judge(node, chart, holders.has(node), problems);
       const ws = node.attrs.find((a) => a.name === "style")?.value ?? "";
       keep = pre || node.tagName === "pre" || /white-space\s*:\s*pre/i.test(ws);
       // A <template>'s content is never drawn; it is reported above and read here all the same.

@@ -314,6 +314,8 @@ export const READING_TAMPERS: ReadingTamper[] = [
     where: "html",
     edit: (f) => `<table><tr><td style="padding:0">1</td><td style="padding:0">${f}</td></tr></table>`,
   },
+  { name: "a stray <td> holding 1 before the figure in text/html (dropped outside a table, its 1 runs on)", where: "html", edit: (f) => `<td>1</td>${f}` },
+  { name: "an inline-block <div> holding 1 before the figure in text/html", where: "html", edit: (f) => `<div style="display:inline-block">1</div>${f}` },
   { name: "the value reversed by <bdo dir=rtl> in text/html", where: "html", edit: (f) => `<bdo dir="rtl">${split(f)[0]}</bdo> ${split(f)[1]}` },
   {
     name: "the value reversed by a bidi-override style in text/html",
