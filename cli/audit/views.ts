@@ -85,16 +85,21 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
  * digits) must be the signed cost in the signed unit. The running total beside it is the
  * analyst's total when the cell ran (a replay shows today's), so only the audit's own total counts.
  */
-function costProblem(text: string, r: Receipt): string | null {
+function costProblem(text: string, r: Receipt, replay: boolean): string | null {
   let want: string;
   try {
     want = `cost ${r.unit === "rho" ? "ρ" : "ε"}=${formatDecimal(r.cost, 6)}`;
   } catch {
     return null; // a cost that is not a number is reported by the chain checks
   }
-  for (const m of text.matchAll(/cost (ε|ρ)\s*=\s*([^\s·,;)]*)/g)) {
+  // Each statement in the kernel's form, with any letter for the unit ("cost є=0.01" with a
+  // Cyrillic letter reads as ε), must be the signed one.
+  for (const m of text.matchAll(/cost (\p{L})\s*=\s*([^\s·,;)]*)/gu)) {
     if (m[0] !== want) return `states "${m[0]}", but receipt seq ${r.seq} signed "${want}"`;
   }
+  // The kernel states the cost of every new release in each view (runtime/api/text.ts costText),
+  // so a view without the signed statement has had it removed or spelled otherwise ("cost: 0.01").
+  if (!replay && !text.includes(want)) return `does not state the cost "${want}" that receipt seq ${r.seq} signed`;
   return null;
 }
 
@@ -202,7 +207,7 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     if (problem !== null) {
       findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${problem} (receipt seq ${r.seq}); what it shows differs from what the curator signed` });
     }
-    const cost = costProblem(text, r);
+    const cost = costProblem(text, r, rel.meta.replay);
     if (cost !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${cost}; the stated cost differs from the signed one` });
   }
   for (const [mime, v] of Object.entries(data)) {

@@ -17,6 +17,8 @@ import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
   MADE_UP,
   READING_TAMPERS,
+  respellStatedCost,
+  tenth,
   printEditedFigure,
   rewriteFigure,
   addMadeUpRow,
@@ -374,6 +376,21 @@ export function auditCorpus(get: () => CorpusFixture): void {
       const t = READING_TAMPERS.find((x) => x.name === name)!;
       const bad = printEditedFigure(get().nb, 1, t);
       expectFinding(audit(bad), "no-receipt", releaseWithSeq(bad, 1).cell);
+    });
+  }
+
+  const costSpellings: [string, (u: string, a: string) => string][] = [
+    ["a Cyrillic є for ε and a tenth of the cost", (_u, a) => `cost \u0454=${tenth(a)}`],
+    ["a colon and no symbol", (_u, a) => `cost: ${tenth(a)}`],
+    ["the cost left out", () => "no new cost"],
+    ["spaces around the equals sign and a capital C", (u, a) => `Cost ${u} = ${tenth(a)}`],
+  ];
+  for (const [name, f] of costSpellings) {
+    it(`catches a stated cost spelled so the old reader missed it: ${name}`, () => {
+      const bad = respellStatedCost(get().nb, 2, f);
+      const r = audit(bad);
+      expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
+      expect(r.findings.some((x) => x.kind === "shown-value" && /cost/.test(x.message))).toBe(true);
     });
   }
 

@@ -97,7 +97,7 @@ describe("notebook audit on a signed, assembled notebook", () => {
     for (const c of nb.cells) {
       for (const o of c.outputs ?? []) {
         if (o.data === undefined) continue;
-        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table>`;
+        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table><div>cost &epsilon;=0.1 · total 0.1 / 1</div>`;
       }
     }
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);

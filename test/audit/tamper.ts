@@ -378,3 +378,15 @@ export function printEditedFigure(nb: Notebook, seq: number, t: ReadingTamper): 
   out.cells[rel.cell].outputs!.push({ output_type: "stream", name: "stdout", text: [`${t.edit(firstFigure(rel))}\n`] });
   return out;
 }
+
+/** Rewrites the cost release `seq` states in every text view ("cost ε=0.1" becomes `f("ε", "0.1")`), leaving the receipt alone. */
+export function respellStatedCost(nb: Notebook, seq: number, f: (unit: string, amount: string) => string): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  if (!/cost (ε|ρ)=/.test(textOf(rel.output))) throw new Error(`release seq ${seq} states no cost`);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(/cost (ε|ρ)=([^\s·,;)<]*)/, (_m, u: string, a: string) => f(u, a)));
+  return out;
+}
+
+/** A tenth of a stated amount, as a person would edit it ("0.1" to "0.01", "0.333333" to "0.0333333"). */
+export const tenth = (a: string): string => Rational.parse(a).div(Rational.of(10)).toDecimal(12);
