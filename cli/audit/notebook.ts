@@ -125,28 +125,42 @@ function signedFigures(nb: Notebook): Set<string> {
   return figures;
 }
 
-/** Everything a reader sees of an output without a receipt: its text views and stream text, decoded. */
-function allText(out: NbOutput): string {
+/**
+ * Everything a reader sees of an output without a receipt: its text views and stream text,
+ * decoded, and the markup of its HTML the audit cannot judge (html-text.ts).
+ */
+function allText(out: NbOutput): { text: string; markup: string[] } {
   const parts = [shownText(out)];
+  const markup: string[] = [];
   for (const mime of ["text/html", "text/markdown"]) {
     const v = out.data?.[mime];
     if (typeof v !== "string" && !Array.isArray(v)) continue;
     const raw = Array.isArray(v) ? v.map(String).join("") : v;
-    // Markup outside release outputs is the analyst's own (it may show anything but signed-looking
-    // figures), so only its text is read here; release outputs are held to the kernel's markup (views.ts).
-    parts.push(mime === "text/html" ? htmlText(raw, null).text : raw);
+    if (mime === "text/html") {
+      const html = htmlText(raw, null);
+      parts.push(html.text);
+      markup.push(...html.problems);
+    } else {
+      parts.push(raw);
+    }
   }
-  return parts.join("\n");
+  return { text: parts.join("\n"), markup };
 }
 
 /**
- * Why a line of an output without a receipt shows something that looks like a figure a receipt
- * signed but may read otherwise, or null. Only lines with an error bar are read, so an analyst's
- * own words, emoji or scripts elsewhere are not judged.
+ * Why an output without a receipt shows a figure no receipt signed, or one that may read
+ * otherwise than signed, or null. Only outputs and lines with an error bar are judged, so an
+ * analyst's own words, emoji or markup elsewhere are not.
  */
-function unsignedProblem(text: string, signed: Set<string>): string | null {
+function unsignedProblem({ text, markup }: { text: string; markup: string[] }, signed: Set<string>): string | null {
   const folded = figureText(text);
-  for (const f of figuresIn(folded)) {
+  const figures = figuresIn(folded);
+  // The analyst's own markup is fine, but not around a figure with an error bar: <bdo>, <sup> or
+  // a hidden span can make a signed-looking figure read as another number.
+  if (figures.length > 0 && markup.length > 0) {
+    return `it shows a figure with an error bar ("${figures[0].text}") in HTML that uses ${markup.slice(0, 3).join(", ")}, which can draw it otherwise than the audit reads it`;
+  }
+  for (const f of figures) {
     if (!signed.has(f.text)) return `it shows "${f.text}", a figure with an error bar that no receipt in this notebook signed`;
     if (!f.alone) return `it shows the figure "${f.text}" run into the characters beside it, so a reader may see another number`;
   }

@@ -379,6 +379,15 @@ export function auditCorpus(get: () => CorpusFixture): void {
     });
   }
 
+  it("catches an HTML output without a receipt that reverses a signed figure's digits with <bdo>", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const row = rel.meta.receipt.result.find((x) => x[3] !== null && x[4] !== null)!;
+    const [v, ...rest] = formatWithError(row[3], row[4], row[5]).split(" ");
+    out.cells[rel.cell].outputs!.push({ output_type: "display_data", metadata: {}, data: { "text/plain": "a note", "text/html": `<p><bdo dir="rtl">${v}</bdo> ${rest.join(" ")}</p>` } });
+    expectFinding(audit(out), "no-receipt", rel.cell);
+  });
+
   const costSpellings: [string, (u: string, a: string) => string][] = [
     ["a Cyrillic є for ε and a tenth of the cost", (_u, a) => `cost \u0454=${tenth(a)}`],
     ["a colon and no symbol", (_u, a) => `cost: ${tenth(a)}`],
