@@ -151,14 +151,24 @@ export function oddCharacters(text: string): OddCharacter[] {
     const why = oddness(ch, isMark ? base : (chars[i - 1] ?? ""), chars[i + 1] ?? "");
     if (!isMark) base = ch;
     if (why === null) return;
-    const context = chars
-      .slice(Math.max(0, i - 8), i + 9)
-      .join("")
-      .replace(/[\t\n\r]+/g, " ")
-      .replace(/[\p{C}\p{M}]/gu, (c) => `<${hex(c)}>`);
+    const context = quoted(chars.slice(Math.max(0, i - 8), i + 9).join(""));
     odd.push({ codePoint: hex(ch), what: why, context });
   });
   return odd;
+}
+
+/**
+ * Notebook text made safe to quote in a finding: every control, format, private-use or combining
+ * character written as <U+XXXX> (a terminal escape in a quoted snippet would act on the reviewer's
+ * terminal), cut to `most` characters.
+ */
+export function quoted(s: string, most = 60): string {
+  const chars = [...s];
+  const cut = chars.length > most ? [...chars.slice(0, most), "…"] : chars;
+  return cut
+    .join("")
+    .replace(/[\t\n\r]+/g, " ")
+    .replace(/[\p{C}\p{M}]/gu, (c) => `<${hex(c)}>`);
 }
 
 /** One sentence for a list of odd characters: what was found and where, the first few of them. */

@@ -11,6 +11,7 @@
  * still read, so a figure under it is compared too.
  */
 import { type DefaultTreeAdapterTypes as T, parse, parseFragment } from "parse5";
+import { quoted } from "./figure-text.js";
 
 export interface HtmlText {
   /** What a person reads: block ends and <br> as line breaks, table cells separated by tabs. */
@@ -298,5 +299,6 @@ export function htmlText(raw: string, chart: string | null): HtmlText {
     .replace(/ *\t[ \t]*/g, "\t")
     .replace(/[ \t]*\n[ \t\n]*/g, "\n")
     .replace(/^\s+|\s+$/g, "");
-  return { text, problems: [...new Set(problems)] };
+  // Names and values come from the notebook: quoted, so they cannot act on a reviewer's terminal.
+  return { text, problems: [...new Set(problems)].map((p) => quoted(p, 120)) };
 }

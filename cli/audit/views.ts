@@ -7,7 +7,7 @@
  */
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText } from "./figure-text.js";
+import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted } from "./figure-text.js";
 import type { Finding } from "./finding.js";
 import { htmlText } from "./html-text.js";
 import type { FoundRelease } from "./notebook.js";
@@ -17,7 +17,7 @@ type Row = Receipt["result"][number];
 export function rowLabel(row: Row): string {
   const [key, stat, column] = row;
   const what = column === null ? stat : `${stat} of ${column}`;
-  return key.length === 0 ? what : `${what} for ${key.map((k) => (k === null ? "(missing)" : k)).join(" / ")}`;
+  return quoted(key.length === 0 ? what : `${what} for ${key.map((k) => (k === null ? "(missing)" : k)).join(" / ")}`, 120);
 }
 
 type Where = (rel: FoundRelease) => string;
@@ -39,7 +39,7 @@ function signedFigures(rel: FoundRelease, r: Receipt, findings: Finding[], at: W
 
 /** The text around position `at` of `text`, on one line, for a finding. */
 function around(text: string, at: number, length: number): string {
-  return text.slice(Math.max(0, at - 8), at + length + 8).replace(/\s+/g, " ").trim();
+  return quoted(text.slice(Math.max(0, at - 8), at + length + 8).trim());
 }
 
 /** Checks one human-readable view (folded text, figure-text.ts); returns the first problem, or null. */
@@ -70,7 +70,7 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
       if (k === null) continue; // the kernel leaves a missing key out of the label
       const shownKey = figureText(k).trim();
       const at = text.indexOf(shownKey, cursor);
-      if (at < 0) return `does not show the group "${k}" of the signed ${rowLabel(row)} "${figure}" in the signed order`;
+      if (at < 0) return `does not show the group "${quoted(k)}" of the signed ${rowLabel(row)} "${figure}" in the signed order`;
       cursor = at + shownKey.length;
     }
     const at = figureAt(text, figure, cursor);
@@ -95,7 +95,7 @@ function costProblem(text: string, r: Receipt, replay: boolean): string | null {
   // Each statement in the kernel's form, with any letter for the unit ("cost є=0.01" with a
   // Cyrillic letter reads as ε), must be the signed one.
   for (const m of text.matchAll(/cost (\p{L})\s*=\s*([^\s·,;)]*)/gu)) {
-    if (m[0] !== want) return `states "${m[0]}", but receipt seq ${r.seq} signed "${want}"`;
+    if (m[0] !== want) return `states "${quoted(m[0])}", but receipt seq ${r.seq} signed "${want}"`;
   }
   // The kernel states the cost of every new release in each view (runtime/api/text.ts costText),
   // so a view without the signed statement has had it removed or spelled otherwise ("cost: 0.01").

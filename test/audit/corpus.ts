@@ -388,6 +388,17 @@ export function auditCorpus(get: () => CorpusFixture): void {
     expectFinding(audit(out), "no-receipt", rel.cell);
   });
 
+  it("quotes notebook text in findings without control characters (an escape cannot act on the reviewer's terminal)", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const plain = String(Array.isArray(rel.output.data!["text/plain"]) ? (rel.output.data!["text/plain"] as string[]).join("") : rel.output.data!["text/plain"]);
+    rel.output.data!["text/plain"] = plain.replace(/cost (ε|ρ)=/, "cost $1=\u001b[2J") + "\n1\u001b[8m9 ± 1";
+    rel.output.data!["text/html"] = `<span class="\u001b[2J" style="color:\u001b]0;x\u0007">${plain}</span>`;
+    const r = audit(out);
+    expect(r.findings.length).toBeGreaterThan(0);
+    for (const f of r.findings) expect(f.message, f.message).not.toMatch(/[\u0000-\u0008\u000b-\u001f\u007f]/);
+  });
+
   const costSpellings: [string, (u: string, a: string) => string][] = [
     ["a Cyrillic є for ε and a tenth of the cost", (_u, a) => `cost \u0454=${tenth(a)}`],
     ["a colon and no symbol", (_u, a) => `cost: ${tenth(a)}`],
