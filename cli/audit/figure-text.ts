@@ -157,6 +157,25 @@ export function oddCharacters(text: string): OddCharacter[] {
   return odd;
 }
 
+// Letters of the right-to-left scripts. JavaScript has no Bidi_Class property, so the scripts
+// whose letters are bidi class R or AL (UAX #9, Table 4) are named instead.
+const RTL = /[\p{Script=Arabic}\p{Script=Hebrew}\p{Script=Syriac}\p{Script=Thaana}\p{Script=Nko}\p{Script=Samaritan}\p{Script=Mandaic}\p{Script=Adlam}\p{Script=Hanifi_Rohingya}\p{Script=Yezidi}]/u;
+
+/**
+ * Paragraphs (split at `breaks`) that hold a figure and a right-to-left letter. The Unicode
+ * bidirectional algorithm (UAX #9, rules W2, N1, I1, L2) draws "א 10 ± 5" in a left-to-right line
+ * as "5 ± 10 א": the value and the error bar change places, while the text still reads "10 ± 5".
+ */
+export function rightToLeftBesideFigure(text: string, breaks: RegExp): OddCharacter[] {
+  const odd: OddCharacter[] = [];
+  for (const para of text.split(breaks)) {
+    const letter = RTL.exec(para);
+    if (letter === null || figuresIn(figureText(para)).length === 0) continue;
+    odd.push({ codePoint: hex(letter[0]), what: "a right-to-left letter beside a figure (the figure can be drawn in another order)", context: quoted(para, 40) });
+  }
+  return odd;
+}
+
 /**
  * Notebook text made safe to quote in a finding: every control, format, private-use or combining
  * character written as <U+XXXX> (a terminal escape in a quoted snippet would act on the reviewer's

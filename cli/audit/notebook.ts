@@ -6,7 +6,7 @@ import { readFileSync } from "node:fs";
 import { BadInputError } from "../../runtime/errors.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
-import { figureText, figuresIn, oddCharacters, oddCharactersText } from "./figure-text.js";
+import { figureText, figuresIn, oddCharacters, oddCharactersText, rightToLeftBesideFigure } from "./figure-text.js";
 import { htmlText } from "./html-text.js";
 
 export interface NbOutput {
@@ -166,7 +166,7 @@ function unsignedProblem({ text, markup }: { text: string; markup: string[] }, s
   }
   for (const line of text.split("\n")) {
     if (!/±|\[.*,.*\]/.test(line) || figuresIn(figureText(line)).length === 0) continue;
-    const odd = oddCharacters(line);
+    const odd = [...oddCharacters(line), ...rightToLeftBesideFigure(line, /\t/)];
     if (odd.length > 0) return `it shows a figure with an error bar beside ${oddCharactersText(odd)}, which the kernel never writes`;
   }
   return null;

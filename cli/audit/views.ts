@@ -7,7 +7,7 @@
  */
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted } from "./figure-text.js";
+import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
 import type { Finding } from "./finding.js";
 import { htmlText } from "./html-text.js";
 import type { FoundRelease } from "./notebook.js";
@@ -189,7 +189,9 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
       // another text than the audit reads, and the kernel writes no markdown view at all.
       findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/markdown holds HTML markup or character references, which the kernel does not write and the audit does not read as drawn (receipt seq ${r.seq})` });
     }
-    const odd = oddCharacters(withoutKeys(decoded, r));
+    // A table cell is a paragraph of its own in HTML; in text a line is.
+    const readable = withoutKeys(decoded, r);
+    const odd = [...oddCharacters(readable), ...rightToLeftBesideFigure(readable, mime === "text/html" ? /[\n\t]/ : /\n/)];
     if (odd.length > 0) {
       findings.push({
         cell: rel.cell,
