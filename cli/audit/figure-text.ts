@@ -118,7 +118,9 @@ const FIGURE_CHARS = /[0-9+\-.,±[\]]/;
 
 /** Why a character can change how a figure reads, or null when it cannot. */
 function oddness(ch: string, before: string, after: string): string | null {
-  if (/[\t\n\r]/.test(ch)) return null;
+  // A frontend draws what follows a lone carriage return over the start of its line ("5 ± 1\r9" shows "9 ± 1").
+  if (ch === "\r") return after === "\n" ? null : "a carriage return (what follows it is drawn over the start of the line)";
+  if (ch === "\t" || ch === "\n") return null;
   if (/\p{Cc}/u.test(ch)) return "a control character (terminal escapes can hide or recolour text)";
   if (/\p{Cf}/u.test(ch)) return "an invisible format character (zero-width, soft hyphen or direction control)";
   if (/[\p{Co}\p{Cn}\p{Cs}]/u.test(ch)) return "a private-use or unassigned character (a font can draw it as anything)";

@@ -350,6 +350,7 @@ export const READING_TAMPERS: ReadingTamper[] = [
   { name: "1 and a thin space before the value", where: "text", edit: (f) => `1\u2009${f}` },
   { name: "1 and a variation selector before the value", where: "text", edit: (f) => `1\ufe0f${f}` },
   { name: "1 under a combining low line before the value", where: "text", edit: (f) => `1\u0332${f}` },
+  { name: "a carriage return and 9 after the figure (9 drawn over its first digit)", where: "text", edit: (f) => `${f}\r9` },
   { name: "a Hebrew letter before the figure (drawn right to left, value and error bar change places)", where: "text", edit: (f) => `\u05d0 ${f}` },
   { name: "a private-use character before the value (an icon font can draw it as a digit)", where: "text", edit: (f) => `\ue000${f}` },
 ];
