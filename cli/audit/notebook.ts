@@ -6,7 +6,8 @@ import { readFileSync } from "node:fs";
 import { BadInputError } from "../../runtime/errors.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata, type Receipt } from "../../runtime/protocol/messages.js";
-import { figuresIn, normalised, plainText } from "./views.js";
+import { figureText, figuresIn, oddCharacters, oddCharactersText, rightToLeftBesideFigure } from "./figure-text.js";
+import { htmlText } from "./html-text.js";
 
 export interface NbOutput {
   output_type: string;
@@ -124,14 +125,51 @@ function signedFigures(nb: Notebook): Set<string> {
   return figures;
 }
 
-/** Everything a reader sees of an output without a receipt: its text views and stream text. */
-function allText(out: NbOutput): string {
-  const parts = [plainText(String(shownText(out)))];
+/**
+ * Everything a reader sees of an output without a receipt: its text views and stream text,
+ * decoded, and the markup of its HTML the audit cannot judge (html-text.ts).
+ */
+function allText(out: NbOutput): { text: string; markup: string[] } {
+  const parts = [shownText(out)];
+  const markup: string[] = [];
   for (const mime of ["text/html", "text/markdown"]) {
     const v = out.data?.[mime];
-    if (typeof v === "string" || Array.isArray(v)) parts.push(normalised(Array.isArray(v) ? v.map(String).join("") : v));
+    if (typeof v !== "string" && !Array.isArray(v)) continue;
+    const raw = Array.isArray(v) ? v.map(String).join("") : v;
+    if (mime === "text/html") {
+      const html = htmlText(raw, null);
+      parts.push(html.text);
+      markup.push(...html.problems);
+    } else {
+      parts.push(raw);
+    }
   }
-  return parts.join("\n");
+  return { text: parts.join("\n"), markup };
+}
+
+/**
+ * Why an output without a receipt shows a figure no receipt signed, or one that may read
+ * otherwise than signed, or null. Only outputs and lines with an error bar are judged, so an
+ * analyst's own words, emoji or markup elsewhere are not.
+ */
+function unsignedProblem({ text, markup }: { text: string; markup: string[] }, signed: Set<string>): string | null {
+  const folded = figureText(text);
+  const figures = figuresIn(folded);
+  // The analyst's own markup is fine, but not around a figure with an error bar: <bdo>, <sup> or
+  // a hidden span can make a signed-looking figure read as another number.
+  if (figures.length > 0 && markup.length > 0) {
+    return `it shows a figure with an error bar ("${figures[0].text}") in HTML that uses ${markup.slice(0, 3).join(", ")}, which can draw it otherwise than the audit reads it`;
+  }
+  for (const f of figures) {
+    if (!signed.has(f.text)) return `it shows "${f.text}", a figure with an error bar that no receipt in this notebook signed`;
+    if (!f.alone) return `it shows the figure "${f.text}" run into the characters beside it, so a reader may see another number`;
+  }
+  for (const line of text.split("\n")) {
+    if (!/±|\[.*,.*\]/.test(line) || figuresIn(figureText(line)).length === 0) continue;
+    const odd = [...oddCharacters(line), ...rightToLeftBesideFigure(line, /\t/)];
+    if (odd.length > 0) return `it shows a figure with an error bar beside ${oddCharactersText(odd)}, which the kernel never writes`;
+  }
+  return null;
 }
 
 export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects: Suspect[] } {
@@ -166,10 +204,8 @@ export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects
       }
       // A figure with an error bar that no receipt signed was typed in or computed off the books.
       // Repeating a signed figure (console.log of an answer) is fine.
-      const unsigned = figuresIn(allText(out)).find((f) => !signed.has(f));
-      if (unsigned !== undefined) {
-        suspects.push({ cell: ci, output: oi, executionCount, why: `it shows "${unsigned}", a figure with an error bar that no receipt in this notebook signed` });
-      }
+      const why = unsignedProblem(allText(out), signed);
+      if (why !== null) suspects.push({ cell: ci, output: oi, executionCount, why });
     });
   });
   return { releases, suspects };

@@ -7,67 +7,17 @@
  */
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import type { Finding } from "./checks.js";
+import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
+import type { Finding } from "./finding.js";
+import { htmlText } from "./html-text.js";
 import type { FoundRelease } from "./notebook.js";
 
 type Row = Receipt["result"][number];
 
-// A number as runtime/protocol/format.ts writes it ("12", "-0.5", "1.25e-9"), and a figure with
-// an error bar in either of its two forms: "v ± w" or "v [lo, hi]".
-const NUM = String.raw`-?\d+(?:\.\d+)?(?:e[+-]?\d+)?`;
-const BAR = String.raw`${NUM} (?:± ${NUM}|\[${NUM}, ${NUM}\])`;
-const FIGURE = new RegExp(String.raw`(?<![\d.])${BAR}(?![\d])`, "g");
-const WHOLE_FIGURE = new RegExp(`^${BAR}$`);
-
-/** Every figure with an error bar in `text`, left to right, without overlaps. */
-export function figuresIn(text: string): string[] {
-  return [...text.matchAll(FIGURE)].map((m) => m[0]);
-}
-
-/**
- * Text with HTML tags and entities reduced to plain words and single spaces, so a table row
- * compares like a line. NFKC first, so full-width or other look-alike digits count as digits and
- * cannot show a number the checks do not see.
- */
-export function normalised(text: string): string {
-  return plainText(
-    text
-      .replace(/<[^>]*>/g, " ")
-      // Numeric references first, so digits written as &#52; are digits; &amp; last, so "&amp;lt;" stays "&lt;".
-      .replace(/&#(\d{1,7});/g, (m, d: string) => codePoint(Number(d)) ?? m)
-      .replace(/&#x([0-9a-f]{1,6});/gi, (m, h: string) => codePoint(parseInt(h, 16)) ?? m)
-      .replace(/&plusmn;|&pm;|&PlusMinus;/g, "±")
-      .replace(/&nbsp;/gi, " ")
-      .replace(/&apos;/gi, "'")
-      .replace(/&quot;/gi, '"')
-      .replace(/&lt;/g, "<")
-      .replace(/&gt;/g, ">")
-      .replace(/&amp;/g, "&"),
-  );
-}
-
-function codePoint(n: number): string | null {
-  return n <= 0x10ffff && (n < 0xd800 || n > 0xdfff) ? String.fromCodePoint(n) : null;
-}
-
-/** Plain text with look-alike characters folded (NFKC) and runs of white space made one space; no markup removed. */
-export function plainText(text: string): string {
-  return text.normalize("NFKC").replace(/\s+/g, " ");
-}
-
-// Terminal escapes and other control characters (Jupyter renders ANSI colours in text/plain, so
-// they could hide the signed figure or colour a fake one in), and invisible format characters
-// (zero-width spaces, bidi overrides that draw "5.2424" as "4242.5"). The kernel writes none.
-const CONTROL = /[\p{Cc}\p{Cf}]/u;
-
 export function rowLabel(row: Row): string {
   const [key, stat, column] = row;
   const what = column === null ? stat : `${stat} of ${column}`;
-  return key.length === 0 ? what : `${what} for ${key.map((k) => (k === null ? "(missing)" : k)).join(" / ")}`;
-}
-
-function escaped(s: string): string {
-  return s.replace(/[.*+?^${}()|[\]\\]/g, "\\$&");
+  return quoted(key.length === 0 ? what : `${what} for ${key.map((k) => (k === null ? "(missing)" : k)).join(" / ")}`, 120);
 }
 
 type Where = (rel: FoundRelease) => string;
@@ -87,40 +37,45 @@ function signedFigures(rel: FoundRelease, r: Receipt, findings: Finding[], at: W
   return out;
 }
 
-/** Checks one human-readable view; returns the first problem, or null. */
+/** The text around position `at` of `text`, on one line, for a finding. */
+function around(text: string, at: number, length: number): string {
+  return quoted(text.slice(Math.max(0, at - 8), at + length + 8).trim());
+}
+
+/** Checks one human-readable view (folded text, figure-text.ts); returns the first problem, or null. */
 function viewProblem(text: string, signed: { row: Row; figure: string }[]): string | null {
-  // In signed order: each row's keys, then its figure standing on its own ("24.5 ± 1.25" inside
-  // "924.5 ± 1.25" is not a match). Swapped labels or values break the order.
+  // Every figure with an error bar is a signed one, once, in order, standing on its own.
+  const expected = signed.map((s) => s.figure).filter(isFigure);
+  // Group keys are read as labels, not as parts of a figure: in text/plain a numeric key followed
+  // by a bin key "[90, 100]" would otherwise read as the figure "2024 [90, 100]". Only bracketed
+  // keys (bins) can complete such a figure, and only they are set aside, so a key like "5"
+  // cannot eat the digits of a figure.
+  const keys = [...new Set(signed.flatMap((x) => x.row[0]).filter((k): k is string => k !== null && k.includes("[")))];
+  const unlabelled = keys.reduce((t, k) => t.split(figureText(k).trim()).join(" ¦ "), text);
+  const seen = figuresIn(unlabelled);
+  const joined = seen.find((f) => !f.alone);
+  if (joined !== undefined) {
+    return `shows "${around(unlabelled, joined.index, joined.text.length)}", where the figure "${joined.text}" runs into the characters beside it, so a reader may see another number`;
+  }
+  const unsigned = seen.find((f) => !expected.includes(f.text));
+  if (unsigned !== undefined) return `shows "${unsigned.text}", a figure its receipt did not sign`;
+  if (seen.length !== expected.length || seen.some((f, i) => f.text !== expected[i])) {
+    return `shows the signed figures ${seen.length === expected.length ? "out of order" : `${seen.length} times instead of ${expected.length}`}`;
+  }
+  // In signed order: each row's keys, then its figure standing on its own. Swapped labels or
+  // values break the order.
   let cursor = 0;
   for (const { row, figure } of signed) {
     for (const k of row[0]) {
       if (k === null) continue; // the kernel leaves a missing key out of the label
-      const shownKey = plainText(k).trim();
+      const shownKey = figureText(k).trim();
       const at = text.indexOf(shownKey, cursor);
-      if (at < 0) return `does not show the group "${k}" of the signed ${rowLabel(row)} "${figure}" in the signed order`;
+      if (at < 0) return `does not show the group "${quoted(k)}" of the signed ${rowLabel(row)} "${figure}" in the signed order`;
       cursor = at + shownKey.length;
     }
-    const pattern = new RegExp(`(?<![\\d.])${escaped(figure)}(?![\\d])`, "g");
-    pattern.lastIndex = cursor;
-    const m = pattern.exec(text);
-    if (m === null) return `does not show the signed ${rowLabel(row)} "${figure}"${cursor > 0 ? " where it belongs" : ""}`;
-    cursor = m.index + m[0].length;
-  }
-  // Nothing beyond: every figure with an error bar is a signed one, once, in order.
-  const expected = signed.map((s) => s.figure).filter((f) => WHOLE_FIGURE.test(f));
-  // Group keys are read as labels, not as parts of a figure: in an HTML table a numeric key cell
-  // followed by a bin key "[90, 100]" would otherwise read as the figure "2024 [90, 100]".
-  // Only bracketed keys (bins) can complete such a figure, and only they are set aside, so a key
-  // like "5" cannot eat the digits of a figure.
-  const keys = [...new Set(signed.flatMap((x) => x.row[0]).filter((k): k is string => k !== null && k.includes("[")))];
-  const unlabelled = keys.reduce((t, k) => t.split(plainText(k).trim()).join(" ¦ "), text);
-  const seen = figuresIn(unlabelled);
-  const extra = seen.find((f, i) => f !== expected[i]);
-  if (seen.length !== expected.length || extra !== undefined) {
-    const unsigned = seen.find((f) => !expected.includes(f));
-    return unsigned !== undefined
-      ? `shows "${unsigned}", a figure its receipt did not sign`
-      : `shows the signed figures ${seen.length === expected.length ? "out of order" : `${seen.length} times instead of ${expected.length}`}`;
+    const at = figureAt(text, figure, cursor);
+    if (at < 0) return `does not show the signed ${rowLabel(row)} "${figure}"${cursor > 0 ? " where it belongs" : ""}`;
+    cursor = at + figure.length;
   }
   return null;
 }
@@ -130,35 +85,36 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
  * digits) must be the signed cost in the signed unit. The running total beside it is the
  * analyst's total when the cell ran (a replay shows today's), so only the audit's own total counts.
  */
-function costProblem(text: string, r: Receipt): string | null {
+function costProblem(text: string, r: Receipt, replay: boolean): string | null {
   let want: string;
   try {
     want = `cost ${r.unit === "rho" ? "ρ" : "ε"}=${formatDecimal(r.cost, 6)}`;
   } catch {
     return null; // a cost that is not a number is reported by the chain checks
   }
-  for (const m of text.matchAll(/cost (ε|ρ)\s*=\s*([^\s·,;)]*)/g)) {
-    if (m[0] !== want) return `states "${m[0]}", but receipt seq ${r.seq} signed "${want}"`;
+  // Each statement in the kernel's form, with any letter for the unit ("cost є=0.01" with a
+  // Cyrillic letter reads as ε), must be the signed one.
+  for (const m of text.matchAll(/cost (\p{L})\s*=\s*([^\s·,;)]*)/gu)) {
+    if (m[0] !== want) return `states "${quoted(m[0])}", but receipt seq ${r.seq} signed "${want}"`;
   }
+  // The kernel states the cost of every new release in each view (runtime/api/text.ts costText),
+  // so a view without the signed statement has had it removed or spelled otherwise ("cost: 0.01").
+  if (!replay && !text.includes(want)) return `does not state the cost "${want}" that receipt seq ${r.seq} signed`;
   return null;
 }
 
-/**
- * HTML the audit can read as text. The kernel writes plain markup, inline styles and one chart
- * image (the output's own image/svg+xml); scripts, style sheets, inline SVG, frames, other images or
- * CSS pictures could draw numbers the text check does not see.
- */
-function htmlProblem(raw: string, data: Record<string, unknown>): string | null {
-  const active = /<\s*(script|style|iframe|frame|object|embed|svg|canvas|math|link|meta|base|template|video|audio|picture|source)\b|\son\w+\s*=|javascript:|url\s*\(/i.exec(raw);
-  if (active !== null) return `holds "${active[0].trim()}", which can show text the audit does not read`;
+/** The data: URI of the output's own chart image, the only image its text/html may show. */
+function chartUri(data: Record<string, unknown>): string | null {
   const svg = data["image/svg+xml"];
   const svgText = typeof svg === "string" ? svg : Array.isArray(svg) ? svg.map(String).join("") : null;
-  const chart = svgText === null ? null : `data:image/svg+xml;base64,${Buffer.from(svgText, "utf8").toString("base64")}`;
-  for (const img of raw.matchAll(/<\s*img\b[^>]*>/gi)) {
-    const src = /\ssrc\s*=\s*"([^"]*)"/i.exec(img[0])?.[1];
-    if (src === undefined || src !== chart) return "shows an image that is not the output's own chart";
-  }
-  return null;
+  return svgText === null ? null : `data:image/svg+xml;base64,${Buffer.from(svgText, "utf8").toString("base64")}`;
+}
+
+/** The text with every signed group key taken out: keys are the data's own words and may hold any character. */
+function withoutKeys(text: string, r: Receipt): string {
+  const keys = [...new Set(r.result.flatMap((row) => row[0]).filter((k): k is string => k !== null && k !== ""))];
+  keys.sort((x, y) => y.length - x.length);
+  return keys.reduce((t, k) => t.split(k).join(" ").split(k.normalize("NFKC")).join(" "), text);
 }
 
 function sameNumber(shown: unknown, signed: string | null): boolean {
@@ -215,15 +171,35 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
     const v = data[mime];
     if (typeof v !== "string" && !Array.isArray(v)) continue;
     const raw = Array.isArray(v) ? v.map(String).join("") : (v as string);
-    const decoded = mime === "text/plain" ? raw : normalised(raw);
-    if (CONTROL.test(raw.replace(/[\n\t\r]/g, "")) || CONTROL.test(decoded.replace(/[\n\t\r]/g, ""))) {
-      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} holds control or invisible format characters (terminal escapes, zero-width or bidi characters can hide or reorder text); receipt seq ${r.seq}` });
-    }
+    let decoded = raw;
     if (mime === "text/html") {
-      const problem = htmlProblem(raw, data);
-      if (problem !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/html ${problem} (receipt seq ${r.seq})` });
+      const html = htmlText(raw, chartUri(data));
+      decoded = html.text;
+      if (html.problems.length > 0) {
+        const more = html.problems.length > 3 ? ` and ${html.problems.length - 3} more` : "";
+        findings.push({
+          cell: rel.cell,
+          kind: "shown-value",
+          message: `${at(rel)}: text/html uses ${html.problems.slice(0, 3).join(", ")}${more}, which the kernel does not write and which can hide text or draw it otherwise than the audit reads it (receipt seq ${r.seq})`,
+        });
+      }
     }
-    views.push([mime, mime === "text/plain" ? plainText(raw) : decoded]);
+    if (mime === "text/markdown" && /[<&]/.test(raw)) {
+      // A frontend renders markdown to HTML; markup or character references in it could show
+      // another text than the audit reads, and the kernel writes no markdown view at all.
+      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/markdown holds HTML markup or character references, which the kernel does not write and the audit does not read as drawn (receipt seq ${r.seq})` });
+    }
+    // A table cell is a paragraph of its own in HTML; in text a line is.
+    const readable = withoutKeys(decoded, r);
+    const odd = [...oddCharacters(readable), ...rightToLeftBesideFigure(readable, mime === "text/html" ? /[\n\t]/ : /\n/)];
+    if (odd.length > 0) {
+      findings.push({
+        cell: rel.cell,
+        kind: "shown-value",
+        message: `${at(rel)}: ${mime} holds ${oddCharactersText(odd)}; the kernel writes figures in ASCII digits and plain spaces, so the audit cannot be sure a reader sees the signed figure (receipt seq ${r.seq})`,
+      });
+    }
+    views.push([mime, figureText(decoded)]);
   }
   if (!views.some(([m]) => m === "text/plain")) {
     findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: release output (receipt seq ${r.seq}) has no text/plain view to check` });
@@ -231,10 +207,10 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
   for (const [mime, text] of views) {
     const problem = viewProblem(text, signed);
     if (problem !== null) {
-      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${problem} (receipt seq ${r.seq}); the shown values were edited` });
+      findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${problem} (receipt seq ${r.seq}); what it shows differs from what the curator signed` });
     }
-    const cost = costProblem(text, r);
-    if (cost !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${cost}; the stated cost was edited` });
+    const cost = costProblem(text, r, rel.meta.replay);
+    if (cost !== null) findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: ${mime} ${cost}; the stated cost differs from the signed one` });
   }
   for (const [mime, v] of Object.entries(data)) {
     // A frontend shows the richest view it can render, so a view the audit cannot read (a

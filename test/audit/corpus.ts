@@ -8,13 +8,19 @@ import { generateKeyPairSync, type KeyObject } from "node:crypto";
 import { writeFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { expect, it } from "vitest";
-import { type AuditReport, type FindingKind, auditNotebook } from "../../cli/audit/checks.js";
+import { type AuditReport, auditNotebook } from "../../cli/audit/checks.js";
+import type { FindingKind } from "../../cli/audit/finding.js";
 import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
   MADE_UP,
+  READING_TAMPERS,
+  respellStatedCost,
+  tenth,
+  printEditedFigure,
+  rewriteFigure,
   addMadeUpRow,
   addUncheckedView,
   addActiveHtml,
@@ -203,7 +209,7 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const bad = concealSignedInPlain(get().nb, 1);
     const r = audit(bad);
     expectFinding(r, "shown-value", releaseWithSeq(bad, 1).cell);
-    expect(r.findings.some((f) => f.message.includes("control or invisible"))).toBe(true);
+    expect(r.findings.some((f) => f.message.includes("a control character"))).toBe(true);
   });
 
   it("catches digits reordered by a bidi override, and figures written as HTML character references", () => {
@@ -302,7 +308,7 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const bad = editStatedCost(get().nb, 2);
     const r = audit(bad);
     expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
-    expect(r.findings.find((f) => f.kind === "shown-value")!.message).toMatch(/stated cost was edited/);
+    expect(r.findings.find((f) => f.kind === "shown-value")!.message).toMatch(/stated cost differs from the signed one/);
   });
 
   it("catches HTML that can draw figures the audit cannot read (script, style sheet, inline SVG, foreign image)", () => {
@@ -354,6 +360,66 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const r = audit(out);
     expectFinding(r, "shown-value", rel.cell + 1);
     expect(r.findings.every((f) => f.cell === rel.cell + 1)).toBe(true);
+  });
+
+  // A reader must see the signed number: each edit below keeps the signed digits in the text but
+  // makes a person read another number (a minus, a digit in front, an exponent), or hides a digit.
+  for (const t of READING_TAMPERS) {
+    it(`catches a figure a reader sees otherwise than signed: ${t.name}`, () => {
+      const bad = rewriteFigure(get().nb, 1, t);
+      expectFinding(audit(bad), "shown-value", releaseWithSeq(bad, 1).cell);
+    });
+  }
+
+  for (const name of ["U+2212 minus sign before the value", "the value's last digit as a superscript (an exponent)", "1 and a no-break space before the value", "a Thai 1 before the value"]) {
+    it(`catches a printed copy of a signed figure that reads otherwise (no receipt): ${name}`, () => {
+      const t = READING_TAMPERS.find((x) => x.name === name)!;
+      const bad = printEditedFigure(get().nb, 1, t);
+      expectFinding(audit(bad), "no-receipt", releaseWithSeq(bad, 1).cell);
+    });
+  }
+
+  it("catches an HTML output without a receipt that reverses a signed figure's digits with <bdo>", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const row = rel.meta.receipt.result.find((x) => x[3] !== null && x[4] !== null)!;
+    const [v, ...rest] = formatWithError(row[3], row[4], row[5]).split(" ");
+    out.cells[rel.cell].outputs!.push({ output_type: "display_data", metadata: {}, data: { "text/plain": "a note", "text/html": `<p><bdo dir="rtl">${v}</bdo> ${rest.join(" ")}</p>` } });
+    expectFinding(audit(out), "no-receipt", rel.cell);
+  });
+
+  it("quotes notebook text in findings without control characters (an escape cannot act on the reviewer's terminal)", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const plain = String(Array.isArray(rel.output.data!["text/plain"]) ? (rel.output.data!["text/plain"] as string[]).join("") : rel.output.data!["text/plain"]);
+    rel.output.data!["text/plain"] = plain.replace(/cost (ε|ρ)=/, "cost $1=\u001b[2J") + "\n1\u001b[8m9 ± 1";
+    rel.output.data!["text/html"] = `<span class="\u001b[2J" style="color:\u001b]0;x\u0007">${plain}</span>`;
+    const r = audit(out);
+    expect(r.findings.length).toBeGreaterThan(0);
+    for (const f of r.findings) expect(f.message, f.message).not.toMatch(/[\u0000-\u0008\u000b-\u001f\u007f]/);
+  });
+
+  const costSpellings: [string, (u: string, a: string) => string][] = [
+    ["a Cyrillic є for ε and a tenth of the cost", (_u, a) => `cost \u0454=${tenth(a)}`],
+    ["a colon and no symbol", (_u, a) => `cost: ${tenth(a)}`],
+    ["the cost left out", () => "no new cost"],
+    ["spaces around the equals sign and a capital C", (u, a) => `Cost ${u} = ${tenth(a)}`],
+  ];
+  for (const [name, f] of costSpellings) {
+    it(`catches a stated cost spelled so the old reader missed it: ${name}`, () => {
+      const bad = respellStatedCost(get().nb, 2, f);
+      const r = audit(bad);
+      expectFinding(r, "shown-value", releaseWithSeq(bad, 2).cell);
+      expect(r.findings.some((x) => x.kind === "shown-value" && /cost/.test(x.message))).toBe(true);
+    });
+  }
+
+  it("catches an HTML output without a receipt showing a signed figure after &minus;", () => {
+    const out = JSON.parse(JSON.stringify(get().nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const row = rel.meta.receipt.result.find((x) => x[3] !== null && x[4] !== null)!;
+    out.cells[rel.cell].outputs!.push({ output_type: "display_data", metadata: {}, data: { "text/plain": "a note", "text/html": `<p>&minus;${formatWithError(row[3], row[4], row[5])}</p>` } });
+    expectFinding(audit(out), "no-receipt", rel.cell);
   });
 
   it("exits 2 on unreadable input: missing notebook, bad JSON, bad key", () => {

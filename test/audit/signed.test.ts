@@ -7,10 +7,12 @@ import { generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.j
 import { signReceipt } from "../../runtime/curator/receipts.js";
 import { Rational } from "../../runtime/core/index.js";
 import { GENESIS_PREV } from "../../runtime/protocol/receipts.js";
+import { formatWithError } from "../../runtime/protocol/format.js";
 import { auditNotebook } from "../../cli/audit/checks.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
 import { clone, releaseWithSeq } from "./tamper.js";
+import { badge, box, budgetBar, esc, notesList, table } from "../../kernel/display/html.js";
 import { assembleNotebook, rowsOf, signedChain } from "./signed-notebook.js";
 
 describe("notebook audit on a signed, assembled notebook", () => {
@@ -95,9 +97,33 @@ describe("notebook audit on a signed, assembled notebook", () => {
     for (const c of nb.cells) {
       for (const o of c.outputs ?? []) {
         if (o.data === undefined) continue;
-        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table>`;
+        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table><div>cost &epsilon;=0.1 · total 0.1 / 1</div>`;
       }
     }
+    expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+  });
+
+  it("passes group keys in other scripts, with their own dashes, digits and joiners, in the kernel's markup (the data's words are not judged)", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    // Keys as a dataset may hold them: a Unicode hyphen, Arabic-Indic digits, a Persian word with
+    // a zero-width non-joiner, full-width digits, an emoji with a variation selector.
+    const keys = [["Nord\u2010Ost"], ["منطقة ٣"], ["می\u200cخواهم"], ["Zone ５"], ["\u2764\ufe0f fans"]];
+    const values: [string, string, string][] = [["5995", "5755", "6235"], ["6120", "5880", "6360"], ["-12.5", "-14", "-11"], ["7", "5", "9"], ["310", "300", "320"]];
+    const rows = rowsOf("count", null, values, keys);
+    const [r] = signedChain(key, { analyst: "kit", dataset: "visits-course", cap: "1" }, [{ cost: "0.1", rows }]);
+    const nb = assembleNotebook([r, r]);
+    const figures = values.map(([v, lo, hi]) => formatWithError(v, lo, hi));
+    // The kernel's own building blocks (kernel/display/html.ts), as a release view puts them together.
+    const html = box(
+      `<div><b>count by zone</b> <span style="opacity:0.75">on visits-course</span>${badge("replayed — no new cost", "#2e7d32")}</div>` +
+        table(["zone", "estimate (95%)", "interval"], keys.map((k, i) => [esc(k[0]), esc(figures[i]), `[${values[i][1]}, ${values[i][2]}]`]), new Set([1, 2])) +
+        `<div style="margin-top:4px">cost ε=0.1 · total 0.1 / 1</div>` +
+        budgetBar({ total: "0.1", sessionSpent: "0.1", cap: "1", symbol: "ε" }) +
+        `<div style="font-size:12px;opacity:0.75">ⓘ noise-only interval</div>` +
+        notesList(["a note — with a dash"]),
+      "release",
+    );
+    for (const c of nb.cells) for (const o of c.outputs ?? []) if (o.data !== undefined) o.data["text/html"] = html;
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
   });
 });

@@ -237,3 +237,158 @@ export function addActiveHtml(nb: Notebook, seq: number, markup: string): Notebo
   rel.output.data!["text/html"] = base + markup;
   return out;
 }
+
+/**
+ * An edit of one shown figure that makes a reader see another number than the signed one, while
+ * the signed digits stay in the text. `figure` is the signed figure ("199871 ± 60"); the edit
+ * returns what is shown in its place.
+ */
+export interface ReadingTamper {
+  name: string;
+  /** "html": only the text/html view (made from text/plain when the output has none); "text": text/plain and text/html as written. */
+  where: "html" | "text";
+  edit: (figure: string) => string;
+}
+
+const SUPERSCRIPT = "⁰¹²³⁴⁵⁶⁷⁸⁹";
+const SUBSCRIPT = "₀₁₂₃₄₅₆₇₈₉";
+/** The figure's value and the rest ("199871", "± 60"). */
+const split = (f: string): [string, string] => [f.slice(0, f.indexOf(" ")), f.slice(f.indexOf(" ") + 1)];
+const lastDigitAs = (f: string, digits: string): string => {
+  const [v, rest] = split(f);
+  return `${v.slice(0, -1)}${digits[Number(v.at(-1))]} ${rest}`;
+};
+
+export const READING_TAMPERS: ReadingTamper[] = [
+  // Minus signs and dashes a reader takes for a minus (Unicode Pd and the minus look-alikes). The
+  // small and full-width hyphen-minus (U+FE63, U+FF0D) are left out: NFKC made them "-" already.
+  ...(
+    [
+      ["U+2212 minus sign", "\u2212"],
+      ["U+2010 hyphen", "\u2010"],
+      ["U+2011 non-breaking hyphen", "\u2011"],
+      ["U+2012 figure dash", "\u2012"],
+      ["U+2013 en dash", "\u2013"],
+      ["U+2014 em dash", "\u2014"],
+      ["U+2015 horizontal bar", "\u2015"],
+      ["U+02D7 modifier letter minus", "\u02d7"],
+      ["U+2796 heavy minus", "\u2796"],
+      ["U+207B superscript minus", "\u207b"],
+      ["U+FE58 small em dash", "\ufe58"],
+      ["U+2043 hyphen bullet", "\u2043"],
+    ] as const
+  ).map(([name, ch]): ReadingTamper => ({ name: `${name} before the value`, where: "text", edit: (f) => `${ch}${f}` })),
+  // Character references the old reader did not decode, and markup that joins a digit to the figure.
+  ...(
+    [
+      ["&minus;", "&minus;"],
+      ["&#8722; (decimal reference to U+2212)", "&#8722;"],
+      ["&#x2212; (hex reference to U+2212)", "&#x2212;"],
+      ["&hyphen;", "&hyphen;"],
+      ["&ndash;", "&ndash;"],
+      ["&mdash;", "&mdash;"],
+      ["1&ZeroWidthSpace;", "1&ZeroWidthSpace;"],
+      ["1&shy; (soft hyphen)", "1&shy;"],
+      ["1&NoBreak; (word joiner)", "1&NoBreak;"],
+      ["1&thinsp; (a thousands separator)", "1&thinsp;"],
+      ["1&nbsp;", "1&nbsp;"],
+      ["1<!-- comment -->", "1<!-- x -->"],
+      ["1<![CDATA[...]]>", "1<![CDATA[x]]>"],
+      ["1<span></span>", "1<span></span>"],
+      ["<b>1</b>", "<b>1</b>"],
+      ["1<wbr>", "1<wbr>"],
+      ["1<noscript>", "1<noscript></noscript>"],
+      ["1<title> (not drawn in an output)", "1<title>x</title>"],
+      ["1 and a hidden attribute", "1<span hidden>x</span>"],
+      ["1 and display:none", `1<span style="display:none">x</span>`],
+      ["1 and visibility:hidden", `1<span style="visibility:hidden">x</span>`],
+      ["1 and font-size:0", `1<span style="font-size:0">x</span>`],
+      ["1 and opacity:0", `1<span style="opacity:0">x</span>`],
+      ["1 and white text", `1<span style="color:#ffffff">x</span>`],
+      ["1 and the frontend's hidden class", `1<span class="hidden">x</span>`],
+      ["an input box showing 1", `<input value="1" size="1">`],
+    ] as const
+  ).map(([name, pre]): ReadingTamper => ({ name: `${name} before the figure in text/html`, where: "html", edit: (f) => `${pre}${f}` })),
+  {
+    name: "table cells without padding: 1 beside the figure in text/html",
+    where: "html",
+    edit: (f) => `<table><tr><td style="padding:0">1</td><td style="padding:0">${f}</td></tr></table>`,
+  },
+  { name: "a stray <td> holding 1 before the figure in text/html (dropped outside a table, its 1 runs on)", where: "html", edit: (f) => `<td>1</td>${f}` },
+  { name: "an inline-block <div> holding 1 before the figure in text/html", where: "html", edit: (f) => `<div style="display:inline-block">1</div>${f}` },
+  { name: "the value reversed by <bdo dir=rtl> in text/html", where: "html", edit: (f) => `<bdo dir="rtl">${split(f)[0]}</bdo> ${split(f)[1]}` },
+  {
+    name: "the value reversed by a bidi-override style in text/html",
+    where: "html",
+    edit: (f) => `<span style="unicode-bidi:bidi-override;direction:rtl">${split(f)[0]}</span> ${split(f)[1]}`,
+  },
+  { name: "a <sup> exponent after the error bar in text/html", where: "html", edit: (f) => `${f}<sup>2</sup>` },
+  // Digits of other numeral systems, superscripts, exponents and look-alike letters.
+  ...(
+    [
+      ["Arabic-Indic", "\u0661"],
+      ["Extended Arabic-Indic", "\u06f1"],
+      ["Devanagari", "\u0967"],
+      ["Bengali", "\u09e7"],
+      ["Thai", "\u0e51"],
+    ] as const
+  ).map(([name, one]): ReadingTamper => ({ name: `a ${name} 1 before the value`, where: "text", edit: (f) => `${one}${f}` })),
+  { name: "the value's last digit as a superscript (an exponent)", where: "text", edit: (f) => lastDigitAs(f, SUPERSCRIPT) },
+  { name: "the value's last digit as a subscript", where: "text", edit: (f) => lastDigitAs(f, SUBSCRIPT) },
+  { name: "a superscript exponent ⁻³ after the error bar", where: "text", edit: (f) => `${f}⁻³` },
+  { name: "×10⁻³ after the error bar", where: "text", edit: (f) => `${f}×10⁻³` },
+  { name: "an exponent e−3 with U+2212 after the error bar", where: "text", edit: (f) => `${f}e\u22123` },
+  { name: "a letter l before the value (read as 1)", where: "text", edit: (f) => `l${f}` },
+  { name: "a letter O after the error bar (read as 0)", where: "text", edit: (f) => `${f}O` },
+  { name: "a Cyrillic О after the error bar (read as 0)", where: "text", edit: (f) => `${f}\u041e` },
+  { name: "1 and a middle dot before the value (read as a decimal point)", where: "text", edit: (f) => `1\u00b7${f}` },
+  { name: "an Arabic decimal separator and 5 after the error bar", where: "text", edit: (f) => `${f}\u066b5` },
+  { name: "1 and a comma before the value (a thousands separator)", where: "text", edit: (f) => `1,${f}` },
+  { name: "1 and an Arabic thousands separator before the value", where: "text", edit: (f) => `1\u066c${f}` },
+  { name: "1 and a no-break space before the value", where: "text", edit: (f) => `1\u00a0${f}` },
+  { name: "1 and a narrow no-break space before the value (SI thousands separator)", where: "text", edit: (f) => `1\u202f${f}` },
+  { name: "1 and a thin space before the value", where: "text", edit: (f) => `1\u2009${f}` },
+  { name: "1 and a variation selector before the value", where: "text", edit: (f) => `1\ufe0f${f}` },
+  { name: "1 under a combining low line before the value", where: "text", edit: (f) => `1\u0332${f}` },
+  { name: "a carriage return and 9 after the figure (9 drawn over its first digit)", where: "text", edit: (f) => `${f}\r9` },
+  { name: "a Hebrew letter before the figure (drawn right to left, value and error bar change places)", where: "text", edit: (f) => `\u05d0 ${f}` },
+  { name: "a private-use character before the value (an icon font can draw it as a digit)", where: "text", edit: (f) => `\ue000${f}` },
+];
+
+/** Applies a reading tamper to the first figure of release `seq`. */
+export function rewriteFigure(nb: Notebook, seq: number, t: ReadingTamper): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const shown = firstFigure(rel);
+  const data = rel.output.data!;
+  if (t.where === "html" && data["text/html"] === undefined) data["text/html"] = `<pre>${textOf(rel.output)}</pre>`;
+  const mimes = t.where === "html" ? ["text/html"] : ["text/plain", "text/html"];
+  for (const mime of mimes) {
+    const v = data[mime];
+    if (v === undefined) continue;
+    const s = Array.isArray(v) ? (v as string[]).join("") : String(v);
+    if (!s.includes(shown)) throw new Error(`release seq ${seq} does not show "${shown}" in ${mime}`);
+    data[mime] = s.replace(shown, t.edit(shown));
+  }
+  return out;
+}
+
+/** Prints the first figure of release `seq`, edited by `t`, as a stream line of its cell (no receipt). */
+export function printEditedFigure(nb: Notebook, seq: number, t: ReadingTamper): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  out.cells[rel.cell].outputs!.push({ output_type: "stream", name: "stdout", text: [`${t.edit(firstFigure(rel))}\n`] });
+  return out;
+}
+
+/** Rewrites the cost release `seq` states in every text view ("cost ε=0.1" becomes `f("ε", "0.1")`), leaving the receipt alone. */
+export function respellStatedCost(nb: Notebook, seq: number, f: (unit: string, amount: string) => string): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  if (!/cost (ε|ρ)=/.test(textOf(rel.output))) throw new Error(`release seq ${seq} states no cost`);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.replace(/cost (ε|ρ)=([^\s·,;)<]*)/, (_m, u: string, a: string) => f(u, a)));
+  return out;
+}
+
+/** A tenth of a stated amount, as a person would edit it ("0.1" to "0.01", "0.333333" to "0.0333333"). */
+export const tenth = (a: string): string => Rational.parse(a).div(Rational.of(10)).toDecimal(12);
