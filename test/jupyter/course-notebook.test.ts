@@ -1,0 +1,142 @@
+/**
+ * Acceptance (issue 10, "Identity from Jupyter"): a student follows the README's course steps
+ * word for word, then the course notebook runs as that student through a real `jupyter server`
+ * driven by @jupyterlab/services (the client JupyterLab uses), on the kernel its metadata names.
+ *
+ * The README block is read from README.md and run with bash in a fresh HOME (so `hush install`
+ * writes the per-user kernelspec there, where the server looks); `hush` on PATH is the built CLI,
+ * as `npm link` would put it. The block's last line opens the notebook in a notebook server; the
+ * test starts `jupyter server` itself with the same HOME and opens a session on the notebook.
+ *
+ * The server is started with a *different* identity in its environment (researcher rowan's demo
+ * token, and a HUSH_CONFIG that does not exist): the releases must still be kit's, which shows that
+ * the identity comes from the kernel the notebook picked, not from the server's environment.
+ * HUSH_DEMO_DIR only says where the embedded demo keeps its data, key and ledger (a temp dir here).
+ */
+import { spawnSync } from "node:child_process";
+import { chmodSync, cpSync, mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join, resolve } from "node:path";
+import { afterAll, describe, expect, it } from "vitest";
+import { KernelManager, KernelSpecManager, ServerConnection, SessionManager, type KernelMessage } from "@jupyterlab/services";
+import type { Receipt } from "../../runtime/protocol/messages.js";
+import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
+import { loadPublicKey, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import { findPython, startJupyterServer, type RunningServer } from "./tools.js";
+
+const ROOT = resolve(import.meta.dirname, "../..");
+const CLI = join(ROOT, "dist", "cli", "main.js");
+const NOTEBOOK = "notebooks/course-assignment.ipynb";
+const python = findPython(["jupyter_server"], "course notebook under jupyter server");
+
+/** The fenced block after "The student version" in README.md, as lines. */
+function readmeCourseSteps(): string[] {
+  const readme = readFileSync(join(ROOT, "README.md"), "utf8");
+  const at = readme.indexOf("The student version");
+  expect(at, "README has a student version section").toBeGreaterThan(0);
+  const block = /```\n([\s\S]*?)```/.exec(readme.slice(at));
+  expect(block, "the student version section has a fenced block of commands").not.toBeNull();
+  return block![1].split("\n").filter((l) => l.trim() !== "");
+}
+
+const work = mkdtempSync(join(tmpdir(), "hush-course-"));
+const home = join(work, "home");
+const bin = join(work, "bin");
+const demoDir = join(work, "demo");
+let server: RunningServer | null = null;
+afterAll(() => {
+  server?.stop();
+  rmSync(work, { recursive: true, force: true });
+});
+
+/** A student's shell: a fresh HOME, `hush` on PATH, no Jupyter or hush settings inherited. */
+function studentEnv(): NodeJS.ProcessEnv {
+  const env: NodeJS.ProcessEnv = { ...process.env, HOME: home, PATH: `${bin}:${process.env.PATH ?? ""}`, PYTHONDONTWRITEBYTECODE: "1" };
+  for (const k of Object.keys(env)) if (k.startsWith("JUPYTER_") || k.startsWith("HUSH_") || k.startsWith("XDG_")) delete env[k];
+  return env;
+}
+
+describe.skipIf(!python)("the course notebook, as the README tells a student to run it", () => {
+  it("runs as kit on visits-course through jupyter server, with no token in kernel.json", { timeout: 600_000 }, async () => {
+    mkdirSync(home, { recursive: true });
+    mkdirSync(bin, { recursive: true });
+    writeFileSync(join(bin, "hush"), `#!/bin/sh\nexec "${process.execPath}" "${CLI}" "$@"\n`);
+    chmodSync(join(bin, "hush"), 0o755);
+
+    const steps = readmeCourseSteps();
+    const open = steps[steps.length - 1];
+    expect(open).toBe(`jupyter notebook ${NOTEBOOK}`);
+    const setup = spawnSync("bash", ["-euc", steps.slice(0, -1).join("\n")], { cwd: ROOT, env: studentEnv(), encoding: "utf8", timeout: 60_000 });
+    expect(setup.status, setup.stderr).toBe(0);
+
+    // What `hush install` wrote: found by Jupyter under the student's HOME, naming a token file.
+    const specFile = join(home, ".local", "share", "jupyter", "kernels", "hush-visits-course", "kernel.json");
+    const specText = readFileSync(specFile, "utf8");
+    expect(specText).not.toContain("demo-kit-not-secret");
+    expect(JSON.parse(specText).env).toMatchObject({ HUSH_ANALYST: "kit", HUSH_CURATOR: "embedded", HUSH_TOKEN: "" });
+
+    const nb = JSON.parse(readFileSync(join(ROOT, NOTEBOOK), "utf8"));
+    const kernelName: string = nb.metadata.kernelspec.name;
+    expect(kernelName).toBe("hush-visits-course");
+
+    const env: NodeJS.ProcessEnv = {
+      ...studentEnv(),
+      HUSH_DEMO_DIR: demoDir,
+      // A different identity in the server's environment, which the student's kernel must not use.
+      HUSH_ANALYST: "rowan",
+      HUSH_TOKEN: "demo-rowan-not-secret",
+      HUSH_CONFIG: join(work, "no-such-config.yaml"),
+    };
+    const root = join(work, "repo");
+    mkdirSync(join(root, "notebooks"), { recursive: true });
+    cpSync(join(ROOT, NOTEBOOK), join(root, NOTEBOOK)); // the server opens a copy: nothing is written into the repository
+    server = await startJupyterServer(python as string, { env, root });
+    const serverSettings = ServerConnection.makeSettings({ baseUrl: server.baseUrl, wsUrl: server.wsUrl, token: server.token });
+
+    const specs = new KernelSpecManager({ serverSettings });
+    await specs.ready;
+    expect(specs.specs?.kernelspecs[kernelName]?.display_name).toBe("TypeScript (hush · kit on visits-course)");
+
+    const kernels = new KernelManager({ serverSettings });
+    const sessions = new SessionManager({ kernelManager: kernels, serverSettings });
+    await sessions.ready;
+    const session = await sessions.startNew({ path: NOTEBOOK, name: "course-assignment.ipynb", type: "notebook", kernel: { name: kernelName } });
+    const receipts: Receipt[] = [];
+    const texts: string[] = [];
+    try {
+      expect(session.kernel?.name).toBe(kernelName);
+      for (const cell of nb.cells.filter((c: { cell_type: string }) => c.cell_type === "code")) {
+        const code = Array.isArray(cell.source) ? cell.source.join("") : String(cell.source);
+        const future = session.kernel!.requestExecute({ code });
+        const outputs: KernelMessage.IIOPubMessage[] = [];
+        future.onIOPub = (msg) => {
+          if (["execute_result", "display_data", "stream", "error"].includes(msg.header.msg_type)) outputs.push(msg);
+        };
+        const reply = await future.done;
+        const shown = outputs.map((m) => JSON.stringify(m.content)).join("\n");
+        expect(reply.content.status, `cell ${code}\n${shown}\n${server.log().slice(-2000)}`).toBe("ok");
+        for (const m of outputs) {
+          const c = m.content as { data?: Record<string, unknown>; metadata?: Record<string, unknown> };
+          if (typeof c.data?.["text/plain"] === "string") texts.push(c.data["text/plain"]);
+          const meta = c.metadata?.[OUTPUT_METADATA_KEY] as { receipt?: Receipt } | undefined;
+          if (meta?.receipt) receipts.push(meta.receipt);
+        }
+      }
+    } finally {
+      await session.shutdown();
+      session.dispose();
+      sessions.dispose();
+      kernels.dispose();
+    }
+
+    // Four releases: Q1 count, Q2 means by district, Q3 counts by reason, Q4 median.
+    expect(receipts.length).toBe(4);
+    const key = loadPublicKey(readFileSync(join(demoDir, "keys", "curator.key.pub"), "utf8"));
+    for (const r of receipts) {
+      expect(r.analyst).toBe("kit");
+      expect(r.dataset).toBe("visits-course");
+      expect(verifyReceipt(r, key)).toEqual({ ok: true });
+    }
+    expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
+  });
+});
