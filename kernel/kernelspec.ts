@@ -12,8 +12,9 @@
  * kernelspec's `env` (jupyter_client "Kernel specs"), chosen in the notebook's kernel picker and
  * recorded in the notebook's metadata.kernelspec.name. The env names the analyst, the curator and
  * the token FILE; the token is read from that file (0600, runtime/api/token-file.ts) when a cell
- * first uses `hush`, so it is never in kernel.json (which jupyter-server serves over HTTP with the
- * kernelspec's other resources) nor in a notebook. Every other identity variable is set to "" so a
+ * first uses `hush`, so it is never in kernel.json (jupyter-server serves every file of a kernelspec
+ * directory to its clients: jupyter_server/kernelspecs/handlers.py, KernelSpecResourceHandler) nor
+ * in a notebook. Every other identity variable is set to "" so a
  * HUSH_TOKEN or HUSH_CONFIG the server was started with cannot mix in.
  */
 import { existsSync, mkdirSync, writeFileSync } from "node:fs";

@@ -17,12 +17,12 @@ import { spawnSync } from "node:child_process";
 import { chmodSync, cpSync, mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
-import { afterAll, describe, expect, it } from "vitest";
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { KernelManager, KernelSpecManager, ServerConnection, SessionManager, type KernelMessage } from "@jupyterlab/services";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { loadPublicKey, verifyReceipt } from "../../runtime/protocol/receipts.js";
-import { findPython, startJupyterServer, type RunningServer } from "./tools.js";
+import { findPython, run, startJupyterServer, type RunningServer } from "./tools.js";
 
 const ROOT = resolve(import.meta.dirname, "../..");
 const CLI = join(ROOT, "dist", "cli", "main.js");
@@ -37,6 +37,15 @@ function readmeCourseSteps(): string[] {
   const block = /```\n([\s\S]*?)```/.exec(readme.slice(at));
   expect(block, "the student version section has a fenced block of commands").not.toBeNull();
   return block![1].split("\n").filter((l) => l.trim() !== "");
+}
+
+/** The headless command the student version gives after "Headless, the same identity runs with". */
+function readmeHeadlessStep(): string {
+  const readme = readFileSync(join(ROOT, "README.md"), "utf8");
+  const section = readme.slice(readme.indexOf("The student version"));
+  const m = /Headless, the same identity runs with\s+`([^`]+)`/.exec(section);
+  expect(m, "the student version names a headless command").not.toBeNull();
+  return m![1];
 }
 
 const work = mkdtempSync(join(tmpdir(), "hush-course-"));
@@ -57,17 +66,19 @@ function studentEnv(): NodeJS.ProcessEnv {
 }
 
 describe.skipIf(!python)("the course notebook, as the README tells a student to run it", () => {
-  it("runs as kit on visits-course through jupyter server, with no token in kernel.json", { timeout: 600_000 }, async () => {
+  // The README's steps up to opening the notebook: save the token, install the student's kernel.
+  beforeAll(() => {
     mkdirSync(home, { recursive: true });
     mkdirSync(bin, { recursive: true });
     writeFileSync(join(bin, "hush"), `#!/bin/sh\nexec "${process.execPath}" "${CLI}" "$@"\n`);
     chmodSync(join(bin, "hush"), 0o755);
-
     const steps = readmeCourseSteps();
-    const open = steps[steps.length - 1];
-    expect(open).toBe(`jupyter notebook ${NOTEBOOK}`);
+    expect(steps[steps.length - 1]).toBe(`jupyter notebook ${NOTEBOOK}`);
     const setup = spawnSync("bash", ["-euc", steps.slice(0, -1).join("\n")], { cwd: ROOT, env: studentEnv(), encoding: "utf8", timeout: 60_000 });
     expect(setup.status, setup.stderr).toBe(0);
+  });
+
+  it("runs as kit on visits-course through jupyter server, with no token in kernel.json", { timeout: 600_000 }, async () => {
 
     // What `hush install` wrote: found by Jupyter under the student's HOME, naming a token file.
     const specFile = join(home, ".local", "share", "jupyter", "kernels", "hush-visits-course", "kernel.json");
@@ -138,5 +149,26 @@ describe.skipIf(!python)("the course notebook, as the README tells a student to 
       expect(verifyReceipt(r, key)).toEqual({ ok: true });
     }
     expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
+  });
+
+  it("runs headless as kit with the README's hush run line", { timeout: 600_000 }, async () => {
+    const line = readmeHeadlessStep();
+    const cwd = join(work, "headless");
+    mkdirSync(join(cwd, "notebooks"), { recursive: true });
+    cpSync(join(ROOT, NOTEBOOK), join(cwd, NOTEBOOK));
+    const env = { ...studentEnv(), HUSH_DEMO_DIR: join(work, "demo-headless") };
+    const r = await run("bash", ["-euc", line], { env, cwd, timeoutMs: 500_000 });
+    expect(r.code, r.stdout + r.stderr).toBe(0);
+    const out = JSON.parse(readFileSync(join(cwd, "notebooks", "course-assignment.out.ipynb"), "utf8"));
+    const key = loadPublicKey(readFileSync(join(work, "demo-headless", "keys", "curator.key.pub"), "utf8"));
+    const receipts: Receipt[] = out.cells
+      .flatMap((c: { outputs?: { metadata?: Record<string, { receipt?: Receipt }> }[] }) => c.outputs ?? [])
+      .map((o: { metadata?: Record<string, { receipt?: Receipt }> }) => o.metadata?.[OUTPUT_METADATA_KEY]?.receipt)
+      .filter((x: Receipt | undefined): x is Receipt => x !== undefined);
+    expect(receipts.length).toBe(4);
+    for (const rc of receipts) {
+      expect([rc.analyst, rc.dataset]).toEqual(["kit", "visits-course"]);
+      expect(verifyReceipt(rc, key)).toEqual({ ok: true });
+    }
   });
 });
