@@ -28,6 +28,12 @@ const ROOT = resolve(import.meta.dirname, "../..");
 const CLI = join(ROOT, "dist", "cli", "main.js");
 const NOTEBOOK = "notebooks/course-assignment.ipynb";
 const python = findPython(["jupyter_server"], "course notebook under jupyter server");
+// The classic notebook server (Debian jupyter-notebook, 6.x) is optional: run there too when present.
+const classicPython = findPython(["notebook"], "course notebook under the classic notebook server");
+const SERVERS = [
+  { what: "jupyter server", python, classic: false },
+  { what: "the classic notebook server", python: classicPython, classic: true },
+];
 
 /** The fenced block after "The student version" in README.md, as lines. */
 function readmeCourseSteps(): string[] {
@@ -51,10 +57,11 @@ function readmeHeadlessStep(): string {
 const work = mkdtempSync(join(tmpdir(), "hush-course-"));
 const home = join(work, "home");
 const bin = join(work, "bin");
-const demoDir = join(work, "demo");
-let server: RunningServer | null = null;
+/** Each server's embedded demo keeps its own ledger, so the runs are independent. */
+const demoDir = (classic: boolean): string => join(work, classic ? "demo-classic" : "demo");
+const servers: RunningServer[] = [];
 afterAll(() => {
-  server?.stop();
+  for (const s of servers) s.stop();
   rmSync(work, { recursive: true, force: true });
 });
 
@@ -65,7 +72,7 @@ function studentEnv(): NodeJS.ProcessEnv {
   return env;
 }
 
-describe.skipIf(!python)("the course notebook, as the README tells a student to run it", () => {
+describe.skipIf(!python && !classicPython)("the course notebook, as the README tells a student to run it", () => {
   // The README's steps up to opening the notebook: save the token, install the student's kernel.
   beforeAll(() => {
     mkdirSync(home, { recursive: true });
@@ -78,78 +85,81 @@ describe.skipIf(!python)("the course notebook, as the README tells a student to 
     expect(setup.status, setup.stderr).toBe(0);
   });
 
-  it("runs as kit on visits-course through jupyter server, with no token in kernel.json", { timeout: 600_000 }, async () => {
+  for (const { what, python: py, classic } of SERVERS) {
+    it.skipIf(py === null)(`runs as kit on visits-course through ${what}, with no token in kernel.json`, { timeout: 600_000 }, async () => {
 
-    // What `hush install` wrote: found by Jupyter under the student's HOME, naming a token file.
-    const specFile = join(home, ".local", "share", "jupyter", "kernels", "hush-visits-course", "kernel.json");
-    const specText = readFileSync(specFile, "utf8");
-    expect(specText).not.toContain("demo-kit-not-secret");
-    expect(JSON.parse(specText).env).toMatchObject({ HUSH_ANALYST: "kit", HUSH_CURATOR: "embedded", HUSH_TOKEN: "" });
+      // What `hush install` wrote: found by Jupyter under the student's HOME, naming a token file.
+      const specFile = join(home, ".local", "share", "jupyter", "kernels", "hush-visits-course", "kernel.json");
+      const specText = readFileSync(specFile, "utf8");
+      expect(specText).not.toContain("demo-kit-not-secret");
+      expect(JSON.parse(specText).env).toMatchObject({ HUSH_ANALYST: "kit", HUSH_CURATOR: "embedded", HUSH_TOKEN: "" });
 
-    const nb = JSON.parse(readFileSync(join(ROOT, NOTEBOOK), "utf8"));
-    const kernelName: string = nb.metadata.kernelspec.name;
-    expect(kernelName).toBe("hush-visits-course");
+      const nb = JSON.parse(readFileSync(join(ROOT, NOTEBOOK), "utf8"));
+      const kernelName: string = nb.metadata.kernelspec.name;
+      expect(kernelName).toBe("hush-visits-course");
 
-    const env: NodeJS.ProcessEnv = {
-      ...studentEnv(),
-      HUSH_DEMO_DIR: demoDir,
-      // A different identity in the server's environment, which the student's kernel must not use.
-      HUSH_ANALYST: "rowan",
-      HUSH_TOKEN: "demo-rowan-not-secret",
-      HUSH_CONFIG: join(work, "no-such-config.yaml"),
-    };
-    const root = join(work, "repo");
-    mkdirSync(join(root, "notebooks"), { recursive: true });
-    cpSync(join(ROOT, NOTEBOOK), join(root, NOTEBOOK)); // the server opens a copy: nothing is written into the repository
-    server = await startJupyterServer(python as string, { env, root });
-    const serverSettings = ServerConnection.makeSettings({ baseUrl: server.baseUrl, wsUrl: server.wsUrl, token: server.token });
+      const env: NodeJS.ProcessEnv = {
+        ...studentEnv(),
+        HUSH_DEMO_DIR: demoDir(classic),
+        // A different identity in the server's environment, which the student's kernel must not use.
+        HUSH_ANALYST: "rowan",
+        HUSH_TOKEN: "demo-rowan-not-secret",
+        HUSH_CONFIG: join(work, "no-such-config.yaml"),
+      };
+      const root = mkdtempSync(join(work, "repo-"));
+      mkdirSync(join(root, "notebooks"), { recursive: true });
+      cpSync(join(ROOT, NOTEBOOK), join(root, NOTEBOOK)); // the server opens a copy: nothing is written into the repository
+      const server = await startJupyterServer(py as string, { env, root, classic });
+      servers.push(server);
+      const serverSettings = ServerConnection.makeSettings({ baseUrl: server.baseUrl, wsUrl: server.wsUrl, token: server.token });
 
-    const specs = new KernelSpecManager({ serverSettings });
-    await specs.ready;
-    expect(specs.specs?.kernelspecs[kernelName]?.display_name).toBe("TypeScript (hush · kit on visits-course)");
+      const specs = new KernelSpecManager({ serverSettings });
+      await specs.ready;
+      expect(specs.specs?.kernelspecs[kernelName]?.display_name).toBe("TypeScript (hush · kit on visits-course)");
 
-    const kernels = new KernelManager({ serverSettings });
-    const sessions = new SessionManager({ kernelManager: kernels, serverSettings });
-    await sessions.ready;
-    const session = await sessions.startNew({ path: NOTEBOOK, name: "course-assignment.ipynb", type: "notebook", kernel: { name: kernelName } });
-    const receipts: Receipt[] = [];
-    const texts: string[] = [];
-    try {
-      expect(session.kernel?.name).toBe(kernelName);
-      for (const cell of nb.cells.filter((c: { cell_type: string }) => c.cell_type === "code")) {
-        const code = Array.isArray(cell.source) ? cell.source.join("") : String(cell.source);
-        const future = session.kernel!.requestExecute({ code });
-        const outputs: KernelMessage.IIOPubMessage[] = [];
-        future.onIOPub = (msg) => {
-          if (["execute_result", "display_data", "stream", "error"].includes(msg.header.msg_type)) outputs.push(msg);
-        };
-        const reply = await future.done;
-        const shown = outputs.map((m) => JSON.stringify(m.content)).join("\n");
-        expect(reply.content.status, `cell ${code}\n${shown}\n${server.log().slice(-2000)}`).toBe("ok");
-        for (const m of outputs) {
-          const c = m.content as { data?: Record<string, unknown>; metadata?: Record<string, unknown> };
-          if (typeof c.data?.["text/plain"] === "string") texts.push(c.data["text/plain"]);
-          const meta = c.metadata?.[OUTPUT_METADATA_KEY] as { receipt?: Receipt } | undefined;
-          if (meta?.receipt) receipts.push(meta.receipt);
+      const kernels = new KernelManager({ serverSettings });
+      const sessions = new SessionManager({ kernelManager: kernels, serverSettings });
+      await sessions.ready;
+      const session = await sessions.startNew({ path: NOTEBOOK, name: "course-assignment.ipynb", type: "notebook", kernel: { name: kernelName } });
+      const receipts: Receipt[] = [];
+      const texts: string[] = [];
+      try {
+        expect(session.kernel?.name).toBe(kernelName);
+        for (const cell of nb.cells.filter((c: { cell_type: string }) => c.cell_type === "code")) {
+          const code = Array.isArray(cell.source) ? cell.source.join("") : String(cell.source);
+          const future = session.kernel!.requestExecute({ code });
+          const outputs: KernelMessage.IIOPubMessage[] = [];
+          future.onIOPub = (msg) => {
+            if (["execute_result", "display_data", "stream", "error"].includes(msg.header.msg_type)) outputs.push(msg);
+          };
+          const reply = await future.done;
+          const shown = outputs.map((m) => JSON.stringify(m.content)).join("\n");
+          expect(reply.content.status, `cell ${code}\n${shown}\n${server.log().slice(-2000)}`).toBe("ok");
+          for (const m of outputs) {
+            const c = m.content as { data?: Record<string, unknown>; metadata?: Record<string, unknown> };
+            if (typeof c.data?.["text/plain"] === "string") texts.push(c.data["text/plain"]);
+            const meta = c.metadata?.[OUTPUT_METADATA_KEY] as { receipt?: Receipt } | undefined;
+            if (meta?.receipt) receipts.push(meta.receipt);
+          }
         }
+      } finally {
+        await session.shutdown();
+        session.dispose();
+        sessions.dispose();
+        kernels.dispose();
       }
-    } finally {
-      await session.shutdown();
-      session.dispose();
-      sessions.dispose();
-      kernels.dispose();
-    }
 
-    // Four releases: Q1 count, Q2 means by district, Q3 counts by reason, Q4 median.
-    expect(receipts.length).toBe(4);
-    const key = loadPublicKey(readFileSync(join(demoDir, "keys", "curator.key.pub"), "utf8"));
-    for (const r of receipts) {
-      expect(r.analyst).toBe("kit");
-      expect(r.dataset).toBe("visits-course");
-      expect(verifyReceipt(r, key)).toEqual({ ok: true });
-    }
-    expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
-  });
+      // Four releases: Q1 count, Q2 means by district, Q3 counts by reason, Q4 median.
+      expect(receipts.length).toBe(4);
+      const key = loadPublicKey(readFileSync(join(demoDir(classic), "keys", "curator.key.pub"), "utf8"));
+      for (const r of receipts) {
+        expect(r.analyst).toBe("kit");
+        expect(r.dataset).toBe("visits-course");
+        expect(verifyReceipt(r, key)).toEqual({ ok: true });
+      }
+      expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
+    });
+  }
 
   it("runs headless as kit with the README's hush run line", { timeout: 600_000 }, async () => {
     const line = readmeHeadlessStep();

@@ -80,24 +80,28 @@ export interface RunningServer {
 }
 
 /**
- * Starts `python -m jupyter_server` on 127.0.0.1, a free port and a fresh token, and resolves once
+ * Starts `python -m jupyter_server` (or the classic `python -m notebook`) on 127.0.0.1, a free port and a fresh token, and resolves once
  * /api/status answers (polled every 200 ms; the calling test's timeout bounds the wait).
  */
-export async function startJupyterServer(python: string, opts: { env: NodeJS.ProcessEnv; root: string }): Promise<RunningServer> {
+export async function startJupyterServer(
+  python: string,
+  opts: { env: NodeJS.ProcessEnv; root: string; /** the classic notebook server (module `notebook`, 6.x) instead of jupyter_server */ classic?: boolean },
+): Promise<RunningServer> {
   const [port] = await freePorts(1);
   const token = randomBytes(16).toString("hex");
+  const app = opts.classic ? "NotebookApp" : "ServerApp";
   const server = spawn(
     python,
     [
       "-m",
-      "jupyter_server",
+      opts.classic ? "notebook" : "jupyter_server",
       "--no-browser",
       "--allow-root", // CI containers run as root
-      "--ServerApp.ip=127.0.0.1",
-      `--ServerApp.port=${port}`,
-      "--ServerApp.port_retries=0",
-      `--ServerApp.token=${token}`,
-      `--ServerApp.root_dir=${opts.root}`,
+      `--${app}.ip=127.0.0.1`,
+      `--${app}.port=${port}`,
+      `--${app}.port_retries=0`,
+      `--${app}.token=${token}`,
+      opts.classic ? `--NotebookApp.notebook_dir=${opts.root}` : `--ServerApp.root_dir=${opts.root}`,
     ],
     { env: opts.env, stdio: ["ignore", "ignore", "pipe"] },
   );
