@@ -1,12 +1,14 @@
 /**
  * Acceptance (issue 10, "Identity from Jupyter"): a student follows the README's course steps
  * word for word, then the course notebook runs as that student through a real `jupyter server`
- * driven by @jupyterlab/services (the client JupyterLab uses), on the kernel its metadata names.
+ * (and the classic notebook server, when installed) driven by @jupyterlab/services (the client
+ * JupyterLab uses), on the kernel its metadata names; and headless with the README's `hush run` line.
  *
  * The README block is read from README.md and run with bash in a fresh HOME (so `hush install`
  * writes the per-user kernelspec there, where the server looks); `hush` on PATH is the built CLI,
  * as `npm link` would put it. The block's last line opens the notebook in a notebook server; the
- * test starts `jupyter server` itself with the same HOME and opens a session on the notebook.
+ * test starts the server itself (same HOME, a free port, its own token) and opens a session on the
+ * notebook, then executes its code cells in order as Run All would.
  *
  * The server is started with a *different* identity in its environment (researcher rowan's demo
  * token, and a HUSH_CONFIG that does not exist): the releases must still be kit's, which shows that
@@ -87,7 +89,6 @@ describe.skipIf(!python && !classicPython)("the course notebook, as the README t
 
   for (const { what, python: py, classic } of SERVERS) {
     it.skipIf(py === null)(`runs as kit on visits-course through ${what}, with no token in kernel.json`, { timeout: 600_000 }, async () => {
-
       // What `hush install` wrote: found by Jupyter under the student's HOME, naming a token file.
       const specFile = join(home, ".local", "share", "jupyter", "kernels", "hush-visits-course", "kernel.json");
       const specText = readFileSync(specFile, "utf8");
