@@ -14,12 +14,12 @@
  * the token FILE; the token is read from that file (0600, runtime/api/token-file.ts) when a cell
  * first uses `hush`, so it is never in kernel.json (jupyter-server serves every file of a kernelspec
  * directory to its clients: jupyter_server/kernelspecs/handlers.py, KernelSpecResourceHandler) nor
- * in a notebook. Every other identity variable is set to "" so a
- * HUSH_TOKEN or HUSH_CONFIG the server was started with cannot mix in.
+ * in a notebook. HUSH_TOKEN, HUSH_CONFIG and an unused HUSH_CURATOR_KEY are set to "" (unset, for
+ * runtime/api/config.ts), so settings the server was started with cannot mix in.
  */
 import { existsSync, mkdirSync, writeFileSync } from "node:fs";
 import { homedir } from "node:os";
-import { join, relative, resolve, isAbsolute } from "node:path";
+import { isAbsolute, join, relative, resolve } from "node:path";
 import { fileURLToPath } from "node:url";
 import { EMBEDDED_CURATOR } from "../runtime/api/config.js";
 import { readTokenFile } from "../runtime/api/token-file.js";
