@@ -6,6 +6,7 @@ import { join } from "node:path";
 import { inflateSync } from "node:zlib";
 import { describe, expect, it } from "vitest";
 import { runInstall } from "../../cli/commands/install.js";
+import { KernelProcess } from "../../kernel/client/index.js";
 import { installKernelspec, kernelspecDir, type KernelIdentity } from "../../kernel/kernelspec.js";
 import { crc32 } from "../../kernel/png.js";
 import { BadInputError } from "../../runtime/errors.js";
@@ -129,6 +130,31 @@ describe("installKernelspec for an identity", () => {
     expect(r.status, r.stderr).toBe(0);
     expect(JSON.parse(r.stdout)).toMatchObject({ HUSH_TOKEN_FILE: tokenFile, HUSH_CURATOR_KEY: key });
     expect(env.HUSH_TOKEN_FILE).toContain("$$HOME");
+  });
+});
+
+describe("a kernel started with an identity's env", () => {
+  // The kernelspec's env as jupyter_client applies it; the kernel reads the token file when a cell
+  // first uses `hush`, so a refusal is shown in that cell (not as a kernel that dies at start).
+  it("refuses a token file others can read in the cell's error, then runs once it is fixed", { timeout: 120_000 }, async () => {
+    const prefix = mkdtempSync(join(tmpdir(), "hush-spec-"));
+    const tokenFile = privateToken();
+    const { dir } = installKernelspec({ prefix, identity: kitIdentity(tokenFile) });
+    const env = JSON.parse(readFileSync(join(dir, "kernel.json"), "utf8")).env as Record<string, string>;
+    chmodSync(tokenFile, 0o644);
+    const kernel = await KernelProcess.start({ env: { ...env, HUSH_DEMO_DIR: join(prefix, "demo") } });
+    try {
+      const first = await kernel.execute('await hush.open("visits-course")');
+      expect(first.reply.status).toBe("error");
+      expect(String(first.reply.evalue)).toContain(`chmod 600 ${tokenFile}`);
+      expect(JSON.stringify(first.outputs)).not.toContain(TOKEN);
+      chmodSync(tokenFile, 0o600);
+      const second = await kernel.execute('(await hush.open("visits-course")).toString()');
+      expect(second.reply.status, JSON.stringify(second.outputs)).toBe("ok");
+      expect(JSON.stringify(second.outputs)).toContain("as analyst kit");
+    } finally {
+      await kernel.shutdown();
+    }
   });
 });
 
