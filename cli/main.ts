@@ -8,6 +8,7 @@
  */
 import { Command, CommanderError, Option } from "commander";
 import { isHushError } from "../runtime/errors.js";
+import type { InstallOptions } from "./commands/install.js";
 
 // Each command's module is loaded only when it runs: `hush audit` must not load the kernel client,
 // the curator or DuckDB, and starts faster without them.
@@ -29,10 +30,16 @@ function program(): Command {
     .exitOverride();
 
   p.command("install")
-    .description('install the "TypeScript (hush)" Jupyter kernelspec')
+    .description('install the "TypeScript (hush)" Jupyter kernelspec, or one that runs as an analyst (--analyst)')
     .addOption(new Option("--user", "install for the current user (default)").conflicts("prefix"))
     .option("--prefix <dir>", "install under this prefix (e.g. a virtualenv)")
-    .action(async (o: { user?: boolean; prefix?: string }) => {
+    .option("--analyst <name>", "a kernelspec that runs as this analyst (needs --token-file)")
+    .option("--token-file <file>", "the file holding the analyst's token, readable only by you (chmod 600)")
+    .option("--curator <addr>", "tcp://HOST:PORT, ipc://PATH or embedded (the demo curator; the default)")
+    .option("--curator-key <z85>", "the curator's CURVE public key (for tcp)")
+    .option("--dataset <name>", "the dataset the notebook is for: names the kernelspec hush-NAME")
+    .option("--name <name>", "the kernelspec name (default hush, or hush-DATASET / hush-ANALYST with --analyst)")
+    .action(async (o: InstallOptions) => {
       const { runInstall } = await import("./commands/install.js");
       runInstall(o, out);
     });

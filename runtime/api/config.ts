@@ -1,21 +1,27 @@
 /**
  * Where the curator is and who the analyst is, from the environment or a config file.
  *
- *   HUSH_CURATOR      curator address: ipc://PATH or tcp://HOST:PORT
+ *   HUSH_CURATOR      curator address: ipc://PATH or tcp://HOST:PORT, or `embedded`
  *   HUSH_CURATOR_KEY  the curator's CURVE public key (z85, 40 characters); needed for tcp
  *   HUSH_ANALYST      analyst name in the steward's policy
  *   HUSH_TOKEN        the analyst's token
- *   HUSH_CONFIG       a JSON or YAML file with the same four settings, as
- *                     { curator, curatorKey, analyst, token } (or the variable names above)
+ *   HUSH_TOKEN_FILE   instead of HUSH_TOKEN: a file holding the token, readable only by its owner
+ *                     (runtime/api/token-file.ts); read each time the session connects
+ *   HUSH_CONFIG       a JSON or YAML file with the same settings, as
+ *                     { curator, curatorKey, analyst, token | tokenFile } (or the variable names)
  *   HUSH_DEMO_DIR     embedded mode only: where the demo data, key and ledger live
  *
- * Variables override the file. With no curator address at all, the session runs the embedded
- * default: a local curator on the demo policy (HUSH_ANALYST/HUSH_TOKEN, when set, pick the analyst).
+ * Variables override the file; a variable set to the empty string counts as unset, which is how a
+ * per-identity kernelspec (kernel/kernelspec.ts) clears any HUSH_TOKEN or HUSH_CONFIG the notebook
+ * server itself was started with, so the identity the student picked in Jupyter is the only one.
+ * With no curator address, or `embedded`, the session runs the embedded default: a local curator
+ * on the demo policy (HUSH_ANALYST with its token, when set, pick the analyst; else researcher rowan).
  */
 import { readFileSync } from "node:fs";
-import { extname } from "node:path";
+import { dirname, extname, isAbsolute, resolve } from "node:path";
 import { parse as parseYaml } from "yaml";
 import { BadInputError } from "../errors.js";
+import { readTokenFile } from "./token-file.js";
 
 export type HushConfig =
   | {
@@ -35,18 +41,25 @@ export type HushConfig =
       demoDir?: string;
     };
 
-const FILE_KEYS: Record<string, "curator" | "curatorKey" | "analyst" | "token"> = {
+type SettingKey = "curator" | "curatorKey" | "analyst" | "token" | "tokenFile";
+
+const FILE_KEYS: Record<string, SettingKey> = {
   curator: "curator",
   curatorKey: "curatorKey",
   analyst: "analyst",
   token: "token",
+  tokenFile: "tokenFile",
   HUSH_CURATOR: "curator",
   HUSH_CURATOR_KEY: "curatorKey",
   HUSH_ANALYST: "analyst",
   HUSH_TOKEN: "token",
+  HUSH_TOKEN_FILE: "tokenFile",
 };
 
-type Settings = Partial<Record<"curator" | "curatorKey" | "analyst" | "token", string>>;
+/** The curator value that asks for the embedded demo curator explicitly (a kernelspec names it). */
+export const EMBEDDED_CURATOR = "embedded";
+
+type Settings = Partial<Record<SettingKey, string>>;
 
 function readConfigFile(file: string): Settings {
   let text: string;
@@ -67,9 +80,10 @@ function readConfigFile(file: string): Settings {
   const out: Settings = {};
   for (const [k, v] of Object.entries(raw as Record<string, unknown>)) {
     const key = FILE_KEYS[k];
-    if (key === undefined) throw new BadInputError(`config file ${file}: unknown setting ${JSON.stringify(k)} (known: curator, curatorKey, analyst, token)`);
+    if (key === undefined) throw new BadInputError(`config file ${file}: unknown setting ${JSON.stringify(k)} (known: curator, curatorKey, analyst, token, tokenFile)`);
     if (typeof v !== "string" || v.trim() === "") throw new BadInputError(`config file ${file}: ${k} must be a non-empty string`);
-    out[key] = v.trim();
+    // A relative token file is read beside the config file, not wherever the kernel happens to run.
+    out[key] = key === "tokenFile" && !isAbsolute(v.trim()) ? resolve(dirname(file), v.trim()) : v.trim();
   }
   return out;
 }
@@ -77,6 +91,20 @@ function readConfigFile(file: string): Settings {
 function fromEnv(env: NodeJS.ProcessEnv, name: string): string | undefined {
   const v = env[name];
   return v === undefined || v.trim() === "" ? undefined : v.trim();
+}
+
+/**
+ * The token, or the file holding it: from the environment if either variable is set there, else
+ * from the config file. Both at one level is ambiguous and refused.
+ */
+function tokenSetting(env: NodeJS.ProcessEnv, fromFile: Settings): Pick<Settings, "token" | "tokenFile"> {
+  const token = fromEnv(env, "HUSH_TOKEN");
+  const tokenFile = fromEnv(env, "HUSH_TOKEN_FILE");
+  if (token !== undefined && tokenFile !== undefined) throw new BadInputError("set HUSH_TOKEN or HUSH_TOKEN_FILE, not both");
+  if (token !== undefined) return { token };
+  if (tokenFile !== undefined) return { tokenFile: resolve(tokenFile) };
+  if (fromFile.token !== undefined && fromFile.tokenFile !== undefined) throw new BadInputError("the config file sets token and tokenFile; keep one");
+  return fromFile.token !== undefined ? { token: fromFile.token } : fromFile.tokenFile !== undefined ? { tokenFile: fromFile.tokenFile } : {};
 }
 
 /** The connection settings from environment variables and the optional HUSH_CONFIG file. */
@@ -87,20 +115,26 @@ export function resolveConfig(env: NodeJS.ProcessEnv = process.env): HushConfig 
     curator: fromEnv(env, "HUSH_CURATOR") ?? fromFile.curator,
     curatorKey: fromEnv(env, "HUSH_CURATOR_KEY") ?? fromFile.curatorKey,
     analyst: fromEnv(env, "HUSH_ANALYST") ?? fromFile.analyst,
-    token: fromEnv(env, "HUSH_TOKEN") ?? fromFile.token,
+    ...tokenSetting(env, fromFile),
   };
   const demoDir = fromEnv(env, "HUSH_DEMO_DIR");
-  if (s.curator === undefined) {
-    if ((s.analyst === undefined) !== (s.token === undefined)) {
-      throw new BadInputError(`set both HUSH_ANALYST and HUSH_TOKEN, or neither (got only ${s.analyst !== undefined ? "HUSH_ANALYST" : "HUSH_TOKEN"})`);
+  if (s.curator === undefined || s.curator === EMBEDDED_CURATOR) {
+    if ((s.analyst === undefined) !== (s.token === undefined && s.tokenFile === undefined)) {
+      throw new BadInputError(
+        `set both HUSH_ANALYST and a token (HUSH_TOKEN or HUSH_TOKEN_FILE), or neither (got only ${s.analyst !== undefined ? "HUSH_ANALYST" : "a token"})`,
+      );
     }
-    return { mode: "embedded", ...(s.analyst ? { analyst: s.analyst, token: s.token } : {}), ...(demoDir ? { demoDir } : {}) };
+    const token = s.tokenFile !== undefined ? readTokenFile(s.tokenFile) : s.token;
+    return { mode: "embedded", ...(s.analyst ? { analyst: s.analyst, token } : {}), ...(demoDir ? { demoDir } : {}) };
   }
   const origin = fromEnv(env, "HUSH_CURATOR") !== undefined ? "environment" : `config file ${file}`;
   if (!/^(ipc:\/\/.+|tcp:\/\/[^/]+:\d+)$/.test(s.curator)) {
     throw new BadInputError(`curator address ${JSON.stringify(s.curator)} (${origin}) must be ipc://PATH or tcp://HOST:PORT`);
   }
-  const missing = [s.analyst === undefined ? "HUSH_ANALYST (analyst)" : "", s.token === undefined ? "HUSH_TOKEN (token)" : ""].filter(Boolean);
+  const missing = [
+    s.analyst === undefined ? "HUSH_ANALYST (analyst)" : "",
+    s.token === undefined && s.tokenFile === undefined ? "HUSH_TOKEN or HUSH_TOKEN_FILE (token)" : "",
+  ].filter(Boolean);
   if (missing.length) throw new BadInputError(`a curator address is configured (${origin}) but ${missing.join(" and ")} ${missing.length > 1 ? "are" : "is"} missing`);
   if (s.curator.startsWith("tcp://") && s.curatorKey === undefined) {
     throw new BadInputError(`the tcp curator address ${s.curator} needs HUSH_CURATOR_KEY (curatorKey): the curator's CURVE public key, z85`);
@@ -110,7 +144,7 @@ export function resolveConfig(env: NodeJS.ProcessEnv = process.env): HushConfig 
     address: s.curator,
     ...(s.curatorKey !== undefined ? { curveServerKey: s.curatorKey } : {}),
     analyst: s.analyst!,
-    token: s.token!,
+    token: s.tokenFile !== undefined ? readTokenFile(s.tokenFile) : s.token!,
     origin,
   };
 }

@@ -76,7 +76,8 @@ export function embeddedNotice(policyFile: string, analyst: string): string {
     "(local embedded mode: the data lives on this machine, in a separate process; cells only receive noisy aggregates " +
     "and every release is debited and signed. It does not protect the data from anyone who can read its files under " +
     "this user account: for that, the curator must run on the steward's machine or account. " +
-    "To use a steward's curator, set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN, or HUSH_CONFIG.)"
+    "To use a steward's curator, install a kernel for your identity (hush install --analyst NAME --token-file FILE --curator ADDR) " +
+    "or set HUSH_CURATOR, HUSH_ANALYST and HUSH_TOKEN (or HUSH_TOKEN_FILE), or HUSH_CONFIG.)"
   );
 }
 
