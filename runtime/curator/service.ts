@@ -11,7 +11,7 @@
 import { createHash, timingSafeEqual } from "node:crypto";
 import { existsSync } from "node:fs";
 import { Bits, cryptoBytes, type Rational } from "../core/index.js";
-import { HushError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
+import { HushError, OverCapError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
   PROTOCOL_VERSION,
   type ColumnInfo,
@@ -157,7 +157,7 @@ export class CuratorService {
 
   private describeError(e: unknown): Extract<Response, { ok: false }>["error"] {
     if (isHushError(e) && e.kind !== "internal") {
-      const spend = (e as { spend?: SpendSummary }).spend;
+      const spend = e instanceof OverCapError ? e.spend : undefined;
       return spend === undefined ? { kind: e.kind, message: e.message } : { kind: e.kind, message: e.message, spend };
     }
     // Unexpected failures may carry data (a database message quoting a value): log, never send.

@@ -48,11 +48,10 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
 export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
   const cap = capOf(d);
   const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
-  const err = new OverCapError(
+  return new OverCapError(
     `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
       `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on ${d.name} ` +
       `(spent ${spent.toString()}); nothing was spent`,
+    { spend: spendSummary(analyst, d, spent, releases) },
   );
-  (err as OverCapError & { spend?: SpendSummary }).spend = spendSummary(analyst, d, spent, releases);
-  return err;
 }

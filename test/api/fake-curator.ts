@@ -168,8 +168,9 @@ export class FakeCurator implements CuratorPort {
     if (before) return { ...structuredClone(before), replay: true, spend: this.spendOf(plan.dataset) };
     const cost = this.costOf(plan);
     if (a.spent.add(cost).gt(a.cap)) {
-      const e = new OverCapError(`this release would cost ${cost.toString()} and cross the cap of ${a.cap.toString()} on ${plan.dataset}`);
-      throw Object.assign(e, { spend: this.spendOf(plan.dataset) });
+      throw new OverCapError(`this release would cost ${cost.toString()} and cross the cap of ${a.cap.toString()} on ${plan.dataset}`, {
+        spend: this.spendOf(plan.dataset),
+      });
     }
     a.spent = a.spent.add(cost);
     a.releases += 1;

@@ -7,7 +7,6 @@ import Database from "better-sqlite3";
 import { curveKeyPair } from "zeromq";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
-import type { OverCapWithSpend } from "../../runtime/client/errors.js";
 import { Rational } from "../../runtime/core/index.js";
 import { BadInputError, OverCapError, UnknownDatasetError, UnreachableError, isHushError } from "../../runtime/errors.js";
 import { MAX_FRAME_BYTES, type QueryPlan, type Receipt, type Release } from "../../runtime/protocol/messages.js";
@@ -138,7 +137,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
         (e: unknown) => e,
       );
       expect(err).toBeInstanceOf(OverCapError);
-      const e = err as OverCapWithSpend;
+      const e = err as OverCapError;
       expect(e.message).toMatch(/over the cap.*costs epsilon 1\/2.*2\/5 left of the cap 1/);
       expect(e.spend).toMatchObject({ spentEpsilon: "3/5", remainingEpsilon: "2/5", releases: 1 });
       expect((await ben.spend("clinic")).spentEpsilon).toBe("3/5");
