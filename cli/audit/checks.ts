@@ -2,7 +2,8 @@
  * The notebook audit: what a reviewer or teaching assistant can check without the data and
  * without the curator, from the notebook and the curator's public key alone.
  *
- * In notebook order: every receipt's signature and key, one analyst and dataset per notebook, the
+ * In notebook order: every receipt's signature and key, one analyst and population per notebook (a
+ * notebook may use several datasets over the same people: their receipts form one chain), the
  * shown numbers equal the signed ones, no release without a receipt, receipts never going
  * backwards (replays of the same receipt are fine). In seq order: the chain starts at 1, has no
  * gaps, each `prev` is the hash of the receipt before, each total is the previous total plus the
@@ -19,7 +20,7 @@ export type FindingKind =
   | "malformed" // not a receipt at all
   | "signature" // signature does not match the contents
   | "key" // signed by another key
-  | "mixed" // another analyst or dataset
+  | "mixed" // another analyst or population
   | "owner" // not the analyst or dataset the reviewer expected (--analyst, --dataset)
   | "label" // output metadata names another dataset than its receipt
   | "no-receipt" // looks like a release, has no receipt
@@ -45,7 +46,10 @@ export interface AuditReport {
   ok: boolean;
   keyId: string;
   analyst: string | null;
-  dataset: string | null;
+  /** The population the receipts spend on (one chain per analyst and population). */
+  population: string | null;
+  /** The datasets the receipts name, in notebook order (all of one population). */
+  datasets: string[];
   unit: "epsilon" | "rho" | null;
   /** Release outputs with a receipt, counting replays. */
   releases: number;
@@ -66,7 +70,8 @@ export interface AuditReport {
 export interface AuditOptions {
   /** A cap in epsilon the reviewer holds the notebook to (may be stricter than the steward's). */
   cap?: Rational;
-  /** Whose notebook the reviewer expects (e.g. the student who handed it in), and on which dataset. */
+  /** Whose notebook the reviewer expects (e.g. the student who handed it in), and a dataset it must
+   * use (other datasets of the same population may appear beside it: they share the chain). */
   analyst?: string;
   dataset?: string;
 }
@@ -121,7 +126,8 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   }
 
   // ---- notebook order ----------------------------------------------------------------------
-  let owner: { analyst: string; dataset: string } | null = null;
+  let owner: { analyst: string; population: string } | null = null;
+  const datasets: string[] = [];
   const distinct = new Map<string, Placed>(); // receipt hash -> first place shown
   const bySeq = new Map<number, Placed>();
   let highest: Placed | null = null;
@@ -153,15 +159,16 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     }
     checkShown(rel, r, findings, at);
 
-    owner ??= { analyst: r.analyst, dataset: r.dataset };
-    if (r.analyst !== owner.analyst || r.dataset !== owner.dataset) {
+    owner ??= { analyst: r.analyst, population: r.population };
+    if (r.analyst !== owner.analyst || r.population !== owner.population) {
       findings.push({
         cell: rel.cell,
         kind: "mixed",
-        message: `${at(rel)}: receipt from analyst "${r.analyst}" on dataset "${r.dataset}", but this notebook's spend is for "${owner.analyst}" on "${owner.dataset}"`,
+        message: `${at(rel)}: receipt from analyst "${r.analyst}" on population "${r.population}" (dataset "${r.dataset}"), but this notebook's spend is for "${owner.analyst}" on "${owner.population}"`,
       });
       continue;
     }
+    if (!datasets.includes(r.dataset)) datasets.push(r.dataset);
     const h = receiptHash(r);
     if (distinct.has(h)) {
       replays++;
@@ -282,7 +289,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   // A copied notebook verifies under its real author's name: only the reviewer knows whose it should be.
   for (const [what, expected, actual] of [
     ["analyst", opts.analyst, owner?.analyst],
-    ["dataset", opts.dataset, owner?.dataset],
+    ["dataset", opts.dataset, opts.dataset !== undefined && datasets.includes(opts.dataset) ? opts.dataset : datasets.join(", ") || undefined],
   ] as const) {
     if (expected !== undefined && actual !== expected) {
       findings.push({
@@ -301,7 +308,8 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     ok: findings.length === 0,
     keyId,
     analyst: owner?.analyst ?? null,
-    dataset: owner?.dataset ?? null,
+    population: owner?.population ?? null,
+    datasets,
     unit: last?.r.unit ?? null,
     releases: releases.length,
     receipts: distinct.size,

@@ -5,8 +5,9 @@
  * serialises work per account.
  *
  * Order for a release (so the cap always holds and a refused query spends nothing):
- * auth → prepare (validation and cost, no data) → replay lookup → under the (analyst, dataset) lock:
- * cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
+ * auth → prepare (validation and cost, no data) → replay lookup → under the (analyst, population)
+ * lock: cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
+ * Spend is per (analyst, population): every dataset over the same people draws on one cap.
  */
 import { createHash, timingSafeEqual } from "node:crypto";
 import { existsSync } from "node:fs";
@@ -224,7 +225,7 @@ export class CuratorService {
   }
 
   private spendNow(analyst: string, d: DatasetPolicy): SpendSummary {
-    const { spent, releases } = this.ledger.spent(analyst, d.name);
+    const { spent, releases } = this.ledger.spent(analyst, d.population);
     return spendSummary(analyst, d, spent, releases);
   }
 
@@ -244,6 +245,7 @@ export class CuratorService {
     return this.ledger.entries(analyst, dataset).map((r) => ({
       seq: r.seq,
       dataset: r.dataset,
+      population: r.population,
       digest: r.digest,
       plan: r.plan,
       cost: r.cost,
@@ -256,8 +258,8 @@ export class CuratorService {
   private async preview(analyst: string, plan: QueryPlan): Promise<Preview> {
     const d = this.dataset(analyst, plan.dataset);
     const { prepared, halfWidths, notes } = await this.answerer.preview(analyst, plan);
-    const { spent, releases } = this.ledger.spent(analyst, d.name);
-    const replay = this.ledger.find(analyst, d.name, prepared.digest) !== null;
+    const { spent, releases } = this.ledger.spent(analyst, d.population);
+    const replay = this.ledger.find(analyst, d.population, prepared.digest) !== null;
     return {
       dataset: d.name,
       digest: prepared.digest,
@@ -281,18 +283,20 @@ export class CuratorService {
   private async ask(analyst: string, plan: QueryPlan): Promise<Release> {
     const d = this.dataset(analyst, plan.dataset);
     const prepared = await this.answerer.prepare(analyst, plan);
-    const earlier = this.ledger.find(analyst, d.name, prepared.digest);
+    const earlier = this.ledger.find(analyst, d.population, prepared.digest);
     if (earlier !== null) return this.replayed(analyst, d, earlier);
     const cap = capOf(d);
-    return this.lock.run(`${analyst}\u0000${d.name}`, async () => {
+    // One lock per account: asks on two datasets of one population queue behind each other.
+    return this.lock.run(`${analyst}\u0000${d.population}`, async () => {
       // While this request waited, another one may have released the same plan or spent budget.
-      const again = this.ledger.find(analyst, d.name, prepared.digest);
+      const again = this.ledger.find(analyst, d.population, prepared.digest);
       if (again !== null) return this.replayed(analyst, d, again);
-      const before = this.ledger.spent(analyst, d.name);
+      const before = this.ledger.spent(analyst, d.population);
       if (before.spent.add(prepared.cost).gt(cap)) throw overCapError(analyst, d, prepared.cost, before.spent, before.releases);
       const computed = await prepared.compute(new Bits(cryptoBytes));
       const outcome = this.ledger.debit({
         analyst,
+        population: d.population,
         dataset: d.name,
         digest: prepared.digest,
         plan: prepared.plan as QueryPlan,
@@ -303,6 +307,7 @@ export class CuratorService {
             {
               analyst,
               dataset: d.name,
+              population: d.population,
               seq: ctx.seq,
               digest: prepared.digest,
               unit: prepared.unit,

@@ -1,6 +1,7 @@
 /**
  * What the curator tells an analyst about their spend: the cap of an account, the SpendSummary sent
  * with every open/spend/preview/release, and the over-cap refusal (which carries the same summary).
+ * An account is (analyst, population): the amounts are the population's, over all its datasets.
  */
 import { epsilonFromRho, Rational } from "../core/index.js";
 import { OverCapError } from "../errors.js";
@@ -8,12 +9,15 @@ import type { SpendSummary } from "../protocol/messages.js";
 import { exactDecimal } from "./aggregates/budget.js";
 import type { DatasetPolicy } from "./policy.js";
 
-/** The cap in the dataset's accounting unit (epsilon for pure, rho for zCDP). */
+/** The cap in the accounting unit (epsilon for pure, rho for zCDP); one population's datasets agree on it. */
 export function capOf(d: DatasetPolicy): Rational {
   return d.accounting.mode === "pure" ? d.accounting.capEpsilon : d.accounting.capRho;
 }
 
-/** `spent` is exact in the accounting unit; zCDP summaries also state the epsilon it implies at delta. */
+/**
+ * `spent` is the analyst's exact total on the dataset's population, in the accounting unit; zCDP
+ * summaries also state the epsilon it implies at delta.
+ */
 export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
   const acc = d.accounting;
   const zero = Rational.ZERO;
@@ -21,6 +25,7 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
     return {
       analyst,
       dataset: d.name,
+      population: d.population,
       mode: "pure",
       spentEpsilon: spent.toString(),
       capEpsilon: acc.capEpsilon.toString(),
@@ -32,6 +37,7 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
   return {
     analyst,
     dataset: d.name,
+    population: d.population,
     mode: "zcdp",
     spentEpsilon: spentEpsilon.toString(),
     capEpsilon: acc.capEpsilon.toString(),
@@ -50,8 +56,8 @@ export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, 
   const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
   return new OverCapError(
     `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
-      `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on ${d.name} ` +
-      `(spent ${spent.toString()}); nothing was spent`,
+      `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on population ${d.population} ` +
+      `(dataset ${d.name} and every other dataset over the same people; spent ${spent.toString()}); nothing was spent`,
     { spend: spendSummary(analyst, d, spent, releases) },
   );
 }

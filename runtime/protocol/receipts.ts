@@ -61,6 +61,7 @@ function hasReceiptShape(r: unknown): r is Receipt {
     o.format === "hush-receipt/1" &&
     typeof o.analyst === "string" &&
     typeof o.dataset === "string" &&
+    typeof o.population === "string" &&
     typeof o.seq === "number" &&
     typeof o.digest === "string" &&
     (o.unit === "epsilon" || o.unit === "rho") &&
@@ -101,7 +102,7 @@ function parseAmount(s: string): Rational | null {
 }
 
 /**
- * Checks a set of receipts as hash chains, one chain per (analyst, dataset): every signature, seq
+ * Checks a set of receipts as hash chains, one chain per (analyst, population): every signature, seq
  * consecutive from 1, each `prev` the hash of the receipt before, each total the previous total plus
  * this cost in exact rationals, and every total within the cap. The same receipt appearing twice (a
  * replayed release shown in two cells) counts once.
@@ -118,7 +119,7 @@ export function verifyChain(
       problems.push({ seq: typeof r?.seq === "number" ? r.seq : 0, problem: check.problem ?? "invalid" });
       continue;
     }
-    const key = canonicalJson([r.analyst, r.dataset]);
+    const key = canonicalJson([r.analyst, r.population]);
     const list = chains.get(key) ?? [];
     list.push(r);
     chains.set(key, list);
@@ -129,14 +130,14 @@ export function verifyChain(
       const seen = bySeq.get(r.seq);
       if (seen === undefined) bySeq.set(r.seq, r);
       else if (receiptHash(seen) !== receiptHash(r)) {
-        problems.push({ seq: r.seq, problem: `two different receipts with seq ${r.seq} for ${r.analyst}/${r.dataset}` });
+        problems.push({ seq: r.seq, problem: `two different receipts with seq ${r.seq} for ${r.analyst}/${r.population}` });
       }
     }
     const ordered = [...bySeq.values()].sort((a, b) => a.seq - b.seq);
     let prev: Receipt | null = null;
     let prevTotal: Rational = Rational.ZERO;
     for (const r of ordered) {
-      const where = `${r.analyst}/${r.dataset} seq ${r.seq}`;
+      const where = `${r.analyst}/${r.population} seq ${r.seq}`;
       const expectedSeq = prev === null ? 1 : prev.seq + 1;
       if (r.seq !== expectedSeq) {
         problems.push({ seq: r.seq, problem: `${where}: expected seq ${expectedSeq} (receipts missing from the chain)` });

@@ -104,7 +104,7 @@ describe("cell API on a real curator", () => {
 
   test("afterCell reports this session's spend against the cap", async () => {
     const b = (await session.afterCell())!;
-    expect(b.data["text/plain"]).toMatch(/^privacy loss · clinic: this session ε [\d.]+ · ada's total ε [\d.]+ of 2 \(5 new, 1 replayed\)$/);
+    expect(b.data["text/plain"]).toMatch(/^privacy loss · clinic: this session ε [\d.]+ · ada's total on clinic\.csv ε [\d.]+ of 2 \(5 new, 1 replayed\)$/);
     expect(await session.afterCell()).toBeNull();
   });
 
@@ -144,7 +144,7 @@ describe("cell API on a real curator", () => {
     const b = (await session.render(a))!;
     expect(b.data["text/html"]).toContain("ρ 0.001 of");
     const loss = (await session.afterCell())!;
-    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total on clinic-z\.csv ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
   });
 
   test("budget and ledger", async () => {
