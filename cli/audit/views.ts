@@ -7,7 +7,7 @@
  */
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import type { Finding } from "./checks.js";
+import type { Finding } from "./findings.js";
 import type { FoundRelease } from "./notebook.js";
 
 type Row = Receipt["result"][number];

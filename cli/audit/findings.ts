@@ -1,0 +1,26 @@
+/** What the audit reports: one finding per problem, each located at a cell when it has one. */
+export type FindingKind =
+  | "malformed" // not a receipt at all
+  | "signature" // signature does not match the contents
+  | "key" // signed by another key
+  | "mixed" // another analyst or population
+  | "owner" // not the analyst or dataset the reviewer expected (--analyst, --dataset)
+  | "label" // output metadata names another dataset than its receipt
+  | "no-receipt" // looks like a release, has no receipt
+  | "shown-value" // the text shown is not the signed value
+  | "bundle-value" // a structured bundle disagrees with the signed result
+  | "reordered" // a new receipt with a smaller seq than one shown above it
+  | "duplicate-seq" // two different receipts with one seq
+  | "chain-start" // first receipt is not seq 1
+  | "gap" // missing seqs
+  | "prev-link" // prev is not the hash of the receipt before
+  | "total" // running total does not add up
+  | "cost" // cost not a positive exact rational
+  | "cap"; // over the cap, or the cap changed
+
+export interface Finding {
+  /** Index of the cell in the notebook's `cells` list (0-based), or null for whole-notebook findings. */
+  cell: number | null;
+  kind: FindingKind;
+  message: string;
+}
