@@ -24,8 +24,9 @@ function fileOf(source: string): string {
   try {
     return realpathSync(source);
   } catch (e: unknown) {
-    // Not there yet (the engine reports a missing source when it loads): its path stands for it.
-    if (e instanceof Error && "code" in e && e.code === "ENOENT") return source;
+    // Missing or unreadable (the engine refuses such a source when it loads, naming the problem):
+    // its path stands for it here.
+    if (e instanceof Error && "code" in e && typeof e.code === "string") return source;
     throw e;
   }
 }

@@ -123,7 +123,7 @@ describe("cell API on a real curator", () => {
     const p = clinic.count({ epsilon: 5 });
     await expect(p).rejects.toThrow(OverCapError);
     const left = formatDecimal(before.remainingEpsilon).replace(".", "\\.");
-    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic for ada\\.$`, "s"));
+    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic \\(population clinic\\.csv\\) for ada\\.$`, "s"));
     expect((await session.api.budget("clinic")).of("clinic")!.spend).toEqual(before);
   });
 

@@ -4,7 +4,9 @@ import { PolicyError } from "../../runtime/errors.js";
 import { Rational, rhoFromEpsilonDelta } from "../../runtime/core/index.js";
 import { loadPolicy, parsePolicy } from "../../runtime/curator/policy.js";
 import { hashToken, parseTokenHash, verifyToken } from "../../runtime/curator/tokens.js";
-import { ADA_HASH, FIXTURES, FIXTURE_POLICY, policyWith } from "../fixtures/curator-helpers.js";
+import { symlinkSync } from "node:fs";
+import { dirname } from "node:path";
+import { ADA_HASH, FIXTURES, FIXTURE_POLICY, policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
 
 const GOOD_DATASET = `    source: data.csv
     accounting: { mode: pure, cap: { epsilon: "1" } }
@@ -335,6 +337,12 @@ ${o.population === undefined ? "" : `    population: ${o.population}\n`}    colu
     expect(delta).toMatch(/datasets\.e\.accounting: .* at delta 0\.000001, e has .* at delta 0\.0000001/);
     // Two files named into one population are one account too: their accounting must agree.
     expect(refusal(two(view({ population: "p" }), view({ source: "x.csv", population: "p", accounting: `{ mode: pure, cap: { epsilon: "2" } }` })))).toMatch(/one population \("p"/);
+  });
+
+  it("finds the file behind a symlink: two paths to one file are one population", () => {
+    const file = tempPolicy(two(view({}), view({ source: "link.csv", accounting: `{ mode: pure, cap: { epsilon: "2" } }` })), { "data.csv": "age\n1\n" });
+    symlinkSync(join(dirname(file), "data.csv"), join(dirname(file), "link.csv"));
+    expect(() => loadPolicy(file)).toThrow(/datasets d and e are one population \("data\.csv"/);
   });
 
   it("lets different analysts hold different caps on one population", () => {
