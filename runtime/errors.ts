@@ -2,6 +2,8 @@
  * One error hierarchy for the whole project. Every message carries context (which field, which
  * column, which limit) but never a data value read from a sealed dataset.
  */
+import type { SpendSummary } from "./protocol/messages.js";
+
 export type HushErrorKind =
   | "bad-input" // a caller passed something malformed (plan, parameter, file)
   | "policy" // the steward's policy file is invalid
@@ -36,9 +38,12 @@ export class PolicyError extends HushError {
 }
 
 export class OverCapError extends HushError {
-  constructor(message: string, options?: { cause?: unknown }) {
+  /** The account's spend when the release was refused, when the curator stated it. */
+  readonly spend?: SpendSummary;
+  constructor(message: string, options?: { cause?: unknown; spend?: SpendSummary }) {
     super("over-cap", message, options);
     this.name = "OverCapError";
+    if (options?.spend !== undefined) this.spend = options.spend;
   }
 }
 

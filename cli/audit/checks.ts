@@ -2,17 +2,19 @@
  * The notebook audit: what a reviewer or teaching assistant can check without the data and
  * without the curator, from the notebook and the curator's public key alone.
  *
- * In notebook order: every receipt's signature and key, one analyst and dataset per notebook, the
+ * In notebook order: every receipt's signature and key, one analyst and population per notebook (a
+ * notebook may use several datasets over the same people: their receipts form one chain), the
  * shown numbers equal the signed ones, no release without a receipt, receipts never going
  * backwards (replays of the same receipt are fine). In seq order: the chain starts at 1, has no
  * gaps, each `prev` is the hash of the receipt before, each total is the previous total plus the
  * cost in exact rationals, and the spend stays within the cap.
  */
 import type { KeyObject } from "node:crypto";
-import { Rational, epsilonFromRho } from "../../runtime/core/index.js";
+import { type Rational, epsilonFromRho } from "../../runtime/core/index.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import { GENESIS_PREV, keyIdOf, receiptHash, verifyReceipt } from "../../runtime/protocol/receipts.js";
-import type { Finding } from "./finding.js";
+import { keyIdOf, receiptHash } from "../../runtime/protocol/receipts.js";
+import { type Linked, chainFindings, exact, shown, signatureFinding } from "./chain.js";
+import type { Finding } from "./findings.js";
 import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
 import { checkShown } from "./views.js";
 
@@ -20,7 +22,10 @@ export interface AuditReport {
   ok: boolean;
   keyId: string;
   analyst: string | null;
-  dataset: string | null;
+  /** The population the receipts spend on (one chain per analyst and population). */
+  population: string | null;
+  /** The datasets the receipts name, in notebook order (all of one population). */
+  datasets: string[];
   unit: "epsilon" | "rho" | null;
   /** Release outputs with a receipt, counting replays. */
   releases: number;
@@ -41,45 +46,14 @@ export interface AuditReport {
 export interface AuditOptions {
   /** A cap in epsilon the reviewer holds the notebook to (may be stricter than the steward's). */
   cap?: Rational;
-  /** Whose notebook the reviewer expects (e.g. the student who handed it in), and on which dataset. */
+  /** Whose notebook the reviewer expects (e.g. the student who handed it in), and a dataset it must
+   * use (other datasets of the same population may appear beside it: they share the chain). */
   analyst?: string;
   dataset?: string;
 }
 
 function at(rel: { cell: number; executionCount: number | null }): string {
   return rel.executionCount === null ? `cell ${rel.cell}` : `cell ${rel.cell} (In [${rel.executionCount}])`;
-}
-
-/** A rational as a reader writes it: a decimal when it has a finite one, else a fraction. */
-function shown(r: Rational): string {
-  let d = r.den;
-  while (d % 2n === 0n) d /= 2n;
-  while (d % 5n === 0n) d /= 5n;
-  return d === 1n ? r.toDecimal(1000) : r.toString();
-}
-
-function exact(s: unknown): Rational | null {
-  if (typeof s !== "string") return null;
-  try {
-    return Rational.parse(s);
-  } catch {
-    return null;
-  }
-}
-
-function wellFormedRows(result: unknown): boolean {
-  return (
-    Array.isArray(result) &&
-    result.every(
-      (row: unknown) =>
-        Array.isArray(row) &&
-        row.length === 6 &&
-        Array.isArray(row[0]) &&
-        (row[0] as unknown[]).every((k) => k === null || typeof k === "string") &&
-        typeof row[1] === "string" &&
-        row.slice(2).every((x: unknown) => x === null || typeof x === "string"),
-    )
-  );
 }
 
 interface Placed {
@@ -96,47 +70,34 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   }
 
   // ---- notebook order ----------------------------------------------------------------------
-  let owner: { analyst: string; dataset: string } | null = null;
+  let owner: { analyst: string; population: string } | null = null;
+  const datasets: string[] = [];
   const distinct = new Map<string, Placed>(); // receipt hash -> first place shown
   const bySeq = new Map<number, Placed>();
   let highest: Placed | null = null;
   let replays = 0;
   for (const rel of releases) {
     const r = rel.meta.receipt;
-    const sig = verifyReceipt(r, publicKey);
+    const bad = signatureFinding(r, publicKey, at(rel), rel.cell);
+    if (bad !== null) findings.push(bad);
     // A receipt of the wrong shape is reported once and kept out of every later check, so hostile
     // JSON cannot crash the audit or pass as part of the chain.
-    if (!sig.ok && (sig.problem?.startsWith("not a hush receipt") === true || !wellFormedRows(r.result))) {
-      findings.push({ cell: rel.cell, kind: "malformed", message: `${at(rel)}: the output's receipt is not a hush receipt (${sig.problem ?? "bad shape"})` });
-      continue;
-    }
-    if (!sig.ok && r.keyId !== keyId) {
-      findings.push({
-        cell: rel.cell,
-        kind: "key",
-        message: `${at(rel)}: receipt seq ${r.seq} names curator key ${r.keyId}, not the given key ${keyId}: the key was replaced or the receipt comes from another curator`,
-      });
-    } else if (!sig.ok) {
-      findings.push({
-        cell: rel.cell,
-        kind: "signature",
-        message: `${at(rel)}: receipt seq ${r.seq}: the signature does not match its contents (forged or edited receipt)`,
-      });
-    }
+    if (bad?.kind === "malformed") continue;
     if (rel.meta.dataset !== r.dataset) {
       findings.push({ cell: rel.cell, kind: "label", message: `${at(rel)}: output says dataset "${rel.meta.dataset}" but its receipt is for "${r.dataset}"` });
     }
     checkShown(rel, r, findings, at);
 
-    owner ??= { analyst: r.analyst, dataset: r.dataset };
-    if (r.analyst !== owner.analyst || r.dataset !== owner.dataset) {
+    owner ??= { analyst: r.analyst, population: r.population };
+    if (r.analyst !== owner.analyst || r.population !== owner.population) {
       findings.push({
         cell: rel.cell,
         kind: "mixed",
-        message: `${at(rel)}: receipt from analyst "${r.analyst}" on dataset "${r.dataset}", but this notebook's spend is for "${owner.analyst}" on "${owner.dataset}"`,
+        message: `${at(rel)}: receipt from analyst "${r.analyst}" on population "${r.population}" (dataset "${r.dataset}"), but this notebook's spend is for "${owner.analyst}" on "${owner.population}"`,
       });
       continue;
     }
+    if (!datasets.includes(r.dataset)) datasets.push(r.dataset);
     const h = receiptHash(r);
     if (distinct.has(h)) {
       replays++;
@@ -166,59 +127,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
 
   // ---- seq order ---------------------------------------------------------------------------
   const chain = [...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq);
-  const first = chain[0];
-  if (first !== undefined && first.r.seq !== 1) {
-    findings.push({
-      cell: first.rel.cell,
-      kind: "chain-start",
-      message: `${at(first.rel)}: the first receipt is seq ${first.r.seq}, not 1: the spend of releases 1..${first.r.seq - 1} is not shown in this notebook`,
-    });
-  }
-  const cap0 = first === undefined ? null : exact(first.r.cap);
-  let prevTotal: Rational | null = first !== undefined && first.r.seq === 1 ? Rational.ZERO : null;
-  let prev: Placed | null = null;
-  for (const p of chain) {
-    const { r, rel } = p;
-    const cost = exact(r.cost);
-    const total = exact(r.total);
-    const cap = exact(r.cap);
-    if (prev !== null && r.seq !== prev.r.seq + 1) {
-      const missing = r.seq - prev.r.seq - 1;
-      findings.push({
-        cell: rel.cell,
-        kind: "gap",
-        message: `${at(rel)}: receipt seq ${r.seq} follows seq ${prev.r.seq} (${at(prev.rel)}): ${missing === 1 ? `release ${prev.r.seq + 1} is` : `releases ${prev.r.seq + 1}..${r.seq - 1} are`} missing (a release cell or output was deleted)`,
-      });
-      prevTotal = null; // the running total cannot be checked across a gap
-    }
-    const linked = prev === null ? (r.seq === 1 ? GENESIS_PREV : null) : r.seq === prev.r.seq + 1 ? receiptHash(prev.r) : null;
-    if (linked !== null && r.prev !== linked) {
-      findings.push({
-        cell: rel.cell,
-        kind: "prev-link",
-        message: `${at(rel)}: receipt seq ${r.seq} does not link to ${prev === null ? "the start of the chain" : `receipt seq ${prev.r.seq} (${at(prev.rel)})`}: its prev hash differs`,
-      });
-    }
-    if (cost === null || cost.sign() <= 0) {
-      findings.push({ cell: rel.cell, kind: "cost", message: `${at(rel)}: receipt seq ${r.seq} has cost "${r.cost}", not a positive exact number` });
-    }
-    if (total === null) {
-      findings.push({ cell: rel.cell, kind: "total", message: `${at(rel)}: receipt seq ${r.seq} has total "${r.total}", not an exact number` });
-    } else if (cost !== null && prevTotal !== null && !prevTotal.add(cost).eq(total)) {
-      findings.push({
-        cell: rel.cell,
-        kind: "total",
-        message: `${at(rel)}: receipt seq ${r.seq}: total ${r.total} is not the previous total ${shown(prevTotal)} plus cost ${r.cost} (cost or total changed)`,
-      });
-    }
-    if (cap === null || cap0 === null || !cap.eq(cap0)) {
-      findings.push({ cell: rel.cell, kind: "cap", message: `${at(rel)}: receipt seq ${r.seq} states cap "${r.cap}", unlike the first receipt's "${first!.r.cap}"` });
-    } else if (total !== null && total.gt(cap)) {
-      findings.push({ cell: rel.cell, kind: "cap", message: `${at(rel)}: receipt seq ${r.seq}: total ${r.total} exceeds the cap ${r.cap}` });
-    }
-    prevTotal = total;
-    prev = p;
-  }
+  findings.push(...chainFindings(chain.map((p): Linked => ({ r: p.r, where: at(p.rel), cell: p.rel.cell }))));
 
   // ---- final spend against the reviewer's cap ---------------------------------------------
   const last = chain.at(-1);
@@ -257,7 +166,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   // A copied notebook verifies under its real author's name: only the reviewer knows whose it should be.
   for (const [what, expected, actual] of [
     ["analyst", opts.analyst, owner?.analyst],
-    ["dataset", opts.dataset, owner?.dataset],
+    ["dataset", opts.dataset, opts.dataset !== undefined && datasets.includes(opts.dataset) ? opts.dataset : datasets.join(", ") || undefined],
   ] as const) {
     if (expected !== undefined && actual !== expected) {
       findings.push({
@@ -276,7 +185,8 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     ok: findings.length === 0,
     keyId,
     analyst: owner?.analyst ?? null,
-    dataset: owner?.dataset ?? null,
+    population: owner?.population ?? null,
+    datasets,
     unit: last?.r.unit ?? null,
     releases: releases.length,
     receipts: distinct.size,

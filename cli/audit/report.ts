@@ -34,7 +34,10 @@ export function formatReport(file: string, r: AuditReport): string {
   const lines: string[] = [];
   lines.push(`hush audit: ${file}`);
   lines.push(`  curator key   ${r.keyId}`);
-  if (r.analyst !== null) lines.push(`  analyst       ${r.analyst} on dataset ${r.dataset}`);
+  if (r.analyst !== null) {
+    const on = r.datasets.length === 1 ? `dataset ${r.datasets[0]}` : `datasets ${r.datasets.join(", ")}`;
+    lines.push(`  analyst       ${r.analyst} on ${on} (population ${r.population})`);
+  }
   lines.push(`  releases      ${r.releases} output${r.releases === 1 ? "" : "s"} with receipts, ${r.receipts} distinct, ${r.replays} repeated`);
   lines.push(`  spend         ${spendText(r)}`);
   if (r.findings.length > 0) {

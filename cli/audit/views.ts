@@ -8,7 +8,7 @@
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
-import type { Finding } from "./finding.js";
+import type { Finding } from "./findings.js";
 import { htmlText } from "./html-text.js";
 import type { FoundRelease } from "./notebook.js";
 

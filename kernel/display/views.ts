@@ -148,7 +148,8 @@ export function lossText(lines: readonly LossLine[]): string {
       const s = spendAmounts(l.spend);
       const what = [l.released ? `${l.released} new` : "", l.replayed ? `${l.replayed} replayed` : ""].filter(Boolean).join(", ");
       const eps = s.unit === "rho" && l.spend.delta !== undefined ? `, ε ${q(l.spend.spentEpsilon)} of ${q(l.spend.capEpsilon)} at δ=${q(l.spend.delta)}` : "";
-      return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total ${s.symbol} ${q(s.total)} of ${q(s.cap)}${eps} (${what})`;
+      // The total is the analyst's on the population: every dataset over the same people counts.
+      return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total on ${l.spend.population} ${s.symbol} ${q(s.total)} of ${q(s.cap)}${eps} (${what})`;
     })
     .join("\n");
 }
@@ -158,7 +159,7 @@ export function lossHtml(lines: readonly LossLine[]): string {
     lines
       .map((l) => {
         const s = spendAmounts(l.spend);
-        return `<div><b>privacy loss</b> · ${esc(l.dataset)} <span style="${MUTED}">(cap is per analyst and dataset; it persists across sessions)</span></div>${budgetBar({ ...s, sessionSpent: l.sessionSpent })}`;
+        return `<div><b>privacy loss</b> · ${esc(l.dataset)} <span style="${MUTED}">(total on ${esc(l.spend.population)}: the cap is per analyst and population, shared by every dataset over the same people, and persists across sessions)</span></div>${budgetBar({ ...s, sessionSpent: l.sessionSpent })}`;
       })
       .join(""),
     "loss",

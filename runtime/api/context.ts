@@ -4,7 +4,6 @@
  * turns a refusal into an error that states the remaining budget.
  */
 import { BadInputError, HushError, OverCapError, PolicyError, ProtocolError, UnauthorizedError, UnknownDatasetError, UnreachableError } from "../errors.js";
-import type { SpendSummary } from "../protocol/messages.js";
 import type { CuratorClient } from "../client/client.js";
 import type { SessionSpend } from "./session-spend.js";
 import { remainingText } from "./text.js";
@@ -20,15 +19,6 @@ export interface ApiContext {
   readonly spend: SessionSpend;
 }
 
-/** A refusal's spend summary, when the curator sent one (over-cap errors carry it). */
-function spendOf(e: unknown): SpendSummary | undefined {
-  if (e !== null && typeof e === "object" && "spend" in e) {
-    const s = (e as { spend?: unknown }).spend;
-    if (s !== null && typeof s === "object" && typeof (s as SpendSummary).dataset === "string") return s as SpendSummary;
-  }
-  return undefined;
-}
-
 function sameKind(e: HushError, message: string): HushError {
   const options = { cause: e };
   switch (e.kind) {
@@ -37,7 +27,8 @@ function sameKind(e: HushError, message: string): HushError {
     case "policy":
       return new PolicyError(message, options);
     case "over-cap":
-      return new OverCapError(message, options);
+      // The refusal's spend summary travels with the reworded error.
+      return new OverCapError(message, { ...options, spend: e instanceof OverCapError ? e.spend : undefined });
     case "unauthorized":
       return new UnauthorizedError(message, options);
     case "unknown-dataset":
@@ -57,7 +48,8 @@ function sameKind(e: HushError, message: string): HushError {
  */
 export function withBudgetNote(e: unknown, ctx: ApiContext, dataset: string): unknown {
   if (!(e instanceof HushError)) return e;
-  const s = spendOf(e);
+  // A refusal's spend summary, when the curator sent one (over-cap errors carry it).
+  const s = e instanceof OverCapError ? e.spend : undefined;
   if (s) ctx.spend.noteSpend(s);
   const known = s ?? ctx.spend.latest(dataset);
   // Only refusals are known to have spent nothing; other failures are reported as they came.
@@ -67,7 +59,5 @@ export function withBudgetNote(e: unknown, ctx: ApiContext, dataset: string): un
   const remains = known ? remainingText(known) : null;
   const note = said ? (remains ? `${remains}.` : "") : remains ? `Nothing was spent; ${remains}.` : "Nothing was spent.";
   if (note === "") return e;
-  const out = sameKind(e, `${e.message}\n${note}`);
-  if (s) Object.assign(out, { spend: s });
-  return out;
+  return sameKind(e, `${e.message}\n${note}`);
 }

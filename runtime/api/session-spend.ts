@@ -3,7 +3,8 @@
  * dataset (exact, in the dataset's accounting unit), the latest spend summary the curator reported,
  * and the records since the end of the last cell (for the running privacy-loss line under a cell).
  *
- * The cap itself is per analyst and dataset and lives in the curator's ledger; this only tracks the
+ * The cap itself is per analyst and population (every dataset over the same people draws on one
+ * account) and lives in the curator's ledger; this only tracks the
  * part spent by this kernel, which is what "session" means in every display.
  */
 import { Rational } from "../core/index.js";
@@ -11,7 +12,7 @@ import type { Receipt, Release, SpendSummary } from "../protocol/messages.js";
 import { spendAmounts } from "./text.js";
 
 export interface QueryRecord {
-  /** Receipt sequence number (per analyst and dataset). */
+  /** Receipt sequence number (per analyst and population). */
   seq: number;
   dataset: string;
   /** Short description of the query, e.g. "mean wait_minutes by district". */
@@ -20,7 +21,7 @@ export interface QueryRecord {
   cost: string;
   unit: Receipt["unit"];
   replay: boolean;
-  /** Analyst's total on the dataset after this query, exact, in `unit`. */
+  /** Analyst's total on the dataset's population after this query, exact, in `unit`. */
   total: string;
   cap: string;
   issuedAt: string;

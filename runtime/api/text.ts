@@ -103,12 +103,17 @@ export function spendText(s: SpendSummary): string {
   return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} used · ${q(s.remainingEpsilon)} remaining · ${plural(s.releases, "release")}`;
 }
 
-/** Remaining budget in words, for refusal messages: "ε 0.2 of 3 remains on visits". */
+/**
+ * Remaining budget in words, for refusal messages: "ε 0.2 of 3 remains on visits (population
+ * clinic-patients) for rowan". The amount is the population's: every dataset over the same people
+ * draws on it, so the population is named when its name differs from the dataset's.
+ */
 export function remainingText(s: SpendSummary): string {
+  const on = s.population === s.dataset ? s.dataset : `${s.dataset} (population ${s.population})`;
   if (s.mode === "zcdp" && s.remainingRho !== undefined && s.capRho !== undefined) {
-    return `ρ ${q(s.remainingRho)} of ${q(s.capRho)} remains on ${s.dataset} for ${s.analyst}`;
+    return `ρ ${q(s.remainingRho)} of ${q(s.capRho)} remains on ${on} for ${s.analyst}`;
   }
-  return `ε ${q(s.remainingEpsilon)} of ${q(s.capEpsilon)} remains on ${s.dataset} for ${s.analyst}`;
+  return `ε ${q(s.remainingEpsilon)} of ${q(s.capEpsilon)} remains on ${on} for ${s.analyst}`;
 }
 
 export function plural(n: number, word: string): string {

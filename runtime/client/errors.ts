@@ -15,9 +15,6 @@ import {
 } from "../errors.js";
 import type { SpendSummary } from "../protocol/messages.js";
 
-/** An over-cap error from the curator carries the spend summary at the time of refusal. */
-export type OverCapWithSpend = OverCapError & { spend?: SpendSummary };
-
 const KNOWN: ReadonlySet<string> = new Set<HushErrorKind>([
   "bad-input",
   "policy",
@@ -37,11 +34,9 @@ export function errorFromWire(error: { kind: string; message: string; spend?: Sp
       return new BadInputError(message);
     case "policy":
       return new PolicyError(message);
-    case "over-cap": {
-      const e: OverCapWithSpend = new OverCapError(message);
-      if (error.spend !== undefined) e.spend = error.spend;
-      return e;
-    }
+    case "over-cap":
+      // An over-cap refusal carries the spend summary at the time of refusal.
+      return new OverCapError(message, { spend: error.spend });
     case "unauthorized":
       return new UnauthorizedError(message);
     case "unknown-dataset":

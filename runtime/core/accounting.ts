@@ -3,8 +3,9 @@
  * addition; zCDP rho composes by addition and its cap is given by the steward as (epsilon, delta),
  * converted once to a rho cap with the Canonne, Kamath & Steinke (2020) bound. Converted values are
  * rounded in the safe direction before they are stored or shown: a rho cap down, an epsilon up.
+ * Spend itself is kept by the curator's ledger (runtime/curator/ledger.ts), not here.
  */
-import { BadInputError, HushError, OverCapError } from "../errors.js";
+import { BadInputError } from "../errors.js";
 import { Rational } from "./rational.js";
 
 export type AccountingMode = "pure" | "zcdp";
@@ -145,105 +146,4 @@ export function rhoFromEpsilonDelta(epsilon: Rational, delta: Rational): Rationa
   }
   if (rho.sign() <= 0) throw new BadInputError(`the cap epsilon ${epsilon} at delta ${delta} leaves no usable rho`);
   return rho;
-}
-
-/** Reserved cost, to be committed once the release has been made, or released if nothing left. */
-export class Reservation {
-  readonly cost: Rational;
-  private state: "open" | "committed" | "released" = "open";
-  private readonly onDone: (r: Reservation, commit: boolean) => void;
-
-  constructor(cost: Rational, onDone: (r: Reservation, commit: boolean) => void) {
-    this.cost = cost;
-    this.onDone = onDone;
-  }
-
-  get open(): boolean {
-    return this.state === "open";
-  }
-
-  commit(): void {
-    this.finish(true);
-  }
-
-  release(): void {
-    this.finish(false);
-  }
-
-  private finish(commit: boolean): void {
-    if (this.state !== "open") {
-      throw new HushError("internal", `reservation of ${this.cost} already ${this.state}; cannot ${commit ? "commit" : "release"} it again`);
-    }
-    this.state = commit ? "committed" : "released";
-    this.onDone(this, commit);
-  }
-}
-
-/**
- * An in-memory, exact budget: can afford → reserve → commit / release. Open reservations count
- * against the cap, so concurrent queries can never together cross it. The curator wraps this in
- * its ledger transaction. Costs are epsilon in "pure" mode and rho in "zcdp" mode.
- */
-export class BudgetAccount {
-  readonly mode: AccountingMode;
-  private readonly capValue: Rational;
-  private spentValue: Rational;
-  private reservedValue = Rational.ZERO;
-
-  constructor(args: { mode: AccountingMode; cap: Rational; spent?: Rational }) {
-    if (args.mode !== "pure" && args.mode !== "zcdp") throw new BadInputError(`accounting mode must be "pure" or "zcdp", got ${String(args.mode)}`);
-    checkCost(args.cap);
-    const spent = args.spent ?? Rational.ZERO;
-    if (!(spent instanceof Rational) || spent.sign() < 0) throw new BadInputError("spent budget must be a non-negative rational");
-    this.mode = args.mode;
-    this.capValue = args.cap;
-    this.spentValue = spent;
-  }
-
-  get cap(): Rational {
-    return this.capValue;
-  }
-  get spent(): Rational {
-    return this.spentValue;
-  }
-  get reserved(): Rational {
-    return this.reservedValue;
-  }
-  /** cap - spent - reserved, never below zero. */
-  get remaining(): Rational {
-    const r = this.capValue.sub(this.spentValue).sub(this.reservedValue);
-    return r.sign() < 0 ? Rational.ZERO : r;
-  }
-
-  private unit(): string {
-    return this.mode === "pure" ? "epsilon" : "rho";
-  }
-
-  canAfford(cost: Rational): boolean {
-    checkCost(cost);
-    return this.spentValue.add(this.reservedValue).add(cost).le(this.capValue);
-  }
-
-  /** Holds `cost` against the cap; OverCapError if it would cross it. */
-  reserve(cost: Rational): Reservation {
-    checkCost(cost);
-    if (!this.canAfford(cost)) {
-      const held = this.reservedValue.isZero() ? "" : ` (+ ${this.reservedValue.toDecimal()} reserved)`;
-      throw new OverCapError(
-        `${this.unit()} cost ${cost.toDecimal()} would cross the cap: spent ${this.spentValue.toDecimal()}${held} of cap ${this.capValue.toDecimal()}, remaining ${this.remaining.toDecimal()}`,
-      );
-    }
-    this.reservedValue = this.reservedValue.add(cost);
-    return new Reservation(cost, (r, commit) => {
-      this.reservedValue = this.reservedValue.sub(r.cost);
-      if (commit) this.spentValue = this.spentValue.add(r.cost);
-    });
-  }
-
-  /** zCDP spend expressed as epsilon at delta (rounded up); pure spend as itself. */
-  spentEpsilon(delta?: Rational): Rational {
-    if (this.mode === "pure") return this.spentValue;
-    if (delta === undefined) throw new BadInputError("delta is needed to express zCDP spend as epsilon");
-    return epsilonFromRho(this.spentValue, delta);
-  }
 }

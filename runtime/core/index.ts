@@ -48,8 +48,6 @@ export {
   composeSequential,
   composeParallel,
   checkCost,
-  BudgetAccount,
-  Reservation,
 } from "./accounting.js";
 export {
   type Plan,

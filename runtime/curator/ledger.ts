@@ -1,5 +1,7 @@
 /**
  * The durable spend ledger: one SQLite row per release (better-sqlite3, WAL, synchronous=FULL).
+ * Spend, seq and the receipt hash chain are per (analyst, population): the datasets of one
+ * population (policy.ts, populations.ts) draw on one account.
  *
  * The ledger, not any in-memory counter, is the source of truth for spend: two curator processes
  * may share one ledger file (two notebooks each starting an embedded curator on the same policy),
@@ -14,15 +16,18 @@ import { PolicyError } from "../errors.js";
 import type { QueryPlan, Receipt, Release } from "../protocol/messages.js";
 import { GENESIS_PREV, receiptHash } from "../protocol/receipts.js";
 
-const SCHEMA_VERSION = "1";
+/** 2: spend keyed by (analyst, population). Version 1 keyed it by dataset name and is refused. */
+const SCHEMA_VERSION = "2";
 
 export interface LedgerRow {
   analyst: string;
+  population: string;
   dataset: string;
+  /** Per (analyst, population). */
   seq: number;
   digest: string;
   plan: QueryPlan;
-  /** Exact rationals in the dataset's accounting unit. */
+  /** Exact rationals in the population's accounting unit; `total` is the population's running total. */
   cost: string;
   total: string;
   /** The release as first sent (its `replay` is false, its `spend` the spend right after it). */
@@ -47,6 +52,7 @@ export type DebitOutcome =
 
 interface RawRow {
   analyst: string;
+  population: string;
   dataset: string;
   seq: number;
   digest: string;
@@ -61,6 +67,7 @@ interface RawRow {
 function fromRaw(r: RawRow): LedgerRow {
   return {
     analyst: r.analyst,
+    population: r.population,
     dataset: r.dataset,
     seq: r.seq,
     digest: r.digest,
@@ -91,10 +98,22 @@ export class Ledger {
     db.pragma("synchronous = FULL");
     // Another curator process on the same file may hold the write lock for one short transaction.
     db.pragma("busy_timeout = 10000");
+    db.exec("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL)");
+    // Checked before anything else is created, so a ledger of another layout is never read as this one.
+    const version = db.prepare("SELECT value FROM meta WHERE key = 'schema'").get() as { value: string } | undefined;
+    const hasReleases = db.prepare("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'releases'").get() !== undefined;
+    if ((version === undefined && hasReleases) || (version !== undefined && version.value !== SCHEMA_VERSION)) {
+      db.close();
+      throw new PolicyError(
+        `ledger ${path} has layout version ${version?.value ?? "unknown"}; this curator reads version ${SCHEMA_VERSION} ` +
+          `(spend per analyst and population). It is not read, so no spend is miscounted: keep it for the record ` +
+          `and point curator.ledger in the policy at a new file`,
+      );
+    }
     db.exec(`
-      CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
       CREATE TABLE IF NOT EXISTS releases (
         analyst TEXT NOT NULL,
+        population TEXT NOT NULL,
         dataset TEXT NOT NULL,
         seq INTEGER NOT NULL,
         digest TEXT NOT NULL,
@@ -105,16 +124,11 @@ export class Ledger {
         receipt TEXT NOT NULL,
         receipt_hash TEXT NOT NULL,
         issued_at TEXT NOT NULL,
-        PRIMARY KEY (analyst, dataset, seq),
-        UNIQUE (analyst, dataset, digest)
+        PRIMARY KEY (analyst, population, seq),
+        UNIQUE (analyst, population, digest)
       );
     `);
-    const version = db.prepare("SELECT value FROM meta WHERE key = 'schema'").get() as { value: string } | undefined;
     if (version === undefined) db.prepare("INSERT OR IGNORE INTO meta (key, value) VALUES ('schema', ?)").run(SCHEMA_VERSION);
-    else if (version.value !== SCHEMA_VERSION) {
-      db.close();
-      throw new PolicyError(`ledger ${path} has schema version ${version.value}; this curator reads version ${SCHEMA_VERSION}`);
-    }
     return new Ledger(db);
   }
 
@@ -122,42 +136,44 @@ export class Ledger {
     if (this.db.open) this.db.close();
   }
 
-  private last(analyst: string, dataset: string): { seq: number; total: string; receipt_hash: string } | undefined {
+  private last(analyst: string, population: string): { seq: number; total: string; receipt_hash: string } | undefined {
     return this.db
-      .prepare("SELECT seq, total, receipt_hash FROM releases WHERE analyst = ? AND dataset = ? ORDER BY seq DESC LIMIT 1")
-      .get(analyst, dataset) as { seq: number; total: string; receipt_hash: string } | undefined;
+      .prepare("SELECT seq, total, receipt_hash FROM releases WHERE analyst = ? AND population = ? ORDER BY seq DESC LIMIT 1")
+      .get(analyst, population) as { seq: number; total: string; receipt_hash: string } | undefined;
   }
 
-  /** Spend so far for one analyst on one dataset, in the dataset's accounting unit. */
-  spent(analyst: string, dataset: string): { spent: Rational; releases: number } {
-    const last = this.last(analyst, dataset);
+  /** Spend so far for one analyst on one population (all its datasets), in its accounting unit. */
+  spent(analyst: string, population: string): { spent: Rational; releases: number } {
+    const last = this.last(analyst, population);
     return last === undefined ? { spent: Rational.ZERO, releases: 0 } : { spent: Rational.parse(last.total), releases: last.seq };
   }
 
-  find(analyst: string, dataset: string, digest: string): LedgerRow | null {
+  /** The release of this plan to this analyst, if any (the digest covers the dataset name). */
+  find(analyst: string, population: string, digest: string): LedgerRow | null {
     const r = this.db
-      .prepare("SELECT * FROM releases WHERE analyst = ? AND dataset = ? AND digest = ?")
-      .get(analyst, dataset, digest) as RawRow | undefined;
+      .prepare("SELECT * FROM releases WHERE analyst = ? AND population = ? AND digest = ?")
+      .get(analyst, population, digest) as RawRow | undefined;
     return r === undefined ? null : fromRaw(r);
   }
 
-  /** All rows of one analyst (optionally one dataset), by dataset then seq. */
+  /** All rows of one analyst (optionally one dataset), by population then seq. */
   entries(analyst: string, dataset?: string): LedgerRow[] {
     const rows =
       dataset === undefined
-        ? this.db.prepare("SELECT * FROM releases WHERE analyst = ? ORDER BY dataset, seq").all(analyst)
-        : this.db.prepare("SELECT * FROM releases WHERE analyst = ? AND dataset = ? ORDER BY seq").all(analyst, dataset);
+        ? this.db.prepare("SELECT * FROM releases WHERE analyst = ? ORDER BY population, seq").all(analyst)
+        : this.db.prepare("SELECT * FROM releases WHERE analyst = ? AND dataset = ? ORDER BY population, seq").all(analyst, dataset);
     return (rows as RawRow[]).map(fromRaw);
   }
 
   /**
    * Check-and-debit in one BEGIN IMMEDIATE transaction: if the same plan was already released to
-   * this analyst, return that row (no spend); if `cost` would take the total past `cap`, debit
+   * this analyst, return that row (no spend); if `cost` would take the population's total past `cap`, debit
    * nothing; otherwise build the row (signing happens inside `build`) and commit it. The caller
    * sends the answer only after this returns, so a sent answer is always on disk.
    */
   debit(args: {
     analyst: string;
+    population: string;
     dataset: string;
     digest: string;
     plan: QueryPlan;
@@ -165,11 +181,11 @@ export class Ledger {
     cap: Rational;
     build: (ctx: DebitContext) => { release: Release; receipt: Receipt };
   }): DebitOutcome {
-    const { analyst, dataset, digest, plan, cost, cap } = args;
+    const { analyst, population, dataset, digest, plan, cost, cap } = args;
     const run = this.db.transaction((): DebitOutcome => {
-      const earlier = this.find(analyst, dataset, digest);
+      const earlier = this.find(analyst, population, digest);
       if (earlier !== null) return { kind: "replay", row: earlier };
-      const last = this.last(analyst, dataset);
+      const last = this.last(analyst, population);
       const spent = last === undefined ? Rational.ZERO : Rational.parse(last.total);
       const releases = last === undefined ? 0 : last.seq;
       const total = spent.add(cost);
@@ -183,11 +199,12 @@ export class Ledger {
       const { release, receipt } = args.build(ctx);
       this.db
         .prepare(
-          `INSERT INTO releases (analyst, dataset, seq, digest, plan, cost, total, release, receipt, receipt_hash, issued_at)
-           VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+          `INSERT INTO releases (analyst, population, dataset, seq, digest, plan, cost, total, release, receipt, receipt_hash, issued_at)
+           VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
         )
         .run(
           analyst,
+          population,
           dataset,
           ctx.seq,
           digest,
@@ -203,6 +220,7 @@ export class Ledger {
         kind: "new",
         row: {
           analyst,
+          population,
           dataset,
           seq: ctx.seq,
           digest,

@@ -11,6 +11,7 @@ import { parse as parseYaml } from "yaml";
 import { z } from "zod";
 import { PolicyError } from "../errors.js";
 import { type Grid, Rational, makeGrid, rhoFromEpsilonDelta } from "../core/index.js";
+import { assignPopulations } from "./populations.js";
 import { parseTokenHash } from "./tokens.js";
 
 export type ColumnPolicy =
@@ -37,6 +38,11 @@ export interface DatasetPolicy {
   description: string;
   /** Absolute path of the data file. */
   source: string;
+  /**
+   * The people the dataset is about, by name. Spend is accounted per (analyst, population): every
+   * dataset of one population draws on one cap. See populations.ts for how the name is chosen.
+   */
+  population: string;
   format: "csv" | "parquet";
   /** column null: each row is its own unit (then maxRows = maxGroups = 1). */
   unit: { column: string | null; maxRows: number; maxGroups: number };
@@ -52,6 +58,8 @@ export interface LoadedPolicy {
   ledgerPath: string;
   analysts: Map<string, { tokenHash: string }>;
   datasets: Map<string, DatasetPolicy>;
+  /** Population name -> the datasets over it, in policy order. */
+  populations: Map<string, string[]>;
 }
 
 /** Largest grid: (upper - lower)/step. Keeps squares of centred grid units inside SQL BIGINT. */
@@ -101,6 +109,7 @@ const datasetSchema = z.strictObject({
   description: z.string({ error: "must be a string" }).default(""),
   source: z.string({ error: "must be a path to a .csv or .parquet file" }).min(1),
   format: z.literal(["csv", "parquet"], { error: "must be csv or parquet" }).optional(),
+  population: z.string({ error: "must be a name such as clinic-patients" }).optional(),
   unit: z
     .strictObject({
       column: z.string().min(1).nullable().optional(),
@@ -247,9 +256,14 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
   }
 
   const datasets = new Map<string, DatasetPolicy>();
+  const named = new Map<string, string | undefined>();
   for (const [dname, d] of Object.entries(raw.datasets)) {
     const dp = `datasets.${dname}`;
     if (!NAME.test(dname)) fail(abs, dp, "dataset names use letters, digits, - and _ (at most 64, starting with a letter)");
+    if (d.population !== undefined && !NAME.test(d.population)) {
+      fail(abs, `${dp}.population`, "population names use letters, digits, - and _ (at most 64, starting with a letter)");
+    }
+    named.set(dname, d.population);
     const source = at(d.source);
     const ext = extname(source).toLowerCase();
     const format = d.format ?? (ext === ".csv" ? "csv" : ext === ".parquet" || ext === ".pq" ? "parquet" : undefined);
@@ -329,6 +343,8 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       name: dname,
       description: d.description,
       source,
+      // Filled in below, once every dataset's source is known.
+      population: "",
       format,
       unit: { column: unitColumn, maxRows, maxGroups },
       accounting,
@@ -337,6 +353,8 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
     });
   }
 
+  const populations = assignPopulations(datasets, named, (path, what) => fail(abs, path, what));
+
   return {
     file: abs,
     dir,
@@ -344,5 +362,6 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
     ledgerPath: at(raw.curator?.ledger ?? "state/ledger.sqlite"),
     analysts,
     datasets,
+    populations,
   };
 }

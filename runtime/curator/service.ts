@@ -1,38 +1,40 @@
 /**
  * The curator's request handling, independent of the transport: frame → validated request →
- * authenticated analyst → answer. The server (server.ts) only moves frames.
+ * authenticated analyst → answer. The server (server.ts) only moves frames; request-frame.ts reads
+ * and writes them, spend-summary.ts words the spend and the over-cap refusal, keyed-lock.ts
+ * serialises work per account.
  *
  * Order for a release (so the cap always holds and a refused query spends nothing):
- * auth → prepare (validation and cost, no data) → replay lookup → under the (analyst, dataset) lock:
- * cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
+ * auth → prepare (validation and cost, no data) → replay lookup → under the (analyst, population)
+ * lock: cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
+ * Spend is per (analyst, population): every dataset over the same people draws on one cap.
  */
 import { createHash, timingSafeEqual } from "node:crypto";
 import { existsSync } from "node:fs";
-import { Bits, cryptoBytes, epsilonFromRho, Rational } from "../core/index.js";
-import { HushError, OverCapError, ProtocolError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
+import { Bits, cryptoBytes, type Rational } from "../core/index.js";
+import { HushError, OverCapError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
-  MAX_FRAME_BYTES,
   PROTOCOL_VERSION,
   type ColumnInfo,
   type DatasetInfo,
-  type MechanismRecord,
   type LedgerEntry,
   type Preview,
   type QueryPlan,
   type Release,
-  type ReleaseRow,
   type Request,
   type Response,
   type ResponseBody,
   type SpendSummary,
 } from "../protocol/messages.js";
-import { parseRequest } from "../protocol/schema.js";
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
+import { KeyedLock } from "./keyed-lock.js";
 import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
+import { encodeResponse, readRequestFrame } from "./request-frame.js";
+import { capOf, overCapError, spendSummary } from "./spend-summary.js";
 import { verifyToken } from "./tokens.js";
 
 /** What the service needs from the answering side (answer.ts's Answerer; tests may pass a small fake). */
@@ -66,33 +68,11 @@ export interface ServiceParts {
   engine?: { close(): Promise<void> | void };
 }
 
-const OPS = new Set(["catalogue", "open", "ask", "preview", "spend", "ledger"]);
 const UNAUTHORIZED = "unauthorized: unknown analyst or wrong token";
 const INTERNAL = "internal error in the curator; the details are in the curator's log";
 
-/** Runs tasks one at a time per key; tasks on different keys run concurrently. */
-class KeyedLock {
-  private readonly tails = new Map<string, Promise<unknown>>();
-  async run<T>(key: string, task: () => Promise<T>): Promise<T> {
-    const before = this.tails.get(key) ?? Promise.resolve();
-    const mine = before.then(task, task);
-    const tail = mine.catch(() => undefined);
-    this.tails.set(key, tail);
-    try {
-      return await mine;
-    } finally {
-      if (this.tails.get(key) === tail) this.tails.delete(key);
-    }
-  }
-}
-
-
 function sha256(text: string): Buffer {
   return createHash("sha256").update(text, "utf8").digest();
-}
-
-function encode(res: Response): Buffer {
-  return Buffer.from(JSON.stringify(res), "utf8");
 }
 
 export class CuratorService {
@@ -159,51 +139,26 @@ export class CuratorService {
     const work = this.answerFrame(frame);
     this.inFlight.add(work);
     try {
-      return encode(await work);
+      return encodeResponse(await work);
     } finally {
       this.inFlight.delete(work);
     }
   }
 
   private async answerFrame(frame: Buffer): Promise<Response> {
-    let id = "";
+    const read = readRequestFrame(frame);
     try {
-      if (frame.length > MAX_FRAME_BYTES) {
-        // Refused unread: an oversized frame is never parsed.
-        throw new ProtocolError(`request frame of ${frame.length} bytes is over the limit of ${MAX_FRAME_BYTES} bytes`);
-      }
-      let raw: unknown;
-      try {
-        raw = JSON.parse(new TextDecoder("utf-8", { fatal: true }).decode(frame));
-      } catch {
-        throw new ProtocolError("request frame is not valid UTF-8 JSON");
-      }
-      if (typeof raw !== "object" || raw === null || Array.isArray(raw)) {
-        throw new ProtocolError("request frame must be a JSON object");
-      }
-      const envelope = raw as Record<string, unknown>;
-      if (typeof envelope.id === "string" && envelope.id.length <= 200) id = envelope.id;
-      if (envelope.v !== PROTOCOL_VERSION) {
-        throw new ProtocolError(
-          `unsupported protocol version ${JSON.stringify(envelope.v ?? null)}; this curator speaks version ${PROTOCOL_VERSION}`,
-        );
-      }
-      const body = envelope.body as Record<string, unknown> | null | undefined;
-      const op = typeof body === "object" && body !== null ? body.op : undefined;
-      if (typeof op !== "string" || !OPS.has(op)) {
-        throw new ProtocolError(`unknown op ${JSON.stringify(op ?? null)}; expected one of ${[...OPS].join(", ")}`);
-      }
+      const req = read.request();
       if (this.closing) throw new HushError("unreachable", "the curator is shutting down");
-      const req = parseRequest(raw);
-      return { v: PROTOCOL_VERSION, id, ok: true, body: await this.handle(req) };
+      return { v: PROTOCOL_VERSION, id: read.id, ok: true, body: await this.handle(req) };
     } catch (e: unknown) {
-      return { v: PROTOCOL_VERSION, id, ok: false, error: this.describeError(e) };
+      return { v: PROTOCOL_VERSION, id: read.id, ok: false, error: this.describeError(e) };
     }
   }
 
   private describeError(e: unknown): Extract<Response, { ok: false }>["error"] {
     if (isHushError(e) && e.kind !== "internal") {
-      const spend = (e as { spend?: SpendSummary }).spend;
+      const spend = e instanceof OverCapError ? e.spend : undefined;
       return spend === undefined ? { kind: e.kind, message: e.message } : { kind: e.kind, message: e.message, spend };
     }
     // Unexpected failures may carry data (a database message quoting a value): log, never send.
@@ -269,43 +224,9 @@ export class CuratorService {
     return d;
   }
 
-  private capOf(d: DatasetPolicy): Rational {
-    return d.accounting.mode === "pure" ? d.accounting.capEpsilon : d.accounting.capRho;
-  }
-
-  private summary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
-    const acc = d.accounting;
-    const zero = Rational.ZERO;
-    if (acc.mode === "pure") {
-      return {
-        analyst,
-        dataset: d.name,
-        mode: "pure",
-        spentEpsilon: spent.toString(),
-        capEpsilon: acc.capEpsilon.toString(),
-        remainingEpsilon: acc.capEpsilon.sub(spent).max(zero).toString(),
-        releases,
-      };
-    }
-    const spentEpsilon = spent.isZero() ? zero : epsilonFromRho(spent, acc.delta);
-    return {
-      analyst,
-      dataset: d.name,
-      mode: "zcdp",
-      spentEpsilon: spentEpsilon.toString(),
-      capEpsilon: acc.capEpsilon.toString(),
-      remainingEpsilon: acc.capEpsilon.sub(spentEpsilon).max(zero).toString(),
-      spentRho: spent.toString(),
-      capRho: acc.capRho.toString(),
-      remainingRho: acc.capRho.sub(spent).max(zero).toString(),
-      delta: exactDecimal(acc.delta),
-      releases,
-    };
-  }
-
   private spendNow(analyst: string, d: DatasetPolicy): SpendSummary {
-    const { spent, releases } = this.ledger.spent(analyst, d.name);
-    return this.summary(analyst, d, spent, releases);
+    const { spent, releases } = this.ledger.spent(analyst, d.population);
+    return spendSummary(analyst, d, spent, releases);
   }
 
   private open(analyst: string, name: string): DatasetInfo {
@@ -324,6 +245,7 @@ export class CuratorService {
     return this.ledger.entries(analyst, dataset).map((r) => ({
       seq: r.seq,
       dataset: r.dataset,
+      population: r.population,
       digest: r.digest,
       plan: r.plan,
       cost: r.cost,
@@ -336,8 +258,8 @@ export class CuratorService {
   private async preview(analyst: string, plan: QueryPlan): Promise<Preview> {
     const d = this.dataset(analyst, plan.dataset);
     const { prepared, halfWidths, notes } = await this.answerer.preview(analyst, plan);
-    const { spent, releases } = this.ledger.spent(analyst, d.name);
-    const replay = this.ledger.find(analyst, d.name, prepared.digest) !== null;
+    const { spent, releases } = this.ledger.spent(analyst, d.population);
+    const replay = this.ledger.find(analyst, d.population, prepared.digest) !== null;
     return {
       dataset: d.name,
       digest: prepared.digest,
@@ -347,9 +269,9 @@ export class CuratorService {
       // The prepared plan is normalized: its confidence is the one the half-widths were computed
       // at, also when it was given only inside an accuracy-first ask.
       confidence: (prepared.plan as QueryPlan).confidence ?? plan.confidence ?? 0.95,
-      affordable: replay || spent.add(prepared.cost).le(this.capOf(d)),
+      affordable: replay || spent.add(prepared.cost).le(capOf(d)),
       replay,
-      spend: this.summary(analyst, d, spent, releases),
+      spend: spendSummary(analyst, d, spent, releases),
       notes,
     };
   }
@@ -358,33 +280,23 @@ export class CuratorService {
     return { ...row.release, cost: "0", replay: true, spend: this.spendNow(analyst, d) };
   }
 
-  private overCap(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
-    const cap = this.capOf(d);
-    const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
-    const err = new OverCapError(
-      `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
-        `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on ${d.name} ` +
-        `(spent ${spent.toString()}); nothing was spent`,
-    );
-    (err as OverCapError & { spend?: SpendSummary }).spend = this.summary(analyst, d, spent, releases);
-    return err;
-  }
-
   private async ask(analyst: string, plan: QueryPlan): Promise<Release> {
     const d = this.dataset(analyst, plan.dataset);
     const prepared = await this.answerer.prepare(analyst, plan);
-    const earlier = this.ledger.find(analyst, d.name, prepared.digest);
+    const earlier = this.ledger.find(analyst, d.population, prepared.digest);
     if (earlier !== null) return this.replayed(analyst, d, earlier);
-    const cap = this.capOf(d);
-    return this.lock.run(`${analyst}\u0000${d.name}`, async () => {
+    const cap = capOf(d);
+    // One lock per account: asks on two datasets of one population queue behind each other.
+    return this.lock.run(`${analyst}\u0000${d.population}`, async () => {
       // While this request waited, another one may have released the same plan or spent budget.
-      const again = this.ledger.find(analyst, d.name, prepared.digest);
+      const again = this.ledger.find(analyst, d.population, prepared.digest);
       if (again !== null) return this.replayed(analyst, d, again);
-      const before = this.ledger.spent(analyst, d.name);
-      if (before.spent.add(prepared.cost).gt(cap)) throw this.overCap(analyst, d, prepared.cost, before.spent, before.releases);
+      const before = this.ledger.spent(analyst, d.population);
+      if (before.spent.add(prepared.cost).gt(cap)) throw overCapError(analyst, d, prepared.cost, before.spent, before.releases);
       const computed = await prepared.compute(new Bits(cryptoBytes));
       const outcome = this.ledger.debit({
         analyst,
+        population: d.population,
         dataset: d.name,
         digest: prepared.digest,
         plan: prepared.plan as QueryPlan,
@@ -395,6 +307,7 @@ export class CuratorService {
             {
               analyst,
               dataset: d.name,
+              population: d.population,
               seq: ctx.seq,
               digest: prepared.digest,
               unit: prepared.unit,
@@ -420,7 +333,7 @@ export class CuratorService {
             noiseOnly: true,
             mechanisms: computed.mechanisms,
             cost: prepared.cost.toString(),
-            spend: this.summary(analyst, d, ctx.total, ctx.seq),
+            spend: spendSummary(analyst, d, ctx.total, ctx.seq),
             replay: false,
             receipt,
             notes: [...new Set([...prepared.notes, ...computed.notes])],
@@ -435,7 +348,7 @@ export class CuratorService {
           return this.replayed(analyst, d, outcome.row);
         case "over-cap":
           // Another curator process on the same ledger spent in the meantime; the noisy answer is dropped unseen.
-          throw this.overCap(analyst, d, prepared.cost, outcome.spent, outcome.releases);
+          throw overCapError(analyst, d, prepared.cost, outcome.spent, outcome.releases);
       }
     });
   }

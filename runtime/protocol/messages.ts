@@ -76,6 +76,9 @@ export type AccountingMode = "pure" | "zcdp";
 export interface SpendSummary {
   analyst: string;
   dataset: string;
+  /** The people the dataset is about. The amounts are the analyst's spend on this population, over
+   * all of its datasets: they share one cap. */
+  population: string;
   mode: AccountingMode;
   /** Exact rationals as strings. In zcdp mode `spentRho`/`capRho` hold the accounting unit, and
    * `spentEpsilon` is the epsilon at `delta` implied by spentRho (rounded up). */
@@ -136,7 +139,9 @@ export interface Receipt {
   format: "hush-receipt/1";
   analyst: string;
   dataset: string;
-  /** 1-based, per (analyst, dataset); consecutive. */
+  /** The population the dataset is about; the chain and the running total are per (analyst, population). */
+  population: string;
+  /** 1-based, per (analyst, population); consecutive. */
   seq: number;
   /** sha256 hex of the canonical JSON of the plan. */
   digest: string;
@@ -201,8 +206,10 @@ export interface Preview {
 }
 
 export interface LedgerEntry {
+  /** Per (analyst, population). */
   seq: number;
   dataset: string;
+  population: string;
   digest: string;
   plan: QueryPlan;
   cost: string;

@@ -1,11 +1,10 @@
 /**
  * Receipt verification: pure crypto over the canonical JSON of a receipt. The curator signs with the
  * same byte layout (runtime/curator/receipts.ts); the notebook audit verifies with this file alone, so
- * nothing here may import the curator.
+ * nothing here may import the curator. Chains of receipts are checked by the audit (cli/audit/chain.ts).
  */
 import { createHash, createPublicKey, verify, type KeyObject } from "node:crypto";
 import { BadInputError } from "../errors.js";
-import { Rational } from "../core/index.js";
 import { canonicalJson } from "./canonical.js";
 import type { Receipt } from "./messages.js";
 
@@ -61,6 +60,7 @@ function hasReceiptShape(r: unknown): r is Receipt {
     o.format === "hush-receipt/1" &&
     typeof o.analyst === "string" &&
     typeof o.dataset === "string" &&
+    typeof o.population === "string" &&
     typeof o.seq === "number" &&
     typeof o.digest === "string" &&
     (o.unit === "epsilon" || o.unit === "rho") &&
@@ -90,82 +90,4 @@ export function verifyReceipt(r: Receipt, publicKey: KeyObject): { ok: boolean; 
     good = false;
   }
   return good ? { ok: true } : { ok: false, problem: "signature does not match the receipt's contents" };
-}
-
-function parseAmount(s: string): Rational | null {
-  try {
-    return Rational.parse(s);
-  } catch {
-    return null;
-  }
-}
-
-/**
- * Checks a set of receipts as hash chains, one chain per (analyst, dataset): every signature, seq
- * consecutive from 1, each `prev` the hash of the receipt before, each total the previous total plus
- * this cost in exact rationals, and every total within the cap. The same receipt appearing twice (a
- * replayed release shown in two cells) counts once.
- */
-export function verifyChain(
-  rs: Receipt[],
-  publicKey: KeyObject,
-): { ok: boolean; problems: { seq: number; problem: string }[] } {
-  const problems: { seq: number; problem: string }[] = [];
-  const chains = new Map<string, Receipt[]>();
-  for (const r of rs) {
-    const check = verifyReceipt(r, publicKey);
-    if (!check.ok) {
-      problems.push({ seq: typeof r?.seq === "number" ? r.seq : 0, problem: check.problem ?? "invalid" });
-      continue;
-    }
-    const key = canonicalJson([r.analyst, r.dataset]);
-    const list = chains.get(key) ?? [];
-    list.push(r);
-    chains.set(key, list);
-  }
-  for (const list of chains.values()) {
-    const bySeq = new Map<number, Receipt>();
-    for (const r of list) {
-      const seen = bySeq.get(r.seq);
-      if (seen === undefined) bySeq.set(r.seq, r);
-      else if (receiptHash(seen) !== receiptHash(r)) {
-        problems.push({ seq: r.seq, problem: `two different receipts with seq ${r.seq} for ${r.analyst}/${r.dataset}` });
-      }
-    }
-    const ordered = [...bySeq.values()].sort((a, b) => a.seq - b.seq);
-    let prev: Receipt | null = null;
-    let prevTotal: Rational = Rational.ZERO;
-    for (const r of ordered) {
-      const where = `${r.analyst}/${r.dataset} seq ${r.seq}`;
-      const expectedSeq = prev === null ? 1 : prev.seq + 1;
-      if (r.seq !== expectedSeq) {
-        problems.push({ seq: r.seq, problem: `${where}: expected seq ${expectedSeq} (receipts missing from the chain)` });
-      }
-      const expectedPrev = prev === null ? (r.seq === 1 ? GENESIS_PREV : null) : receiptHash(prev);
-      if (expectedPrev !== null && r.prev !== expectedPrev && r.seq === expectedSeq) {
-        problems.push({ seq: r.seq, problem: `${where}: prev does not match the hash of the receipt before` });
-      }
-      const cost = parseAmount(r.cost);
-      const total = parseAmount(r.total);
-      const cap = parseAmount(r.cap);
-      if (cost === null || total === null || cap === null) {
-        problems.push({ seq: r.seq, problem: `${where}: cost, total or cap is not an exact rational` });
-        prev = r;
-        if (total !== null) prevTotal = total;
-        continue;
-      }
-      if (cost.sign() <= 0) problems.push({ seq: r.seq, problem: `${where}: cost ${r.cost} is not positive` });
-      // Only a link to the receipt directly before lets us check the running total exactly.
-      if (r.seq === expectedSeq && !prevTotal.add(cost).eq(total)) {
-        problems.push({
-          seq: r.seq,
-          problem: `${where}: total ${r.total} is not the previous total ${prevTotal.toString()} plus cost ${r.cost}`,
-        });
-      }
-      if (total.gt(cap)) problems.push({ seq: r.seq, problem: `${where}: total ${r.total} exceeds the cap ${r.cap}` });
-      prev = r;
-      prevTotal = total;
-    }
-  }
-  return { ok: problems.length === 0, problems };
 }

@@ -79,6 +79,7 @@ const queryPlan = z.unknown().transform((raw, ctx): QueryPlan => {
 const spendSummary = z.strictObject({
   analyst: z.string(),
   dataset: z.string(),
+  population: z.string(),
   mode: z.enum(["pure", "zcdp"]),
   spentEpsilon: exact,
   capEpsilon: exact,
@@ -127,6 +128,7 @@ const receipt = z.strictObject({
   format: z.literal("hush-receipt/1"),
   analyst: z.string(),
   dataset: z.string(),
+  population: z.string(),
   seq: position,
   digest: hex64,
   unit: accountingUnit,
@@ -177,6 +179,7 @@ const preview = z.strictObject({
 const ledgerEntry = z.strictObject({
   seq: position,
   dataset: z.string(),
+  population: z.string(),
   digest: hex64,
   plan: queryPlan,
   cost: exact,

@@ -83,11 +83,13 @@ export class FakeCurator implements CuratorPort {
     const a = this.account(name);
     const rem = a.cap.sub(a.spent);
     if (a.mode === "pure") {
-      return { analyst: this.analyst, dataset: name, mode: "pure", spentEpsilon: a.spent.toString(), capEpsilon: a.cap.toString(), remainingEpsilon: rem.toString(), releases: a.releases };
+      // Each fake dataset is its own population, named after it.
+      return { analyst: this.analyst, dataset: name, population: name, mode: "pure", spentEpsilon: a.spent.toString(), capEpsilon: a.cap.toString(), remainingEpsilon: rem.toString(), releases: a.releases };
     }
     return {
       analyst: this.analyst,
       dataset: name,
+      population: name,
       mode: "zcdp",
       spentEpsilon: "0",
       capEpsilon: "1",
@@ -168,8 +170,9 @@ export class FakeCurator implements CuratorPort {
     if (before) return { ...structuredClone(before), replay: true, spend: this.spendOf(plan.dataset) };
     const cost = this.costOf(plan);
     if (a.spent.add(cost).gt(a.cap)) {
-      const e = new OverCapError(`this release would cost ${cost.toString()} and cross the cap of ${a.cap.toString()} on ${plan.dataset}`);
-      throw Object.assign(e, { spend: this.spendOf(plan.dataset) });
+      throw new OverCapError(`this release would cost ${cost.toString()} and cross the cap of ${a.cap.toString()} on ${plan.dataset}`, {
+        spend: this.spendOf(plan.dataset),
+      });
     }
     a.spent = a.spent.add(cost);
     a.releases += 1;
@@ -192,6 +195,7 @@ export class FakeCurator implements CuratorPort {
         format: "hush-receipt/1",
         analyst: this.analyst,
         dataset: plan.dataset,
+        population: plan.dataset,
         seq: a.releases,
         digest,
         unit,
@@ -208,7 +212,7 @@ export class FakeCurator implements CuratorPort {
       notes: ["Error bars are noise-only at 0.95 confidence.", "invented note"],
     };
     this.released.set(digest, release);
-    this.ledgerEntries.push({ seq: a.releases, dataset: plan.dataset, digest, plan: release.plan, cost: release.cost, total: a.spent.toString(), issuedAt: release.receipt.issuedAt, receipt: release.receipt });
+    this.ledgerEntries.push({ seq: a.releases, dataset: plan.dataset, population: plan.dataset, digest, plan: release.plan, cost: release.cost, total: a.spent.toString(), issuedAt: release.receipt.issuedAt, receipt: release.receipt });
     return structuredClone(release);
   }
 

@@ -104,7 +104,7 @@ describe("cell API on a real curator", () => {
 
   test("afterCell reports this session's spend against the cap", async () => {
     const b = (await session.afterCell())!;
-    expect(b.data["text/plain"]).toMatch(/^privacy loss · clinic: this session ε [\d.]+ · ada's total ε [\d.]+ of 2 \(5 new, 1 replayed\)$/);
+    expect(b.data["text/plain"]).toMatch(/^privacy loss · clinic: this session ε [\d.]+ · ada's total on clinic\.csv ε [\d.]+ of 2 \(5 new, 1 replayed\)$/);
     expect(await session.afterCell()).toBeNull();
   });
 
@@ -123,7 +123,7 @@ describe("cell API on a real curator", () => {
     const p = clinic.count({ epsilon: 5 });
     await expect(p).rejects.toThrow(OverCapError);
     const left = formatDecimal(before.remainingEpsilon).replace(".", "\\.");
-    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic for ada\\.$`, "s"));
+    await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic \\(population clinic\\.csv\\) for ada\\.$`, "s"));
     expect((await session.api.budget("clinic")).of("clinic")!.spend).toEqual(before);
   });
 
@@ -144,7 +144,7 @@ describe("cell API on a real curator", () => {
     const b = (await session.render(a))!;
     expect(b.data["text/html"]).toContain("ρ 0.001 of");
     const loss = (await session.afterCell())!;
-    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total on clinic-z\.csv ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
   });
 
   test("budget and ledger", async () => {

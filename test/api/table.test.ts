@@ -179,7 +179,8 @@ describe("sealed handle", () => {
     await expect(p).rejects.toThrow(OverCapError);
     await expect(p).rejects.toThrow(/cross the cap.*\nNothing was spent; ε 0\.25 of 1 remains on clinic for ada\./s);
     const err = await p.catch((e: unknown) => e);
-    expect((err as { spend?: { remainingEpsilon: string } }).spend?.remainingEpsilon).toBe("1/4");
+    expect(err).toBeInstanceOf(OverCapError);
+    expect((err as OverCapError).spend?.remainingEpsilon).toBe("1/4");
     expect((await hush.budget()).of("clinic")?.sessionSpent).toBe("3/4");
     expect(fake.asked).toHaveLength(2);
   });

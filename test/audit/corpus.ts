@@ -9,7 +9,7 @@ import { writeFileSync } from "node:fs";
 import { join, resolve } from "node:path";
 import { expect, it } from "vitest";
 import { type AuditReport, auditNotebook } from "../../cli/audit/checks.js";
-import type { FindingKind } from "../../cli/audit/finding.js";
+import type { FindingKind } from "../../cli/audit/findings.js";
 import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
@@ -179,7 +179,7 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const mine = audit(nb);
     const file = save("owner.ipynb", nb);
     const as = (args: string[]) => runCli(["audit", file, "--key", keyFile, ...args]);
-    expect(as(["--analyst", mine.analyst!, "--dataset", mine.dataset!]).code).toBe(0);
+    expect(as(["--analyst", mine.analyst!, "--dataset", mine.datasets[0]]).code).toBe(0);
     const other = as(["--analyst", `${mine.analyst!}-classmate`]);
     expect(other.code).toBe(1);
     expect(other.stdout).toContain(`the receipts are for analyst "${mine.analyst!}", not "${mine.analyst!}-classmate" as expected`);

@@ -14,8 +14,15 @@ import { GENESIS_PREV, receiptHash } from "../../runtime/protocol/receipts.js";
 
 type Row = Receipt["result"][number];
 
-/** A chain of receipts for one analyst and dataset with the given costs and result rows. */
-export function signedChain(key: CuratorKey, who: { analyst: string; dataset: string; cap: string }, parts: { cost: string; rows: Row[] }[]): Receipt[] {
+/**
+ * A chain of receipts for one analyst and population (default "clinic-patients") with the given
+ * costs and result rows; each part is on `who.dataset` unless it names another dataset of the population.
+ */
+export function signedChain(
+  key: CuratorKey,
+  who: { analyst: string; dataset: string; cap: string; population?: string },
+  parts: { cost: string; rows: Row[]; dataset?: string }[],
+): Receipt[] {
   let prev = GENESIS_PREV;
   let total = Rational.ZERO;
   return parts.map((p, i) => {
@@ -23,7 +30,8 @@ export function signedChain(key: CuratorKey, who: { analyst: string; dataset: st
     const r = signReceipt(
       {
         analyst: who.analyst,
-        dataset: who.dataset,
+        dataset: p.dataset ?? who.dataset,
+        population: who.population ?? "clinic-patients",
         seq: i + 1,
         digest: String(i + 1).padStart(64, "0"),
         unit: "epsilon",

@@ -62,6 +62,7 @@ describe("notebook audit on a signed, assembled notebook", () => {
       {
         analyst: "kit",
         dataset: "visits-zcdp",
+        population: "clinic-patients",
         seq: 1,
         digest: "1".padStart(64, "0"),
         unit: "rho",
@@ -87,6 +88,31 @@ describe("notebook audit on a signed, assembled notebook", () => {
     expect(eps).toBeGreaterThan(0.3);
     expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.01") }).findings.map((f) => f.kind)).toEqual(["cap"]);
     expect(auditNotebook(nb, fx.key, { cap: Rational.parse("0.54") }).findings).toEqual([]);
+  });
+
+  it("checks two datasets of one population as one chain per (analyst, population), and keeps --dataset working", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const who = { analyst: "rowan", dataset: "visits", cap: "3" };
+    const count = (v: string) => rowsOf("count", null, [[v, String(Number(v) - 30), String(Number(v) + 30)]]);
+    const receipts = signedChain(key, who, [
+      { cost: "0.5", rows: count("200") },
+      { cost: "1", rows: count("300"), dataset: "visits-course" },
+      { cost: "0.25", rows: count("400") },
+    ]);
+    const nb = assembleNotebook(receipts);
+    const r = auditNotebook(nb, fx.key, { analyst: "rowan", dataset: "visits-course" });
+    expect(r.findings).toEqual([]);
+    expect(r).toMatchObject({ ok: true, population: "clinic-patients", datasets: ["visits", "visits-course"], total: "7/4", receipts: 3 });
+    expect(auditNotebook(nb, fx.key, { dataset: "visits" }).ok).toBe(true);
+    expect(auditNotebook(nb, fx.key, { dataset: "visits-zcdp" }).findings.map((f) => f.kind)).toEqual(["owner"]);
+    // Leaving out the other dataset's receipt breaks the population's chain: its spend is not shown.
+    const partial = auditNotebook(assembleNotebook([receipts[0], receipts[2]]), fx.key);
+    expect(partial.findings.map((f) => f.kind)).toEqual(["gap"]);
+    // A receipt on another population of the same analyst is another chain: not mixed into this one.
+    const [elsewhere] = signedChain(key, { ...who, population: "other-people" }, [{ cost: "0.1", rows: count("500") }]);
+    const mixed = auditNotebook(assembleNotebook([...receipts, elsewhere]), fx.key);
+    expect(mixed.findings.map((f) => f.kind)).toEqual(["mixed"]);
+    expect(mixed.findings[0].message).toContain('population "other-people"');
   });
 
   it("reads a numeric group key before a bin key in an HTML table as labels, not as a figure (no false finding)", () => {

@@ -22,6 +22,7 @@ const SECRET = "SECRET-VALUE-4711";
 const SPEND: SpendSummary = {
   analyst: "ada",
   dataset: "clinic",
+  population: "clinic.csv",
   mode: "pure",
   spentEpsilon: "1/5",
   capEpsilon: "1",
@@ -47,6 +48,7 @@ const RELEASE: Release = {
     format: "hush-receipt/1",
     analyst: "ada",
     dataset: "clinic",
+    population: "clinic.csv",
     seq: 2,
     digest: "a".repeat(64),
     unit: "epsilon",

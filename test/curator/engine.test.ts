@@ -122,13 +122,14 @@ describe("loading", () => {
   });
 
   it("shares one table among datasets that differ only in caps and analysts", async () => {
-    const body = (cap: string) => `    source: data.csv
+    // Only d is granted: one analyst's datasets over one file share one cap, so their caps must agree.
+    const body = (cap: string, analysts = "[]") => `    source: data.csv
     accounting: { mode: pure, cap: { epsilon: "${cap}" } }
-    analysts: [ada]
+    analysts: ${analysts}
     columns:
       age: { type: integer, range: [0, 100] }
 `;
-    const file = tempPolicy(`${policyWith(body("1"))}  e:\n${body("2")}  f:\n${body("3").replace("range: [0, 100]", "range: [0, 50]")}`, {
+    const file = tempPolicy(`${policyWith(body("1", "[ada]"))}  e:\n${body("2")}  f:\n${body("3").replace("range: [0, 100]", "range: [0, 50]")}`, {
       "data.csv": "age\n3\n70\nx\n",
     });
     const e = await Engine.open(loadPolicy(file), { quiet: true });

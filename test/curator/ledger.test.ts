@@ -9,7 +9,8 @@ import { Ledger } from "../../runtime/curator/ledger.js";
 import type { CuratorKey } from "../../runtime/curator/keys.js";
 import { signReceipt } from "../../runtime/curator/receipts.js";
 import type { QueryPlan, Release } from "../../runtime/protocol/messages.js";
-import { keyIdOf, verifyChain } from "../../runtime/protocol/receipts.js";
+import { keyIdOf } from "../../runtime/protocol/receipts.js";
+import { checkReceiptChains } from "../../cli/audit/chain.js";
 
 const dir = mkdtempSync(join(tmpdir(), "hush-ledger-"));
 afterAll(() => rmSync(dir, { recursive: true, force: true }));
@@ -17,24 +18,29 @@ afterAll(() => rmSync(dir, { recursive: true, force: true }));
 const { privateKey, publicKey } = generateKeyPairSync("ed25519");
 const key: CuratorKey = { privateKey, publicKey, publicKeyB64: "", keyId: keyIdOf(publicKey) };
 
-function plan(n: number): QueryPlan {
-  return { v: 1, dataset: "visits", measure: { kind: "count" }, privacy: { epsilon: "0.1" }, where: { op: "ge", column: "age", value: n } };
+function plan(n: number, dataset = "visits"): QueryPlan {
+  return { v: 1, dataset, measure: { kind: "count" }, privacy: { epsilon: "0.1" }, where: { op: "ge", column: "age", value: n } };
 }
 
+/** Every dataset here is about one population (the same people). */
+const PEOPLE = "patients";
+
 /** Debits one fake release of `cost` for `analyst`; the digest is the plan number. */
-function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "1") {
+function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "1", dataset = "visits") {
   return ledger.debit({
     analyst,
-    dataset: "visits",
+    population: PEOPLE,
+    dataset,
     digest: `digest-${n}`,
-    plan: plan(n),
+    plan: plan(n, dataset),
     cost: Rational.parse(cost),
     cap: Rational.parse(cap),
     build: (ctx) => {
       const receipt = signReceipt(
         {
           analyst,
-          dataset: "visits",
+          dataset,
+          population: PEOPLE,
           seq: ctx.seq,
           digest: `digest-${n}`,
           unit: "epsilon",
@@ -48,7 +54,7 @@ function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "
         },
         key,
       );
-      const release = { dataset: "visits", digest: `digest-${n}`, rows: [], receipt, replay: false } as unknown as Release;
+      const release = { dataset, digest: `digest-${n}`, rows: [], receipt, replay: false } as unknown as Release;
       return { release, receipt };
     },
   });
@@ -77,7 +83,7 @@ describe("Ledger", () => {
       expect(out.kind).toBe("new");
     }
     // methods.md [C1.4c]: the exact sum of ten 1/10 is 1, where binary64 gives 0.9999999999999999 ([C1.4b]).
-    expect(ledger.spent("ada", "visits").spent.toString()).toBe("1");
+    expect(ledger.spent("ada", PEOPLE).spent.toString()).toBe("1");
     const refused = debit(ledger, "ada", 11, "0.1");
     expect(refused).toEqual({ kind: "over-cap", spent: Rational.ONE, releases: 10 });
     expect(ledger.entries("ada", "visits")).toHaveLength(10);
@@ -85,7 +91,7 @@ describe("Ledger", () => {
     const b = Ledger.open(join(dir, "exact-b.sqlite"));
     expect(debit(b, "ada", 1, "0.1", "0.3").kind).toBe("new");
     expect(debit(b, "ada", 2, "0.2", "0.3").kind).toBe("new");
-    expect(b.spent("ada", "visits").spent.toString()).toBe("3/10");
+    expect(b.spent("ada", PEOPLE).spent.toString()).toBe("3/10");
     b.close();
     ledger.close();
   });
@@ -98,7 +104,7 @@ describe("Ledger", () => {
     expect(second.kind).toBe("replay");
     if (first.kind !== "new" || second.kind !== "replay") throw new Error("unreachable");
     expect(second.row.receipt).toEqual(first.row.receipt);
-    expect(ledger.spent("ada", "visits")).toEqual({ spent: Rational.parse("1/4"), releases: 1 });
+    expect(ledger.spent("ada", PEOPLE)).toEqual({ spent: Rational.parse("1/4"), releases: 1 });
     // Another analyst asking the same plan pays for it: budgets are per analyst.
     expect(debit(ledger, "ben", 7, "1/4").kind).toBe("new");
     ledger.close();
@@ -111,14 +117,50 @@ describe("Ledger", () => {
     debit(a, "ada", 2, "1/3");
     a.close();
     const b = Ledger.open(path);
-    expect(b.spent("ada", "visits")).toEqual({ spent: Rational.parse("2/3"), releases: 2 });
+    expect(b.spent("ada", PEOPLE)).toEqual({ spent: Rational.parse("2/3"), releases: 2 });
     debit(b, "ada", 3, "1/3");
     const entries = b.entries("ada");
     expect(entries.map((e) => e.seq)).toEqual([1, 2, 3]);
     expect(entries.map((e) => e.total)).toEqual(["1/3", "2/3", "1"]);
-    expect(verifyChain(entries.map((e) => e.receipt), publicKey)).toEqual({ ok: true, problems: [] });
-    expect(b.find("ada", "visits", "digest-2")?.plan).toEqual(plan(2));
+    expect(checkReceiptChains(entries.map((e) => e.receipt), publicKey)).toEqual([]);
+    expect(b.find("ada", PEOPLE, "digest-2")?.plan).toEqual(plan(2));
     b.close();
+  });
+
+  it("keeps one account and one chain per (analyst, population) across datasets of that population", () => {
+    const ledger = Ledger.open(join(dir, "population.sqlite"));
+    expect(debit(ledger, "ada", 1, "0.5", "1", "visits").kind).toBe("new");
+    expect(debit(ledger, "ada", 2, "0.5", "1", "visits-copy").kind).toBe("new");
+    // The cap of 1 is reached over the two datasets together: a third debit on either is refused.
+    expect(debit(ledger, "ada", 3, "0.1", "1", "visits-copy")).toEqual({ kind: "over-cap", spent: Rational.ONE, releases: 2 });
+    expect(debit(ledger, "ada", 4, "0.1", "1", "visits").kind).toBe("over-cap");
+    // A replay of a release on either dataset stays free.
+    expect(debit(ledger, "ada", 1, "0.5", "1", "visits").kind).toBe("replay");
+    const rows = ledger.entries("ada");
+    expect(rows.map((r) => [r.dataset, r.seq, r.total])).toEqual([
+      ["visits", 1, "1/2"],
+      ["visits-copy", 2, "1"],
+    ]);
+    expect(rows[1].receipt.prev).not.toBe(rows[0].receipt.prev);
+    expect(checkReceiptChains(rows.map((r) => r.receipt), publicKey)).toEqual([]);
+    expect(ledger.entries("ada", "visits-copy").map((r) => r.seq)).toEqual([2]);
+    ledger.close();
+  });
+
+  it("refuses a ledger written with spend per dataset (layout 1) instead of misreading it", () => {
+    const path = join(dir, "old.sqlite");
+    const db = new Database(path);
+    db.exec(`CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+      INSERT INTO meta VALUES ('schema', '1');
+      CREATE TABLE releases (analyst TEXT NOT NULL, dataset TEXT NOT NULL, seq INTEGER NOT NULL);`);
+    db.close();
+    expect(() => Ledger.open(path)).toThrow(/layout version 1; this curator reads version 2 \(spend per analyst and population\).*new file/);
+    // A releases table without any layout record is refused the same way.
+    const bare = join(dir, "bare.sqlite");
+    const b = new Database(bare);
+    b.exec("CREATE TABLE releases (analyst TEXT NOT NULL, dataset TEXT NOT NULL, seq INTEGER NOT NULL)");
+    b.close();
+    expect(() => Ledger.open(bare)).toThrow(/layout version unknown/);
   });
 
   it("rolls back when building the row fails", () => {
@@ -126,6 +168,7 @@ describe("Ledger", () => {
     expect(() =>
       ledger.debit({
         analyst: "ada",
+        population: PEOPLE,
         dataset: "visits",
         digest: "d",
         plan: plan(1),
@@ -136,7 +179,7 @@ describe("Ledger", () => {
         },
       }),
     ).toThrow(/signing failed/);
-    expect(ledger.spent("ada", "visits").releases).toBe(0);
+    expect(ledger.spent("ada", PEOPLE).releases).toBe(0);
     ledger.close();
   });
 });

@@ -4,7 +4,9 @@ import { PolicyError } from "../../runtime/errors.js";
 import { Rational, rhoFromEpsilonDelta } from "../../runtime/core/index.js";
 import { loadPolicy, parsePolicy } from "../../runtime/curator/policy.js";
 import { hashToken, parseTokenHash, verifyToken } from "../../runtime/curator/tokens.js";
-import { ADA_HASH, FIXTURES, FIXTURE_POLICY, policyWith } from "../fixtures/curator-helpers.js";
+import { symlinkSync } from "node:fs";
+import { dirname } from "node:path";
+import { ADA_HASH, FIXTURES, FIXTURE_POLICY, policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
 
 const GOOD_DATASET = `    source: data.csv
     accounting: { mode: pure, cap: { epsilon: "1" } }
@@ -280,5 +282,79 @@ describe("policy errors name the file, the path inside it and the problem", () =
   it("defaults maxGroups to maxRows when a unit column is given", () => {
     const p = parsePolicy(policyWith(`${GOOD_DATASET}    unit: { column: pid, maxRows: 3 }\n`), "/srv/hush/policy.yaml");
     expect(p.datasets.get("d")!.unit).toEqual({ column: "pid", maxRows: 3, maxGroups: 3 });
+  });
+});
+
+describe("populations: datasets over the same people share one account per analyst", () => {
+  const FILE = "/srv/hush/policy.yaml";
+  /** A dataset body over `source`, granted to `analysts`, with `accounting` and an optional population. */
+  const view = (o: { source?: string; accounting?: string; analysts?: string; population?: string }) =>
+    `    source: ${o.source ?? "data.csv"}
+    accounting: ${o.accounting ?? `{ mode: pure, cap: { epsilon: "1" } }`}
+    analysts: ${o.analysts ?? "[ada]"}
+${o.population === undefined ? "" : `    population: ${o.population}\n`}    columns:
+      age: { type: integer, range: [0, 100] }
+`;
+  const two = (a: string, b: string) => `${policyWith(a, `  ben: { token: "${ADA_HASH}" }\n`)}  e:\n${b}`;
+  const refusal = (text: string): string => {
+    try {
+      parsePolicy(text, FILE);
+    } catch (e: unknown) {
+      expect(e).toBeInstanceOf(PolicyError);
+      return (e as PolicyError).message;
+    }
+    throw new Error("the policy loaded");
+  };
+
+  it("makes one population of two datasets over one file, named after the file", () => {
+    const p = parsePolicy(two(view({}), view({})), FILE);
+    expect(p.datasets.get("d")!.population).toBe("data.csv");
+    expect(p.datasets.get("e")!.population).toBe("data.csv");
+    expect([...p.populations]).toEqual([["data.csv", ["d", "e"]]]);
+  });
+
+  it("keeps different files apart, and takes an explicit name for a dataset and for the rest of its file", () => {
+    const apart = parsePolicy(two(view({}), view({ source: "other.csv" })), FILE);
+    expect([...apart.populations.keys()]).toEqual(["data.csv", "other.csv"]);
+    const named = parsePolicy(two(view({ population: "clinic-patients" }), view({})), FILE);
+    expect([...named.populations]).toEqual([["clinic-patients", ["d", "e"]]]);
+    // Several files may be named into one population (an export of the same patients).
+    const joined = parsePolicy(two(view({ population: "p" }), view({ source: "export.csv", population: "p" })), FILE);
+    expect([...joined.populations]).toEqual([["p", ["d", "e"]]]);
+  });
+
+  it("refuses one analyst two differing accounts on one population, naming both datasets and the path", () => {
+    const msg = refusal(two(view({}), view({ accounting: `{ mode: zcdp, cap: { epsilon: "1", delta: "1e-6" } }` })));
+    expect(msg).toContain(`${FILE}: datasets.e.accounting: datasets d and e are one population ("data.csv", the same people) and ada is granted both`);
+    expect(msg).toContain("d has pure, epsilon 1, e has zcdp, epsilon 1 at delta 0.000001");
+    expect(refusal(two(view({}), view({ accounting: `{ mode: pure, cap: { epsilon: "2" } }` })))).toMatch(/datasets d and e are one population/);
+    const delta = refusal(
+      two(
+        view({ accounting: `{ mode: zcdp, cap: { epsilon: "1", delta: "1e-6" } }` }),
+        view({ accounting: `{ mode: zcdp, cap: { epsilon: "1", delta: "1e-7" } }` }),
+      ),
+    );
+    expect(delta).toMatch(/datasets\.e\.accounting: .* at delta 0\.000001, e has .* at delta 0\.0000001/);
+    // Two files named into one population are one account too: their accounting must agree.
+    expect(refusal(two(view({ population: "p" }), view({ source: "x.csv", population: "p", accounting: `{ mode: pure, cap: { epsilon: "2" } }` })))).toMatch(/one population \("p"/);
+  });
+
+  it("finds the file behind a symlink: two paths to one file are one population", () => {
+    const file = tempPolicy(two(view({}), view({ source: "link.csv", accounting: `{ mode: pure, cap: { epsilon: "2" } }` })), { "data.csv": "age\n1\n" });
+    symlinkSync(join(dirname(file), "data.csv"), join(dirname(file), "link.csv"));
+    expect(() => loadPolicy(file)).toThrow(/datasets d and e are one population \("data\.csv"/);
+  });
+
+  it("lets different analysts hold different caps on one population", () => {
+    const p = parsePolicy(two(view({}), view({ analysts: "[ben]", accounting: `{ mode: pure, cap: { epsilon: "3" } }` })), FILE);
+    expect([...p.populations]).toEqual([["data.csv", ["d", "e"]]]);
+  });
+
+  it("refuses names that would merge or split people silently", () => {
+    expect(refusal(two(view({ population: "p" }), view({ population: "q" })))).toMatch(
+      /datasets\.e\.population: is "q", but dataset d reads the same file \/srv\/hush\/data\.csv as population "p"; one file is one set of people/,
+    );
+    expect(refusal(two(view({}), view({ source: "sub/data.csv" })))).toMatch(/datasets\.e\.source: .*two files named data\.csv; give each dataset a population name/);
+    expect(refusal(two(view({ population: "bad name" }), view({})))).toMatch(/datasets\.d\.population: population names use letters/);
   });
 });

@@ -10,9 +10,9 @@ import {
   loadPublicKey,
   receiptHash,
   receiptSigningBytes,
-  verifyChain,
   verifyReceipt,
 } from "../../runtime/protocol/receipts.js";
+import { checkReceiptChains } from "../../cli/audit/chain.js";
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "../../runtime/curator/keys.js";
 import { signReceipt, type UnsignedReceipt } from "../../runtime/curator/receipts.js";
 import { createPublicKey } from "node:crypto";
@@ -29,6 +29,7 @@ function fields(seq: number, cost: string, total: string, prev: string, cap = "1
   return {
     analyst: "ada",
     dataset: "visits",
+    population: "patients",
     seq,
     digest: "ab".repeat(32),
     unit: "epsilon",
@@ -113,46 +114,62 @@ describe("receipt bytes", () => {
   });
 });
 
-describe("verifyChain", () => {
+describe("checkReceiptChains (the audit's chain checks over any set of receipts)", () => {
   const key = freshKey();
 
   it("accepts a chain whose totals are exact running sums (methods.md [C1.4c]: ten 1/10 make 1)", () => {
     const costs = Array.from({ length: 10 }, () => "0.1");
     const totals = Array.from({ length: 10 }, (_, i) => `${i + 1}/10`);
     const rs = chain(key, costs, totals);
-    expect(verifyChain(rs, key.publicKey)).toEqual({ ok: true, problems: [] });
+    expect(checkReceiptChains(rs, key.publicKey)).toEqual([]);
     // The binary64 running sum would be 0.9999999999999999 ([C1.4b]); the exact total equals the cap.
     expect(rs[9].total).toBe("10/10");
   });
 
   it("finds a gap, a broken prev link, a wrong total and a total over the cap", () => {
     const rs = chain(key, ["1/2", "1/4", "1/4"], ["1/2", "3/4", "1"]);
-    expect(verifyChain([rs[0], rs[2]], key.publicKey).problems.map((p) => p.problem).join()).toMatch(/expected seq 2/);
+    expect(checkReceiptChains([rs[0], rs[2]], key.publicKey).map((f) => f.kind)).toEqual(["gap"]);
+    expect(checkReceiptChains([rs[0], rs[2]], key.publicKey)[0].message).toMatch(/release 2 is missing/);
 
     const wrongPrev = signReceipt(fields(2, "1/4", "3/4", "00".repeat(32)), key);
-    expect(verifyChain([rs[0], wrongPrev], key.publicKey).problems[0].problem).toMatch(/prev does not match/);
+    expect(checkReceiptChains([rs[0], wrongPrev], key.publicKey).map((f) => f.kind)).toEqual(["prev-link"]);
 
     const wrongTotal = signReceipt(fields(2, "1/4", "0.8", receiptHash(rs[0])), key);
-    expect(verifyChain([rs[0], wrongTotal], key.publicKey).problems[0].problem).toMatch(/not the previous total/);
+    expect(checkReceiptChains([rs[0], wrongTotal], key.publicKey)[0]).toMatchObject({ kind: "total", message: expect.stringMatching(/not the previous total/) });
 
     const over = chain(key, ["1/2", "3/4"], ["1/2", "5/4"]);
-    expect(verifyChain(over, key.publicKey).problems[0].problem).toMatch(/exceeds the cap/);
+    expect(checkReceiptChains(over, key.publicKey)[0]).toMatchObject({ kind: "cap", message: expect.stringMatching(/exceeds the cap/) });
 
     const unsorted = [rs[2], rs[0], rs[1]];
-    expect(verifyChain(unsorted, key.publicKey).ok).toBe(true);
+    expect(checkReceiptChains(unsorted, key.publicKey)).toEqual([]);
   });
 
   it("counts a repeated receipt once and flags two different receipts with one seq", () => {
     const rs = chain(key, ["1/2", "1/4"], ["1/2", "3/4"]);
-    expect(verifyChain([...rs, rs[1]], key.publicKey).ok).toBe(true);
+    expect(checkReceiptChains([...rs, rs[1]], key.publicKey)).toEqual([]);
     const twin = signReceipt({ ...fields(2, "1/4", "3/4", receiptHash(rs[0])), issuedAt: "2026-02-02T00:00:00.000Z" }, key);
-    expect(verifyChain([...rs, twin], key.publicKey).problems[0].problem).toMatch(/two different receipts/);
+    expect(checkReceiptChains([...rs, twin], key.publicKey)[0]).toMatchObject({ kind: "duplicate-seq", message: expect.stringMatching(/two different receipts/) });
   });
 
-  it("keeps one chain per (analyst, dataset)", () => {
+  it("keeps one chain per (analyst, population), across the population's datasets", () => {
     const a = chain(key, ["1/2"], ["1/2"]);
     const b = [signReceipt({ ...fields(1, "1/3", "1/3", GENESIS_PREV), analyst: "ben" }, key)];
-    expect(verifyChain([...a, ...b], key.publicKey).ok).toBe(true);
+    expect(checkReceiptChains([...a, ...b], key.publicKey)).toEqual([]);
+    const otherPeople = [signReceipt({ ...fields(1, "1/3", "1/3", GENESIS_PREV), population: "others" }, key)];
+    expect(checkReceiptChains([...a, ...otherPeople], key.publicKey)).toEqual([]);
+    // A second dataset of the same population continues ada's chain: seq 1 again is a duplicate.
+    const sameSeq = [signReceipt({ ...fields(1, "1/3", "1/3", GENESIS_PREV), dataset: "visits-copy" }, key)];
+    expect(checkReceiptChains([...a, ...sameSeq], key.publicKey).map((f) => f.kind)).toEqual(["duplicate-seq"]);
+    const next = [signReceipt({ ...fields(2, "1/4", "3/4", receiptHash(a[0])), dataset: "visits-copy" }, key)];
+    expect(checkReceiptChains([...a, ...next], key.publicKey)).toEqual([]);
+  });
+
+  it("reports a receipt signed by another key, an edited one and a malformed one", () => {
+    const rs = chain(key, ["1/2"], ["1/2"]);
+    const other = freshKey();
+    expect(checkReceiptChains(rs, other.publicKey).map((f) => f.kind)).toEqual(["key"]);
+    expect(checkReceiptChains([{ ...rs[0], cost: "1/4", total: "1/4" }], key.publicKey).map((f) => f.kind)).toEqual(["signature"]);
+    expect(checkReceiptChains([{ seq: "one" } as unknown as Receipt], key.publicKey).map((f) => f.kind)).toEqual(["malformed"]);
   });
 });
 

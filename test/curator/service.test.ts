@@ -17,7 +17,8 @@ import { CuratorService, type AnswerSource, type PreparedRelease } from "../../r
 import { BadInputError, OverCapError } from "../../runtime/errors.js";
 import { digestOf } from "../../runtime/protocol/canonical.js";
 import { MAX_FRAME_BYTES, type QueryPlan, type Response } from "../../runtime/protocol/messages.js";
-import { keyIdOf, verifyChain } from "../../runtime/protocol/receipts.js";
+import { keyIdOf } from "../../runtime/protocol/receipts.js";
+import { checkReceiptChains } from "../../cli/audit/chain.js";
 import { countPlan, makeWorkspace, RawSpeaker, type Workspace } from "../integration/helpers.js";
 
 /** Answers every plan with one made-up count; cost = the plan's epsilon or rho. */
@@ -101,7 +102,7 @@ describe("CuratorService", () => {
     expect(spend.ok && spend.body.op === "spend" && spend.body.spend).toMatchObject({ spentEpsilon: "1", remainingEpsilon: "0", releases: 100 });
     const ledger = await call(service, { op: "ledger", dataset: "clinic" });
     if (!ledger.ok || ledger.body.op !== "ledger") throw new Error("ledger failed");
-    expect(verifyChain(ledger.body.entries.map((e) => e.receipt), service.key.publicKey).ok).toBe(true);
+    expect(checkReceiptChains(ledger.body.entries.map((e) => e.receipt), service.key.publicKey)).toEqual([]);
     await service.close();
   });
 

@@ -169,7 +169,7 @@ describe("other bundles", () => {
     await t.sum("age", { epsilon: 0.2 });
     await t.count({ epsilon: 0.1 });
     const b = (await session.afterCell())!;
-    expect(b.data["text/plain"]).toBe("privacy loss · clinic: this session ε 0.3 · ada's total ε 0.3 of 1 (2 new, 1 replayed)");
+    expect(b.data["text/plain"]).toBe("privacy loss · clinic: this session ε 0.3 · ada's total on clinic ε 0.3 of 1 (2 new, 1 replayed)");
     expect(b.data["text/html"]).toContain("ε 0.3 of 1 used (this session 0.3)");
     expect(await session.afterCell()).toBeNull();
   });

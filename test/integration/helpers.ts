@@ -8,7 +8,7 @@
  */
 import { spawn, type ChildProcess } from "node:child_process";
 import { randomBytes } from "node:crypto";
-import { existsSync, mkdirSync, mkdtempSync } from "node:fs";
+import { copyFileSync, existsSync, mkdirSync, mkdtempSync } from "node:fs";
 import { writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { dirname, join, resolve } from "node:path";
@@ -43,7 +43,9 @@ export interface Workspace {
 
 /**
  * Analysts ada and ben on dataset "clinic" (pure epsilon, cap `cap`), and ada alone on "clinic_z"
- * (zCDP, epsilon 1 at delta 1e-6). "hidden" is granted to ben only.
+ * (zCDP, epsilon 1 at delta 1e-6). "hidden" is granted to ben only. clinic_z and hidden read copies
+ * of clinic.csv: separate files are separate populations, so each dataset is its own account here
+ * (over one file the analysts' datasets would share one cap; see population.test.ts).
  */
 export function makeWorkspace(prefix: string, cap = "1"): Workspace {
   const dir = mkdtempSync(join(tmpdir(), `hs-${prefix}-`));
@@ -56,9 +58,11 @@ export function makeWorkspace(prefix: string, cap = "1"): Workspace {
     district: { type: "category", values: DISTRICTS },
     insured: { type: "boolean" },
   };
-  const dataset = (accounting: unknown, analysts: string[]) => ({
+  copyFileSync(CLINIC_CSV, join(dir, "clinic-z.csv"));
+  copyFileSync(CLINIC_CSV, join(dir, "hidden.csv"));
+  const dataset = (accounting: unknown, analysts: string[], source = CLINIC_CSV) => ({
     description: "Invented clinic visits for curator tests",
-    source: CLINIC_CSV,
+    source,
     unit: { column: "patient_id", maxRows: 4, maxGroups: 2 },
     accounting,
     analysts,
@@ -69,8 +73,8 @@ export function makeWorkspace(prefix: string, cap = "1"): Workspace {
     analysts: { ada: { token: hashToken(tokens.ada) }, ben: { token: hashToken(tokens.ben) } },
     datasets: {
       clinic: dataset({ mode: "pure", cap: { epsilon: cap } }, ["ada", "ben"]),
-      clinic_z: dataset({ mode: "zcdp", cap: { epsilon: "1", delta: "1e-6" } }, ["ada"]),
-      hidden: dataset({ mode: "pure", cap: { epsilon: "1" } }, ["ben"]),
+      clinic_z: dataset({ mode: "zcdp", cap: { epsilon: "1", delta: "1e-6" } }, ["ada"], "clinic-z.csv"),
+      hidden: dataset({ mode: "pure", cap: { epsilon: "1" } }, ["ben"], "hidden.csv"),
     },
   };
   const policyFile = join(dir, "policy.yaml");

@@ -7,7 +7,8 @@ import { join } from "node:path";
 import { afterAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
 import type { QueryPlan, Release } from "../../runtime/protocol/messages.js";
-import { loadPublicKey, verifyChain } from "../../runtime/protocol/receipts.js";
+import { loadPublicKey } from "../../runtime/protocol/receipts.js";
+import { checkReceiptChains } from "../../cli/audit/chain.js";
 import { countPlan, makeWorkspace, requireBuild, startCuratorChild, type CuratorChild, type Workspace } from "./helpers.js";
 
 describe("restart after SIGKILL", () => {
@@ -62,6 +63,6 @@ describe("restart after SIGKILL", () => {
     expect(next.receipt.seq).toBe(4);
     expect(next.receipt.total).toBe("1/2");
     expect(entries.map((e) => e.receipt)).toEqual([...first.map((r) => r.receipt), next.receipt]);
-    expect(verifyChain(entries.map((e) => e.receipt), loadPublicKey(ws.publicKeyB64))).toEqual({ ok: true, problems: [] });
+    expect(checkReceiptChains(entries.map((e) => e.receipt), loadPublicKey(ws.publicKeyB64))).toEqual([]);
   });
 });

@@ -1,10 +1,9 @@
-/** What the notebook audit reports: one finding per problem, located at a cell where it can be. */
-
+/** What the audit reports: one finding per problem, each located at a cell when it has one. */
 export type FindingKind =
   | "malformed" // not a receipt at all
   | "signature" // signature does not match the contents
   | "key" // signed by another key
-  | "mixed" // another analyst or dataset
+  | "mixed" // another analyst or population
   | "owner" // not the analyst or dataset the reviewer expected (--analyst, --dataset)
   | "label" // output metadata names another dataset than its receipt
   | "no-receipt" // looks like a release, has no receipt

@@ -1,0 +1,160 @@
+/**
+ * The receipt-chain checks, in seq order, for one chain (one analyst and population): the chain
+ * starts at seq 1, has no gaps, each `prev` is the hash of the receipt before, each cost is a
+ * positive exact number, each total is the previous total plus the cost in exact rationals, the cap
+ * never changes and no total exceeds it.
+ *
+ * The one implementation: the notebook audit (checks.ts) runs it on the receipts a notebook shows,
+ * and `checkReceiptChains` runs it on any set of receipts (a ledger's, a client's), one chain per
+ * (analyst, population), after checking every signature.
+ */
+import type { KeyObject } from "node:crypto";
+import { Rational } from "../../runtime/core/index.js";
+import type { Receipt } from "../../runtime/protocol/messages.js";
+import { GENESIS_PREV, keyIdOf, receiptHash, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import type { Finding } from "./findings.js";
+
+/** A receipt and where it was found: `where` names it in messages, `cell` locates findings. */
+export interface Linked {
+  r: Receipt;
+  where: string;
+  cell: number | null;
+}
+
+/** A rational as a reader writes it: a decimal when it has a finite one, else a fraction. */
+export function shown(r: Rational): string {
+  let d = r.den;
+  while (d % 2n === 0n) d /= 2n;
+  while (d % 5n === 0n) d /= 5n;
+  return d === 1n ? r.toDecimal(1000) : r.toString();
+}
+
+export function exact(s: unknown): Rational | null {
+  if (typeof s !== "string") return null;
+  try {
+    return Rational.parse(s);
+  } catch {
+    return null;
+  }
+}
+
+export function wellFormedRows(result: unknown): boolean {
+  return (
+    Array.isArray(result) &&
+    result.every(
+      (row: unknown) =>
+        Array.isArray(row) &&
+        row.length === 6 &&
+        Array.isArray(row[0]) &&
+        (row[0] as unknown[]).every((k) => k === null || typeof k === "string") &&
+        typeof row[1] === "string" &&
+        row.slice(2).every((x: unknown) => x === null || typeof x === "string"),
+    )
+  );
+}
+
+/** The seq-order checks of one chain; `chain` holds distinct seqs of one analyst and population, sorted by seq. */
+export function chainFindings(chain: readonly Linked[]): Finding[] {
+  const findings: Finding[] = [];
+  const first = chain[0];
+  if (first !== undefined && first.r.seq !== 1) {
+    findings.push({
+      cell: first.cell,
+      kind: "chain-start",
+      message: `${first.where}: the first receipt is seq ${first.r.seq}, not 1: the spend of releases 1..${first.r.seq - 1} is not shown in this notebook`,
+    });
+  }
+  const cap0 = first === undefined ? null : exact(first.r.cap);
+  let prevTotal: Rational | null = first !== undefined && first.r.seq === 1 ? Rational.ZERO : null;
+  let prev: Linked | null = null;
+  for (const p of chain) {
+    const { r, where, cell } = p;
+    const cost = exact(r.cost);
+    const total = exact(r.total);
+    const cap = exact(r.cap);
+    if (prev !== null && r.seq !== prev.r.seq + 1) {
+      const missing = r.seq - prev.r.seq - 1;
+      findings.push({
+        cell,
+        kind: "gap",
+        message: `${where}: receipt seq ${r.seq} follows seq ${prev.r.seq} (${prev.where}): ${missing === 1 ? `release ${prev.r.seq + 1} is` : `releases ${prev.r.seq + 1}..${r.seq - 1} are`} missing (a release cell or output was deleted)`,
+      });
+      prevTotal = null; // the running total cannot be checked across a gap
+    }
+    const linked = prev === null ? (r.seq === 1 ? GENESIS_PREV : null) : r.seq === prev.r.seq + 1 ? receiptHash(prev.r) : null;
+    if (linked !== null && r.prev !== linked) {
+      findings.push({
+        cell,
+        kind: "prev-link",
+        message: `${where}: receipt seq ${r.seq} does not link to ${prev === null ? "the start of the chain" : `receipt seq ${prev.r.seq} (${prev.where})`}: its prev hash differs`,
+      });
+    }
+    if (cost === null || cost.sign() <= 0) {
+      findings.push({ cell, kind: "cost", message: `${where}: receipt seq ${r.seq} has cost "${r.cost}", not a positive exact number` });
+    }
+    if (total === null) {
+      findings.push({ cell, kind: "total", message: `${where}: receipt seq ${r.seq} has total "${r.total}", not an exact number` });
+    } else if (cost !== null && prevTotal !== null && !prevTotal.add(cost).eq(total)) {
+      findings.push({
+        cell,
+        kind: "total",
+        message: `${where}: receipt seq ${r.seq}: total ${r.total} is not the previous total ${shown(prevTotal)} plus cost ${r.cost} (cost or total changed)`,
+      });
+    }
+    if (cap === null || cap0 === null || !cap.eq(cap0)) {
+      findings.push({ cell, kind: "cap", message: `${where}: receipt seq ${r.seq} states cap "${r.cap}", unlike the first receipt's "${first!.r.cap}"` });
+    } else if (total !== null && total.gt(cap)) {
+      findings.push({ cell, kind: "cap", message: `${where}: receipt seq ${r.seq}: total ${r.total} exceeds the cap ${r.cap}` });
+    }
+    prevTotal = total;
+    prev = p;
+  }
+  return findings;
+}
+
+/** The signature checks of one receipt: malformed, signed by another key, or contents changed. */
+export function signatureFinding(r: Receipt, publicKey: KeyObject, where: string, cell: number | null): Finding | null {
+  const sig = verifyReceipt(r, publicKey);
+  if (sig.ok) return null;
+  // A receipt of the wrong shape is reported once; callers keep it out of every later check.
+  if (sig.problem?.startsWith("not a hush receipt") === true || !wellFormedRows(r.result)) {
+    return { cell, kind: "malformed", message: `${where}: the receipt is not a hush receipt (${sig.problem ?? "bad shape"})` };
+  }
+  const keyId = keyIdOf(publicKey);
+  if (r.keyId !== keyId) {
+    return {
+      cell,
+      kind: "key",
+      message: `${where}: receipt seq ${r.seq} names curator key ${r.keyId}, not the given key ${keyId}: the key was replaced or the receipt comes from another curator`,
+    };
+  }
+  return { cell, kind: "signature", message: `${where}: receipt seq ${r.seq}: the signature does not match its contents (forged or edited receipt)` };
+}
+
+/**
+ * Checks any set of receipts (in any order) as hash chains, one per (analyst, population): every
+ * signature, then the seq-order checks of each chain. The same receipt twice (a replay) counts
+ * once; two different receipts with one seq are a finding. No findings: the receipts are whole.
+ */
+export function checkReceiptChains(rs: readonly Receipt[], publicKey: KeyObject): Finding[] {
+  const findings: Finding[] = [];
+  const chains = new Map<string, Map<number, Linked>>();
+  for (const r of rs) {
+    const where = typeof r?.analyst === "string" ? `${r.analyst}/${r.population} seq ${r.seq}` : "receipt";
+    const bad = signatureFinding(r, publicKey, where, null);
+    if (bad !== null) {
+      findings.push(bad);
+      if (bad.kind === "malformed") continue;
+    }
+    const key = JSON.stringify([r.analyst, r.population]);
+    const bySeq = chains.get(key) ?? new Map<number, Linked>();
+    chains.set(key, bySeq);
+    const same = bySeq.get(r.seq);
+    if (same === undefined) bySeq.set(r.seq, { r, where, cell: null });
+    else if (receiptHash(same.r) !== receiptHash(r)) {
+      findings.push({ cell: null, kind: "duplicate-seq", message: `${where}: two different receipts with seq ${r.seq}` });
+    }
+  }
+  for (const bySeq of chains.values()) findings.push(...chainFindings([...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq)));
+  return findings;
+}

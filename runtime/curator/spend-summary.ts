@@ -1,0 +1,63 @@
+/**
+ * What the curator tells an analyst about their spend: the cap of an account, the SpendSummary sent
+ * with every open/spend/preview/release, and the over-cap refusal (which carries the same summary).
+ * An account is (analyst, population): the amounts are the population's, over all its datasets.
+ */
+import { epsilonFromRho, Rational } from "../core/index.js";
+import { OverCapError } from "../errors.js";
+import type { SpendSummary } from "../protocol/messages.js";
+import { exactDecimal } from "./aggregates/budget.js";
+import type { DatasetPolicy } from "./policy.js";
+
+/** The cap in the accounting unit (epsilon for pure, rho for zCDP); one population's datasets agree on it. */
+export function capOf(d: DatasetPolicy): Rational {
+  return d.accounting.mode === "pure" ? d.accounting.capEpsilon : d.accounting.capRho;
+}
+
+/**
+ * `spent` is the analyst's exact total on the dataset's population, in the accounting unit; zCDP
+ * summaries also state the epsilon it implies at delta.
+ */
+export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
+  const acc = d.accounting;
+  const zero = Rational.ZERO;
+  if (acc.mode === "pure") {
+    return {
+      analyst,
+      dataset: d.name,
+      population: d.population,
+      mode: "pure",
+      spentEpsilon: spent.toString(),
+      capEpsilon: acc.capEpsilon.toString(),
+      remainingEpsilon: acc.capEpsilon.sub(spent).max(zero).toString(),
+      releases,
+    };
+  }
+  const spentEpsilon = spent.isZero() ? zero : epsilonFromRho(spent, acc.delta);
+  return {
+    analyst,
+    dataset: d.name,
+    population: d.population,
+    mode: "zcdp",
+    spentEpsilon: spentEpsilon.toString(),
+    capEpsilon: acc.capEpsilon.toString(),
+    remainingEpsilon: acc.capEpsilon.sub(spentEpsilon).max(zero).toString(),
+    spentRho: spent.toString(),
+    capRho: acc.capRho.toString(),
+    remainingRho: acc.capRho.sub(spent).max(zero).toString(),
+    delta: exactDecimal(acc.delta),
+    releases,
+  };
+}
+
+/** The refusal of a release that would cross the cap; names amounts, never a data value. */
+export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
+  const cap = capOf(d);
+  const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
+  return new OverCapError(
+    `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
+      `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on population ${d.population} ` +
+      `(dataset ${d.name} and every other dataset over the same people; spent ${spent.toString()}); nothing was spent`,
+    { spend: spendSummary(analyst, d, spent, releases) },
+  );
+}
