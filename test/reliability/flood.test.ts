@@ -81,9 +81,9 @@ describe("wrong-token flood over tcp+CURVE", () => {
 
       expect(legit.failed).toEqual([]);
       expect(legit.answered).toBeGreaterThan(10);
-      // At least RATE per second for the whole time, every one queued to the curator...
+      // RATE per second for DURATION_MS (paced; a late tick sends more), every one queued to the curator...
       expect(flood.notQueued).toBe(0);
-      expect(flood.sent).toBeGreaterThanOrEqual(RATE * (DURATION_MS / 1000) - 10);
+      expect(flood.sent).toBe(RATE * (DURATION_MS / 1000));
       // ... and every one answered or refused, none accepted.
       expect(flood.unanswered).toBe(0);
       expect(flood.replies.ok ?? 0).toBe(0);
