@@ -217,6 +217,21 @@ describe("sign-in recognition", () => {
     for (const p of flood) expect(await p).toBeInstanceOf(UnauthorizedError);
   });
 
+  it("after a restart (nothing recognised), a flood on ada's name holds ada back only until the flood stops", async () => {
+    const s = setup();
+    // Wrong tokens for ada from many connections put the name in backoff.
+    for (let i = 0; i < 6; i++) await failOnce(s, "ada", `attacker-${i}`);
+    const blocked = await attempt(s.signIn, "ada", "ada-right", "ada-peer");
+    expect(blocked).toBeInstanceOf(BusyError);
+    expect(s.check.calls).toHaveLength(0);
+    // The flood stops; once the block (8 s after the sixth failure) has passed, ada is checked and let in.
+    s.clock.t += 8_000;
+    const back = attempt(s.signIn, "ada", "ada-right", "ada-peer");
+    expect(s.check.calls).toHaveLength(1);
+    await s.check.answer();
+    expect(await back).toBe("ok");
+  });
+
   it("does not recognise a name the policy does not know, even after a check", async () => {
     const s = setup();
     for (let i = 0; i < 2; i++) {
