@@ -58,11 +58,13 @@ export const SIGN_IN_LIMITS: Readonly<SignInLimits> = {
   // of scrypt, leaving the message loop its own core on a 2-core curator, and leaving libuv's other
   // pool threads (4 by default) free for file work.
   maxChecking: 1,
-  // Eight waiting: a legitimate sign-in that gets a place waits at most ~9 checks (about a second).
-  maxWaiting: 8,
+  // 32 waiting: a burst of analysts signing in together (a class starting its notebooks, a restart)
+  // gets places; one that does waits at most 33 checks (a few seconds) before its own.
+  maxWaiting: 32,
   // Two, not one: a client may send a request or two before its first check has finished.
   maxPendingPerPeer: 2,
-  freeFailures: 3,
+  // Five: a few mistakes of one's own, and a hostile-input suite's handful, before any backoff.
+  freeFailures: 5,
   firstBackoffMs: 1_000,
   maxBackoffMs: 60_000,
   forgetAfterMs: 15 * 60_000,

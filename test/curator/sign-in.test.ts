@@ -9,6 +9,8 @@ import { BoundedQueue, FailureBackoff, SIGN_IN_LIMITS, SignIn, type SignInLimits
 import { hashToken, verifyToken } from "../../runtime/curator/tokens.js";
 
 const ADA_HASH = "stored-hash-of-ada";
+/** Small limits so each case is short; the production values are checked in the first test. */
+const LIMITS: SignInLimits = { ...SIGN_IN_LIMITS, freeFailures: 3, maxWaiting: 8 };
 let wrongCount = 0;
 
 /** A check the test answers: each call waits until `answer` is called for it. */
@@ -31,7 +33,7 @@ function setup(limits: Partial<SignInLimits> = {}) {
   const check = manualCheck();
   const signIn = new SignIn({
     analysts: new Map([["ada", { tokenHash: ADA_HASH }]]),
-    limits: { ...SIGN_IN_LIMITS, ...limits },
+    limits: { ...LIMITS, ...limits },
     now: () => clock.t,
     verify: check.verify,
   });
@@ -56,14 +58,14 @@ async function failOnce(s: ReturnType<typeof setup>, analyst: string, peer: stri
 describe("sign-in backoff", () => {
   it("allows the free failures, then refuses without a check for 1 s, 2 s, 4 s ... capped at 60 s", () => {
     const clock = { t: 0 };
-    const b = new FailureBackoff(SIGN_IN_LIMITS, () => clock.t);
+    const b = new FailureBackoff(LIMITS, () => clock.t);
     const waits: number[] = [];
     for (let i = 0; i < 12; i++) {
       b.fail("peer-1");
       waits.push(b.waitFor("peer-1"));
       clock.t += b.waitFor("peer-1"); // the next attempt arrives just as the block ends
     }
-    expect(SIGN_IN_LIMITS.freeFailures).toBe(3);
+    expect(SIGN_IN_LIMITS).toMatchObject({ maxChecking: 1, maxWaiting: 32, maxPendingPerPeer: 2, freeFailures: 5, firstBackoffMs: 1_000, maxBackoffMs: 60_000 });
     expect(waits).toEqual([0, 0, 0, 1_000, 2_000, 4_000, 8_000, 16_000, 32_000, 60_000, 60_000, 60_000]);
     // Still capped after very many failures (no overflow to Infinity or NaN).
     for (let i = 0; i < 2_000; i++) b.fail("peer-1");
@@ -72,10 +74,10 @@ describe("sign-in backoff", () => {
 
   it("forgets a record after 15 minutes without failures, and on success", () => {
     const clock = { t: 0 };
-    const b = new FailureBackoff(SIGN_IN_LIMITS, () => clock.t);
+    const b = new FailureBackoff(LIMITS, () => clock.t);
     for (let i = 0; i < 6; i++) b.fail("x");
     expect(b.waitFor("x")).toBeGreaterThan(0);
-    clock.t += SIGN_IN_LIMITS.forgetAfterMs;
+    clock.t += LIMITS.forgetAfterMs;
     expect(b.waitFor("x")).toBe(0);
     b.fail("x"); // counts from zero again: free
     expect(b.waitFor("x")).toBe(0);
@@ -85,7 +87,7 @@ describe("sign-in backoff", () => {
   });
 
   it("keeps at most maxRecords records, dropping the oldest", () => {
-    const b = new FailureBackoff({ ...SIGN_IN_LIMITS, maxRecords: 100 }, () => 0);
+    const b = new FailureBackoff({ ...LIMITS, maxRecords: 100 }, () => 0);
     for (let i = 0; i < 10_000; i++) b.fail(`peer-${i}`);
     expect(b.size).toBe(100);
     for (let i = 0; i < 4; i++) b.fail("peer-9999");
