@@ -5,14 +5,15 @@
  * Order for each request:
  * 1. Recognised: the analyst's token already verified in this process (its sha256 is remembered):
  *    accepted at once, before any limit below, so no one else's failures slow or lock it out.
- * 2. Backoff: after FREE_FAILURES failed checks from one connection (peer) or for one analyst name,
- *    further attempts are refused at once, without scrypt, for a time that doubles with each
- *    further failure, up to MAX_BACKOFF_MS. A connection is the ZeroMQ ROUTER routing id: anyone
- *    can open new connections, so the per-peer limit is only a courtesy (it stops a careless or
- *    single-connection client); the bounded queue in 3 is what holds against a real flood.
- * 3. Bounded queue: at most MAX_CHECKING scrypt checks run at once (on libuv's thread pool, off
- *    the message loop) and at most MAX_WAITING wait; one connection may hold at most
- *    MAX_PENDING_PER_PEER of those places. Past that a request is refused at once (BusyError):
+ * 2. Backoff: after `freeFailures` (5) failed checks from one connection (peer) or for one
+ *    analyst name, further attempts are refused at once, without scrypt, for a time that doubles
+ *    with each further failure, from 1 s up to `maxBackoffMs` (60 s). A connection is the ZeroMQ
+ *    ROUTER routing id: anyone can open new connections, so the per-peer limit is only a courtesy
+ *    (it stops a careless or single-connection client); the bounded queue in 3 is what holds
+ *    against a real flood.
+ * 3. Bounded queue: at most `maxChecking` (1) scrypt checks run at once (on libuv's thread pool,
+ *    off the message loop) and at most `maxWaiting` (32) wait; one connection may hold at most
+ *    `maxPendingPerPeer` (2) of those places. Past that a request is refused at once (BusyError):
  *    no scrypt, nothing spent. Identical checks in flight (same name, same token) share one.
  *
  * Names: an unknown analyst name goes through the same steps as a known one (a check against a
@@ -21,14 +22,17 @@
  *
  * After a restart nothing is recognised yet: each analyst needs one check. Under a flood that
  * fills the queue, an analyst's first request may be refused as busy (at once; nothing spent) and
- * must be tried again; the message loop keeps answering throughout. If the flood uses the
- * analyst's own name, the name's backoff refuses that analyst too (at most MAX_BACKOFF_MS at a
- * time) until the flood stops: the price of limiting guesses per name. Once the analyst's check
- * succeeds, the flood no longer touches them.
+ * must be tried again; no check ever blocks the message loop. If the flood uses the analyst's own
+ * name, the name's backoff refuses that analyst too (at most `maxBackoffMs` at a time) until the
+ * flood stops: the price of limiting guesses per name. Once the analyst's check succeeds, the
+ * flood no longer touches them.
  *
- * Memory: failure records are kept per peer and per name, each map at most MAX_RECORDS entries
+ * The limits are the fields of SIGN_IN_LIMITS below (constants, not policy: a steward has no
+ * reason to tune them per deployment; values in brackets).
+ *
+ * Memory: failure records are kept per peer and per name, each map at most `maxRecords` entries
  * (the oldest dropped first; dropping one only forgets a limit, it never locks anyone out), and
- * forgotten FORGET_AFTER_MS after their last failure.
+ * forgotten `forgetAfterMs` (15 min) after their last failure.
  */
 import { createHash, timingSafeEqual } from "node:crypto";
 import { BusyError, UnauthorizedError } from "../errors.js";
