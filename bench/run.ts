@@ -13,6 +13,7 @@ import fs from "node:fs";
 import path from "node:path";
 import { benchAggregates } from "./aggregates.js";
 import { repoRoot } from "./curator-process.js";
+import { benchFlood } from "./flood.js";
 import { machineFacts, machineMarkdown, progress } from "./harness.js";
 import { benchMemory } from "./memory.js";
 import { SECTIONS_EXTRA, type SectionResult } from "./sections.js";
@@ -36,7 +37,7 @@ function parseArgs(argv: string[]): Options {
     else if (a.startsWith("--only=")) only = new Set(a.slice(7).split(",").filter(Boolean));
     else if (a === "--out") out = argv[++i] ?? null;
     else if (a.startsWith("--out=")) out = a.slice(6);
-    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,memory] [--out FILE]`);
+    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,flood,memory] [--out FILE]`);
   }
   const root = repoRoot();
   return {
@@ -86,6 +87,9 @@ async function main(): Promise<void> {
   for (const extra of SECTIONS_EXTRA) {
     results.push(await section(extra.name, extra.title, opts, () => extra.run({ quick: opts.quick, dataDir })));
   }
+  results.push(
+    await section("flood", "A legitimate analyst during a wrong-token flood", opts, () => benchFlood({ quick: opts.quick })),
+  );
   results.push(
     await section("memory", "Curator resident memory", opts, async () =>
       (await benchMemory({ rows: opts.quick ? 1_000_000 : 10_000_000, unit: true, dataDir })).markdown,

@@ -12,6 +12,7 @@ export type HushErrorKind =
   | "unknown-dataset"
   | "protocol" // a malformed or oversized frame, wrong protocol version
   | "unreachable" // the curator could not be reached
+  | "busy" // the curator refused to start the work now (too many sign-ins waiting or failing); nothing was done
   | "internal";
 
 export class HushError extends Error {
@@ -72,6 +73,14 @@ export class UnreachableError extends HushError {
   constructor(message: string, options?: { cause?: unknown }) {
     super("unreachable", message, options);
     this.name = "UnreachableError";
+  }
+}
+
+/** Refused before any work: try again later. Says nothing about whether the analyst name exists. */
+export class BusyError extends HushError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super("busy", message, options);
+    this.name = "BusyError";
   }
 }
 

@@ -3,7 +3,7 @@
  * starts the embedded curator) and this kernel session's spend record. Also the single place that
  * turns a refusal into an error that states the remaining budget.
  */
-import { BadInputError, HushError, OverCapError, PolicyError, ProtocolError, UnauthorizedError, UnknownDatasetError, UnreachableError } from "../errors.js";
+import { BadInputError, BusyError, HushError, OverCapError, PolicyError, ProtocolError, UnauthorizedError, UnknownDatasetError, UnreachableError } from "../errors.js";
 import type { CuratorClient } from "../client/client.js";
 import type { SessionSpend } from "./session-spend.js";
 import { remainingText } from "./text.js";
@@ -37,6 +37,8 @@ function sameKind(e: HushError, message: string): HushError {
       return new ProtocolError(message, options);
     case "unreachable":
       return new UnreachableError(message, options);
+    case "busy":
+      return new BusyError(message, options);
     case "internal":
       return new HushError("internal", message, options);
   }

@@ -4,6 +4,7 @@
  */
 import {
   BadInputError,
+  BusyError,
   HushError,
   OverCapError,
   PolicyError,
@@ -23,6 +24,7 @@ const KNOWN: ReadonlySet<string> = new Set<HushErrorKind>([
   "unknown-dataset",
   "protocol",
   "unreachable",
+  "busy",
   "internal",
 ]);
 
@@ -45,6 +47,8 @@ export function errorFromWire(error: { kind: string; message: string; spend?: Sp
       return new ProtocolError(message);
     case "unreachable":
       return new UnreachableError(message);
+    case "busy":
+      return new BusyError(message);
     case "internal":
       return new HushError("internal", message);
   }

@@ -88,7 +88,7 @@ export async function serveCurator(service: CuratorService, opts: { listen: stri
     const payload = delimited ? rest.slice(1) : rest;
     let reply: Buffer;
     if (payload.length !== 1) reply = protocolErrorFrame(`expected one request frame, got ${payload.length}`);
-    else reply = await service.handleFrame(payload[0]);
+    else reply = await service.handleFrame(payload[0], peer.toString("hex"));
     await send(delimited ? [peer, Buffer.alloc(0), reply] : [peer, reply]);
   };
 

@@ -9,10 +9,9 @@
  * lock: cap check → compute (noise) → ledger commit (its own cap check in one transaction) → reply.
  * Spend is per (analyst, population): every dataset over the same people draws on one cap.
  */
-import { createHash, timingSafeEqual } from "node:crypto";
 import { existsSync } from "node:fs";
 import { Bits, cryptoBytes, type Rational } from "../core/index.js";
-import { HushError, OverCapError, UnauthorizedError, UnknownDatasetError, isHushError } from "../errors.js";
+import { HushError, OverCapError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
   PROTOCOL_VERSION,
   type ColumnInfo,
@@ -34,8 +33,8 @@ import type { ComputedRelease } from "./answer.js";
 import { KeyedLock } from "./keyed-lock.js";
 import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
 import { encodeResponse, readRequestFrame } from "./request-frame.js";
+import { SignIn } from "./sign-in.js";
 import { capOf, overCapError, spendSummary } from "./spend-summary.js";
-import { verifyToken } from "./tokens.js";
 
 /** What the service needs from the answering side (answer.ts's Answerer; tests may pass a small fake). */
 export interface PreparedRelease {
@@ -68,17 +67,10 @@ export interface ServiceParts {
   engine?: { close(): Promise<void> | void };
 }
 
-const UNAUTHORIZED = "unauthorized: unknown analyst or wrong token";
 const INTERNAL = "internal error in the curator; the details are in the curator's log";
-
-function sha256(text: string): Buffer {
-  return createHash("sha256").update(text, "utf8").digest();
-}
 
 export class CuratorService {
   private readonly lock = new KeyedLock();
-  /** sha256 of the token that last verified per analyst, so scrypt runs once per analyst, not per request. */
-  private readonly verified = new Map<string, Buffer>();
   private readonly inFlight = new Set<Promise<unknown>>();
   private closing = false;
 
@@ -87,6 +79,7 @@ export class CuratorService {
   private readonly answerer: AnswerSource;
   private readonly ledger: Ledger;
   private readonly engine: { close(): Promise<void> | void } | undefined;
+  private readonly signIn: SignIn;
 
   /** Assembles a service from its parts; `open` is the normal way in. */
   constructor(parts: ServiceParts) {
@@ -95,6 +88,7 @@ export class CuratorService {
     this.answerer = parts.answerer;
     this.ledger = parts.ledger;
     this.engine = parts.engine;
+    this.signIn = new SignIn({ analysts: parts.policy.analysts });
   }
 
   static async open(policyFile: string): Promise<CuratorService> {
@@ -134,9 +128,12 @@ export class CuratorService {
     }
   }
 
-  /** One raw request frame in, one encoded response out. Never throws. */
-  async handleFrame(frame: Buffer): Promise<Buffer> {
-    const work = this.answerFrame(frame);
+  /**
+   * One raw request frame in, one encoded response out. Never throws. `peer` names the connection
+   * it came on (the ROUTER routing id), for the sign-in's per-connection limit.
+   */
+  async handleFrame(frame: Buffer, peer: string): Promise<Buffer> {
+    const work = this.answerFrame(frame, peer);
     this.inFlight.add(work);
     try {
       return encodeResponse(await work);
@@ -145,12 +142,12 @@ export class CuratorService {
     }
   }
 
-  private async answerFrame(frame: Buffer): Promise<Response> {
+  private async answerFrame(frame: Buffer, peer: string): Promise<Response> {
     const read = readRequestFrame(frame);
     try {
       const req = read.request();
       if (this.closing) throw new HushError("unreachable", "the curator is shutting down");
-      return { v: PROTOCOL_VERSION, id: read.id, ok: true, body: await this.handle(req) };
+      return { v: PROTOCOL_VERSION, id: read.id, ok: true, body: await this.handle(req, peer) };
     } catch (e: unknown) {
       return { v: PROTOCOL_VERSION, id: read.id, ok: false, error: this.describeError(e) };
     }
@@ -167,8 +164,8 @@ export class CuratorService {
   }
 
   /** Handles a validated request (authentication included). */
-  async handle(req: Request): Promise<ResponseBody> {
-    await this.authenticate(req.analyst, req.token);
+  async handle(req: Request, peer: string): Promise<ResponseBody> {
+    await this.signIn.check(req.analyst, req.token, peer);
     const analyst = req.analyst;
     const body = req.body;
     switch (body.op) {
@@ -189,23 +186,6 @@ export class CuratorService {
       case "ask":
         return { op: "ask", release: await this.ask(analyst, body.plan) };
     }
-  }
-
-  private async authenticate(analyst: string, token: string): Promise<void> {
-    const entry = this.policy.analysts.get(analyst);
-    const presented = sha256(token);
-    const cached = this.verified.get(analyst);
-    if (entry !== undefined && cached !== undefined && timingSafeEqual(cached, presented)) return;
-    // Unknown analysts still pay one scrypt, so the reply time does not tell which names exist.
-    const stored = entry?.tokenHash ?? DUMMY_HASH.value;
-    let good = false;
-    try {
-      good = verifyToken(stored, token);
-    } catch {
-      good = false;
-    }
-    if (!good || entry === undefined) throw new UnauthorizedError(UNAUTHORIZED);
-    this.verified.set(analyst, presented);
   }
 
   private visibleDatasets(analyst: string): DatasetPolicy[] {
@@ -353,13 +333,3 @@ export class CuratorService {
     });
   }
 }
-
-/** A well-formed stored hash that no token matches, for unknown analysts (computed once, lazily). */
-const DUMMY_HASH = {
-  cached: undefined as string | undefined,
-  get value(): string {
-    // scrypt parameters as in the policy format; the salt is fixed and the hash random, so nothing verifies.
-    this.cached ??= `scrypt$16384$8$1$${Buffer.alloc(16, 7).toString("base64")}$${createHash("sha256").update("no token").digest("base64")}`;
-    return this.cached;
-  },
-};

@@ -2,7 +2,7 @@
  * Analyst tokens. The policy file stores only a salted scrypt hash of each token, so a leaked
  * policy does not leak the tokens. Format: "scrypt$N$r$p$<salt b64>$<hash b64>".
  */
-import { randomBytes, scryptSync, timingSafeEqual } from "node:crypto";
+import { randomBytes, scrypt, scryptSync, timingSafeEqual, type ScryptOptions } from "node:crypto";
 
 /** Cost parameters for new hashes (RFC 7914 recommends N = 2^14, r = 8, p = 1 for interactive use). */
 const N = 16384;
@@ -36,20 +36,33 @@ export function parseTokenHash(stored: string): { n: number; r: number; p: numbe
   return { n, r, p, salt, hash };
 }
 
-/** True when `token` matches the stored hash. Compares in constant time; false on a malformed hash. */
-export function verifyToken(stored: string, token: string): boolean {
+/** node:crypto's scrypt with a callback runs on libuv's thread pool, not on the caller's thread. */
+function scryptOffThread(token: string, salt: Buffer, keyLen: number, options: ScryptOptions): Promise<Buffer> {
+  return new Promise((resolve, reject) => {
+    scrypt(token, salt, keyLen, options, (err, key) => (err === null ? resolve(key) : reject(err)));
+  });
+}
+
+/**
+ * True when `token` matches the stored hash; false on a malformed hash. The scrypt work runs off
+ * the event loop (the curator's message loop keeps answering meanwhile); the comparison is
+ * constant-time.
+ */
+export async function verifyToken(stored: string, token: string): Promise<boolean> {
   const parsed = parseTokenHash(stored);
   if (parsed === null) return false;
   let candidate: Buffer;
   try {
-    candidate = scryptSync(token, parsed.salt, parsed.hash.length, {
+    candidate = await scryptOffThread(token, parsed.salt, parsed.hash.length, {
       N: parsed.n,
       r: parsed.r,
       p: parsed.p,
       maxmem: 256 * parsed.n * parsed.r + 1024 * 1024,
     });
-  } catch {
-    return false;
+  } catch (e: unknown) {
+    // Only scrypt's own refusals (parameters over maxmem) mean "no match"; anything else is a fault.
+    if (e instanceof RangeError || (e instanceof Error && (e as { code?: string }).code?.startsWith("ERR_CRYPTO") === true)) return false;
+    throw e;
   }
   return timingSafeEqual(candidate, parsed.hash);
 }

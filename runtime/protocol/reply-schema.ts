@@ -210,6 +210,7 @@ export const ERROR_KINDS = [
   "unknown-dataset",
   "protocol",
   "unreachable",
+  "busy",
   "internal",
 ] as const satisfies readonly HushErrorKind[];
 

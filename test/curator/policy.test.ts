@@ -16,19 +16,19 @@ const GOOD_DATASET = `    source: data.csv
 `;
 
 describe("tokens", () => {
-  it("hashes with a random salt and verifies only the right token", () => {
+  it("hashes with a random salt and verifies only the right token", async () => {
     const a = hashToken("secret-1");
     const b = hashToken("secret-1");
     expect(a).not.toBe(b); // random salt
     expect(a).toMatch(/^scrypt\$16384\$8\$1\$[A-Za-z0-9+/=]+\$[A-Za-z0-9+/=]+$/);
-    expect(verifyToken(a, "secret-1")).toBe(true);
-    expect(verifyToken(a, "secret-2")).toBe(false);
-    expect(verifyToken(ADA_HASH, "ada-token")).toBe(true);
+    expect(await verifyToken(a, "secret-1")).toBe(true);
+    expect(await verifyToken(a, "secret-2")).toBe(false);
+    expect(await verifyToken(ADA_HASH, "ada-token")).toBe(true);
   });
 
-  it("returns false (never throws) on malformed hashes", () => {
+  it("returns false (never throws) on malformed hashes", async () => {
     for (const bad of ["", "scrypt", "bcrypt$1$2$3$4$5", "scrypt$1000$8$1$AAAA$BBBB", "scrypt$16384$8$1$!!$??", "scrypt$16384$8$1$$", `${ADA_HASH}$x`]) {
-      expect(verifyToken(bad, "ada-token")).toBe(false);
+      expect(await verifyToken(bad, "ada-token")).toBe(false);
       expect(parseTokenHash(bad)).toBeNull();
     }
   });

@@ -26,7 +26,7 @@ afterAll(async () => {
 
 async function call(body: unknown): Promise<Response> {
   const frame = Buffer.from(JSON.stringify({ v: 1, id: `r${++n}`, analyst: "ada", token: ws.tokens.ada, body }));
-  return JSON.parse((await service.handleFrame(frame)).toString("utf8")) as Response;
+  return JSON.parse((await service.handleFrame(frame, "test")).toString("utf8")) as Response;
 }
 
 async function ask(plan: QueryPlan): Promise<Release> {

@@ -78,7 +78,7 @@ function frame(body: unknown, analyst = "ada", token?: string): Buffer {
 }
 
 async function call(service: CuratorService, body: unknown, analyst = "ada", token?: string): Promise<Response> {
-  return JSON.parse((await service.handleFrame(frame(body, analyst, token))).toString("utf8")) as Response;
+  return JSON.parse((await service.handleFrame(frame(body, analyst, token), "test")).toString("utf8")) as Response;
 }
 
 beforeAll(() => {

@@ -69,7 +69,7 @@ describe("ensureDemoData", () => {
     expect(policy.datasets.get("visits-course")!.accounting.capEpsilon.toString()).toBe("1");
     expect(policy.datasets.get("visits-course")!.analysts).toEqual(["kit"]);
     for (const [name, demo] of Object.entries(DEMO_ANALYSTS)) {
-      expect(verifyToken(policy.analysts.get(name)!.tokenHash, demo.token)).toBe(true);
+      expect(await verifyToken(policy.analysts.get(name)!.tokenHash, demo.token)).toBe(true);
     }
     expect(() => loadPublicKey(readFileSync(a.publicKeyFile, "utf8"))).not.toThrow();
     const keyMtime = statSync(join(state, "keys", "curator.key")).mtimeMs;

@@ -209,7 +209,14 @@ describe("bad input: tokens", () => {
   it.each(TOKEN_CASES)("%s", async (_name, who, kind) => {
     const [analyst, token] = who();
     const req = { ...request("x", "x", { op: "ask", plan: good() as unknown as QueryPlan }), analyst, token };
-    expectRefused(await speaker.exchange(Buffer.from(JSON.stringify(req))), kind);
+    // Each case from its own connection: one connection's repeated failures meet the sign-in's
+    // backoff (a "busy" refusal, tested in test/curator/sign-in.test.ts), not the case's own refusal.
+    const stranger = new RawSpeaker(ws.listen);
+    try {
+      expectRefused(await stranger.exchange(Buffer.from(JSON.stringify(req))), kind);
+    } finally {
+      stranger.close();
+    }
     await expectNothingSpent();
   });
 });
