@@ -65,12 +65,25 @@ export function noiseVariance(law: NoiseLaw): number {
 export function halfWidth(law: NoiseLaw, confidence: number = DEFAULT_CONFIDENCE): bigint {
   checkConfidence(confidence);
   checkLaw(law);
+  // A release's cells share one law: recent answers are kept (the result depends only on the key).
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${confidence}`;
+  const hit = recent.get(key);
+  if (hit !== undefined) return hit;
   const a = missOf(confidence);
-  if (law.family === "discrete-laplace") return laplaceHalfWidth(law.scale, a);
-  const guess = Math.sqrt(law.sigma2.toNumber()) * normalQuantile(1 - (1 - confidence) / 2);
-  const hint = Number.isFinite(guess) && guess > 0 ? BigInt(Math.floor(guess)) : 0n;
-  return gaussianHalfWidth(law.sigma2, a, hint);
+  let h: bigint;
+  if (law.family === "discrete-laplace") h = laplaceHalfWidth(law.scale, a);
+  else {
+    const guess = Math.sqrt(law.sigma2.toNumber()) * normalQuantile(1 - (1 - confidence) / 2);
+    const hint = Number.isFinite(guess) && guess > 0 ? BigInt(Math.floor(guess)) : 0n;
+    h = gaussianHalfWidth(law.sigma2, a, hint);
+  }
+  if (recent.size >= RECENT_SIZE) recent.delete(recent.keys().next().value as string);
+  recent.set(key, h);
+  return h;
 }
+
+const RECENT_SIZE = 64;
+const recent = new Map<string, bigint>();
 
 /**
  * Inverse of the standard normal cdf: Acklam's rational approximation (relative error ~1e-9, common

@@ -31,8 +31,11 @@ export const PRIVACY_LIMITS = {
   maxWithin: "1e15",
   /** digits of each part (integer, fraction, numerator, denominator) of an exact number as sent */
   maxDigits: 30,
-  /** fraction digits of a quantile probability (p = 0.123456 at most): they set its sensitivity */
-  maxProbabilityDigits: 6,
+  /**
+   * Fraction digits of a quantile probability (p = 0.9999 at most): p = a/b sets the quantile's
+   * sensitivity max(a, b - a), and the exponential mechanism's work grows with b.
+   */
+  maxProbabilityDigits: 4,
 } as const;
 
 /** Structural limits on a plan; far above what a person writes, low enough to keep every check cheap. */
