@@ -110,9 +110,22 @@ function ln2(q: number): Bound {
   return b;
 }
 
+// ln 2 and ln(1 - confidence) recur on every half-width: a few recent results are kept.
+const lnCache = new Map<string, Bound>();
+
 /** ln(y) for a rational y > 0: y = m 2^k with m in [1, 2), ln m = 2 atanh((m-1)/(m+1)). */
 export function ln(y: Rational, p: number): Bound {
   if (y.sign() <= 0) throw new BadInputError("ln needs a positive argument");
+  const key = `${y}@${p}`;
+  const hit = lnCache.get(key);
+  if (hit !== undefined) return hit;
+  const b = lnUncached(y, p);
+  if (lnCache.size >= 32) lnCache.delete(lnCache.keys().next().value as string);
+  lnCache.set(key, b);
+  return b;
+}
+
+function lnUncached(y: Rational, p: number): Bound {
   let k = bitLength(y.num) - bitLength(y.den);
   let m = k >= 0 ? y.div(Rational.of(1n << BigInt(k))) : y.mul(Rational.of(1n << BigInt(-k)));
   if (m.lt(1)) {
