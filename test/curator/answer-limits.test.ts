@@ -86,7 +86,7 @@ const ASKS: [string, QueryPlan["privacy"], number | undefined, RegExp | null][] 
   ["visits", { epsilon: "1/3" }, undefined, null],
   ["visits", { epsilon: "1e-15" }, undefined, /plan\.privacy\.epsilon: below the smallest epsilon the curator supports \(1e-9\)/],
   ["visits", { epsilon: TINY_FRACTION }, undefined, /plan\.privacy\.epsilon: below the smallest epsilon/],
-  ["visits", { epsilon: "1001" }, undefined, /plan\.privacy\.epsilon: above the largest epsilon the curator supports \(1000\)/],
+  ["visits", { epsilon: "100000001" }, undefined, /plan\.privacy\.epsilon: above the largest epsilon the curator supports \(1e8\)/],
   ["visits", { epsilon: "0.1234567890123456789012345678901" }, undefined, /at most 30 digits/],
   ["visits", { epsilon: "1" }, 1e-300, /confidence: must lie between 0\.001 and 0\.999999999999/],
   ["visits", { epsilon: "1" }, 0.9999999999999, /confidence: must lie between/],
@@ -96,7 +96,7 @@ const ASKS: [string, QueryPlan["privacy"], number | undefined, RegExp | null][] 
   ["rows", { rho: THIRTY_DIGITS }, undefined, null],
   ["rows", { rho: "1e-30" }, undefined, /plan\.privacy\.rho: below the smallest rho the curator supports \(1e-18\)/],
   ["rows", { rho: TINY_FRACTION }, undefined, /plan\.privacy\.rho: below the smallest rho/],
-  ["rows", { rho: "123456789012345678901234567890" }, undefined, /plan\.privacy\.rho: above the largest rho the curator supports \(500000\)/],
+  ["rows", { rho: "123456789012345678901234567890" }, undefined, /plan\.privacy\.rho: above the largest rho the curator supports \(5e15\)/],
   // epsilon on a zCDP dataset
   ["rows", { epsilon: PRIVACY_LIMITS.minEpsilon }, 0.999999999999, null],
   ["rows", { epsilon: PRIVACY_LIMITS.maxEpsilon }, undefined, null],
@@ -153,17 +153,7 @@ describe("extreme privacy parameters: every measure kind answers or refuses, nev
       for (const measure of MEASURES) {
         plans.push({ v: 1, dataset, measure, privacy: confidence === undefined ? { within } : { within, confidence } });
         const allowed = ACCURACY_FIRST.has(measure.kind);
-        // a sum of the wide column (sensitivity 4 x 10^9 grid units) within a few units needs more
-        // than the largest supported epsilon or rho: refused, naming it
-        const tooFine = measure.kind === "sum" && within < 10;
-        expected.push(
-          refusal ??
-            (!allowed
-              ? /accuracy-first asks apply to count, sum, histogram and crosstab/
-              : tooFine
-                ? /plan\.privacy\.within: reaching this half-width needs more than the largest (epsilon|rho) the curator supports \((1000|500000)\)/
-                : null),
-        );
+        expected.push(refusal ?? (allowed ? null : /accuracy-first asks apply to count, sum, histogram and crosstab/));
       }
     }
     const results = probe(WIDE, plans);
@@ -171,6 +161,16 @@ describe("extreme privacy parameters: every measure kind answers or refuses, nev
   }, CHILD_TIMEOUT_MS + 10_000);
 
   it("a within below one step of the value is refused; planned half-widths never exceed within", () => {
+    // a sum of the wide column (sensitivity 4 x 10^9 grid units) within one grid unit needs more
+    // than the largest supported epsilon or rho: refused, naming it
+    const fine = probe(WIDE, [
+      { v: 1, dataset: "visits", measure: { kind: "sum", column: "wait_minutes" }, privacy: { within: 0.001 } },
+      { v: 1, dataset: "rows", measure: { kind: "sum", column: "wait_minutes" }, privacy: { within: 0.001 } },
+    ], false);
+    check(fine, [
+      /plan\.privacy\.within: reaching this half-width needs more than the largest epsilon the curator supports \(100000000\)/,
+      /plan\.privacy\.within: reaching this half-width needs more than the largest rho the curator supports \(5000000000000000\)/,
+    ], (i) => `wide sum within one unit (${i})`);
     const plans: QueryPlan[] = [
       { v: 1, dataset: "visits", measure: { kind: "count" }, privacy: { within: 0.5 } },
       { v: 1, dataset: "visits", measure: { kind: "count" }, privacy: { within: 3 } },
