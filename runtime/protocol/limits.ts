@@ -23,10 +23,10 @@ export const PRIVACY_LIMITS = {
    * stewards check the data path (it spends the cap like any other ask).
    */
   minEpsilon: "1e-9",
-  maxEpsilon: "1e8",
-  /** rho of one ask (zCDP datasets): (1e-9)^2/2 and (1e8)^2/2, rounded outward */
+  maxEpsilon: "1e9",
+  /** rho of one ask (zCDP datasets): (1e-9)^2/2 and (1e9)^2/2, rounded outward */
   minRho: "1e-18",
-  maxRho: "5e15",
+  maxRho: "5e17",
   /**
    * Confidence of error bars. Below 0.001 an error bar says nothing; above 1 - 1e-12 the tail
    * targets leave binary64 input precision (a confidence is a binary64 number).

@@ -86,7 +86,7 @@ const ASKS: [string, QueryPlan["privacy"], number | undefined, RegExp | null][] 
   ["visits", { epsilon: "1/3" }, undefined, null],
   ["visits", { epsilon: "1e-15" }, undefined, /plan\.privacy\.epsilon: below the smallest epsilon the curator supports \(1e-9\)/],
   ["visits", { epsilon: TINY_FRACTION }, undefined, /plan\.privacy\.epsilon: below the smallest epsilon/],
-  ["visits", { epsilon: "100000001" }, undefined, /plan\.privacy\.epsilon: above the largest epsilon the curator supports \(1e8\)/],
+  ["visits", { epsilon: "1000000001" }, undefined, /plan\.privacy\.epsilon: above the largest epsilon the curator supports \(1e9\)/],
   ["visits", { epsilon: "0.1234567890123456789012345678901" }, undefined, /at most 30 digits/],
   ["visits", { epsilon: "1" }, 1e-300, /confidence: must lie between 0\.001 and 0\.999999999999/],
   ["visits", { epsilon: "1" }, 0.9999999999999, /confidence: must lie between/],
@@ -96,7 +96,7 @@ const ASKS: [string, QueryPlan["privacy"], number | undefined, RegExp | null][] 
   ["rows", { rho: THIRTY_DIGITS }, undefined, null],
   ["rows", { rho: "1e-30" }, undefined, /plan\.privacy\.rho: below the smallest rho the curator supports \(1e-18\)/],
   ["rows", { rho: TINY_FRACTION }, undefined, /plan\.privacy\.rho: below the smallest rho/],
-  ["rows", { rho: "123456789012345678901234567890" }, undefined, /plan\.privacy\.rho: above the largest rho the curator supports \(5e15\)/],
+  ["rows", { rho: "123456789012345678901234567890" }, undefined, /plan\.privacy\.rho: above the largest rho the curator supports \(5e17\)/],
   // epsilon on a zCDP dataset
   ["rows", { epsilon: PRIVACY_LIMITS.minEpsilon }, 0.999999999999, null],
   ["rows", { epsilon: PRIVACY_LIMITS.maxEpsilon }, undefined, null],
@@ -168,8 +168,8 @@ describe("extreme privacy parameters: every measure kind answers or refuses, nev
       { v: 1, dataset: "rows", measure: { kind: "sum", column: "wait_minutes" }, privacy: { within: 0.001 } },
     ], false);
     check(fine, [
-      /plan\.privacy\.within: reaching this half-width needs more than the largest epsilon the curator supports \(100000000\)/,
-      /plan\.privacy\.within: reaching this half-width needs more than the largest rho the curator supports \(5000000000000000\)/,
+      /plan\.privacy\.within: reaching this half-width needs more than the largest epsilon the curator supports \(1000000000\)/,
+      /plan\.privacy\.within: reaching this half-width needs more than the largest rho the curator supports \(500000000000000000\)/,
     ], (i) => `wide sum within one unit (${i})`);
     const plans: QueryPlan[] = [
       { v: 1, dataset: "visits", measure: { kind: "count" }, privacy: { within: 0.5 } },
