@@ -1,6 +1,7 @@
 /**
- * Error bars. Half-widths come from exact tail sums of the integer noise (methods.md §4–5: the
- * smallest integer h with P(|noise| > h) <= a). Ratio estimates (means, variances) get conservative
+ * Error bars. Half-widths come from rigorous upper bounds on the tails of the integer noise, in
+ * exact integer arithmetic (tailbounds.ts; methods.md §4–5: the smallest integer h with
+ * P(|noise| > h) <= a, never smaller). Ratio estimates (means, variances) get conservative
  * noise-only intervals by the corner method of methods.md §8: they cover the DP noise, not clamping
  * bias, grid rounding or sampling error.
  */
