@@ -9,7 +9,7 @@
  * log(1/rho); the ranges keep that bounded with wide margins, while lying far outside honest use
  * (an epsilon of 1e-9 buys error bars a billion times the sensitivity; an epsilon above 10 is
  * hardly privacy at all). The slowest plans at these limits, measured through an Answerer on the test
- * fixture (test/curator/answer-limits.test.ts runs them; 2 shared cores): a std over 10,000 cells
+ * fixture with test/curator/limits-probe.mjs (2 shared cores; answer-limits.test.ts runs such plans): a std over 10,000 cells
  * 0.2 s to preview and 2-3.6 s to ask; describe, 20 quantiles or a 1000-bin histogram at the
  * range ends under 0.1 s to preview and 0.8 s to ask.
  */
@@ -24,7 +24,7 @@ export const PRIVACY_LIMITS = {
    */
   minEpsilon: "1e-9",
   maxEpsilon: "1e9",
-  /** rho of one ask (zCDP datasets): (1e-9)^2/2 and (1e9)^2/2, rounded outward */
+  /** rho of one ask (zCDP datasets): near (1e-9)^2/2 and exactly (1e9)^2/2, the epsilon range in rho */
   minRho: "1e-18",
   maxRho: "5e17",
   /**
