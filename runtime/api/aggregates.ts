@@ -5,7 +5,7 @@
  */
 import { BadInputError } from "../errors.js";
 import type { Measure } from "../protocol/messages.js";
-import { PLAN_LIMITS } from "../protocol/schema.js";
+import { PLAN_LIMITS } from "../protocol/limits.js";
 import type { SpendOptions } from "./privacy.js";
 
 /** Options of a histogram: the number of equal-width bins over the column's declared range, and the spend. */

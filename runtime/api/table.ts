@@ -7,7 +7,8 @@
 import { BadInputError } from "../errors.js";
 import type { ColumnInfo, Condition, DatasetInfo, GroupKey, Measure, QueryPlan, SpendSummary } from "../protocol/messages.js";
 import { PROTOCOL_VERSION } from "../protocol/messages.js";
-import { PLAN_LIMITS, parsePlan } from "../protocol/schema.js";
+import { PLAN_LIMITS } from "../protocol/limits.js";
+import { parsePlan } from "../protocol/schema.js";
 import { Aggregates } from "./aggregates.js";
 import { Answer } from "./answer.js";
 import { BudgetReport } from "./budget.js";
@@ -169,7 +170,7 @@ export class SealedTable extends Aggregates<Answer> {
     if (typeof column !== "string") throw new BadInputError("by(column): name a column (a string)");
     const c = findColumn(s.info, column, "by");
     if (s.groupBy.some((k) => k.column === column)) throw new BadInputError(`by: already grouped by ${column}`);
-    if (s.groupBy.length >= 3) throw new BadInputError("by: at most 3 group keys");
+    if (s.groupBy.length >= PLAN_LIMITS.maxGroupKeys) throw new BadInputError(`by: at most ${PLAN_LIMITS.maxGroupKeys} group keys`);
     const bins = opts?.bins;
     let key: GroupKey;
     if (c.type === "category" || c.type === "boolean") {

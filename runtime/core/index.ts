@@ -51,13 +51,18 @@ export {
 } from "./accounting.js";
 export {
   type Plan,
+  type CostRange,
   type MeanPlan,
   type MeanPlanArgs,
   planForHalfWidth,
   halfWidthFor,
   meanPlanFor,
   planMeanForHalfWidth,
+  supportedRange,
   laplaceReference,
   gaussianReference,
 } from "./planning.js";
+export { shortAt, shortIndexDown, shortIndexUp, shortSqrtDown } from "./shortdecimal.js";
+export { firstPassing } from "./search.js";
+export { laplaceHalfWidth, gaussianHalfWidth, missOf } from "./tailbounds.js";
 export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";

@@ -1,12 +1,14 @@
 /**
- * Error bars. Half-widths come from exact tail sums of the integer noise (methods.md §4–5: the
- * smallest integer h with P(|noise| > h) <= a). Ratio estimates (means, variances) get conservative
+ * Error bars. Half-widths come from rigorous upper bounds on the tails of the integer noise, in
+ * exact integer arithmetic (tailbounds.ts; methods.md §4–5: the smallest integer h with
+ * P(|noise| > h) <= a, never smaller). Ratio estimates (means, variances) get conservative
  * noise-only intervals by the corner method of methods.md §8: they cover the DP noise, not clamping
  * bias, grid rounding or sampling error.
  */
 import { BadInputError } from "../errors.js";
 import { checkLaw, type NoiseLaw } from "./mechanisms.js";
 import { Rational } from "./rational.js";
+import { gaussianHalfWidth, laplaceHalfWidth, missOf } from "./tailbounds.js";
 import { erfc, gaussianTail, gaussianVariance, laplaceTail, laplaceVariance } from "./tails.js";
 
 export interface NoisyPart {
@@ -35,7 +37,11 @@ export function checkConfidence(c: number): void {
   }
 }
 
-/** P(|noise| > h) for an integer h (binary64). */
+/**
+ * P(|noise| > h) for an integer h, in binary64. Display only (the `coverage` figure of an interval):
+ * no half-width, cost or draw depends on it, and it runs in bounded time (closed form, or a sum of
+ * at most 80,000 terms, cached).
+ */
 export function tailProbability(law: NoiseLaw, h: bigint): number {
   checkLaw(law);
   if (h < 0n) return 1;
@@ -44,76 +50,46 @@ export function tailProbability(law: NoiseLaw, h: bigint): number {
   return gaussianTail(law.sigma2.toNumber(), hn);
 }
 
-/** Noise variance: exact for the discrete Laplace (§4) and by summation for the discrete Gaussian (§5). */
+/** Noise variance in binary64 (display only): exact for the discrete Laplace (§4), summed for the discrete Gaussian (§5). */
 export function noiseVariance(law: NoiseLaw): number {
   checkLaw(law);
   return law.family === "discrete-laplace" ? laplaceVariance(law.scale.toNumber()) : gaussianVariance(law.sigma2.toNumber());
 }
 
-// Tail comparisons carry a small relative margin (methods.md §4 cautions): a tail within 1e-12 of
-// the target counts as too large, so rounding in binary64 can only widen the interval.
-const MARGIN = 1 + 1e-12;
-
 /**
- * Smallest integer h >= 0 with P(|noise| > h) <= 1 - confidence. A closed-form or normal start is
- * confirmed by the tail sums and moved until tail(h) <= a < tail(h - 1) (methods.md §4 cautions).
+ * Smallest integer h >= 0 with P(|noise| > h) <= 1 - confidence (methods.md §4–5), from rigorous
+ * upper bounds on the tail in exact integer arithmetic (tailbounds.ts): never below the exact
+ * value, at most one grid unit above it for the discrete Laplace, and within the relative slack
+ * stated in tailbounds.ts for the discrete Gaussian. A binary64 normal quantile only picks where the
+ * bounded exact search starts.
  */
 export function halfWidth(law: NoiseLaw, confidence: number = DEFAULT_CONFIDENCE): bigint {
   checkConfidence(confidence);
   checkLaw(law);
-  const a = 1 - confidence;
-  let tail: (h: number) => number;
-  let start: number;
-  if (law.family === "discrete-laplace") {
-    const t = law.scale.toNumber();
-    const q = Math.exp(-1 / t);
-    tail = (h) => laplaceTail(t, h);
-    // h = max(0, ceil(t ln(2/((1+q) a))) - 1), methods.md §4
-    start = Math.max(0, Math.ceil(t * Math.log(2 / ((1 + q) * a))) - 1);
-  } else {
-    const s2 = law.sigma2.toNumber();
-    tail = (h) => gaussianTail(s2, h);
-    start = Math.max(0, Math.floor(Math.sqrt(s2) * normalQuantile(1 - a / 2)));
+  // A release's cells share one law: recent answers are kept (the result depends only on the key).
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${confidence}`;
+  const hit = recent.get(key);
+  if (hit !== undefined) return hit;
+  const a = missOf(confidence);
+  let h: bigint;
+  if (law.family === "discrete-laplace") h = laplaceHalfWidth(law.scale, a);
+  else {
+    const guess = Math.sqrt(law.sigma2.toNumber()) * normalQuantile(1 - (1 - confidence) / 2);
+    const hint = Number.isFinite(guess) && guess > 0 ? BigInt(Math.floor(guess)) : 0n;
+    h = gaussianHalfWidth(law.sigma2, a, hint);
   }
-  const ok = (h: number): boolean => tail(h) * MARGIN <= a;
-  if (!Number.isFinite(start)) throw new BadInputError("noise scale too large for a half-width");
-  let h = start;
-  if (ok(h)) {
-    // step down (exponential then binary search) to the smallest passing h
-    let lo = h; // passing
-    let step = 1;
-    while (lo - step >= 0 && ok(lo - step)) {
-      lo -= step;
-      step *= 2;
-    }
-    let bad = lo - step; // failing or < 0
-    while (lo - bad > 1) {
-      const mid = Math.floor((lo + bad) / 2);
-      if (mid >= 0 && ok(mid)) lo = mid;
-      else bad = mid;
-    }
-    h = lo;
-  } else {
-    let bad = h;
-    let step = 1;
-    while (!ok(bad + step)) {
-      bad += step;
-      step *= 2;
-    }
-    let hi = bad + step;
-    while (hi - bad > 1) {
-      const mid = Math.floor((hi + bad) / 2);
-      if (ok(mid)) hi = mid;
-      else bad = mid;
-    }
-    h = hi;
-  }
-  return BigInt(h);
+  if (recent.size >= RECENT_SIZE) recent.delete(recent.keys().next().value as string);
+  recent.set(key, h);
+  return h;
 }
+
+const RECENT_SIZE = 64;
+const recent = new Map<string, bigint>();
 
 /**
  * Inverse of the standard normal cdf: Acklam's rational approximation (relative error ~1e-9, common
  * practice) refined by one Newton step on Phi(z) = erfc(-z/sqrt 2)/2, which brings it to ~1e-15.
+ * Binary64, bounded time: used only for starting guesses and the continuous references.
  */
 export function normalQuantile(p: number): number {
   if (!(p > 0 && p < 1)) throw new BadInputError(`normal quantile needs 0 < p < 1, got ${p}`);

@@ -1,14 +1,17 @@
 /**
  * Accuracy-first planning (methods.md §11): from a requested half-width at a confidence to the
  * smallest privacy cost, and from a cost to the half-width it buys. Public inputs only: no data, no
- * spend. Rounding goes the accurate way (epsilon up, sigma^2 down) and every plan is confirmed with
- * the exact tail of the law actually returned.
+ * spend. Rounding goes the accurate way (epsilon up, sigma^2 down), every search is an integer
+ * bisection over short decimals (no binary64 step decides a cost), and every plan is confirmed with
+ * the exact half-width of the law actually returned.
  */
 import { BadInputError } from "../errors.js";
 import { checkConfidence, halfWidth, normalQuantile } from "./intervals.js";
 import { calibrate, costOf, type NoiseLaw, type PrivacyParam } from "./mechanisms.js";
+import { PRIVACY_LIMITS } from "../protocol/limits.js";
 import { Rational } from "./rational.js";
-import { gaussianTail } from "./tails.js";
+import { firstPassing } from "./search.js";
+import { shortAt, shortIndexDown, shortIndexUp } from "./shortdecimal.js";
 
 export interface Plan {
   law: NoiseLaw;
@@ -20,38 +23,6 @@ export interface Plan {
 function checkPlanInputs(sensitivity: bigint, h: bigint): void {
   if (typeof sensitivity !== "bigint" || sensitivity <= 0n) throw new BadInputError(`sensitivity must be a positive integer, got ${String(sensitivity)}`);
   if (typeof h !== "bigint" || h < 0n) throw new BadInputError(`requested half-width must be a non-negative integer of grid units, got ${String(h)}`);
-}
-
-/**
- * Discrete Laplace: the smallest epsilon with 2 q^(h+1)/(1+q) <= a, q = exp(-epsilon/Delta).
- * Solved in x = epsilon/Delta (the tail decreases in x) by bisection; [C11.2].
- */
-export function minEpsilonLaplace(sensitivity: number, h: number, a: number): number {
-  const tail = (x: number): number => (2 * Math.exp(-x * (h + 1))) / (1 + Math.exp(-x));
-  let lo = 0;
-  let hi = 1;
-  while (tail(hi) > a) hi *= 2;
-  for (let i = 0; i < 200; i++) {
-    const mid = (lo + hi) / 2;
-    if (tail(mid) > a) lo = mid;
-    else hi = mid;
-  }
-  return sensitivity * hi;
-}
-
-/** Discrete Gaussian: the largest sigma with P(|X| > h) <= a (the tail increases in sigma); [C11.4a]. */
-export function maxSigmaGaussian(h: number, a: number): number {
-  const tail = (s: number): number => gaussianTail(s * s, h);
-  let lo = 1e-3;
-  if (tail(lo) > a) return 0;
-  let hi = Math.max(1, h);
-  while (tail(hi) <= a) hi *= 2;
-  for (let i = 0; i < 100 && hi - lo > 1e-12 * hi; i++) {
-    const mid = (lo + hi) / 2;
-    if (tail(mid) <= a) lo = mid;
-    else hi = mid;
-  }
-  return lo;
 }
 
 /**
@@ -77,36 +48,70 @@ export function gaussianReference(args: { sensitivity: number; a: number; halfWi
   return { z, sigma, rho: (args.sensitivity * args.sensitivity) / (2 * sigma * sigma) };
 }
 
-/** Smallest cost whose noise has half-width <= halfWidthUnits at the confidence. */
-export function planForHalfWidth(args: { family: NoiseLaw["family"]; sensitivity: bigint; halfWidthUnits: bigint; confidence: number }): Plan {
+/** Range of a planned cost: epsilon for the discrete Laplace, rho for the discrete Gaussian. */
+export interface CostRange {
+  low: Rational;
+  high: Rational;
+}
+
+/** The supported range of one ask's parameter (runtime/protocol/limits.ts). */
+export function supportedRange(family: NoiseLaw["family"]): CostRange {
+  return family === "discrete-laplace"
+    ? { low: Rational.parse(PRIVACY_LIMITS.minEpsilon), high: Rational.parse(PRIVACY_LIMITS.maxEpsilon) }
+    : { low: Rational.parse(PRIVACY_LIMITS.minRho), high: Rational.parse(PRIVACY_LIMITS.maxRho) };
+}
+
+/** Index of a binary64 guess among short decimals (a starting point only), or `fallback`. */
+function guessIndex(x: number, fallback: bigint): bigint {
+  if (!Number.isFinite(x) || !(x > 1e-80) || x > 1e300) return fallback;
+  return shortIndexDown(Rational.fromNumberExact(x));
+}
+
+/**
+ * Smallest cost whose noise has half-width <= halfWidthUnits at the confidence (methods.md §11):
+ * the smallest 6-significant-digit epsilon (discrete Laplace), or the largest 6-significant-digit
+ * sigma^2 (discrete Gaussian, rho = Delta^2/(2 sigma^2)), found by integer bisection over the
+ * ordered short decimals of the supported range, each step an exact half-width (intervals.ts).
+ * About 25 half-widths at most; a binary64 closed-form guess picks where the search starts.
+ */
+export function planForHalfWidth(args: {
+  family: NoiseLaw["family"];
+  sensitivity: bigint;
+  halfWidthUnits: bigint;
+  confidence: number;
+  range?: CostRange;
+}): Plan {
   checkConfidence(args.confidence);
   checkPlanInputs(args.sensitivity, args.halfWidthUnits);
-  const a = 1 - args.confidence;
-  const h = Number(args.halfWidthUnits);
+  const conf = args.confidence;
+  const H = args.halfWidthUnits;
   const delta = args.sensitivity;
+  const a = 1 - conf;
+  const range = args.range ?? supportedRange(args.family);
+  const done = (law: NoiseLaw): Plan => ({ law, param: costOf(law, delta), halfWidthUnits: halfWidth(law, conf) });
   if (args.family === "discrete-laplace") {
-    const epsMin = minEpsilonLaplace(Number(delta), h, a);
-    let eps = Rational.fromNumberUp(epsMin * (1 + 1e-10), 6);
-    for (let i = 0; i < 1000; i++) {
-      const law = calibrate(delta, { epsilon: eps });
-      const got = halfWidth(law, args.confidence);
-      if (got <= args.halfWidthUnits) return { law, param: costOf(law, delta), halfWidthUnits: got };
-      eps = Rational.fromNumberUp(eps.toNumber() * (1 + 1e-6), 6);
-    }
-    throw new BadInputError("could not plan a discrete Laplace cost for this half-width");
+    const lo = shortIndexUp(range.low);
+    const hi = shortIndexDown(range.high);
+    const lawAt = (i: bigint): NoiseLaw => calibrate(delta, { epsilon: shortAt(i) });
+    // continuous Laplace guess: epsilon = Delta ln(1/a) / (H + 1)
+    const hint = guessIndex((Number(delta) * Math.log(1 / a)) / (Number(H) + 1), lo);
+    const i = firstPassing((x) => halfWidth(lawAt(x), conf) <= H, lo, hi, hint);
+    if (i === null) throw new BadInputError(`reaching this half-width needs more than the largest epsilon the curator supports (${range.high.toDecimal()})`);
+    return done(lawAt(i));
   }
   if (args.family === "discrete-gaussian") {
-    const sigma = maxSigmaGaussian(h, a);
-    if (!(sigma > 0)) throw new BadInputError(`half-width ${h} is too small to plan at confidence ${args.confidence}`);
-    // sigma^2 = sigma_max^2 rounded down; Delta^2 enters only through rho = Delta^2/(2 sigma^2).
-    let s2 = Rational.fromNumberDown(sigma * sigma * (1 - 1e-10), 6);
-    for (let i = 0; i < 1000 && s2.sign() > 0; i++) {
-      const law: NoiseLaw = { family: "discrete-gaussian", sigma2: s2 };
-      const got = halfWidth(law, args.confidence);
-      if (got <= args.halfWidthUnits) return { law, param: costOf(law, delta), halfWidthUnits: got };
-      s2 = Rational.fromNumberDown(s2.toNumber() * (1 - 1e-6), 6);
-    }
-    throw new BadInputError("could not plan a discrete Gaussian cost for this half-width");
+    const d2 = Rational.of(delta * delta);
+    const lo = shortIndexUp(d2.div(range.high.mul(2n)));
+    const hi = shortIndexDown(d2.div(range.low.mul(2n)));
+    const lawAt = (i: bigint): NoiseLaw => ({ family: "discrete-gaussian", sigma2: shortAt(i) });
+    // continuous Gaussian guess: sigma = (H + 1/2) / z_(1 - a/2)
+    const sigma = (Number(H) + 0.5) / normalQuantile(1 - a / 2);
+    const hint = guessIndex(sigma * sigma, lo);
+    // half-widths grow with sigma^2: the first index that misses, minus one
+    const miss = firstPassing((x) => halfWidth(lawAt(x), conf) > H, lo, hi, hint);
+    const i = miss === null ? hi : miss - 1n;
+    if (i < lo) throw new BadInputError(`reaching this half-width needs more than the largest rho the curator supports (${range.high.toDecimal()})`);
+    return done(lawAt(i));
   }
   throw new BadInputError(`unknown noise family ${JSON.stringify(args.family)}`);
 }
@@ -167,22 +172,20 @@ export function meanPlanFor(args: MeanPlanArgs & { total: Rational }): MeanPlan 
   return { sum: { law: sumLaw, param: part }, count: { law: countLaw, param: part }, total, expectedHalfWidth };
 }
 
-/** Smallest total cost (6 significant digits, rounded up) whose expected mean half-width is <= H. */
-export function planMeanForHalfWidth(args: MeanPlanArgs & { halfWidth: Rational }): MeanPlan {
+/**
+ * Smallest total cost (6 significant digits) in the supported range whose expected mean half-width
+ * is <= H: integer bisection over the ordered short decimals. The expected half-width itself is a
+ * binary64 figure from public guesses (expected count and offset), a planning aid, not a guarantee.
+ */
+export function planMeanForHalfWidth(args: MeanPlanArgs & { halfWidth: Rational; range?: CostRange }): MeanPlan {
   if (!(args.halfWidth instanceof Rational) || args.halfWidth.sign() <= 0) throw new BadInputError("requested half-width must be a positive rational");
   const H = args.halfWidth.toNumber();
-  const ok = (cost: Rational): boolean => {
-    const w = meanPlanFor({ ...args, total: cost }).expectedHalfWidth;
+  const range = args.range ?? supportedRange(args.family);
+  const ok = (i: bigint): boolean => {
+    const w = meanPlanFor({ ...args, total: shortAt(i) }).expectedHalfWidth;
     return w !== null && w <= H;
   };
-  // bisection on ln(cost) over [1e-9, 1e9]; the half-width falls as the cost rises
-  let lo = Math.log(1e-9);
-  let hi = Math.log(1e9);
-  if (!ok(Rational.fromNumberUp(Math.exp(hi), 6))) throw new BadInputError("no affordable cost reaches this half-width; check the expected row count");
-  for (let i = 0; i < 80; i++) {
-    const mid = (lo + hi) / 2;
-    if (ok(Rational.fromNumberUp(Math.exp(mid), 6))) hi = mid;
-    else lo = mid;
-  }
-  return meanPlanFor({ ...args, total: Rational.fromNumberUp(Math.exp(hi), 6) });
+  const i = firstPassing(ok, shortIndexUp(range.low), shortIndexDown(range.high));
+  if (i === null) throw new BadInputError("no affordable cost reaches this half-width; check the expected row count");
+  return meanPlanFor({ ...args, total: shortAt(i) });
 }

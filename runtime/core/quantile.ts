@@ -6,6 +6,7 @@
  * rejection with exact Bernoulli(x/2^y) trials: no floating point touches the selection.
  */
 import { BadInputError } from "../errors.js";
+import { expNeg } from "./bounds.js";
 import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
 
@@ -47,11 +48,13 @@ export function quantileCosts(countsBelow: bigint[], n: bigint, p: Rational): { 
   return { costs, sensitivity: a > b - a ? a : b - a };
 }
 
-/** x = ceil(2^y exp(-epsilon/(2 Delta'))) with a safety margin, so beta >= exp(-epsilon/(2 Delta')) ([C9.3a]). */
+/**
+ * x = ceil(2^y exp(-epsilon/(2 Delta'))) from a rigorous upper bound of the exponential (64 bits
+ * beyond 2^-y, bounds.ts), so beta = x/2^y >= exp(-epsilon/(2 Delta')) always ([C9.3a]).
+ */
 export function dyadicBase(epsilon: Rational, sensitivity: bigint, y: number): bigint {
-  const target = Math.exp(-epsilon.toNumber() / (2 * Number(sensitivity)));
-  const scaled = Math.ceil(2 ** y * target * (1 + 1e-12));
-  const x = BigInt(scaled);
+  const upper = expNeg(epsilon.div(Rational.of(2n * sensitivity)), y + 64).hi;
+  const x = -((-upper) >> 64n);
   const one = 1n << BigInt(y);
   return x > one ? one : x < 1n ? 1n : x;
 }
@@ -88,7 +91,8 @@ export function exponentialQuantile(args: QuantileArgs): QuantileResult {
   if (!Number.isInteger(y) || y < 1 || y > 64) throw new BadInputError(`base bits must be an integer 1..64, got ${y}`);
   const m = countsBelow.length;
   const { costs, sensitivity } = quantileCosts(countsBelow, n, args.p);
-  // Default cap (public: depends on epsilon, Delta', m only). Beyond (2 Delta'/eps)(ln m + 40)
+  // Default cap (public: depends on epsilon, Delta', m only; binary64 here only sizes a public cap
+  // and the displayed epsilonEffective, bounded in time). Beyond (2 Delta'/eps)(ln m + 40)
   // a weight is below e^-40 of the best; a larger cap is allowed while the weights together stay
   // below ~2^22 bits (it only helps heavily tied data).
   const scale = (2 * Number(sensitivity)) / epsilon.toNumber();

@@ -1,6 +1,7 @@
 /**
- * Tail sums of the two noise families in binary64 (post-processing only: nothing here touches a
- * draw). Discrete Laplace has closed forms (methods.md §4); the discrete Gaussian is summed
+ * Tail sums of the two noise families in binary64, for display only (the `coverage` figure and
+ * variances): no half-width, cost or draw depends on them; those use the exact bounds of
+ * tailbounds.ts. Every routine here runs in bounded time (closed forms, or at most 80,000 terms). Discrete Laplace has closed forms (methods.md §4); the discrete Gaussian is summed
  * directly, smallest terms first, truncated at |x| <= ceil(40 sigma) + 1 (methods.md §5). Above
  * DIRECT_SUM_LIMIT the sums switch to Euler–Maclaurin around the Gaussian integral, whose error is
  * of relative order sigma^-4 there (common practice; the tests compare both routes where they meet).

@@ -13,6 +13,7 @@ import type { Bits } from "../core/index.js";
 import { createHash } from "node:crypto";
 import { canonicalJson } from "../protocol/canonical.js";
 import type { ColumnInfo, DatasetInfo, GroupKey, MechanismRecord, Preview, QueryPlan, ReleaseRow } from "../protocol/messages.js";
+import { PLAN_LIMITS } from "../protocol/limits.js";
 import { parsePlan } from "../protocol/schema.js";
 import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/additive.js";
 import { Allocator } from "./aggregates/budget.js";
@@ -76,6 +77,49 @@ function keyedColumn(t: TableInfo, name: string, path: string): void {
   const col = resolveColumn(t, name, path);
   if (col.policy.type !== "category" && col.policy.type !== "boolean") {
     throw new BadInputError(`${path}: crosstab needs category or boolean columns; ${shown(name)} is ${col.policy.type}`);
+  }
+}
+
+/** Declared values of a key from the policy alone (no label is built); 1 for a key that compileGroup will refuse. */
+function keySize(t: TableInfo, key: GroupKey): number {
+  const c = t.columns.get(key.column)?.policy;
+  if (c === undefined) return 1;
+  if (c.type === "category") return c.values.length;
+  if (c.type === "boolean") return 2;
+  if ((c.type === "integer" || c.type === "number") && "bins" in key) return key.bins;
+  return 1;
+}
+
+/**
+ * Refuses a plan that declares more cells than PLAN_LIMITS.maxCells, from the key sizes alone and
+ * before any label, cell array or SQL exists: every declared cell is released, so the product of
+ * the key sizes is the work, the memory and the size of the reply.
+ */
+function checkCells(plan: QueryPlan, t: TableInfo): void {
+  const m = plan.measure;
+  let cells: number;
+  let path: string;
+  if (m.kind === "histogram") {
+    cells = m.bins;
+    path = "plan.measure.bins";
+  } else if (m.kind === "crosstab") {
+    cells = keySize(t, { column: m.rows }) * keySize(t, { column: m.cols });
+    path = "plan.measure";
+  } else if (m.kind === "describe") {
+    // the row count, then per numeric column mean, std and median, per keyed column its values
+    cells = 1;
+    for (const c of t.columns.values()) {
+      const p = c.policy;
+      if (p.type === "integer" || p.type === "number") cells += 3;
+      else if (p.type === "category" || p.type === "boolean") cells += keySize(t, { column: p.name });
+    }
+    path = "plan.measure";
+  } else {
+    cells = (plan.groupBy ?? []).reduce((n, k) => n * keySize(t, k), 1);
+    path = "plan.groupBy";
+  }
+  if (cells > PLAN_LIMITS.maxCells) {
+    throw new BadInputError(`${path}: declares ${cells} cells (the product of the key sizes), above the curator's limit of ${PLAN_LIMITS.maxCells} (maxCells)`);
   }
 }
 
@@ -212,6 +256,7 @@ export class Answerer {
       seen.add(k.column);
     });
     const groupColumns = keys.map((k) => k.column);
+    checkCells(plan, t);
     const one = Rational.ONE;
     switch (m.kind) {
       case "count":

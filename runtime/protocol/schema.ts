@@ -7,21 +7,12 @@
  */
 import { z } from "zod";
 import { BadInputError, ProtocolError } from "../errors.js";
+import { PLAN_LIMITS, PRIVACY_LIMITS } from "./limits.js";
 import { PROTOCOL_VERSION, type QueryPlan, type Request } from "./messages.js";
 
-/** Structural limits on a plan; far above what a person writes, low enough to keep checks cheap. */
-export const PLAN_LIMITS = {
-  maxDepth: 12,
-  maxConditions: 200,
-  maxInValues: 1000,
-  maxStringLength: 200,
-  maxGroupKeys: 3,
-  maxBins: 1000,
-  maxQuantiles: 20,
-} as const;
-
 /** Exact privacy parameter as sent: a decimal ("0.1", "1e-6") or a fraction ("1/3"). */
-const EXACT = /^(?:\d{1,30}(?:\.\d{1,30})?(?:[eE][+-]?\d{1,2})?|\d{1,30}\/\d{1,30})$/;
+const D = `\\d{1,${PRIVACY_LIMITS.maxDigits}}`;
+const EXACT = new RegExp(`^(?:${D}(?:\\.${D})?(?:[eE][+-]?\\d{1,2})?|${D}\\/${D})$`);
 
 function isPositiveExact(s: string): boolean {
   if (!EXACT.test(s)) return false;
@@ -35,7 +26,9 @@ function isPositiveExact(s: string): boolean {
 
 const exactPositive = z
   .string({ error: "must be a string holding an exact positive number such as \"0.5\" or \"1/3\"" })
-  .refine(isPositiveExact, { message: "must be an exact positive number written as a decimal (\"0.5\", \"1e-3\") or a fraction (\"1/3\")" });
+  .refine(isPositiveExact, {
+    message: `must be an exact positive number written as a decimal ("0.5", "1e-3") or a fraction ("1/3"), at most ${PRIVACY_LIMITS.maxDigits} digits in each part`,
+  });
 
 const name = z
   .string({ error: "must be a string" })
@@ -48,7 +41,10 @@ const literal = z.union([z.string().max(PLAN_LIMITS.maxStringLength), finiteNumb
   error: `must be a string (at most ${PLAN_LIMITS.maxStringLength} characters), a finite number or a boolean`,
 });
 
-const confidence = finiteNumber.refine((c) => c > 0 && c < 1, { message: "must lie strictly between 0 and 1" });
+// Range checks on binary64 inputs compare with the binary64 nearest each stated limit.
+const confidence = finiteNumber.refine((c) => c >= Number(PRIVACY_LIMITS.minConfidence) && c <= Number(PRIVACY_LIMITS.maxConfidence), {
+  message: `must lie between ${PRIVACY_LIMITS.minConfidence} and ${PRIVACY_LIMITS.maxConfidence} (the confidences the curator supports)`,
+});
 
 type ConditionShape = QueryPlan["where"];
 
@@ -88,7 +84,12 @@ const groupKey = z.union(
   { error: `must be { column } or { column, bins } with bins a whole number from 1 to ${PLAN_LIMITS.maxBins}` },
 );
 
-const probability = finiteNumber.refine((p) => p > 0 && p < 1, { message: "must lie strictly between 0 and 1" });
+const probability = finiteNumber
+  .refine((p) => p > 0 && p < 1, { message: "must lie strictly between 0 and 1" })
+  // p = a/b sets the quantile's sensitivity max(a, b - a): more digits only add noise and work.
+  .refine((p) => Number(p.toFixed(PRIVACY_LIMITS.maxProbabilityDigits)) === p, {
+    message: `must have at most ${PRIVACY_LIMITS.maxProbabilityDigits} decimal places (such as 0.25 or 0.999)`,
+  });
 
 const measure = z.discriminatedUnion(
   "kind",
@@ -115,7 +116,11 @@ const privacy = z.union(
     z.strictObject({ epsilon: exactPositive }),
     z.strictObject({ rho: exactPositive }),
     z.strictObject({
-      within: finiteNumber.refine((h) => h > 0, { message: "must be a positive number" }),
+      within: finiteNumber
+        .refine((h) => h > 0, { message: "must be a positive number" })
+        .refine((h) => h >= Number(PRIVACY_LIMITS.minWithin) && h <= Number(PRIVACY_LIMITS.maxWithin), {
+          message: `must lie between ${PRIVACY_LIMITS.minWithin} and ${PRIVACY_LIMITS.maxWithin} (the range the curator supports)`,
+        }),
       confidence: confidence.optional(),
     }),
   ],
@@ -183,11 +188,16 @@ function describeIssues(root: string, error: z.ZodError): string {
 /** Depth and size of a condition tree, checked before zod so a hostile nesting cannot exhaust the stack. */
 function checkConditionSize(raw: unknown, root: string): void {
   let nodes = 0;
+  let values = 0;
   const walk = (node: unknown, depth: number, path: string): void => {
     if (depth > PLAN_LIMITS.maxDepth) throw new BadInputError(`${path}: conditions nest deeper than ${PLAN_LIMITS.maxDepth} levels`);
     if (++nodes > PLAN_LIMITS.maxConditions)
       throw new BadInputError(`${root}.where: more than ${PLAN_LIMITS.maxConditions} conditions`);
     if (node === null || typeof node !== "object") return;
+    const list = (node as { values?: unknown }).values;
+    if (Array.isArray(list) && (values += list.length) > PLAN_LIMITS.maxInValuesTotal) {
+      throw new BadInputError(`${root}.where: more than ${PLAN_LIMITS.maxInValuesTotal} listed values in all (limit maxInValuesTotal)`);
+    }
     const of = (node as { of?: unknown }).of;
     if (Array.isArray(of)) of.forEach((child, i) => walk(child, depth + 1, `${path}.of[${i}]`));
     else if (of !== undefined) walk(of, depth + 1, `${path}.of`);

@@ -23,7 +23,9 @@ import {
   isqrt,
   planForHalfWidth,
   pureToRho,
+  shortSqrtDown,
 } from "../../core/index.js";
+import { PRIVACY_LIMITS } from "../../protocol/limits.js";
 import type { MechanismRecord, PrivacyAsk } from "../../protocol/messages.js";
 import type { DatasetPolicy } from "../policy.js";
 
@@ -57,7 +59,7 @@ export class Allocator {
     const zcdp = dataset.accounting.mode === "zcdp";
     this.unit = zcdp ? "rho" : "epsilon";
     if ("epsilon" in ask) {
-      this.ask = { kind: "epsilon", total: parseAsk(ask.epsilon, "plan.privacy.epsilon") };
+      this.ask = { kind: "epsilon", total: parseAsk(ask.epsilon, "plan.privacy.epsilon", "epsilon", PRIVACY_LIMITS.minEpsilon, PRIVACY_LIMITS.maxEpsilon) };
       this.family = "discrete-laplace";
       if (zcdp) {
         this.notes.push(
@@ -68,7 +70,7 @@ export class Allocator {
       if (!zcdp) {
         throw new BadInputError(`plan.privacy.rho: dataset ${dataset.name} uses pure epsilon accounting; ask with epsilon or within`);
       }
-      this.ask = { kind: "rho", total: parseAsk(ask.rho, "plan.privacy.rho") };
+      this.ask = { kind: "rho", total: parseAsk(ask.rho, "plan.privacy.rho", "rho", PRIVACY_LIMITS.minRho, PRIVACY_LIMITS.maxRho) };
       this.family = "discrete-gaussian";
     } else {
       const h = Rational.parse(String(ask.within).replace("e+", "e"));
@@ -103,7 +105,12 @@ export class Allocator {
       if (units < 1n) {
         throw new BadInputError(`plan.privacy.within: must be at least one step of the released value (${step.toDecimal(20)})`);
       }
-      law = planForHalfWidth({ family: this.family, sensitivity, halfWidthUnits: units, confidence: this.confidence }).law;
+      try {
+        law = planForHalfWidth({ family: this.family, sensitivity, halfWidthUnits: units, confidence: this.confidence }).law;
+      } catch (e) {
+        if (e instanceof BadInputError) throw new BadInputError(`plan.privacy.within: ${e.message}`, { cause: e });
+        throw e;
+      }
     } else {
       law = calibrate(sensitivity, this.share(fraction));
     }
@@ -120,15 +127,15 @@ export class Allocator {
       const epsilon = this.ask.total.mul(fraction);
       return { target, epsilon, cost: this.unit === "rho" ? pureToRho(epsilon) : epsilon };
     }
+    // The largest 6-significant-digit epsilon <= sqrt(2 r), exactly: its charge epsilon^2/2 <= r.
     const r = this.ask.total.mul(fraction);
-    let epsilon = Rational.fromNumberDown(Math.sqrt(2 * r.toNumber()), 6);
-    while (epsilon.sign() > 0 && pureToRho(epsilon).gt(r)) epsilon = epsilon.mul(Rational.of(999999n, 1000000n));
-    if (epsilon.sign() <= 0) throw new BadInputError("plan.privacy.rho: too small to run a quantile");
+    const epsilon = shortSqrtDown(r.mul(2n));
     return { target, epsilon, cost: pureToRho(epsilon) };
   }
 }
 
-function parseAsk(s: string, path: string): Rational {
+/** An exact positive parameter inside the supported range (runtime/protocol/limits.ts); refused otherwise, before any work. */
+function parseAsk(s: string, path: string, what: string, min: string, max: string): Rational {
   let r: Rational;
   try {
     r = Rational.parse(s);
@@ -136,6 +143,8 @@ function parseAsk(s: string, path: string): Rational {
     throw new BadInputError(`${path}: must be an exact positive number such as "0.5" or "1/3"`);
   }
   if (r.sign() <= 0) throw new BadInputError(`${path}: must be positive`);
+  if (r.lt(Rational.parse(min))) throw new BadInputError(`${path}: below the smallest ${what} the curator supports (${min})`);
+  if (r.gt(Rational.parse(max))) throw new BadInputError(`${path}: above the largest ${what} the curator supports (${max})`);
   return r;
 }
 
@@ -179,7 +188,7 @@ export function exactDecimal(r: Rational): string {
   return d === 1n ? r.toDecimal(Math.max(twos, fives)) : r.toDecimal(12);
 }
 
-/** Square root of a non-negative rational to `digits` fraction digits, rounded down or up. */
+/** Square root of a non-negative rational to `digits` fraction digits, rounded down or up (exact: isqrt). */
 export function sqrtRational(r: Rational, digits: number, dir: "down" | "up"): Rational {
   if (r.sign() <= 0) return Rational.ZERO;
   const scale = 10n ** BigInt(2 * digits);

@@ -3,6 +3,8 @@
  * one SQL shape they all use: filtered rows -> per-unit bounded rows -> GROUP BY the public keys.
  */
 import type { Bits, Rational } from "../../core/index.js";
+import { BadInputError } from "../../errors.js";
+import { PLAN_LIMITS } from "../../protocol/limits.js";
 import type { Condition, GroupKey, MechanismRecord, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn, TableInfo } from "../engine.js";
 import { type GroupSpec, Params, compileGroup, compileWhere, keptFrom } from "../sql.js";
@@ -37,7 +39,13 @@ export function rowsPerUnit(src: Source): number {
 export function groupLabels(src: Source, keys: readonly GroupKey[]): { columns: string[]; labels: string[][]; cells: number } {
   const ps = new Params();
   const specs = keys.map((k, i) => compileGroup(k, src.t, ps, `plan.groupBy[${i}]`));
-  return { columns: specs.map((s) => s.column), labels: specs.map((s) => s.labels), cells: specs.reduce((n, s) => n * s.labels.length, 1) };
+  const cells = specs.reduce((n, s) => n * s.labels.length, 1);
+  // Answerer.build refuses this first, from the key sizes alone; kept here (prepare time, before
+  // any cell array or debit) so no piece can be built past the limit by another route.
+  if (cells > PLAN_LIMITS.maxCells) {
+    throw new BadInputError(`plan.groupBy: declares ${cells} cells, above the curator's limit of ${PLAN_LIMITS.maxCells} (maxCells)`);
+  }
+  return { columns: specs.map((s) => s.column), labels: specs.map((s) => s.labels), cells };
 }
 
 /** Every key tuple in row-major order (the last key varies fastest); [[]] with no keys. */

@@ -102,7 +102,8 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
 /**
  * Rank error bound of the exponential mechanism (McSherry & Talwar 2007; methods.md §9):
  * utility within (2 Delta/eps)(ln m + ln(1/a)) of the best with probability >= 1 - a, in units of
- * |b r - a n|, so a rank error of that divided by b. Public (no data), rounded up for display.
+ * |b r - a n|, so a rank error of that divided by b. Public (no data), rounded up for display:
+ * binary64 here is display-only post-processing and runs in constant time.
  */
 function rankBound(x: { p: Rational; spec: ExponentialSpec; sensitivity: bigint }, m: number, conf: number): string {
   const eps = x.spec.epsilon.toNumber();

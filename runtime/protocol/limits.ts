@@ -1,0 +1,66 @@
+/**
+ * What the curator supports, in one place: the range of every privacy parameter an ask may carry
+ * and the limits on every size that grows with a plan. Shared by both sides (the cell API reads it
+ * to refuse early); imports nothing. Asks outside these ranges are refused before any work and
+ * spend nothing.
+ *
+ * Why these values. Every interval, planning and quantile computation runs in exact integer
+ * arithmetic whose cost grows with the bit length of the noise scale, i.e. with log(1/epsilon) and
+ * log(1/rho); the ranges keep that bounded with wide margins, while lying far outside honest use
+ * (an epsilon of 1e-9 buys error bars a billion times the sensitivity; an epsilon above 10 is
+ * hardly privacy at all). The slowest plans at these limits, measured through an Answerer on the test
+ * fixture with test/curator/limits-probe.mjs (2 shared cores; answer-limits.test.ts runs such plans): a std over 10,000 cells
+ * 0.2 s to preview and 2-3.6 s to ask; describe, 20 quantiles or a 1000-bin histogram at the
+ * range ends under 0.1 s to preview and 0.8 s to ask.
+ */
+
+/** Ranges of the privacy parameters of one ask (exact decimal strings, compared exactly). */
+export const PRIVACY_LIMITS = {
+  /**
+   * epsilon of one ask (pure datasets, or epsilon asks on zCDP datasets). The small end sets the
+   * cost of the arithmetic; the large end only keeps numbers sane: a large epsilon shrinks the noise
+   * and costs nothing to compute, and reading noise-free values at a huge epsilon is how tests and
+   * stewards check the data path (it spends the cap like any other ask).
+   */
+  minEpsilon: "1e-9",
+  maxEpsilon: "1e9",
+  /** rho of one ask (zCDP datasets): near (1e-9)^2/2 and exactly (1e9)^2/2, the epsilon range in rho */
+  minRho: "1e-18",
+  maxRho: "5e17",
+  /**
+   * Confidence of error bars. Below 0.001 an error bar says nothing; above 1 - 1e-12 the tail
+   * targets leave binary64 input precision (a confidence is a binary64 number).
+   */
+  minConfidence: "0.001",
+  maxConfidence: "0.999999999999",
+  /** `within` of an accuracy-first ask, in the released value's units (it must also be at least one step) */
+  minWithin: "1e-12",
+  maxWithin: "1e15",
+  /** digits of each part (integer, fraction, numerator, denominator) of an exact number as sent */
+  maxDigits: 30,
+  /**
+   * Fraction digits of a quantile probability (p = 0.001 ... 0.999, 0.025, 0.975): p = a/b sets the
+   * quantile's sensitivity max(a, b - a), and the exponential mechanism's work grows with b. On the
+   * fixture with a wide column, 20 quantiles at epsilon 1000 took 0.8 s with 3 digits, 7-9 s with 4.
+   */
+  maxProbabilityDigits: 3,
+} as const;
+
+/** Structural limits on a plan; far above what a person writes, low enough to keep every check cheap. */
+export const PLAN_LIMITS = {
+  maxDepth: 12,
+  maxConditions: 200,
+  maxInValues: 1000,
+  /** IN-list values summed over the whole filter */
+  maxInValuesTotal: 5000,
+  maxStringLength: 200,
+  maxGroupKeys: 3,
+  maxBins: 1000,
+  maxQuantiles: 20,
+  /**
+   * Declared cells of one release: the product of the key sizes (bins, category values, 2 for a
+   * boolean, rows x columns of a crosstab; for describe, the rows of all its parts). Every declared
+   * cell is released, so this bounds the work, the memory and the reply of one ask.
+   */
+  maxCells: 10000,
+} as const;
