@@ -7,7 +7,7 @@
 import { ProtocolError } from "../errors.js";
 import { PROTOCOL_VERSION, type Response } from "../protocol/messages.js";
 import { describeReplyIssues, responseSchema } from "../protocol/reply-schema.js";
-import { PLAN_LIMITS } from "../protocol/schema.js";
+import { PLAN_LIMITS } from "../protocol/limits.js";
 
 /** What was wrong with a reply, for callers and tests that branch on it. */
 export type ReplyProblem =
