@@ -49,7 +49,8 @@ datasets:
       visit_date:   { type: date, range: ["2025-01-01", "2025-12-31"] }
       insured:      { type: boolean }
   rows:
-    source: visits.csv
+    # A copy of the file: one population may not hold two differing caps for ada.
+    source: visits-rows.csv
     accounting: { mode: zcdp, cap: { epsilon: "5", delta: "1e-6" } }
     analysts: [ada]
     columns:
@@ -58,7 +59,7 @@ datasets:
       district:     { type: category, values: [Northgate, Riverside, Old Town] }
       insured:      { type: boolean }
 `,
-  { "visits.csv": readFileSync(join(FIXTURES, "visits.csv"), "utf8") },
+  { "visits.csv": readFileSync(join(FIXTURES, "visits.csv"), "utf8"), "visits-rows.csv": readFileSync(join(FIXTURES, "visits.csv"), "utf8") },
 );
 
 const MEASURES: QueryPlan["measure"][] = [
