@@ -29,6 +29,13 @@ import { loadPublicKey, receiptHash } from "../../runtime/protocol/receipts.js";
 import { ledgerProblems, readLedger, sumOf } from "./checks.js";
 import { CODES, makeHostileWorkspace, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
 
+/**
+ * HUSH_HOSTILE_SURVEY=1: a diagnostic run, not the acceptance. Cases go one at a time and a wedged
+ * curator is SIGKILLed and started again on the same ledger, so one run lists every case that hangs.
+ */
+function SURVEY(): boolean {
+  return process.env.HUSH_HOSTILE_SURVEY === "1";
+}
 /** The curator's per-request deadline will default to 30 s (issue 9); 5 s more covers the transport. */
 const REQUEST_BOUND_MS = Number(process.env.HUSH_HOSTILE_BOUND_MS ?? 35_000);
 /** a2's `spend` is polled this often ... */
@@ -48,7 +55,7 @@ const RSS_BOUND = 1024 * 1024 * 1024;
 /** SIGTERM must stop the process within 5 s in every state (issue 9). */
 const SIGTERM_BOUND_MS = 5_000;
 /** Cases in flight at once from the hostile analyst: enough to overlap, few enough for two cores. */
-const BATCH = 6;
+const BATCH = SURVEY() ? 1 : 6;
 const CAP_PURE = "20";
 const CAP_ZCDP = "20";
 
@@ -86,13 +93,15 @@ async function askFor(client: CuratorClient, plan: QueryPlan): Promise<Omit<Answ
 function previewThenAsk(name: string, plan: QueryPlan): Case {
   return {
     name,
-    run: async (client) => [
-      await outcome("preview", async () => {
+    run: async (client) => {
+      const preview = await outcome("preview", async () => {
         const p = await client.preview(plan);
         return { dataset: p.dataset, digest: p.digest };
-      }),
-      await outcome("ask", () => askFor(client, plan)),
-    ],
+      });
+      // An unanswered preview means a wedged curator: the ask would only wait out its bound too.
+      if (preview.status === "hang") return [preview, { status: "hang", op: "ask", message: "not sent: the preview before it was not answered" }];
+      return [preview, await outcome("ask", () => askFor(client, plan))];
+    },
   };
 }
 
@@ -270,16 +279,29 @@ async function connect(ws: HostileWorkspace, serve: ServeProcess, analyst: "a1" 
 
 async function runSuite(ws: HostileWorkspace): Promise<RunLog> {
   const t0 = performance.now();
-  const serve = await ServeProcess.start(ws);
-  const hostile = await connect(ws, serve, "a1", REQUEST_BOUND_MS);
-  const watcherClient = await connect(ws, serve, "a2", WATCH_BOUND_MS);
-  const watcher = watchCurator({ spend: () => watcherClient.spend(ws.pure), rss: () => serve.rss(), everyMs: WATCH_EVERY_MS });
+  let serve = await ServeProcess.start(ws);
+  let hostile = await connect(ws, serve, "a1", REQUEST_BOUND_MS);
+  let watcherClient = await connect(ws, serve, "a2", WATCH_BOUND_MS);
+  const startWatcher = () => watchCurator({ spend: () => watcherClient.spend(ws.pure), rss: () => serve.rss(), everyMs: WATCH_EVERY_MS });
+  let watcher = startWatcher();
+  const earlierWatches: WatchLog[] = [];
 
   const cases = [...plainOpCases(ws), ...sizeCases(ws), ...parameterCases(ws)];
   const results: CaseResult[] = [];
   const notRun: string[] = [];
   let wedged = false;
   for (let i = 0; i < cases.length; i += BATCH) {
+    if (wedged && SURVEY()) {
+      earlierWatches.push(await watcher.stop());
+      await hostile.close();
+      await watcherClient.close();
+      await serve.kill9();
+      serve = await ServeProcess.start(ws);
+      hostile = await connect(ws, serve, "a1", REQUEST_BOUND_MS);
+      watcherClient = await connect(ws, serve, "a2", WATCH_BOUND_MS);
+      watcher = startWatcher();
+      wedged = false;
+    }
     if (wedged || serve.exited) {
       notRun.push(...cases.slice(i).map((c) => c.name));
       break;
@@ -315,7 +337,13 @@ async function runSuite(ws: HostileWorkspace): Promise<RunLog> {
     sigtermState = marker.status === "answered" ? "heavy asks taken in, a spend behind them answered" : `heavy asks sent; the spend behind them: ${marker.status}`;
   }
   const sigtermMs = await serve.terminate(SIGTERM_BOUND_MS);
-  const watch = await watcher.stop();
+  const last = await watcher.stop();
+  const watch: WatchLog = {
+    latencies: [...earlierWatches.flatMap((w) => w.latencies), ...last.latencies],
+    misses: [...earlierWatches.flatMap((w) => w.misses), ...last.misses],
+    peakRss: Math.max(last.peakRss, ...earlierWatches.map((w) => w.peakRss)),
+    lastSpent: last.lastSpent,
+  };
   await Promise.all(inFlight);
   await hostile.close();
   await watcherClient.close();
@@ -381,7 +409,9 @@ describe("reliability: hostile input over tcp+CURVE", () => {
   });
 
   it("refuses what is past a limit, at any privacy parameter", () => {
-    const past = log.results.filter((r) => /past the (limit|written exponent limit)/.test(r.name));
+    const isPast = (name: string) => /past the (limit|written exponent limit)/.test(name);
+    expect(log.notRun.filter(isPast)).toEqual([]);
+    const past = log.results.filter((r) => isPast(r.name));
     expect(past.length).toBeGreaterThan(0);
     for (const r of past) for (const o of r.outcomes) expect(`${r.name}: ${describeOutcome(o)}`).toMatch(/refused \(bad-input\)/);
   });
