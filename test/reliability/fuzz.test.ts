@@ -246,10 +246,12 @@ interface FuzzLog {
   durationMs: number;
 }
 
+/** The request id readable in a message: one frame, or a REQ-style empty delimiter then one frame. */
 function readableId(frames: Buffer[]): string | null {
-  if (frames.length !== 1) return null;
+  const payload = frames.length === 2 && frames[0].length === 0 ? frames.slice(1) : frames;
+  if (payload.length !== 1) return null;
   try {
-    const v = JSON.parse(frames[0].toString("utf8")) as unknown;
+    const v = JSON.parse(payload[0].toString("utf8")) as unknown;
     if (v !== null && typeof v === "object" && !Array.isArray(v) && typeof (v as { id?: unknown }).id === "string") return (v as { id: string }).id;
   } catch {
     return null;
