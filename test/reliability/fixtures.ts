@@ -439,3 +439,23 @@ export function watchCurator(opts: {
     },
   };
 }
+
+/**
+ * Bounds the hostile and fuzz suites hold a curator to (issue 9), stated once:
+ * - requestMs: the curator's per-request deadline will default to 30 s; 5 s more covers the transport.
+ * - watchEveryMs / watchMs: a second analyst's `spend` is polled every 200 ms and must be answered
+ *   within 5 s each time. A `spend` is a ledger read of a few rows, so 5 s only fails when the message
+ *   loop is blocked (generous for two shared CI cores; a bound that catches a freeze, not a speed target).
+ * - rssBytes: an idle curator over a few thousand rows sits near 150-250 MiB (Node, DuckDB, SQLite;
+ *   measured here: 194 MiB peak through the fuzzer); worker threads each add a V8 heap and DuckDB may
+ *   buffer a query's groups. 1 GiB leaves room for that and still catches the declared-cell explosion
+ *   of issue 9 (10^9 cells took RSS from 300 MB past 2 GB).
+ * - sigtermMs: SIGTERM must stop the process within 5 s in every state.
+ */
+export const HOSTILE_BOUNDS = {
+  requestMs: 35_000,
+  watchEveryMs: 200,
+  watchMs: 5_000,
+  rssBytes: 1024 * 1024 * 1024,
+  sigtermMs: 5_000,
+} as const;

@@ -27,16 +27,16 @@ import { CuratorClient } from "../../runtime/client/client.js";
 import { MAX_FRAME_BYTES, type Receipt } from "../../runtime/protocol/messages.js";
 import { loadPublicKey, receiptHash } from "../../runtime/protocol/receipts.js";
 import { ledgerProblems, readLedger, sumOf } from "./checks.js";
-import { CurveSpeaker, makeHostileWorkspace, seededRandom, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
+import { CurveSpeaker, HOSTILE_BOUNDS, makeHostileWorkspace, seededRandom, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
 
 const SEED = Number(process.env.HUSH_FUZZ_SEED ?? 20_261_202);
 const FRAMES = Number(process.env.HUSH_FUZZ_FRAMES ?? 10_000);
 const LANES = 8;
-/** Same bounds as hostile.test.ts (reasons there): 30 s curator deadline + 5 s, 5 s for a spend, 1 GiB. */
-const REQUEST_BOUND_MS = 35_000;
-const WATCH_EVERY_MS = 200;
-const WATCH_BOUND_MS = 5_000;
-const RSS_BOUND = 1024 * 1024 * 1024;
+/** HOSTILE_BOUNDS (fixtures.ts) states each bound and why. */
+const REQUEST_BOUND_MS = HOSTILE_BOUNDS.requestMs;
+const WATCH_EVERY_MS = HOSTILE_BOUNDS.watchEveryMs;
+const WATCH_BOUND_MS = HOSTILE_BOUNDS.watchMs;
+const RSS_BOUND = HOSTILE_BOUNDS.rssBytes;
 /** The curator's libzmq maximum message size (runtime/curator/server.ts HARD_FRAME_LIMIT). */
 const LIBZMQ_LIMIT = 16 * MAX_FRAME_BYTES;
 /** Wrong tokens cost a scrypt each on today's curator (~135 ms), so they are a small share of the frames. */
@@ -242,6 +242,8 @@ interface FuzzLog {
   /** Over-limit frames: did a reply come on the sending connection (it must not), and did others carry on. */
   dropped: { gotReply: boolean; answeredAfter: boolean }[];
   exitedDuring: boolean;
+  /** ms from SIGTERM (after the last frame) to exit; null if it had not exited within the bound. */
+  sigtermMs: number | null;
   stderr: string;
   durationMs: number;
 }
@@ -350,8 +352,8 @@ async function runFuzz(ws: HostileWorkspace): Promise<FuzzLog> {
   const exitedDuring = serve.exited;
   const watch = await watcher.stop();
   await watcherClient.close();
-  await serve.terminate(5_000);
-  return { sent, notSent: Math.max(0, FRAMES - sent.length), watch, dropped, exitedDuring, stderr: serve.stderr, durationMs: performance.now() - t0 };
+  const sigtermMs = await serve.terminate(HOSTILE_BOUNDS.sigtermMs);
+  return { sent, notSent: Math.max(0, FRAMES - sent.length), watch, dropped, exitedDuring, sigtermMs, stderr: serve.stderr, durationMs: performance.now() - t0 };
 }
 
 // ---- the checks ----------------------------------------------------------------------------------
@@ -402,6 +404,10 @@ describe("reliability: frame fuzzer over tcp+CURVE", () => {
     expect(log.watch.latencies.length).toBeGreaterThan(10);
     expect(log.watch.lastSpent).toBe("0");
     expect(log.watch.peakRss).toBeLessThan(RSS_BOUND);
+  });
+
+  it(`stops within ${HOSTILE_BOUNDS.sigtermMs} ms of SIGTERM afterwards`, () => {
+    expect(log.sigtermMs).not.toBeNull();
   });
 
   it("spends only on valid affordable asks: the ledger is exactly the fresh releases received", () => {

@@ -27,7 +27,7 @@ import { isHushError } from "../../runtime/errors.js";
 import type { Condition, GroupKey, Measure, PrivacyAsk, QueryPlan, Receipt } from "../../runtime/protocol/messages.js";
 import { loadPublicKey, receiptHash } from "../../runtime/protocol/receipts.js";
 import { ledgerProblems, readLedger, sumOf } from "./checks.js";
-import { CODES, makeHostileWorkspace, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
+import { CODES, HOSTILE_BOUNDS, makeHostileWorkspace, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
 
 /**
  * HUSH_HOSTILE_SURVEY=1: a diagnostic run, not the acceptance. Cases go one at a time and a wedged
@@ -36,24 +36,12 @@ import { CODES, makeHostileWorkspace, ServeProcess, watchCurator, type HostileWo
 function SURVEY(): boolean {
   return process.env.HUSH_HOSTILE_SURVEY === "1";
 }
-/** The curator's per-request deadline will default to 30 s (issue 9); 5 s more covers the transport. */
-const REQUEST_BOUND_MS = Number(process.env.HUSH_HOSTILE_BOUND_MS ?? 35_000);
-/** a2's `spend` is polled this often ... */
-const WATCH_EVERY_MS = 200;
-/**
- * ... and each poll must be answered within this bound: a `spend` is a ledger read of a few rows, so
- * 5 s only fails when the message loop is blocked (generous for two shared CI cores; not a speed target).
- */
-const WATCH_BOUND_MS = 5_000;
-/**
- * Resident memory bound. An idle curator over these few thousand rows sits near 150-250 MB (Node,
- * DuckDB, SQLite; measured on this machine, see the report); worker threads each add a V8 heap and
- * DuckDB may buffer a query's groups. 1 GiB leaves room for that while catching the declared-cell
- * explosion of issue 9 (10^9 cells took RSS from 300 MB past 2 GB).
- */
-const RSS_BOUND = 1024 * 1024 * 1024;
-/** SIGTERM must stop the process within 5 s in every state (issue 9). */
-const SIGTERM_BOUND_MS = 5_000;
+/** HOSTILE_BOUNDS (fixtures.ts) states each bound and why; HUSH_HOSTILE_BOUND_MS overrides the per-request one for a survey. */
+const REQUEST_BOUND_MS = Number(process.env.HUSH_HOSTILE_BOUND_MS ?? HOSTILE_BOUNDS.requestMs);
+const WATCH_EVERY_MS = HOSTILE_BOUNDS.watchEveryMs;
+const WATCH_BOUND_MS = HOSTILE_BOUNDS.watchMs;
+const RSS_BOUND = HOSTILE_BOUNDS.rssBytes;
+const SIGTERM_BOUND_MS = HOSTILE_BOUNDS.sigtermMs;
 /** Cases in flight at once from the hostile analyst: enough to overlap, few enough for two cores. */
 const BATCH = SURVEY() ? 1 : 6;
 const CAP_PURE = "20";
