@@ -191,6 +191,11 @@ function sizeCases(ws: HostileWorkspace): Case[] {
     ["3 keys x 1000 bins (10^9 declared cells) at epsilon 1", makePlan(d, { kind: "count" }, { epsilon: "1" }, { groupBy: bins1000 })],
     ["mean wide by 3 keys x 1000 bins", makePlan(d, { kind: "mean", column: "wide" }, { epsilon: "0.5" }, { groupBy: bins1000 })],
     ["zCDP: 3 keys x 1000 bins at rho 1e-9", makePlan(ws.zcdp, { kind: "count" }, { rho: "1e-9" }, { groupBy: bins1000 })],
+    ["count by code and site (10^6 cells) at epsilon 1e-6", makePlan(d, { kind: "count" }, { epsilon: "1e-6" }, { groupBy: [{ column: "code" }, { column: "site" }] })],
+    ["count by code, site and wide 1000 bins (10^9 cells)", makePlan(d, { kind: "count" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }, { column: "wide", bins: 1000 }] })],
+    ["std wide by code and site (10^6 cells)", makePlan(d, { kind: "std", column: "wide" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }] })],
+    ["mean amount by code, site and age 1000 bins (10^9 cells)", makePlan(d, { kind: "mean", column: "amount" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }, { column: "age", bins: 1000 }] })],
+    // Measures that cannot be grouped: refused, whatever the product of their keys.
     ["crosstab code x site (10^6 cells)", makePlan(d, { kind: "crosstab", rows: "code", cols: "site" }, { epsilon: "1" })],
     ["crosstab code x site by wide 1000 bins (10^9 cells)", makePlan(d, { kind: "crosstab", rows: "code", cols: "site" }, { epsilon: "1" }, { groupBy: [{ column: "wide", bins: 1000 }] })],
     ["histogram wide 1000 bins by code and site (10^9 cells)", makePlan(d, { kind: "histogram", column: "wide", bins: 1000 }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }] })],
