@@ -195,8 +195,8 @@ function sizeCases(ws: HostileWorkspace): Case[] {
     ["count by code, site and wide 1000 bins (10^9 cells)", makePlan(d, { kind: "count" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }, { column: "wide", bins: 1000 }] })],
     ["std wide by code and site (10^6 cells)", makePlan(d, { kind: "std", column: "wide" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }] })],
     ["mean amount by code, site and age 1000 bins (10^9 cells)", makePlan(d, { kind: "mean", column: "amount" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }, { column: "age", bins: 1000 }] })],
-    // Measures that cannot be grouped: refused, whatever the product of their keys.
     ["crosstab code x site (10^6 cells)", makePlan(d, { kind: "crosstab", rows: "code", cols: "site" }, { epsilon: "1" })],
+    // Measures that cannot be grouped today: refused, whatever the product of their keys.
     ["crosstab code x site by wide 1000 bins (10^9 cells)", makePlan(d, { kind: "crosstab", rows: "code", cols: "site" }, { epsilon: "1" }, { groupBy: [{ column: "wide", bins: 1000 }] })],
     ["histogram wide 1000 bins by code and site (10^9 cells)", makePlan(d, { kind: "histogram", column: "wide", bins: 1000 }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }] })],
     ["describe by code, site and wide 1000 bins", makePlan(d, { kind: "describe" }, { epsilon: "1" }, { groupBy: [{ column: "code" }, { column: "site" }, { column: "wide", bins: 1000 }] })],
