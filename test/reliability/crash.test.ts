@@ -1,6 +1,6 @@
 /**
  * Crash: clients send queries while the curator is SIGKILLed at random moments and started again,
- * at least 20 times. SIGKILL gives the process no chance to flush anything, as a power cut would.
+ * 50 times. SIGKILL gives the process no chance to flush anything, as a power cut would.
  *
  * Invariant (write-before-release, the rule that keeps the cap honest): a release reaches a client
  * only after its ledger row is committed. So afterwards every receipt any client received is in the
@@ -8,7 +8,7 @@
  * the cap). Rows committed whose reply was lost in the kill are allowed: they cost budget unseen,
  * which is safe, and the client gets them back as a replay when it asks the same plan again.
  *
- * HUSH_HEAVY=1 runs 100 kills instead of 22.
+ * 50 kills by default (issue 9 asks for at least 50); HUSH_HEAVY=1 runs 100.
  */
 import fs from "node:fs";
 import { describe, expect, it } from "vitest";
@@ -21,7 +21,7 @@ import { ledgerProblems, readLedger, sumOf } from "./checks.js";
 import { makeRelWorkspace, mix32, plan } from "./fixtures.js";
 
 const HEAVY = process.env.HUSH_HEAVY === "1";
-const KILLS = HEAVY ? 100 : 22;
+const KILLS = HEAVY ? 100 : 50;
 const CAP = "5";
 
 /** A fresh plan for query n of analyst j: the filter bound makes each plan (and digest) new. */
