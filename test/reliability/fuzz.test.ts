@@ -21,6 +21,7 @@
  *
  * HUSH_FUZZ_SEED picks another seed; HUSH_FUZZ_FRAMES another count.
  */
+import { ERROR_KINDS } from "../../runtime/protocol/reply-schema.js";
 import fs from "node:fs";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
@@ -41,7 +42,8 @@ const RSS_BOUND = HOSTILE_BOUNDS.rssBytes;
 const LIBZMQ_LIMIT = 16 * MAX_FRAME_BYTES;
 /** Wrong tokens cost a scrypt each on today's curator (~135 ms), so they are a small share of the frames. */
 const WRONG_TOKEN_SHARE = 0.004;
-const KNOWN_KINDS = new Set(["bad-input", "policy", "over-cap", "unauthorized", "unknown-dataset", "protocol", "unreachable", "internal"]);
+// Every kind the protocol defines (reply-schema.ts), so a new kind is added in one place.
+const KNOWN_KINDS: ReadonlySet<string> = new Set(ERROR_KINDS);
 
 // ---- generation ----------------------------------------------------------------------------------
 
