@@ -2,10 +2,11 @@
  * What every aggregate shares: the piece shape (prepared without data, run with data), and the
  * one SQL shape they all use: filtered rows -> per-unit bounded rows -> GROUP BY the public keys.
  */
-import type { Bits, Rational } from "../../core/index.js";
+import type { Rational } from "../../core/index.js";
 import type { Condition, GroupKey, MechanismRecord, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn, TableInfo } from "../engine.js";
 import { type GroupSpec, Params, compileGroup, compileWhere, keptFrom } from "../sql.js";
+import type { Finishers } from "./finishers.js";
 
 /** Where an aggregate's rows come from: a dataset table and the plan's filter. */
 export interface Source {
@@ -25,7 +26,17 @@ export interface Piece {
   methods: string[];
   /** Number of rows `run` returns, fixed by the plan and the policy (never by the data). */
   size: number;
-  run(engine: Engine, bits: Bits): Promise<ReleaseRow[]>;
+  /** Reads the data (SQL on this thread; DuckDB works on its own threads) and hands the CPU part to `cpu`. */
+  run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]>;
+}
+
+/**
+ * Where the CPU part of a release runs (finishers.ts): the curator's worker pool, so the message
+ * loop never waits on noise or a quantile draw, or this thread with given bits (tests that need
+ * reproducible noise).
+ */
+export interface Cpu {
+  finish<K extends keyof Finishers>(name: K, recipe: Parameters<Finishers[K]>[0], data: Parameters<Finishers[K]>[1]): Promise<ReleaseRow[]>;
 }
 
 /** Rows per privacy unit after bounding (1 when each row is its own unit). */
