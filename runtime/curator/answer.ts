@@ -27,7 +27,7 @@ import { quantilePiece } from "./aggregates/quantile.js";
 import type { Engine, TableColumn, TableInfo } from "./engine.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
 import { Params, compileWhere, resolveColumn } from "./sql.js";
-import { holdUntilSlot } from "./workers/pacing.js";
+import { firstSlot, holdUntilSlot } from "./workers/pacing.js";
 import { WorkerPool, timeLimitText } from "./workers/pool.js";
 
 export interface PreparedAsk {
@@ -121,6 +121,12 @@ export class Answerer {
     this.policy = policy;
   }
 
+  /** Starts the worker pool now (the curator does, so its first release does not wait for threads to load). */
+  startWorkers(): WorkerPool {
+    this.pool ??= new WorkerPool();
+    return this.pool;
+  }
+
   /** Stops the worker pool: releases still computing are refused (and so never debited). */
   async close(): Promise<void> {
     this.closed = true;
@@ -136,18 +142,18 @@ export class Answerer {
     const { timeLimitMs, paceMs } = this.policy.answering;
     const started = performance.now();
     if (this.closed) throw new UnreachableError("the curator is shutting down; nothing was spent");
-    this.pool ??= new WorkerPool();
+    const pool = this.startWorkers();
     let timer: NodeJS.Timeout | undefined;
     const limit = new Promise<never>((_, reject) => {
       timer = setTimeout(() => reject(new TimeLimitError(timeLimitText(timeLimitMs))), timeLimitMs);
     });
-    const work = piece.run(this.engine, this.pool.cpu(started + timeLimitMs, timeLimitMs));
+    const work = piece.run(this.engine, pool.cpu(started + timeLimitMs, timeLimitMs));
     // If the limit wins the race, the work's own later failure (its pool job refused at the same
     // deadline, or a dropped query) has nobody left to tell: the refusal was already sent.
     work.catch(() => undefined);
     try {
       const rows = await Promise.race([work, limit]);
-      await holdUntilSlot(started, paceMs, timeLimitMs);
+      await holdUntilSlot(started, firstSlot(paceMs, piece.steps, piece.size), timeLimitMs);
       return rows;
     } finally {
       clearTimeout(timer);

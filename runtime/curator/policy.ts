@@ -135,7 +135,7 @@ const fileSchema = z.strictObject({
         .strictObject({
           timeLimit: z
             .number({ error: "must be a number of seconds" })
-            .min(1, { message: "must be at least 1 (seconds)" })
+            .min(0.01, { message: "must be at least 0.01 (seconds)" })
             .max(MAX_TIME_LIMIT_SECONDS, { message: `must be at most ${MAX_TIME_LIMIT_SECONDS} (seconds)` })
             .optional(),
           pace: z

@@ -133,6 +133,7 @@ export class CuratorService {
       const { Answerer } = await import("./answer.js");
       const engine = await Engine.open(policy);
       const answerer = new Answerer(engine, policy);
+      answerer.startWorkers();
       // Closing stops the worker pool first, so no release is left computing against a closed engine.
       const parts = { close: async () => (await answerer.close(), await engine.close()) };
       return new CuratorService({ policy, answerer, ledger, key, engine: parts });

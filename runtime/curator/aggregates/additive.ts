@@ -57,6 +57,7 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
     notes: groupedNote(keys, columns, cells),
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
+    steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [], () => ["count(*)"]);
       return cpu.finish("cells", recipe, data);
@@ -81,6 +82,7 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
     notes: groupedNote(keys, columns, cells),
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
+    steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [col.ident], () => [`sum(${col.ident})`]);
       return cpu.finish("cells", recipe, data);
@@ -122,6 +124,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     ],
     methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (methods.md §8)`],
     size: cells,
+    steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [col.ident], () => [`count(${col.ident})`, `sum(${col.ident})`]);
       return cpu.finish("mean", recipe, data);
@@ -174,6 +177,7 @@ export function spreadPiece(
     ],
     methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
+    steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       // |units| <= 2^31 (policy limit), so a square fits BIGINT and DuckDB sums it as HUGEINT.
       const data = await fetchCells(engine, src, keys, [col.ident], () => [

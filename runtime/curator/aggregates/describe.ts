@@ -48,6 +48,7 @@ export function describePiece(alloc: Allocator, src: Source): Piece {
     previewNotes: [...new Set(list.flatMap((p) => p.piece.previewNotes ?? []))],
     methods: [...new Set(list.flatMap((p) => p.piece.methods))],
     size: list.reduce((n, p) => n + p.piece.size, 0),
+    steps: list.reduce((n, p) => n + p.piece.steps, 0),
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const out: ReleaseRow[] = [];
       for (const p of list) {

@@ -79,6 +79,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     notes,
     methods: ["quantiles: no value interval (rank guarantee of the exponential mechanism, McSherry & Talwar 2007)"],
     size: ps.length,
+    steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       // Bucket b(x) = number of candidates <= x, so r(y_j) = #{x < y_j} = #{b(x) <= j}. With
       // candidates lo + j s (j < m - 1) and hi last: b = min((x - lo) // s + 1, m - 1), and m at hi.
