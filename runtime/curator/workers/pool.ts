@@ -99,8 +99,9 @@ export class WorkerPool {
 
   private done(slot: Slot, m: ResultMessage): void {
     const job = this.finish(slot);
-    if (job === null || job.msg.id !== m.id) return;
-    if (m.ok) job.resolve(fromWire(m.rows) as ReleaseRow[]);
+    if (job === null) return;
+    if (job.msg.id !== m.id) job.reject(new Error(`internal: worker answered job ${m.id} while running job ${job.msg.id}`));
+    else if (m.ok) job.resolve(fromWire(m.rows) as ReleaseRow[]);
     else if (m.kind === "bad-input") job.reject(new BadInputError(m.message));
     else if (m.kind !== null) job.reject(new HushError("internal", m.message));
     else job.reject(new Error(`worker: ${m.message}`));
