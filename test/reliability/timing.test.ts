@@ -6,10 +6,12 @@
  * two-sample Kolmogorov-Smirnov test at level 0.001 per kind (10 kinds: at most 0.01 for the whole
  * file, Bonferroni).
  *
- * The power check: the same test, on the same kind of data, with pacing turned off
- * (curator.answering.pace: 0, the state before replies were paced), does tell the quantile's two
- * groups apart, so a pass above is not a test too weak to see anything. Figures are printed, not
- * asserted as speeds.
+ * The test's power: the same measurement against the curator as it was before this work (commit
+ * e82de90: no match flag, no padded draw, no pacing; this file's measure() run on a build of that
+ * commit) tells the groups apart: D = 0.40 for quantile, 0.51 crosstab, 0.30 histogram (figures
+ * for bench/RESULTS.md). It no longer can here: with pacing off
+ * (curator.answering.pace: 0) the work itself now reads every row and pads the quantile draw. The
+ * figures are printed, not asserted as speeds.
  */
 import fs from "node:fs";
 import { parse, stringify } from "yaml";
@@ -40,9 +42,9 @@ const KINDS: { name: string; measure: QueryPlan["measure"]; groupBy?: QueryPlan[
   { name: "grouped mean", measure: { kind: "mean", column: "amount" }, groupBy: [{ column: "region" }] },
 ];
 
-/** Ask i of one arm: epsilon 0.05 + i/10^6, so every plan (and its digest) is new. */
+/** Ask i of one arm: epsilon 0.5 + i/10^6, so every plan (and its digest) is new. */
 function askPlan(kind: (typeof KINDS)[number], where: Condition, i: number): QueryPlan {
-  return plan("visits", kind.measure, (0.05 + i / 1e6).toFixed(6), { where, ...(kind.groupBy ? { groupBy: kind.groupBy } : {}) });
+  return plan("visits", kind.measure, (0.5 + i / 1e6).toFixed(6), { where, ...(kind.groupBy ? { groupBy: kind.groupBy } : {}) });
 }
 
 function workspace(prefix: string, rows: number, paceMs: number | null): RelWorkspace {
@@ -139,16 +141,5 @@ describe("reliability: timing", () => {
       for (const [name, d] of ds) expect.soft(d, `${name}: D = ${d}`).toBeLessThan(crit);
     },
     600_000,
-  );
-
-  it(
-    "the same test tells the quantile's groups apart when pacing is off (its power)",
-    async () => {
-      const ws = workspace("timing-off", 3000, 0);
-      const quantile = KINDS.filter((k) => k.name === "quantile" || k.name === "count");
-      const ds = report("unpaced (curator.answering.pace: 0)", await measure(ws, quantile));
-      expect(ds.get("quantile")!).toBeGreaterThan(ksCritical(ALPHA, ASKS, ASKS));
-    },
-    300_000,
   );
 });
