@@ -28,11 +28,11 @@ export interface RunningCurator {
 }
 
 /** How long refusals sent at shutdown may take to leave before the socket closes. */
-const SEND_GRACE_MS = 500;
+const SEND_GRACE_MS = 300;
 /** Time the requests in progress get after SIGTERM/SIGINT. */
-export const STOP_GRACE_MS = 2000;
+export const STOP_GRACE_MS = 1500;
 /** The process is gone this long after the signal, in every state. */
-export const EXIT_DEADLINE_MS = 4000;
+export const EXIT_DEADLINE_MS = 3000;
 
 /**
  * The signal path of `main.js` and `hush serve`: close with STOP_GRACE_MS for the requests in
