@@ -26,17 +26,20 @@ const COUNT: CellsRecipe = {
 };
 
 /**
- * A quantile draw that runs for minutes: 2001 candidates 10^9 rows apart at epsilon 10^-6, so every
- * candidate but one is at the cost cap and each of ~2001 expected proposals is rejected only after
- * ~2 x 10^6 Bernoulli trials on average (quantile.ts drawByRejection).
+ * A quantile draw that runs for minutes: 2001 candidates 10^7 rows apart at epsilon 2 x 10^-6, so
+ * the dyadic base is beta = 1 - 2^-20, the median's cost (10^7) is under the cost cap (about
+ * 4.8 x 10^7) and every other candidate is 2 x 10^7 or more above it, and each of ~2001 expected
+ * proposals is rejected only after ~10^6 Bernoulli trials on average (quantile.ts drawByRejection).
+ * At epsilon 10^-6 beta would round up to 1, and with costs all above the cap they would tie: both
+ * make the draw instant.
  */
 const ENDLESS: QuantileRecipe = {
   column: "x",
   candidates: Array.from({ length: 2001 }, (_, j) => BigInt(j)),
   step: Rational.ONE,
-  parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.parse("1e-6") }],
+  parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.parse("2e-6") }],
 };
-const ENDLESS_DATA: [bigint, bigint][] = Array.from({ length: 2001 }, (_, j) => [BigInt(j + 1), 1_000_000_000n]);
+const ENDLESS_DATA: [bigint, bigint][] = Array.from({ length: 2001 }, (_, j) => [BigInt(j + 1), 10_000_000n]);
 
 describe("curator worker pool", () => {
   it("keeps Rationals exact across the thread boundary", () => {
