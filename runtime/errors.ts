@@ -31,6 +31,18 @@ export class BadInputError extends HushError {
   }
 }
 
+/**
+ * A release that did not finish within the curator's time limit: refused, nothing spent. A
+ * bad-input refusal (the plan asks for more work than the curator allows), so clients treat it as
+ * a refusal that spent nothing.
+ */
+export class TimeLimitError extends BadInputError {
+  constructor(message: string, options?: { cause?: unknown }) {
+    super(message, options);
+    this.name = "TimeLimitError";
+  }
+}
+
 export class PolicyError extends HushError {
   constructor(message: string, options?: { cause?: unknown }) {
     super("policy", message, options);

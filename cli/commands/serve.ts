@@ -4,7 +4,7 @@
  */
 import { existsSync } from "node:fs";
 import { generateCurveKey, loadCurveKey, type CurveKey } from "../../runtime/curator/keys.js";
-import { startCurator } from "../../runtime/curator/server.js";
+import { closeOnSignal, startCurator } from "../../runtime/curator/server.js";
 
 export async function runServe(o: { policy: string; listen: string; curveKey?: string }, out: (s: string) => void): Promise<void> {
   let curve: CurveKey | undefined;
@@ -24,7 +24,7 @@ export async function runServe(o: { policy: string; listen: string; curveKey?: s
       if (stopping) return;
       stopping = true;
       process.stderr.write(`hush serve: ${signal}: finishing requests in progress\n`);
-      running.close().then(resolve, (e: unknown) => {
+      closeOnSignal(running, (line) => process.stderr.write(`hush serve: ${line}\n`)).then(resolve, (e: unknown) => {
         process.stderr.write(`hush serve: close failed: ${e instanceof Error ? e.message : String(e)}\n`);
         process.exitCode = 3;
         resolve();

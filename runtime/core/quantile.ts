@@ -123,25 +123,60 @@ export function exponentialQuantile(args: QuantileArgs): QuantileResult {
   return { index, epsilonUsed: epsilon, baseNum: x, baseBits: y, epsilonEffective: 2 * Number(sensitivity) * Math.log(1 / beta) };
 }
 
-/** j with probability proportional to (x/one)^d_j, by uniform proposals and Bernoulli(x/one) trials. */
+/**
+ * Most random trials a draw is padded to (2^23, about half a second on a loaded 2-core machine):
+ * beyond it the draw's time may show, in the coarse reply slots of workers/pacing.ts.
+ */
+export const MAX_PADDED_TRIALS = 2 ** 23;
+
+/**
+ * The public number of trials a draw is padded to: twice the bound m / (1 - beta) on the expected
+ * number of proposals and trials of drawByRejection (each proposal ends at its first failed trial,
+ * after 1/(1 - beta) trials on average, and at most m proposals are expected; see there), capped at
+ * MAX_PADDED_TRIALS. Depends on the number of candidates and beta only, never on the data.
+ */
+export function paddedTrials(m: number, x: bigint, one: bigint): number {
+  if (x >= one) return 0;
+  // ceil(one / (one - x)) in exact integers; beta = x/one < 1.
+  const perProposal = (one + (one - x) - 1n) / (one - x);
+  const bound = 2n * BigInt(m) * (perProposal + 1n);
+  return bound > BigInt(MAX_PADDED_TRIALS) ? MAX_PADDED_TRIALS : Number(bound);
+}
+
+/**
+ * j with probability proportional to (x/one)^d_j, by uniform proposals and Bernoulli(x/one) trials.
+ *
+ * How long the draw runs depends on the data (through d): with no rows every d_j is 0 and the first
+ * proposal is accepted; with many rows near the target most proposals are rejected. So after the
+ * draw, further trials are made and discarded until paddedTrials(m, x, one) trials have been made
+ * in all: the time then follows public quantities (issue 9, data-independent timing). Discarded
+ * trials are independent of the draw, so the law is unchanged. A draw that needs more than the
+ * padding (rare: twice its expected bound) or more than MAX_PADDED_TRIALS is not padded further.
+ */
 function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): number {
   const m = d.length;
   if (x >= one) return bits.uniformSmall(m); // beta = 1: every trial succeeds, the law is uniform
   const small = one <= 281474976710656n; // 2^48: the number path of Bits
   const xn = Number(x);
   const on = Number(one);
+  const trial = small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
+  let made = 0;
   for (;;) {
     const j = bits.uniformSmall(m);
+    made++;
     let left = d[j];
     let accepted = true;
     while (left > 0n) {
-      const ok = small ? bits.uniformSmall(on) < xn : bits.bernoulli(x, one);
-      if (!ok) {
+      made++;
+      if (!trial()) {
         accepted = false;
         break;
       }
       left--;
     }
-    if (accepted) return j;
+    if (accepted) {
+      for (let pad = paddedTrials(m, x, one) - made; pad > 0; pad--) trial();
+      return j;
+    }
   }
 }

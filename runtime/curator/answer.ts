@@ -2,12 +2,16 @@
  * Answering a query plan: validate it against the dataset's public schema, settle the noise and
  * the exact cost (prepare: reads no data), then run the SQL and add the noise (compute).
  *
- * The service (service.ts) calls prepare, checks the budget, debits, then calls compute with the
- * CSPRNG bits. Nothing here refuses based on data: every declared key is released, the number of
- * released rows is fixed by the plan and the policy, and a mean with a non-positive noisy count is
- * released as unavailable rather than refused.
+ * The service (service.ts) calls prepare, checks the budget, calls compute, then debits and
+ * replies. compute runs the SQL on this thread (DuckDB works on its own threads, so the message
+ * loop is free meanwhile) and the CPU part (noise, intervals, the quantile draw) on the worker pool
+ * (workers/), under the policy's time limit, and holds the result until its reply slot
+ * (workers/pacing.ts) so the time to answer does not follow the data. Nothing here refuses based
+ * on data: every declared key is released, the number of released rows is fixed by the plan and
+ * the policy, and a mean with a non-positive noisy count is released as unavailable rather than
+ * refused.
  */
-import { BadInputError, UnauthorizedError, UnknownDatasetError } from "../errors.js";
+import { BadInputError, TimeLimitError, UnauthorizedError, UnknownDatasetError, UnreachableError } from "../errors.js";
 import { Rational } from "../core/index.js";
 import type { Bits } from "../core/index.js";
 import { createHash } from "node:crypto";
@@ -19,10 +23,13 @@ import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/addit
 import { Allocator } from "./aggregates/budget.js";
 import type { Piece, Source } from "./aggregates/common.js";
 import { describePiece } from "./aggregates/describe.js";
+import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
 import type { Engine, TableColumn, TableInfo } from "./engine.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
 import { Params, compileWhere, resolveColumn } from "./sql.js";
+import { firstSlot, holdUntilSlot } from "./workers/pacing.js";
+import { WorkerPool, timeLimitText } from "./workers/pool.js";
 
 export interface PreparedAsk {
   dataset: string;
@@ -33,7 +40,12 @@ export interface PreparedAsk {
   unit: "epsilon" | "rho";
   cost: Rational;
   notes: string[];
-  compute(bits: Bits): Promise<ComputedRelease>;
+  /**
+   * Reads the data and draws the noise. Without `bits`: on the worker pool with the CSPRNG, under
+   * the time limit, paced to its reply slot (production). With `bits`: on this thread with those
+   * bits, unpaced (tests that need reproducible noise).
+   */
+  compute(bits?: Bits): Promise<ComputedRelease>;
 }
 
 export interface ComputedRelease {
@@ -144,10 +156,52 @@ export class Answerer {
   private readonly memo = new Map<string, Settled>();
   private readonly engine: Engine;
   private readonly policy: LoadedPolicy;
+  /** Started on the first release; closed with close(). */
+  private pool: WorkerPool | null = null;
+  private closed = false;
 
   constructor(engine: Engine, policy: LoadedPolicy) {
     this.engine = engine;
     this.policy = policy;
+  }
+
+  /** Starts the worker pool now (the curator does, so its first release does not wait for threads to load). */
+  startWorkers(): WorkerPool {
+    this.pool ??= new WorkerPool();
+    return this.pool;
+  }
+
+  /** Stops the worker pool: releases still computing are refused (and so never debited). */
+  async close(): Promise<void> {
+    this.closed = true;
+    await this.pool?.close();
+  }
+
+  /**
+   * One release's data and noise on the pool, under the time limit, then held to its reply slot.
+   * The limit covers the SQL too: DuckDB cannot be stopped from here, so a late query is left to
+   * finish on DuckDB's threads and its result dropped; a late CPU part is stopped with its worker.
+   */
+  private async onPool(piece: Piece): Promise<ReleaseRow[]> {
+    const { timeLimitMs, paceMs } = this.policy.answering;
+    const started = performance.now();
+    if (this.closed) throw new UnreachableError("the curator is shutting down; nothing was spent");
+    const pool = this.startWorkers();
+    let timer: NodeJS.Timeout | undefined;
+    const limit = new Promise<never>((_, reject) => {
+      timer = setTimeout(() => reject(new TimeLimitError(timeLimitText(timeLimitMs))), timeLimitMs);
+    });
+    const work = piece.run(this.engine, pool.cpu(started + timeLimitMs, timeLimitMs));
+    // If the limit wins the race, the work's own later failure (its pool job refused at the same
+    // deadline, or a dropped query) has nobody left to tell: the refusal was already sent.
+    work.catch(() => undefined);
+    try {
+      const rows = await Promise.race([work, limit]);
+      await holdUntilSlot(started, firstSlot(paceMs, piece.steps, piece.size), timeLimitMs);
+      return rows;
+    } finally {
+      clearTimeout(timer);
+    }
   }
 
   private dataset(name: string): DatasetPolicy {
@@ -214,6 +268,7 @@ export class Answerer {
     if (!d.analysts.includes(analyst)) throw new UnauthorizedError(`analyst ${shown(analyst)} may not query dataset ${d.name}`);
     const s = this.settle(plan);
     const engine = this.engine;
+    const onPool = (p: Piece) => this.onPool(p);
     const { piece, groupColumns, notes } = s;
     const mechanisms = piece.mechanisms;
     const confidence = plan.confidence ?? DEFAULT_CONFIDENCE;
@@ -224,8 +279,8 @@ export class Answerer {
       unit: s.unit,
       cost: piece.cost,
       notes: notes.slice(),
-      async compute(bits: Bits): Promise<ComputedRelease> {
-        const rows = await piece.run(engine, bits);
+      async compute(bits?: Bits): Promise<ComputedRelease> {
+        const rows = bits === undefined ? await onPool(piece) : await piece.run(engine, onThisThread(bits));
         if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
         return { groupColumns: groupColumns.slice(), rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms: mechanisms.map((m) => ({ ...m })), notes: notes.slice() };
       },

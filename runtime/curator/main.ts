@@ -3,14 +3,15 @@
  * The curator process: `main.js --policy FILE --listen ADDR [--curve-key FILE] [--exit-with-stdin]`.
  *
  * Prints exactly one JSON line on stdout once it serves, {"ready":true,"address",...}, or
- * {"ready":false,"error":{kind,message}} if it cannot start. SIGINT/SIGTERM finish the requests in
- * progress and exit. With --exit-with-stdin (used by the embedded spawner) it also exits when its stdin
+ * {"ready":false,"error":{kind,message}} if it cannot start. SIGINT/SIGTERM give the requests in
+ * progress a short grace, refuse what is still computing (nothing of it is debited), close the
+ * ledger and exit, within a few seconds in every state (server.ts closeOnSignal). With --exit-with-stdin (used by the embedded spawner) it also exits when its stdin
  * closes, so a curator never outlives a parent that was killed without a chance to stop it.
  */
 import { existsSync } from "node:fs";
 import { BadInputError, isHushError } from "../errors.js";
 import { generateCurveKey, loadCurveKey, type CurveKey } from "./keys.js";
-import { startCurator, type RunningCurator } from "./server.js";
+import { closeOnSignal, startCurator, type RunningCurator } from "./server.js";
 
 interface Args {
   policy: string;
@@ -51,9 +52,12 @@ async function main(): Promise<void> {
     stopping = true;
     process.stderr.write(`hush curator: stopping (${why})\n`);
     try {
-      await running?.close();
+      if (running !== undefined) await closeOnSignal(running, (line) => process.stderr.write(`hush curator: ${line}\n`));
+    } catch (e: unknown) {
+      process.stderr.write(`hush curator: while stopping: ${e instanceof Error ? (e.stack ?? e.message) : String(e)}\n`);
+      process.exitCode = 1;
     } finally {
-      process.exit(0);
+      process.exit();
     }
   };
   try {

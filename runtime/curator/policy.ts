@@ -56,6 +56,8 @@ export interface LoadedPolicy {
   dir: string;
   keyPath: string;
   ledgerPath: string;
+  /** How releases are answered: the time limit per release and the first reply slot (workers/pacing.ts). */
+  answering: { timeLimitMs: number; paceMs: number };
   analysts: Map<string, { tokenHash: string }>;
   datasets: Map<string, DatasetPolicy>;
   /** Population name -> the datasets over it, in policy order. */
@@ -66,6 +68,10 @@ export interface LoadedPolicy {
 export const MAX_GRID_POINTS = 2 ** 30;
 export const MAX_CATEGORY_VALUES = 1000;
 export const MAX_ROWS_PER_UNIT = 10000;
+/** Defaults of curator.answering: a release gets 30 s; replies leave on slots from 50 ms on. */
+export const DEFAULT_TIME_LIMIT_SECONDS = 30;
+export const DEFAULT_PACE_MS = 50;
+const MAX_TIME_LIMIT_SECONDS = 3600;
 
 const NAME = /^[A-Za-z][A-Za-z0-9_-]{0,63}$/;
 const ISO_DATE = /^(\d{4})-(\d{2})-(\d{2})$/;
@@ -131,7 +137,25 @@ const datasetSchema = z.strictObject({
 
 const fileSchema = z.strictObject({
   curator: z
-    .strictObject({ key: z.string().min(1).optional(), ledger: z.string().min(1).optional() })
+    .strictObject({
+      key: z.string().min(1).optional(),
+      ledger: z.string().min(1).optional(),
+      answering: z
+        .strictObject({
+          timeLimit: z
+            .number({ error: "must be a number of seconds" })
+            .min(0.01, { message: "must be at least 0.01 (seconds)" })
+            .max(MAX_TIME_LIMIT_SECONDS, { message: `must be at most ${MAX_TIME_LIMIT_SECONDS} (seconds)` })
+            .optional(),
+          pace: z
+            .number({ error: "must be a number of milliseconds" })
+            .int({ message: "must be a whole number of milliseconds" })
+            .min(0, { message: "must not be negative" })
+            .max(10_000, { message: "must be at most 10000 (milliseconds)" })
+            .optional(),
+        })
+        .optional(),
+    })
     .optional(),
   analysts: z
     .record(z.string(), z.strictObject({ token: z.string({ error: "must be a token hash made by `hush token`" }) }))
@@ -355,9 +379,13 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
 
   const populations = assignPopulations(datasets, named, (path, what) => fail(abs, path, what));
 
+  const timeLimitMs = Math.round((raw.curator?.answering?.timeLimit ?? DEFAULT_TIME_LIMIT_SECONDS) * 1000);
+  const paceMs = raw.curator?.answering?.pace ?? DEFAULT_PACE_MS;
+  if (paceMs > timeLimitMs) fail(abs, "curator.answering.pace", "must not exceed the time limit");
   return {
     file: abs,
     dir,
+    answering: { timeLimitMs, paceMs },
     keyPath: at(raw.curator?.key ?? "keys/curator.key"),
     ledgerPath: at(raw.curator?.ledger ?? "state/ledger.sqlite"),
     analysts,

@@ -19,7 +19,32 @@ export interface RunningCurator {
   address: string;
   publicKeyB64: string;
   curvePublicKey?: string;
-  close(): Promise<void>;
+  /**
+   * Stops serving: requests in progress get up to `graceMs` (default: as long as they take), then
+   * releases still computing are refused (nothing debited), their replies get a short moment to
+   * leave, and the socket, engine and ledger close.
+   */
+  close(graceMs?: number): Promise<void>;
+}
+
+/** How long refusals sent at shutdown may take to leave before the socket closes. */
+const SEND_GRACE_MS = 300;
+/** Time the requests in progress get after SIGTERM/SIGINT. */
+export const STOP_GRACE_MS = 1500;
+/** The process is gone this long after the signal, in every state. */
+export const EXIT_DEADLINE_MS = 3000;
+
+/**
+ * The signal path of `main.js` and `hush serve`: close with STOP_GRACE_MS for the requests in
+ * progress, and exit the process EXIT_DEADLINE_MS after the signal whatever is still open (the
+ * ledger is transactional, so even then no half-written spend remains).
+ */
+export function closeOnSignal(running: RunningCurator, log: (line: string) => void): Promise<void> {
+  setTimeout(() => {
+    log(`not closed within ${EXIT_DEADLINE_MS} ms; exiting`);
+    process.exit(1);
+  }, EXIT_DEADLINE_MS).unref();
+  return running.close(STOP_GRACE_MS);
 }
 
 function protocolErrorFrame(message: string): Buffer {
@@ -112,13 +137,21 @@ export async function serveCurator(service: CuratorService, opts: { listen: stri
     address,
     publicKeyB64: service.publicKeyB64,
     ...(curve ? { curvePublicKey: curve.publicKey } : {}),
-    close(): Promise<void> {
+    close(graceMs = Infinity): Promise<void> {
       closed ??= (async () => {
-        await Promise.allSettled([...pending]);
-        await sendTail;
+        // New frames are refused from here on ("shutting down"); the ones in progress finish or,
+        // after the grace, are refused when the worker pool stops.
+        await service.close(graceMs);
+        const flushed = Promise.allSettled([...pending]).then(() => sendTail);
+        if (Number.isFinite(graceMs)) {
+          let timer: NodeJS.Timeout | undefined;
+          await Promise.race([flushed, new Promise<void>((r) => (timer = setTimeout(r, SEND_GRACE_MS)))]);
+          clearTimeout(timer);
+        } else {
+          await flushed;
+        }
         router.close();
         await loop;
-        await service.close();
       })();
       return closed;
     },

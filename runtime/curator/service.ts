@@ -10,7 +10,7 @@
  * Spend is per (analyst, population): every dataset over the same people draws on one cap.
  */
 import { existsSync } from "node:fs";
-import { Bits, cryptoBytes, type Rational } from "../core/index.js";
+import { type Bits, type Rational } from "../core/index.js";
 import { HushError, OverCapError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
   PROTOCOL_VERSION,
@@ -44,7 +44,8 @@ export interface PreparedRelease {
   unit: "epsilon" | "rho";
   cost: Rational;
   notes: string[];
-  compute(bits: Bits): Promise<ComputedRelease>;
+  /** Without bits: the production path (worker pool, CSPRNG, time limit, reply pacing; answer.ts). */
+  compute(bits?: Bits): Promise<ComputedRelease>;
 }
 
 export interface AnswerSource {
@@ -105,8 +106,11 @@ export class CuratorService {
       const { Engine } = await import("./engine.js");
       const { Answerer } = await import("./answer.js");
       const engine = await Engine.open(policy);
-      const answerer: AnswerSource = new Answerer(engine, policy);
-      return new CuratorService({ policy, answerer, ledger, key, engine });
+      const answerer = new Answerer(engine, policy);
+      answerer.startWorkers();
+      // Closing stops the worker pool first, so no release is left computing against a closed engine.
+      const parts = { close: async () => (await answerer.close(), await engine.close()) };
+      return new CuratorService({ policy, answerer, ledger, key, engine: parts });
     } catch (e: unknown) {
       ledger.close();
       throw e;
@@ -117,10 +121,21 @@ export class CuratorService {
     return this.key.publicKeyB64;
   }
 
-  /** Waits for requests in progress, then closes the data engine and the ledger. */
-  async close(): Promise<void> {
+  /**
+   * Waits for requests in progress (at most `graceMs`), then closes the data engine (stopping the
+   * worker pool: releases still computing are refused, never debited) and the ledger. A debit is
+   * one synchronous SQLite transaction, so the ledger closes between transactions, never inside one.
+   */
+  async close(graceMs = Infinity): Promise<void> {
     this.closing = true;
-    while (this.inFlight.size > 0) await Promise.allSettled([...this.inFlight]);
+    const until = performance.now() + graceMs;
+    while (this.inFlight.size > 0 && performance.now() < until) {
+      let timer: NodeJS.Timeout | undefined;
+      const left = until - performance.now();
+      const waited = Number.isFinite(left) ? new Promise<void>((r) => (timer = setTimeout(r, left))) : new Promise<void>(() => {});
+      await Promise.race([Promise.allSettled([...this.inFlight]), waited]);
+      clearTimeout(timer);
+    }
     try {
       await this.engine?.close();
     } finally {
@@ -273,7 +288,12 @@ export class CuratorService {
       if (again !== null) return this.replayed(analyst, d, again);
       const before = this.ledger.spent(analyst, d.population);
       if (before.spent.add(prepared.cost).gt(cap)) throw overCapError(analyst, d, prepared.cost, before.spent, before.releases);
-      const computed = await prepared.compute(new Bits(cryptoBytes));
+      // The rule (DEVELOPERS.md, "Answering"): a release is never delivered without a debit, and
+      // never debited without being delivered, now or on a replay. compute may be refused (time
+      // limit, shutdown) or fail: then nothing was debited. Once it returns, the debit stores the
+      // release and its receipt in one transaction before the reply; a reply lost after that is
+      // delivered free when the same plan is asked again (the replay lookup above).
+      const computed = await prepared.compute();
       const outcome = this.ledger.debit({
         analyst,
         population: d.population,

@@ -13,13 +13,13 @@
  * These are no larger than the L0 * Linf * M of methods.md §7 with Linf = k, so bounding the
  * groups per unit (maxGroups) would not lower them: the total bound k is what is enforced.
  */
-import { Rational, addNoise, ratioInterval, sumSensitivity, varianceInterval } from "../../core/index.js";
-import type { Bits } from "../../core/index.js";
+import { Rational, sumSensitivity } from "../../core/index.js";
 import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
 import { type Allocator, type NoisySpec, exactDecimal, halfWidthValue, mechanismRecord, sqrtRational } from "./budget.js";
-import { type Piece, type Source, fetchCells, groupLabels, keyTuples, rowsPerUnit } from "./common.js";
+import { type Cpu, type Piece, type Source, fetchCells, groupLabels, rowsPerUnit } from "./common.js";
+import type { CellsRecipe, MeanRecipe, SpreadRecipe } from "./finishers.js";
 
 type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
 const HALF = Rational.of(1n, 2n);
@@ -41,12 +41,6 @@ function groupedNote(keys: readonly GroupKey[], columns: string[], cells: number
   ];
 }
 
-/** `h`: the part's half-width in value units, settled once per piece (it does not depend on the data). */
-function noisyRow(key: string[], stat: string, column: string | null, noisy: bigint, spec: NoisySpec, h: Rational): ReleaseRow {
-  const v = spec.step.mul(noisy);
-  return { key, stat, column, value: exactDecimal(v), low: exactDecimal(v.sub(h)), high: exactDecimal(v.add(h)) };
-}
-
 /** Noisy count of kept rows per declared cell. */
 export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], fraction: Rational, stat = "count"): Piece {
   const { columns, labels, cells } = groupLabels(src, keys);
@@ -55,6 +49,7 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
   const spec = alloc.additive(keys.length === 0 ? "count" : `count by ${columns.join(", ")}`, BigInt(k), fraction, Rational.ONE);
   const conf = alloc.confidence;
   const h = halfWidthValue(spec, conf);
+  const recipe: CellsRecipe = { labels, stat, column: null, law: spec.law, step: spec.step, h };
   return {
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
@@ -62,10 +57,10 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
     notes: groupedNote(keys, columns, cells),
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: 1,
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [], () => ["count(*)"]);
-      const tuples = keyTuples(labels);
-      return data.map((v, i) => noisyRow(tuples[i], stat, null, addNoise(v[0], spec.law, bits), spec, h));
+      return cpu.finish("cells", recipe, data);
     },
   };
 }
@@ -79,6 +74,7 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
   const spec = alloc.additive(`sum of ${c.name}${keys.length ? ` by ${columns.join(", ")}` : ""}`, sens, fraction, c.grid.step);
   const conf = alloc.confidence;
   const h = halfWidthValue(spec, conf);
+  const recipe: CellsRecipe = { labels, stat: "sum", column: c.name, law: spec.law, step: spec.step, h };
   return {
     mechanisms: [mechanismRecord(spec)],
     cost: spec.cost,
@@ -86,22 +82,12 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
     notes: groupedNote(keys, columns, cells),
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: 1,
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [col.ident], () => [`sum(${col.ident})`]);
-      const tuples = keyTuples(labels);
-      return data.map((v, i) => noisyRow(tuples[i], "sum", c.name, addNoise(v[0], spec.law, bits), spec, h));
+      return cpu.finish("cells", recipe, data);
     },
   };
-}
-
-/**
- * Centred sums from plain ones, in exact integers: with C2 = L/g + U/g (twice the centre, in grid
- * units) each row contributes d = 2x - C2 half-units, so sum d = 2 S - C2 N and
- * sum d^2 = 4 Q - 4 C2 S + C2^2 N. SQL only computes count, sum and sum of squares of grid units.
- */
-function centred(c: NumericPolicy, n: bigint, s: bigint, q = 0n): { d: bigint; d2: bigint } {
-  const c2 = c.grid.lowerUnits + c.grid.upperUnits;
-  return { d: 2n * s - c2 * n, d2: 4n * q - 4n * c2 * s + c2 * c2 * n };
 }
 
 /** Mean per cell: noisy count of values and noisy centred sum, half the budget each (methods.md §8). */
@@ -118,6 +104,10 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
   const lower = Rational.parse(c.lower);
   const upper = Rational.parse(c.upper);
   const centre = lower.add(upper).mul(HALF);
+  const recipe: MeanRecipe = {
+    labels, column: c.name, lowerUnits: c.grid.lowerUnits, upperUnits: c.grid.upperUnits, lower, upper, centre, half,
+    confidence: conf, countLaw: count.law, sumLaw: sum.law,
+  };
   return {
     mechanisms: [mechanismRecord(count), mechanismRecord(sum)],
     cost: count.cost.add(sum.cost),
@@ -134,22 +124,10 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     ],
     methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (methods.md §8)`],
     size: cells,
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: 1,
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const data = await fetchCells(engine, src, keys, [col.ident], () => [`count(${col.ident})`, `sum(${col.ident})`]);
-      const tuples = keyTuples(labels);
-      return data.map((v, i) => {
-        const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
-        const s = { noisy: addNoise(centred(c, v[0], v[1]).d, sum.law, bits), law: sum.law };
-        const r = ratioInterval({ sum: s, count: n, sumStep: half, lower, upper, confidence: conf, centre });
-        return {
-          key: tuples[i],
-          stat: "mean",
-          column: c.name,
-          value: r.estimate === null ? null : exactDecimal(r.estimate),
-          low: exactDecimal(r.estimate === null ? lower : r.low),
-          high: exactDecimal(r.estimate === null ? upper : r.high),
-        };
-      });
+      return cpu.finish("mean", recipe, data);
     },
   };
 }
@@ -178,7 +156,10 @@ export function spreadPiece(
   const lower = Rational.parse(c.lower);
   const upper = Rational.parse(c.upper);
   const centre = lower.add(upper).mul(HALF);
-  const maxVar = upper.sub(lower).mul(HALF).mul(upper.sub(lower).mul(HALF));
+  const recipe: SpreadRecipe = {
+    labels, column: c.name, lowerUnits: c.grid.lowerUnits, upperUnits: c.grid.upperUnits, lower, upper, centre, half,
+    confidence: conf, stat, countLaw: count.law, sumLaw: sum.law, squaresLaw: squares.law,
+  };
   return {
     mechanisms: [mechanismRecord(count), mechanismRecord(sum), mechanismRecord(squares)],
     cost: count.cost.add(sum.cost).add(squares.cost),
@@ -196,35 +177,15 @@ export function spreadPiece(
     ],
     methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: 1,
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       // |units| <= 2^31 (policy limit), so a square fits BIGINT and DuckDB sums it as HUGEINT.
       const data = await fetchCells(engine, src, keys, [col.ident], () => [
         `count(${col.ident})`,
         `sum(${col.ident})`,
         `sum(${col.ident} * ${col.ident})`,
       ]);
-      const tuples = keyTuples(labels);
-      return data.map((v, i) => {
-        const cs = centred(c, v[0], v[1], v[2]);
-        const n = { noisy: addNoise(v[0], count.law, bits), law: count.law };
-        const s = { noisy: addNoise(cs.d, sum.law, bits), law: sum.law };
-        const q = { noisy: addNoise(cs.d2, squares.law, bits), law: squares.law };
-        const r = varianceInterval({ sumSquares: q, sum: s, count: n, sumStep: half, squareStep: half.mul(half), lower, upper, confidence: conf });
-        const est = r.estimate;
-        const low = est === null ? Rational.ZERO : r.low;
-        const high = est === null ? maxVar : r.high;
-        if (stat === "variance") {
-          return { key: tuples[i], stat, column: c.name, value: est === null ? null : exactDecimal(est), low: exactDecimal(low), high: exactDecimal(high) };
-        }
-        return {
-          key: tuples[i],
-          stat,
-          column: c.name,
-          value: est === null ? null : exactDecimal(sqrtRational(est, 12, "down")),
-          low: exactDecimal(sqrtRational(low, 12, "down")),
-          high: exactDecimal(sqrtRational(high, 12, "up")),
-        };
-      });
+      return cpu.finish("spread", recipe, data);
     },
   };
 }

@@ -8,12 +8,11 @@
  * the per-value counts of a category or boolean column (named in `column`).
  */
 import { Rational } from "../../core/index.js";
-import type { Bits } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import type { Engine } from "../engine.js";
 import { countPiece, meanPiece, spreadPiece } from "./additive.js";
 import type { Allocator } from "./budget.js";
-import type { Piece, Source } from "./common.js";
+import type { Cpu, Piece, Source } from "./common.js";
 import { quantilePiece } from "./quantile.js";
 
 export function describePiece(alloc: Allocator, src: Source): Piece {
@@ -49,10 +48,11 @@ export function describePiece(alloc: Allocator, src: Source): Piece {
     previewNotes: [...new Set(list.flatMap((p) => p.piece.previewNotes ?? []))],
     methods: [...new Set(list.flatMap((p) => p.piece.methods))],
     size: list.reduce((n, p) => n + p.piece.size, 0),
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: list.reduce((n, p) => n + p.piece.steps, 0),
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       const out: ReleaseRow[] = [];
       for (const p of list) {
-        const rows = await p.piece.run(engine, bits);
+        const rows = await p.piece.run(engine, cpu);
         for (const r of rows) {
           out.push(p.keyed ? { ...r, column: p.column } : { ...r, key: [null] });
         }

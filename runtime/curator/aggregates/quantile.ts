@@ -10,14 +10,14 @@
  * mechanism runs at epsilon/k per row to be epsilon-DP per unit. Several p compose sequentially:
  * the part's budget is split evenly among them.
  */
-import { Rational, exponentialQuantile } from "../../core/index.js";
-import type { Bits } from "../../core/index.js";
+import { Rational } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
 import { decimalOf } from "../sql.js";
 import { type Allocator, type ExponentialSpec, exactDecimal, exponentialRecord } from "./budget.js";
-import { type Piece, type Source, fetchBuckets, rowsPerUnit } from "./common.js";
+import { type Cpu, type Piece, type Source, fetchBuckets, rowsPerUnit } from "./common.js";
+import type { QuantileRecipe } from "./finishers.js";
 
 type NumericPolicy = Extract<ColumnPolicy, { type: "integer" | "number" }>;
 
@@ -58,6 +58,13 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     return { p: pr, stat, spec, sensitivity };
   });
   const conf = alloc.confidence;
+  // The mechanism runs at epsilon/k per row so that it is epsilon-DP per unit (file header).
+  const recipe: QuantileRecipe = {
+    column: c.name,
+    candidates: cand,
+    step: c.grid.step,
+    parts: parts.map((x) => ({ p: x.p, stat: x.stat, epsilon: x.spec.epsilon.div(Rational.of(k)) })),
+  };
   const notes = [
     `Quantiles of ${c.name} use the exponential mechanism over ${cand.length} public candidates on its grid (step ${c.step}${cand.length < Number(c.grid.upperUnits - c.grid.lowerUnits) + 1 ? ", thinned" : ""}); values are clamped to [${c.lower}, ${c.upper}] and missing values left out.`,
     `No value interval is given for a quantile: the guarantee is on rank. With probability at least ${conf}, beyond the best candidate's own distance, ${parts
@@ -72,7 +79,8 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     notes,
     methods: ["quantiles: no value interval (rank guarantee of the exponential mechanism, McSherry & Talwar 2007)"],
     size: ps.length,
-    async run(engine: Engine, bits: Bits): Promise<ReleaseRow[]> {
+    steps: 1,
+    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
       // Bucket b(x) = number of candidates <= x, so r(y_j) = #{x < y_j} = #{b(x) <= j}. With
       // candidates lo + j s (j < m - 1) and hi last: b = min((x - lo) // s + 1, m - 1), and m at hi.
       const stride = cand.length > 1 ? cand[1] - cand[0] : 1n;
@@ -81,20 +89,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
         const hi = ps.big(c.grid.upperUnits);
         return `CASE WHEN ${id} IS NULL THEN NULL WHEN ${id} >= ${hi} THEN ${ps.big(m)} ELSE LEAST((${id} - ${ps.big(c.grid.lowerUnits)}) // ${ps.big(stride)} + 1, ${ps.big(m - 1n)}) END`;
       });
-      const below: bigint[] = [];
-      let i = 0;
-      let acc = 0n;
-      for (let j = 0n; j < m; j++) {
-        while (i < counts.length && counts[i][0] <= j) acc += counts[i++][1];
-        below.push(acc);
-      }
-      let n = acc;
-      while (i < counts.length) n += counts[i++][1];
-      return parts.map((x) => {
-        const r = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.spec.epsilon.div(Rational.of(k)), bits });
-        const v = c.grid.step.mul(cand[r.index]);
-        return { key: [], stat: x.stat, column: c.name, value: exactDecimal(v), low: null, high: null };
-      });
+      return cpu.finish("quantile", recipe, counts);
     },
   };
 }

@@ -1,0 +1,150 @@
+/**
+ * A small fixed pool of worker threads for the CPU part of releases (workers/worker.ts). Jobs wait
+ * in one queue and go to the first idle worker. Every job has a deadline: if it is still queued or
+ * running then, it is refused with a TimeLimitError and a running worker is terminated (the only
+ * way to stop synchronous JavaScript) and replaced, so a runaway draw never holds a thread.
+ *
+ * The pool never touches the ledger: a refused job means the release is dropped before any debit.
+ */
+import { Worker } from "node:worker_threads";
+import { availableParallelism } from "node:os";
+import { BadInputError, HushError, TimeLimitError, UnreachableError } from "../../errors.js";
+import type { ReleaseRow } from "../../protocol/messages.js";
+import type { Cpu } from "../aggregates/common.js";
+import type { FinisherName } from "../aggregates/finishers.js";
+import type { JobMessage, ResultMessage } from "./worker.js";
+import { fromWire, toWire } from "./wire.js";
+
+/**
+ * The compiled entry. Under vitest this module runs from its .ts source, which a worker thread
+ * cannot load, so the built copy in dist/ is used (tests that reach the pool build first).
+ */
+function entry(): URL {
+  const here = new URL(import.meta.url);
+  return here.pathname.endsWith(".ts") ? new URL("../../../dist/runtime/curator/workers/worker.js", here) : new URL("./worker.js", here);
+}
+
+interface Job {
+  msg: JobMessage;
+  resolve(rows: ReleaseRow[]): void;
+  reject(e: unknown): void;
+  timer: NodeJS.Timeout;
+  slot: Slot | null;
+}
+
+interface Slot {
+  worker: Worker;
+  job: Job | null;
+}
+
+export function timeLimitText(limitMs: number): string {
+  return `this release took longer than the curator's limit of ${limitMs / 1000} s; nothing was spent`;
+}
+
+export class WorkerPool {
+  private readonly slots: Slot[] = [];
+  private readonly queue: Job[] = [];
+  private nextId = 1;
+  private closed = false;
+
+  /** `size` workers (default: the machine's parallelism, at most 4), started now. */
+  constructor(size = Math.min(4, Math.max(1, availableParallelism()))) {
+    for (let i = 0; i < size; i++) this.slots.push(this.spawn());
+  }
+
+  private spawn(): Slot {
+    const slot: Slot = { worker: new Worker(entry()), job: null };
+    slot.worker.unref(); // an idle pool never keeps the process alive
+    slot.worker.on("message", (m: ResultMessage) => this.done(slot, m));
+    slot.worker.on("error", (e: unknown) => this.lost(slot, e));
+    slot.worker.on("exit", (code: number) => this.lost(slot, new Error(`worker thread exited with code ${code}`)));
+    return slot;
+  }
+
+  /** Runs one finisher on a worker; refused with TimeLimitError at `deadlineAt` (performance.now() ms). */
+  run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<ReleaseRow[]> {
+    if (this.closed) return Promise.reject(new UnreachableError("the curator is shutting down; nothing was spent"));
+    return new Promise<ReleaseRow[]>((resolve, reject) => {
+      const msg: JobMessage = { id: this.nextId++, name, recipe: toWire(recipe), data: toWire(data) };
+      const job: Job = { msg, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
+      this.queue.push(job);
+      this.dispatch();
+    });
+  }
+
+  /** A Cpu whose finishers run on this pool under one deadline. */
+  cpu(deadlineAt: number, limitMs: number): Cpu {
+    return { finish: (name, recipe, data) => this.run(name, recipe, data, deadlineAt, limitMs) };
+  }
+
+  private dispatch(): void {
+    for (const slot of this.slots) {
+      if (this.queue.length === 0) return;
+      if (slot.job !== null) continue;
+      const job = this.queue.shift()!;
+      job.slot = slot;
+      slot.job = job;
+      slot.worker.ref(); // a running job keeps the process alive until it settles
+      slot.worker.postMessage(job.msg);
+    }
+  }
+
+  private finish(slot: Slot): Job | null {
+    const job = slot.job;
+    slot.job = null;
+    slot.worker.unref();
+    if (job !== null) clearTimeout(job.timer);
+    return job;
+  }
+
+  private done(slot: Slot, m: ResultMessage): void {
+    const job = this.finish(slot);
+    if (job === null) return;
+    if (job.msg.id !== m.id) job.reject(new Error(`internal: worker answered job ${m.id} while running job ${job.msg.id}`));
+    else if (m.ok) job.resolve(fromWire(m.rows) as ReleaseRow[]);
+    else if (m.kind === "bad-input") job.reject(new BadInputError(m.message));
+    else if (m.kind !== null) job.reject(new HushError("internal", m.message));
+    else job.reject(new Error(`worker: ${m.message}`));
+    this.dispatch();
+  }
+
+  /** The worker died (error or exit we did not ask for): fail its job, put a fresh worker in its place. */
+  private lost(slot: Slot, e: unknown): void {
+    const i = this.slots.indexOf(slot);
+    if (i < 0) return; // already replaced (terminated by expire or close)
+    const job = this.finish(slot);
+    this.slots.splice(i, 1);
+    if (!this.closed) this.slots.push(this.spawn());
+    job?.reject(e);
+    this.dispatch();
+  }
+
+  private expire(job: Job, limitMs: number): void {
+    const slot = job.slot;
+    if (slot === null) {
+      const q = this.queue.indexOf(job);
+      if (q >= 0) this.queue.splice(q, 1);
+    } else {
+      this.finish(slot);
+      this.slots.splice(this.slots.indexOf(slot), 1);
+      void slot.worker.terminate();
+      if (!this.closed) this.slots.push(this.spawn());
+    }
+    job.reject(new TimeLimitError(timeLimitText(limitMs)));
+    this.dispatch();
+  }
+
+  /** Terminates every worker; queued and running jobs are refused (nothing of theirs is debited). */
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    const gone = new UnreachableError("the curator is shutting down; nothing was spent");
+    for (const job of this.queue.splice(0)) {
+      clearTimeout(job.timer);
+      job.reject(gone);
+    }
+    const slots = this.slots.splice(0);
+    for (const s of slots) this.finish(s)?.reject(gone);
+    await Promise.all(slots.map((s) => s.worker.terminate()));
+  }
+}

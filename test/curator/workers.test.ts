@@ -1,0 +1,109 @@
+/**
+ * The worker pool (runtime/curator/workers/): finishers run on real worker threads (the built
+ * dist/ entry), a job past its deadline is refused and its worker replaced, and the pool keeps
+ * serving afterwards. Needs `npm run build` (the test suite's script builds first).
+ */
+import { afterEach, describe, expect, it } from "vitest";
+import { Rational } from "../../runtime/core/index.js";
+import { TimeLimitError, UnreachableError } from "../../runtime/errors.js";
+import type { CellsRecipe, QuantileRecipe } from "../../runtime/curator/aggregates/finishers.js";
+import { WorkerPool } from "../../runtime/curator/workers/pool.js";
+import { fromWire, toWire } from "../../runtime/curator/workers/wire.js";
+import { firstSlot, replySlot } from "../../runtime/curator/workers/pacing.js";
+
+const pools: WorkerPool[] = [];
+afterEach(async () => {
+  for (const p of pools.splice(0)) await p.close();
+});
+
+const COUNT: CellsRecipe = {
+  labels: [["a", "b"]],
+  stat: "count",
+  column: null,
+  law: { family: "discrete-laplace", scale: Rational.of(1n) },
+  step: Rational.ONE,
+  h: Rational.of(3n),
+};
+
+/**
+ * A quantile draw that runs for minutes: 2001 candidates 10^7 rows apart at epsilon 2 x 10^-6, so
+ * the dyadic base is beta = 1 - 2^-20, the median's cost (10^7) is under the cost cap (about
+ * 4.8 x 10^7) and every other candidate is 2 x 10^7 or more above it, and each of ~2001 expected
+ * proposals is rejected only after ~10^6 Bernoulli trials on average (quantile.ts drawByRejection).
+ * At epsilon 10^-6 beta would round up to 1, and with costs all above the cap they would tie: both
+ * make the draw instant.
+ */
+const ENDLESS: QuantileRecipe = {
+  column: "x",
+  candidates: Array.from({ length: 2001 }, (_, j) => BigInt(j)),
+  step: Rational.ONE,
+  parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.parse("2e-6") }],
+};
+const ENDLESS_DATA: [bigint, bigint][] = Array.from({ length: 2001 }, (_, j) => [BigInt(j + 1), 10_000_000n]);
+
+describe("curator worker pool", () => {
+  it("keeps Rationals exact across the thread boundary", () => {
+    const x = { a: [Rational.of(1n, 3n), 5n], b: { c: Rational.parse("-2.5") } };
+    const back = fromWire(structuredClone(toWire(x))) as typeof x;
+    expect(back.a[0]).toBeInstanceOf(Rational);
+    expect((back.a[0] as Rational).eq(Rational.of(1n, 3n))).toBe(true);
+    expect(back.a[1]).toBe(5n);
+    expect(back.b.c.toString()).toBe("-5/2");
+  });
+
+  it("runs finishers on worker threads", async () => {
+    const pool = new WorkerPool(2);
+    pools.push(pool);
+    const rows = await pool.run("cells", COUNT, [[10n], [20n]], performance.now() + 30_000, 30_000);
+    expect(rows.map((r) => r.key)).toEqual([["a"], ["b"]]);
+    for (const r of rows) expect(Number.isInteger(Number(r.value))).toBe(true);
+  });
+
+  it("refuses a job past its deadline, replaces its worker, and serves the next job", async () => {
+    const pool = new WorkerPool(1);
+    pools.push(pool);
+    const t0 = performance.now();
+    const refused = await pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 300, 300).then(
+      () => null,
+      (e: unknown) => e,
+    );
+    expect(refused).toBeInstanceOf(TimeLimitError);
+    expect((refused as Error).message).toBe("this release took longer than the curator's limit of 0.3 s; nothing was spent");
+    // Refused at the deadline, not when the draw would have ended (generous bound: catches a hang).
+    expect(performance.now() - t0).toBeLessThan(10_000);
+    // The one worker was terminated and replaced: the pool still answers.
+    const rows = await pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 30_000, 30_000);
+    expect(rows).toHaveLength(2);
+  });
+
+  it("refuses queued jobs whose deadline passes while they wait", async () => {
+    const pool = new WorkerPool(1);
+    pools.push(pool);
+    const first = pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 2000, 2000).catch((e: unknown) => e);
+    const queued = await pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 200, 200).catch((e: unknown) => e);
+    expect(queued).toBeInstanceOf(TimeLimitError);
+    expect(await first).toBeInstanceOf(TimeLimitError);
+  });
+
+  it("refuses everything once closed", async () => {
+    const pool = new WorkerPool(1);
+    const running = pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 60_000, 60_000).catch((e: unknown) => e);
+    await pool.close();
+    expect(await running).toBeInstanceOf(UnreachableError);
+    await expect(pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 1000, 1000)).rejects.toBeInstanceOf(UnreachableError);
+  });
+
+  it("paces replies on a public ladder of slots", () => {
+    // Work inside the first slot leaves at the first slot; longer work at the next doubling.
+    expect(replySlot(3, 50, 30_000)).toBe(50);
+    expect(replySlot(49.9, 50, 30_000)).toBe(50);
+    expect(replySlot(50.1, 50, 30_000)).toBe(100);
+    expect(replySlot(20_000, 50, 30_000)).toBe(25_600);
+    expect(replySlot(29_000, 50, 30_000)).toBe(30_000);
+    expect(replySlot(7, 0, 30_000)).toBe(7); // pacing off
+    // The first slot grows with public size only: rounds of work and released rows.
+    expect(firstSlot(50, 1, 1)).toBe(50);
+    expect(firstSlot(50, 9, 20)).toBe(450);
+    expect(firstSlot(50, 1, 14_400)).toBe(750);
+  });
+});
