@@ -15,18 +15,10 @@ import {
   type HushErrorKind,
 } from "../errors.js";
 import type { SpendSummary } from "../protocol/messages.js";
+import { ERROR_KINDS } from "../protocol/reply-schema.js";
 
-const KNOWN: ReadonlySet<string> = new Set<HushErrorKind>([
-  "bad-input",
-  "policy",
-  "over-cap",
-  "unauthorized",
-  "unknown-dataset",
-  "protocol",
-  "unreachable",
-  "busy",
-  "internal",
-]);
+// The kinds the protocol defines, listed once (reply-schema.ts, checked against HushErrorKind).
+const KNOWN: ReadonlySet<string> = new Set<string>(ERROR_KINDS);
 
 export function errorFromWire(error: { kind: string; message: string; spend?: SpendSummary }): HushError {
   const message = typeof error.message === "string" ? error.message : "error without a message";
