@@ -17,7 +17,9 @@ export type FindingKind =
   | "prev-link" // prev is not the hash of the receipt before
   | "total" // running total does not add up
   | "cost" // cost not a positive exact rational
-  | "cap"; // over the cap, or the cap changed
+  | "cap" // over the cap, or the cap changed
+  | "copied" // class audit: the same signed receipt in two students' notebooks
+  | "roster"; // class audit: a notebook no roster student matches, or a student with no notebook
 
 export interface Finding {
   /** Index of the cell in the notebook's `cells` list (0-based), or null for whole-notebook findings. */
