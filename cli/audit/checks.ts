@@ -138,7 +138,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     }
     bySeq.set(r.seq, placed);
     if (highest !== null && r.seq < highest.r.seq) {
-      const note = spendOrderNote({ r, rel, at: at(rel) }, { r: highest.r, rel: highest.rel, at: at(highest.rel) }, opts.strict === true);
+      const note = spendOrderNote({ r, rel, at: at(rel) }, { r: highest.r, rel: highest.rel, at: at(highest.rel) });
       if (note !== null) notes.push(note);
     }
     if (highest === null || r.seq > highest.r.seq) highest = placed;

@@ -49,7 +49,7 @@ export function notShownNotes(missing: readonly MissingRun[], unit: string): Fin
     const lead =
       m.before === null
         ? `${m.after.where}: the first receipt shown is seq ${m.after.r.seq}`
-        : `${m.after.where}: receipt seq ${m.after.r.seq} follows seq ${m.before.r.seq} (${m.before.where})`;
+        : `${m.after.where}: receipt seq ${m.after.r.seq} follows seq ${m.before.r.seq} in ${m.before.where}`;
     return {
       cell: m.after.cell,
       kind: "superseded",
@@ -71,16 +71,16 @@ interface Shown {
  * A receipt shown below one with a later seq. Not evidence of anything: spend order is not
  * notebook order after a re-run (a replayed answer keeps its seq), after cells run by hand out of
  * order (In [n] says so), after a kernel restart (the counts start again) or after cells were moved.
- * The spend is counted either way. Returns null when nothing needs saying (a replay, not --strict).
+ * The spend is counted either way. Returns null for a replay: a cell run again unchanged shows its
+ * earlier receipt wherever it stands, which is what the notebook's own run produced (even --strict,
+ * which is about spend not shown, has nothing to say about it).
  */
-export function spendOrderNote(lower: Shown, above: Shown, strict: boolean): Finding | null {
-  const { replay } = lower.rel.meta;
-  if (replay && !strict) return null;
+export function spendOrderNote(lower: Shown, above: Shown): Finding | null {
+  if (lower.rel.meta.replay) return null;
   const a = lower.rel.executionCount;
   const b = above.rel.executionCount;
-  const why = replay
-    ? "it was answered again from its earlier receipt (a cell run again unchanged)"
-    : a !== null && b !== null && a < b
+  const why =
+    a !== null && b !== null && a < b
       ? `its cell was run before that one (In [${a}] before In [${b}])`
       : "its cell was moved, or run in an earlier kernel session";
   return {
