@@ -3,7 +3,15 @@
  * one row per student) and for scripts (JSON). Amounts are exact: decimals when they have a finite
  * one, else fractions ("1/3"), as the receipts state them.
  */
+import { exact, shown } from "./chain.js";
 import type { ClassAudit, ClassRow } from "./class-audit.js";
+
+/** A receipt amount, exact, as a reader writes it ("7/20" as 0.35); a forged non-number is kept as it stands (a finding says why). */
+function amount(x: string | null | undefined): string {
+  if (x === null || x === undefined) return "";
+  const r = exact(x);
+  return r === null ? x.slice(0, 40) : shown(r);
+}
 
 const sym = (unit: string | null): string => (unit === "rho" ? "ρ" : "ε");
 
@@ -33,14 +41,14 @@ export interface ClassCells {
 /** One row's fields as text, exact amounts, empty where there is nothing to state. */
 export function rowCells(row: ClassRow): ClassCells {
   const r = row.report;
-  const cap = row.reviewCap ?? r?.cap ?? null;
+  const cap = row.reviewCap ?? (r?.cap == null ? null : amount(r.cap));
   return {
     student: row.student,
     notebook: row.notebook ?? "",
     analyst: r?.analyst ?? "",
     unit: r?.unit ?? "",
-    spend: r?.total ?? "",
-    spendEpsilon: r?.unit === "rho" ? (r.totalEpsilon ?? "") : (r?.total ?? ""),
+    spend: amount(r?.total),
+    spendEpsilon: r?.unit === "rho" ? (r.totalEpsilon ?? "") : amount(r?.total),
     cap: cap ?? "",
     capUnit: cap === null ? "" : row.reviewCap !== null ? "epsilon" : (r?.unit ?? ""),
     releases: r === null ? "" : String(r.receipts),

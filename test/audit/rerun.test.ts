@@ -10,30 +10,13 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { type AuditReport, auditNotebook } from "../../cli/audit/checks.js";
-import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
+import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
 import { type CuratorKey, generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { runCli } from "./corpus.js";
-import { releaseOutput, rowsOf, signedChain } from "./signed-notebook.js";
-
-/** One release cell as the notebook shows it: the receipt of its last run, and its In [n]. */
-interface Shown {
-  r: Receipt;
-  replay?: boolean;
-  n: number;
-}
-
-function notebookOf(cells: Shown[]): Notebook {
-  const code: NbCell[] = cells.map((c, i) => ({
-    cell_type: "code",
-    source: `// question ${i + 1}`,
-    execution_count: c.n,
-    outputs: [releaseOutput(c.r, c.replay === true)],
-    metadata: {},
-  }));
-  return { nbformat: 4, nbformat_minor: 5, metadata: {}, cells: [{ cell_type: "markdown", source: "# Assignment", metadata: {} }, ...code] };
-}
+import { notebookOf } from "./laid-out.js";
+import { rowsOf, signedChain } from "./signed-notebook.js";
 
 const count = (v: number) => rowsOf("count", null, [[String(v), String(v - 30), String(v + 30)]]);
 
