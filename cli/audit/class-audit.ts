@@ -140,7 +140,9 @@ export function auditClass(
           ? `cell ${mine.cell}: this student's own receipt seq ${mine.seq} (analyst "${mine.analyst}") also appears in the notebook of ${others.join(", ")}, which holds a copy of it`
           : author !== undefined
             ? `cell ${mine.cell}: receipt seq ${mine.seq} belongs to analyst "${mine.analyst}", the roster's ${author.student}; the same signed receipt is in the notebook of ${others.join(", ")}: this notebook holds a copy of another student's release`
-            : `cell ${mine.cell}: receipt seq ${mine.seq} (analyst "${mine.analyst}") also appears in the notebook of ${others.join(", ")}: one signed release is in two students' notebooks`,
+            : roster === null
+              ? `cell ${mine.cell}: receipt seq ${mine.seq} (analyst "${mine.analyst}") also appears in ${others.join(", ")}: two hand-ins hold one signed release, so one holds a copy of the other unless both are the same student's (a roster tells whose analyst signed it)`
+              : `cell ${mine.cell}: receipt seq ${mine.seq} (analyst "${mine.analyst}", on no roster line) also appears in the notebook of ${others.join(", ")}: one signed release is in two students' notebooks`,
       };
       // The author did nothing to their own notebook: a note for the TA, unless --strict.
       if (authored && !strict) h.row.notes.push(f);

@@ -91,10 +91,10 @@ export function formatClassTable(audit: ClassAudit): string {
 
 /**
  * RFC 4180 quoting; a field a spreadsheet would run as a formula (= + - @, tab, carriage return
- * first) gets a leading apostrophe, since notebook names come from students.
+ * first, "-2+3" included) gets a leading apostrophe, since notebook names come from students.
  */
 function csvField(s: string): string {
-  const safe = /^[=+\-@\t\r]/.test(s) && !/^-?\d/.test(s) ? `'${s}` : s;
+  const safe = /^[=+\-@\t\r]/.test(s) ? `'${s}` : s; // no amount this table writes is negative
   return /[",\n\r]/.test(safe) ? `"${safe.replace(/"/g, '""')}"` : safe;
 }
 

@@ -159,6 +159,17 @@ describe("class audit: many notebooks, a roster, one table", () => {
     expect(rows.find((r) => r[0] === "s01")![col("notes")]).toBe("3");
   });
 
+  it("keeps a student's file name from running as a spreadsheet formula in the CSV", () => {
+    const sub = join(dir, "formula");
+    mkdirSync(sub, { recursive: true });
+    const nb = assembleNotebook(chainOf("an-formula", ["0.1", "0.2"]));
+    for (const name of ["=HYPERLINK(1)", "-2+3", "@SUM(1)", "+1", "a,b\"c"]) writeFileSync(join(sub, `${name}.ipynb`), JSON.stringify(nb));
+    const csv = runCli(["audit", sub, "--key", keyFile, "--csv"]);
+    const students = csv.stdout.trimEnd().split("\r\n").slice(1).map((l) => l.split(",")[0]);
+    expect(students).toEqual(["'+1", "'-2+3", "'=HYPERLINK(1)", "'@SUM(1)", '"a']);
+    expect(csv.stdout).toContain('"a,b""c"');
+  });
+
   it("passes the honest students alone (exit 0), and --strict fails the re-runs for their superseded spend", () => {
     const honest = [1, 4, 5, 7].map((i) => join(dir, "hand-ins", i % 3 === 1 ? `s0${i}.ipynb` : `s0${i}_assignment3.ipynb`));
     const ok = runCli(["audit", ...honest, join(dir, "hand-ins", "rerun1.ipynb"), "--key", keyFile]);
@@ -230,7 +241,7 @@ describe("class audit: many notebooks, a roster, one table", () => {
     expect(a.exitCode).toBe(1);
     for (const row of a.rows) {
       expect(row.findings.map((f) => f.kind)).toEqual(["copied", "copied", "copied"]);
-      expect(row.findings[0].message).toMatch(/one signed release is in two students' notebooks/);
+      expect(row.findings[0].message).toMatch(/two hand-ins hold one signed release, so one holds a copy of the other unless both are the same student's/);
     }
   });
 });
