@@ -59,8 +59,8 @@ export function wellFormedRows(result: unknown): boolean {
  * Seqs a set of receipts lacks, from `from` to `to`: before the first shown receipt (`before`
  * null) or between two shown ones. Their receipts are not there to verify; what is known of them
  * is their count and, by the running totals, their spend: the total of `after` less its cost, less
- * the total of `before` (0 at the start). `spend` is null when those amounts are not exact numbers
- * (a finding in its own right); it is always positive otherwise, or the chain has a "total" finding.
+ * the total of `before` (0 at the start). `spend` is null when those amounts are not exact numbers,
+ * or when they leave 0 or less (each a "total" or "cost" finding in its own right); else positive.
  */
 export interface MissingRun {
   from: number;
@@ -122,7 +122,8 @@ function walkChain(chain: readonly Linked[], missingIsFinding: boolean): { findi
       // (its total less its cost) less the total after the last shown one. Each release costs
       // more than 0, so that must be positive; their contents and hashes cannot be checked.
       const spend = prevTotal !== null && total !== null && cost !== null ? total.sub(cost).sub(prevTotal) : null;
-      gap = { from: expected, to: r.seq - 1, spend, before: prev, after: p };
+      // A spend of 0 or less is no spend at all: reported as unknown beside the "total" finding.
+      gap = { from: expected, to: r.seq - 1, spend: spend !== null && spend.sign() > 0 ? spend : null, before: prev, after: p };
       if (missingIsFinding) findings.push(missingFinding(gap));
       else missing.push(gap);
       if (spend !== null && spend.sign() <= 0) {

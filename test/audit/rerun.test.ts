@@ -131,5 +131,7 @@ describe("audit of notebooks re-run by an honest student", () => {
     const bad = audit(notebookOf([{ r: resigned[0], n: 1 }, { r: r3, n: 2 }]));
     expect(kinds(bad)).toEqual(expect.arrayContaining(["signature", "total"]));
     expect(bad.findings.find((f) => f.kind === "total")!.message).toContain("the totals do not add up");
+    expect(bad.superseded).toMatchObject({ releases: 1, spend: null });
+    expect(bad.notes[0].message).toContain("spend unknown: see the total finding");
   });
 });
