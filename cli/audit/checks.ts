@@ -23,8 +23,8 @@ import { keyIdOf, receiptHash } from "../../runtime/protocol/receipts.js";
 import { type Linked, chainCheck, exact, shown, signatureFinding } from "./chain.js";
 import type { Finding } from "./findings.js";
 import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
-import { checkShown } from "./views.js";
 import { type Superseded, notShownNotes, spendOrderNote, supersededOf } from "./superseded.js";
+import { checkShown } from "./views.js";
 
 export interface AuditReport {
   ok: boolean;
