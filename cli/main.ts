@@ -8,6 +8,7 @@
  */
 import { Command, CommanderError, Option } from "commander";
 import { isHushError } from "../runtime/errors.js";
+import type { AuditArgs } from "./commands/audit.js";
 import type { InstallOptions } from "./commands/install.js";
 
 // Each command's module is loaded only when it runs: `hush audit` must not load the kernel client,
@@ -82,17 +83,20 @@ function program(): Command {
     });
 
   p.command("audit")
-    .description("check a notebook's spend receipts without the data: signatures, chain, totals, cap, shown values")
-    .argument("<notebook>", "the .ipynb to audit")
+    .description("check notebooks' spend receipts without the data: signatures, chain, totals, cap, shown values; one notebook, or a class")
+    .argument("<notebooks...>", "the .ipynb to audit; several, or folders of them, audit a class (one table)")
     .requiredOption("--key <pubkey>", "the curator's public key: a .pub file (PEM) or the base64 the curator prints")
-    .option("--cap <epsilon>", "hold the notebook to this epsilon cap (may be stricter than the steward's)")
+    .option("--cap <epsilon>", "hold the notebooks to this epsilon cap (may be stricter than the steward's; a roster's cap wins)")
     .option("--analyst <name>", "the analyst whose notebook this should be (a copied notebook verifies under its author's name)")
     .option("--dataset <name>", "the dataset the releases should be on")
+    .option("--roster <csv>", "class audit: a CSV with the header student,analyst,dataset,cap; notebooks are matched by file or folder name")
+    .option("--strict", "spend the notebook does not show (cells run again) and receipts out of spend order are findings, not notes")
     .option("--json", "print the report as JSON")
-    .action(async (file: string, o: { key: string; cap?: string; json?: boolean; analyst?: string; dataset?: string }) => {
-      const { runAudit } = await import("./commands/audit.js");
-      const report = runAudit(file, o, out);
-      if (!report.ok) process.exitCode = EXIT.problem;
+    .option("--csv", "class audit: print the table as CSV (for a grade book)")
+    .action(async (files: string[], o: AuditArgs) => {
+      const { runAuditCommand } = await import("./commands/audit.js");
+      const code = runAuditCommand(files, o, out);
+      if (code !== EXIT.ok) process.exitCode = code;
     });
 
   p.command("ledger")

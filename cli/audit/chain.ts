@@ -4,9 +4,11 @@
  * positive exact number, each total is the previous total plus the cost in exact rationals, the cap
  * never changes and no total exceeds it.
  *
- * The one implementation: the notebook audit (checks.ts) runs it on the receipts a notebook shows,
- * and `checkReceiptChains` runs it on any set of receipts (a ledger's, a client's), one chain per
- * (analyst, population), after checking every signature.
+ * The one implementation: the notebook audit (checks.ts) runs it on the receipts a notebook shows
+ * (`chainCheck`: seqs the notebook lacks are returned as not shown, with the spend their running
+ * totals vouch for), and `checkReceiptChains` runs it on any set of receipts (a ledger's, a
+ * client's), one chain per (analyst, population), after checking every signature (there a missing
+ * seq is a finding).
  */
 import type { KeyObject } from "node:crypto";
 import { Rational } from "../../runtime/core/index.js";
@@ -53,35 +55,87 @@ export function wellFormedRows(result: unknown): boolean {
   );
 }
 
-/** The seq-order checks of one chain; `chain` holds distinct seqs of one analyst and population, sorted by seq. */
+/**
+ * Seqs a set of receipts lacks, from `from` to `to`: before the first shown receipt (`before`
+ * null) or between two shown ones. Their receipts are not there to verify; what is known of them
+ * is their count and, by the running totals, their spend: the total of `after` less its cost, less
+ * the total of `before` (0 at the start). `spend` is null when those amounts are not exact numbers,
+ * or when they leave 0 or less (each a "total" or "cost" finding in its own right); else positive.
+ */
+export interface MissingRun {
+  from: number;
+  to: number;
+  spend: Rational | null;
+  before: Linked | null;
+  after: Linked;
+}
+
+/**
+ * The seq-order checks of one chain; `chain` holds distinct seqs of one analyst and population,
+ * sorted by seq. Missing seqs are findings ("chain-start", "gap"): a ledger or client must hold
+ * every receipt. The notebook audit uses `chainCheck`, where missing seqs are returned instead.
+ */
 export function chainFindings(chain: readonly Linked[]): Finding[] {
-  const findings: Finding[] = [];
-  const first = chain[0];
-  if (first !== undefined && first.r.seq !== 1) {
-    findings.push({
-      cell: first.cell,
+  return walkChain(chain, true).findings;
+}
+
+/** The seq-order checks of one chain, with the seqs it lacks returned rather than reported. */
+export function chainCheck(chain: readonly Linked[]): { findings: Finding[]; missing: MissingRun[] } {
+  return walkChain(chain, false);
+}
+
+function missingFinding(run: MissingRun): Finding {
+  const { from, to, before, after } = run;
+  const which = from === to ? `release ${from} is` : `releases ${from}..${to} are`;
+  if (before === null) {
+    return {
+      cell: after.cell,
       kind: "chain-start",
-      message: `${first.where}: the first receipt is seq ${first.r.seq}, not 1: the spend of releases 1..${first.r.seq - 1} is not shown in this notebook`,
-    });
+      message: `${after.where}: the first receipt is seq ${after.r.seq}, not 1: the spend of releases 1..${after.r.seq - 1} is not shown in this notebook`,
+    };
   }
+  return {
+    cell: after.cell,
+    kind: "gap",
+    message: `${after.where}: receipt seq ${after.r.seq} follows seq ${before.r.seq} (${before.where}): ${which} missing (a release cell or output was deleted)`,
+  };
+}
+
+function walkChain(chain: readonly Linked[], missingIsFinding: boolean): { findings: Finding[]; missing: MissingRun[] } {
+  const findings: Finding[] = [];
+  const missing: MissingRun[] = [];
+  const first = chain[0];
   const cap0 = first === undefined ? null : exact(first.r.cap);
-  let prevTotal: Rational | null = first !== undefined && first.r.seq === 1 ? Rational.ZERO : null;
+  // The running total before the receipt at hand: 0 before seq 1 and before the seqs a chain
+  // lacks at its start (their spend is what the first shown total holds beyond its own cost).
+  let prevTotal: Rational | null = Rational.ZERO;
   let prev: Linked | null = null;
   for (const p of chain) {
     const { r, where, cell } = p;
     const cost = exact(r.cost);
     const total = exact(r.total);
     const cap = exact(r.cap);
-    if (prev !== null && r.seq !== prev.r.seq + 1) {
-      const missing = r.seq - prev.r.seq - 1;
-      findings.push({
-        cell,
-        kind: "gap",
-        message: `${where}: receipt seq ${r.seq} follows seq ${prev.r.seq} (${prev.where}): ${missing === 1 ? `release ${prev.r.seq + 1} is` : `releases ${prev.r.seq + 1}..${r.seq - 1} are`} missing (a release cell or output was deleted)`,
-      });
-      prevTotal = null; // the running total cannot be checked across a gap
+    const expected = prev === null ? 1 : prev.r.seq + 1;
+    let gap: MissingRun | null = null;
+    if (r.seq > expected) {
+      // What the receipts vouch for about the seqs in between: the total before this receipt
+      // (its total less its cost) less the total after the last shown one. Each release costs
+      // more than 0, so that must be positive; their contents and hashes cannot be checked.
+      const spend = prevTotal !== null && total !== null && cost !== null ? total.sub(cost).sub(prevTotal) : null;
+      // A spend of 0 or less is no spend at all: reported as unknown beside the "total" finding.
+      gap = { from: expected, to: r.seq - 1, spend: spend !== null && spend.sign() > 0 ? spend : null, before: prev, after: p };
+      if (missingIsFinding) findings.push(missingFinding(gap));
+      else missing.push(gap);
+      if (spend !== null && spend.sign() <= 0) {
+        const count = r.seq - expected;
+        findings.push({
+          cell,
+          kind: "total",
+          message: `${where}: receipt seq ${r.seq}: its total ${r.total} less its cost ${r.cost} leaves ${shown(spend)} for the ${count} release${count === 1 ? "" : "s"} before it not shown here (seq ${expected}${count === 1 ? "" : `..${r.seq - 1}`}), but every release costs more than 0: the totals do not add up`,
+        });
+      }
     }
-    const linked = prev === null ? (r.seq === 1 ? GENESIS_PREV : null) : r.seq === prev.r.seq + 1 ? receiptHash(prev.r) : null;
+    const linked = gap !== null ? null : prev === null ? GENESIS_PREV : receiptHash(prev.r);
     if (linked !== null && r.prev !== linked) {
       findings.push({
         cell,
@@ -94,7 +148,7 @@ export function chainFindings(chain: readonly Linked[]): Finding[] {
     }
     if (total === null) {
       findings.push({ cell, kind: "total", message: `${where}: receipt seq ${r.seq} has total "${r.total}", not an exact number` });
-    } else if (cost !== null && prevTotal !== null && !prevTotal.add(cost).eq(total)) {
+    } else if (gap === null && cost !== null && prevTotal !== null && !prevTotal.add(cost).eq(total)) {
       findings.push({
         cell,
         kind: "total",
@@ -109,7 +163,7 @@ export function chainFindings(chain: readonly Linked[]): Finding[] {
     prevTotal = total;
     prev = p;
   }
-  return findings;
+  return { findings, missing };
 }
 
 /** The signature checks of one receipt: malformed, signed by another key, or contents changed. */

@@ -4,18 +4,26 @@
  *
  * In notebook order: every receipt's signature and key, one analyst and population per notebook (a
  * notebook may use several datasets over the same people: their receipts form one chain), the
- * shown numbers equal the signed ones, no release without a receipt, receipts never going
- * backwards (replays of the same receipt are fine). In seq order: the chain starts at 1, has no
- * gaps, each `prev` is the hash of the receipt before, each total is the previous total plus the
- * cost in exact rationals, and the spend stays within the cap.
+ * shown numbers equal the signed ones, no release without a receipt. In seq order: each `prev` is
+ * the hash of the receipt before, each total is the previous total plus the cost in exact
+ * rationals, and the spend stays within the cap.
+ *
+ * Honest work leaves seqs out and shows receipts out of spend order: a cell run again after an
+ * edit gets a new receipt and its old one is no longer shown; an unchanged cell run again shows its
+ * earlier receipt (a replay) below newer ones; spend in a scratch notebook of the same analyst is
+ * in the chain too. So seqs a notebook lacks are reported as "not shown" (superseded) with their
+ * count and the exact spend the running totals vouch for (superseded.ts), and receipts out of
+ * spend order as a note; both pass unless the reviewer asks for --strict. The spend stays counted:
+ * totals are running totals, so the last shown total, held to the cap, includes it.
  */
 import type { KeyObject } from "node:crypto";
 import { type Rational, epsilonFromRho } from "../../runtime/core/index.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { keyIdOf, receiptHash } from "../../runtime/protocol/receipts.js";
-import { type Linked, chainFindings, exact, shown, signatureFinding } from "./chain.js";
+import { type Linked, chainCheck, exact, shown, signatureFinding } from "./chain.js";
 import type { Finding } from "./findings.js";
 import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
+import { type Superseded, notShownNotes, spendOrderNote, supersededOf } from "./superseded.js";
 import { checkShown } from "./views.js";
 
 export interface AuditReport {
@@ -40,6 +48,13 @@ export interface AuditReport {
   delta: string | null;
   /** The stricter cap given with --cap (epsilon), if any. */
   reviewCap: string | null;
+  /** Whether notes count as findings (--strict). */
+  strict: boolean;
+  /** Releases spent but not shown in this notebook (re-run cells, deleted cells, other notebooks). */
+  superseded: Superseded;
+  /** What the reviewer should know but an honest notebook may show: not-shown spend, receipts out
+   * of spend order. Empty under --strict, where they are findings. They never make `ok` false. */
+  notes: Finding[];
   findings: Finding[];
 }
 
@@ -50,6 +65,8 @@ export interface AuditOptions {
    * use (other datasets of the same population may appear beside it: they share the chain). */
   analyst?: string;
   dataset?: string;
+  /** Spend not shown and receipts out of spend order are findings, not notes. */
+  strict?: boolean;
 }
 
 function at(rel: { cell: number; executionCount: number | null }): string {
@@ -76,6 +93,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   const bySeq = new Map<number, Placed>();
   let highest: Placed | null = null;
   let replays = 0;
+  const notes: Finding[] = [];
   for (const rel of releases) {
     const r = rel.meta.receipt;
     const bad = signatureFinding(r, publicKey, at(rel), rel.cell);
@@ -83,6 +101,10 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     // A receipt of the wrong shape is reported once and kept out of every later check, so hostile
     // JSON cannot crash the audit or pass as part of the chain.
     if (bad?.kind === "malformed") continue;
+    if (!Number.isSafeInteger(r.seq) || r.seq < 1) {
+      findings.push({ cell: rel.cell, kind: "malformed", message: `${at(rel)}: the receipt's seq ${JSON.stringify(r.seq)} is not a whole number from 1` });
+      continue;
+    }
     if (rel.meta.dataset !== r.dataset) {
       findings.push({ cell: rel.cell, kind: "label", message: `${at(rel)}: output says dataset "${rel.meta.dataset}" but its receipt is for "${r.dataset}"` });
     }
@@ -116,18 +138,20 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     }
     bySeq.set(r.seq, placed);
     if (highest !== null && r.seq < highest.r.seq) {
-      findings.push({
-        cell: rel.cell,
-        kind: "reordered",
-        message: `${at(rel)}: receipt seq ${r.seq} is shown after seq ${highest.r.seq} in ${at(highest.rel)}: cells were reordered`,
-      });
+      const note = spendOrderNote({ r, rel, at: at(rel) }, { r: highest.r, rel: highest.rel, at: at(highest.rel) });
+      if (note !== null) notes.push(note);
     }
     if (highest === null || r.seq > highest.r.seq) highest = placed;
   }
 
   // ---- seq order ---------------------------------------------------------------------------
   const chain = [...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq);
-  findings.push(...chainFindings(chain.map((p): Linked => ({ r: p.r, where: at(p.rel), cell: p.rel.cell }))));
+  const checked = chainCheck(chain.map((p): Linked => ({ r: p.r, where: at(p.rel), cell: p.rel.cell })));
+  findings.push(...checked.findings);
+  const superseded = supersededOf(checked.missing);
+  notes.push(...notShownNotes(checked.missing, chain[0]?.r.unit ?? "epsilon"));
+  // --strict: the reviewer wants the notebook to show every release it spent, in spend order.
+  if (opts.strict === true) findings.push(...notes.splice(0));
 
   // ---- final spend against the reviewer's cap ---------------------------------------------
   const last = chain.at(-1);
@@ -181,6 +205,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   }
 
   findings.sort((a, b) => (a.cell ?? Infinity) - (b.cell ?? Infinity));
+  notes.sort((a, b) => (a.cell ?? Infinity) - (b.cell ?? Infinity));
   return {
     ok: findings.length === 0,
     keyId,
@@ -196,6 +221,9 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     totalEpsilon,
     delta: last?.r.delta ?? null,
     reviewCap: opts.cap === undefined ? null : shown(opts.cap),
+    strict: opts.strict === true,
+    superseded,
+    notes,
     findings,
   };
 }

@@ -9,14 +9,17 @@ export type FindingKind =
   | "no-receipt" // looks like a release, has no receipt
   | "shown-value" // the text shown is not the signed value, or cannot be read as a person sees it
   | "bundle-value" // a structured bundle disagrees with the signed result
-  | "reordered" // a new receipt with a smaller seq than one shown above it
+  | "spend-order" // a receipt shown below one with a later seq (a note unless --strict)
+  | "superseded" // seqs the notebook does not show, spend vouched by the totals (a note unless --strict)
   | "duplicate-seq" // two different receipts with one seq
-  | "chain-start" // first receipt is not seq 1
-  | "gap" // missing seqs
+  | "chain-start" // a set of receipts (a ledger's) lacks seq 1
+  | "gap" // a set of receipts (a ledger's) lacks seqs
   | "prev-link" // prev is not the hash of the receipt before
   | "total" // running total does not add up
   | "cost" // cost not a positive exact rational
-  | "cap"; // over the cap, or the cap changed
+  | "cap" // over the cap, or the cap changed
+  | "copied" // class audit: the same signed receipt in two students' notebooks
+  | "roster"; // class audit: a notebook no roster student matches, or a student with no notebook
 
 export interface Finding {
   /** Index of the cell in the notebook's `cells` list (0-based), or null for whole-notebook findings. */

@@ -1,4 +1,4 @@
-/** The audit report for people: a summary, the findings by cell, and one verdict line. */
+/** The audit report for people: a summary, the findings and notes by cell, and one verdict line. */
 import { formatDecimal } from "../../runtime/protocol/format.js";
 import type { AuditReport } from "./checks.js";
 
@@ -7,7 +7,7 @@ export function verdictLine(r: AuditReport): string {
   if (r.ok) {
     return r.receipts === 0
       ? "verdict: PASS (no releases in this notebook)"
-      : `verdict: PASS (${r.receipts} receipt${r.receipts === 1 ? "" : "s"} verified, spend within the cap)`;
+      : `verdict: PASS (${r.receipts} receipt${r.receipts === 1 ? "" : "s"} verified, spend within the cap${r.superseded.releases > 0 ? `, ${supersededText(r)} not shown but counted` : ""})`;
   }
   return `verdict: FAIL (${r.findings.length} finding${r.findings.length === 1 ? "" : "s"})`;
 }
@@ -19,6 +19,13 @@ function amount(x: string): string {
   } catch {
     return JSON.stringify(String(x).slice(0, 40));
   }
+}
+
+/** "2 releases (ε 0.3)": the spend the notebook does not show. */
+export function supersededText(r: AuditReport): string {
+  const s = r.superseded;
+  const sym = r.unit === "rho" ? "ρ" : "ε";
+  return `${s.releases} release${s.releases === 1 ? "" : "s"} (${s.spend === null ? "spend unknown" : `${sym} ${s.spend}`})`;
 }
 
 function spendText(r: AuditReport): string {
@@ -40,11 +47,16 @@ export function formatReport(file: string, r: AuditReport): string {
   }
   lines.push(`  releases      ${r.releases} output${r.releases === 1 ? "" : "s"} with receipts, ${r.receipts} distinct, ${r.replays} repeated`);
   lines.push(`  spend         ${spendText(r)}`);
+  if (r.superseded.releases > 0) lines.push(`  not shown     ${supersededText(r)}, spent but superseded or shown elsewhere; counted in the spend above`);
   if (r.findings.length > 0) {
     lines.push("  findings:");
     for (const f of r.findings) lines.push(`    - [${f.kind}] ${f.message}`);
   } else {
-    lines.push("  every signature verifies, the chain is whole from seq 1, totals add up exactly, shown values match the signed ones");
+    lines.push("  every signature verifies, the chain links and its totals add up exactly, shown values match the signed ones");
+  }
+  if (r.notes.length > 0) {
+    lines.push("  notes (not findings; --strict makes them findings):");
+    for (const f of r.notes) lines.push(`    - [${f.kind}] ${f.message}`);
   }
   lines.push(verdictLine(r));
   return `${lines.join("\n")}\n`;

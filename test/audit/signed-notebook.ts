@@ -50,7 +50,7 @@ export function signedChain(
   });
 }
 
-function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"]>[number] {
+export function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["outputs"]>[number] {
   const lines = r.result.map(([k, stat, column, v, lo, hi]) => {
     const label = [...k, column === null ? stat : `${stat}(${column})`].join(" · ");
     return `${label}: ${formatWithError(v, lo, hi)}`;

@@ -105,9 +105,13 @@ describe("notebook audit on a signed, assembled notebook", () => {
     expect(r).toMatchObject({ ok: true, population: "clinic-patients", datasets: ["visits", "visits-course"], total: "7/4", receipts: 3 });
     expect(auditNotebook(nb, fx.key, { dataset: "visits" }).ok).toBe(true);
     expect(auditNotebook(nb, fx.key, { dataset: "visits-zcdp" }).findings.map((f) => f.kind)).toEqual(["owner"]);
-    // Leaving out the other dataset's receipt breaks the population's chain: its spend is not shown.
+    // Leaving out the other dataset's receipt breaks the population's chain: its spend is not shown
+    // (reported with its cost from the totals; a finding under --strict).
     const partial = auditNotebook(assembleNotebook([receipts[0], receipts[2]]), fx.key);
-    expect(partial.findings.map((f) => f.kind)).toEqual(["gap"]);
+    expect(partial.findings).toEqual([]);
+    expect(partial.notes.map((f) => f.kind)).toEqual(["superseded"]);
+    expect(partial.superseded).toMatchObject({ releases: 1, spend: "1" });
+    expect(auditNotebook(assembleNotebook([receipts[0], receipts[2]]), fx.key, { strict: true }).findings.map((f) => f.kind)).toEqual(["superseded"]);
     // A receipt on another population of the same analyst is another chain: not mixed into this one.
     const [elsewhere] = signedChain(key, { ...who, population: "other-people" }, [{ cost: "0.1", rows: count("500") }]);
     const mixed = auditNotebook(assembleNotebook([...receipts, elsewhere]), fx.key);
