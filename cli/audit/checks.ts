@@ -4,7 +4,8 @@
  *
  * In notebook order: every receipt's signature and key, one analyst and population per notebook (a
  * notebook may use several datasets over the same people: their receipts form one chain), the
- * shown numbers equal the signed ones, no release without a receipt, receipts never going
+ * shown numbers equal the signed ones, each release shown under the unchanged code of the cell that
+ * asked for it (source-binding.ts), no release without a receipt, receipts never going
  * backwards (replays of the same receipt are fine). In seq order: the chain starts at 1, has no
  * gaps, each `prev` is the hash of the receipt before, each total is the previous total plus the
  * cost in exact rationals, and the spend stays within the cap.
@@ -16,6 +17,7 @@ import { keyIdOf, receiptHash } from "../../runtime/protocol/receipts.js";
 import { type Linked, chainFindings, exact, shown, signatureFinding } from "./chain.js";
 import type { Finding } from "./findings.js";
 import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
+import { sourceBindingFindings } from "./source-binding.js";
 import { checkShown } from "./views.js";
 
 export interface AuditReport {
@@ -124,6 +126,9 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     }
     if (highest === null || r.seq > highest.r.seq) highest = placed;
   }
+
+  // ---- each release under the code that asked for it ---------------------------------------
+  findings.push(...sourceBindingFindings(nb, releases, at));
 
   // ---- seq order ---------------------------------------------------------------------------
   const chain = [...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq);

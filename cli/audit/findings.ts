@@ -9,6 +9,8 @@ export type FindingKind =
   | "no-receipt" // looks like a release, has no receipt
   | "shown-value" // the text shown is not the signed value, or cannot be read as a person sees it
   | "bundle-value" // a structured bundle disagrees with the signed result
+  | "code-mismatch" // the cell showing a release does not hold the code that asked for it (source-binding.ts)
+  | "not-bound" // a receipt that names no code: asked from outside a notebook kernel
   | "reordered" // a new receipt with a smaller seq than one shown above it
   | "duplicate-seq" // two different receipts with one seq
   | "chain-start" // first receipt is not seq 1

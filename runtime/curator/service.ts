@@ -199,7 +199,7 @@ export class CuratorService {
       case "preview":
         return { op: "preview", preview: await this.preview(analyst, body.plan) };
       case "ask":
-        return { op: "ask", release: await this.ask(analyst, body.plan) };
+        return { op: "ask", release: await this.ask(analyst, body.plan, body.cell) };
     }
   }
 
@@ -275,7 +275,9 @@ export class CuratorService {
     return { ...row.release, cost: "0", replay: true, spend: this.spendNow(analyst, d) };
   }
 
-  private async ask(analyst: string, plan: QueryPlan): Promise<Release> {
+  /** `cell`: the asking cell's source digest, signed into a new receipt. A replay returns the stored
+   * receipt unchanged (the chain cannot be rewritten), so it names the code of the first ask. */
+  private async ask(analyst: string, plan: QueryPlan, cell: string | undefined): Promise<Release> {
     const d = this.dataset(analyst, plan.dataset);
     const prepared = await this.answerer.prepare(analyst, plan);
     const earlier = this.ledger.find(analyst, d.population, prepared.digest);
@@ -310,6 +312,7 @@ export class CuratorService {
               population: d.population,
               seq: ctx.seq,
               digest: prepared.digest,
+              ...(cell !== undefined ? { cell } : {}),
               unit: prepared.unit,
               cost: prepared.cost.toString(),
               total: ctx.total.toString(),

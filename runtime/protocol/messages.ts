@@ -145,6 +145,11 @@ export interface Receipt {
   seq: number;
   /** sha256 hex of the canonical JSON of the plan. */
   digest: string;
+  /** sha256 hex of the source of the notebook cell that first asked for this release
+   * (runtime/protocol/cell-source.ts), as the notebook side sent it; absent when the ask came from
+   * outside a notebook kernel (a script using the client). A replay returns the stored receipt, so
+   * this names the code of the first ask. */
+  cell?: string;
   unit: "epsilon" | "rho";
   /** Exact rationals in `unit`. */
   cost: string;
@@ -225,7 +230,8 @@ export interface LedgerEntry {
 export type RequestBody =
   | { op: "catalogue" }
   | { op: "open"; dataset: string }
-  | { op: "ask"; plan: QueryPlan }
+  /** `cell`: the asking cell's source digest (runtime/protocol/cell-source.ts), signed into the receipt. */
+  | { op: "ask"; plan: QueryPlan; cell?: string }
   | { op: "preview"; plan: QueryPlan }
   | { op: "spend"; dataset: string }
   | { op: "ledger"; dataset?: string };

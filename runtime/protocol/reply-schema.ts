@@ -131,6 +131,7 @@ const receipt = z.strictObject({
   population: z.string(),
   seq: position,
   digest: hex64,
+  cell: hex64.optional(),
   unit: accountingUnit,
   cost: exact,
   total: exact,

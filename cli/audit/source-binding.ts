@@ -1,0 +1,90 @@
+/**
+ * Does each release sit under the code that made it? A receipt signs the digest of the source of
+ * the cell that asked (`Receipt.cell`, runtime/protocol/cell-source.ts). The audit recomputes the
+ * digest of the cell that shows the release and compares.
+ *
+ * The rule: a release must be shown in the cell whose code asked for it, with that code unchanged.
+ * - Same digest: fine. Re-running unchanged code passes, also when the curator answered from its
+ *   ledger (a replay carries the first receipt, whose digest is the same code's).
+ * - The digest of another cell of the notebook: the code was moved, or the release was kept in a
+ *   variable and displayed in a later cell. Both are reported (a reader takes the code above an
+ *   output for the code that made it), worded without accusing, naming the cell whose code asked.
+ * - No cell's digest: the code was changed after it ran. A replay from changed code (the same
+ *   question asked again after, say, a comment was edited) also lands here, because a replay returns
+ *   the first receipt unchanged: the wording says so and how to fix it.
+ * - No digest at all: the release was asked outside a hush notebook kernel (a script using the
+ *   client directly), so nothing ties it to the code shown.
+ *
+ * What this cannot see: the digest is computed on the notebook side, so a modified kernel can claim
+ * any code. It stops editing after the run, not a student who rewrites the kernel (README).
+ */
+import { cellSourceDigest, CELL_DIGEST_PATTERN } from "../../runtime/protocol/cell-source.js";
+import type { Finding } from "./findings.js";
+import type { FoundRelease, NbCell, Notebook } from "./notebook.js";
+
+/** The cell's source joined as nbformat stores it; a hostile non-text source reads as empty. */
+function sourceOf(cell: NbCell): string {
+  const s: unknown = cell.source;
+  if (typeof s === "string") return s;
+  if (Array.isArray(s) && s.every((x) => typeof x === "string")) return s.join("");
+  return "";
+}
+
+type Where = (rel: { cell: number; executionCount: number | null }) => string;
+
+export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], at: Where): Finding[] {
+  const findings: Finding[] = [];
+  // digest -> first code cell with that source, computed once: the notebook is already in memory
+  // and each cell is hashed once, so the work is linear in its size.
+  let byDigest: Map<string, number> | null = null;
+  const cellWith = (digest: string): number | undefined => {
+    if (byDigest === null) {
+      byDigest = new Map();
+      nb.cells.forEach((c, i) => {
+        if (c.cell_type !== "code") return;
+        const d = cellSourceDigest(sourceOf(c));
+        if (!byDigest!.has(d)) byDigest!.set(d, i);
+      });
+    }
+    return byDigest.get(digest);
+  };
+  for (const rel of releases) {
+    const r: unknown = rel.meta.receipt;
+    // Receipts that are not objects are reported as malformed by the signature check.
+    if (r === null || typeof r !== "object") continue;
+    const { cell, seq } = r as { cell?: unknown; seq?: unknown };
+    const which = typeof seq === "number" ? `receipt seq ${seq}` : "its receipt";
+    if (cell === undefined) {
+      findings.push({
+        cell: rel.cell,
+        kind: "not-bound",
+        message: `${at(rel)}: this release is not bound to a cell: ${which} names no code, so it was asked from outside a hush notebook kernel (for example by a script using the client) and nothing shows it was made by the code above it`,
+      });
+      continue;
+    }
+    if (typeof cell !== "string" || !CELL_DIGEST_PATTERN.test(cell)) {
+      findings.push({ cell: rel.cell, kind: "code-mismatch", message: `${at(rel)}: ${which} names its code with an unreadable digest` });
+      continue;
+    }
+    const here = nb.cells[rel.cell];
+    if (here !== undefined && cellSourceDigest(sourceOf(here)) === cell) continue;
+    const other = cellWith(cell);
+    if (other !== undefined) {
+      const there = { cell: other, executionCount: typeof nb.cells[other].execution_count === "number" ? nb.cells[other].execution_count! : null };
+      findings.push({
+        cell: rel.cell,
+        kind: "code-mismatch",
+        message: `${at(rel)}: this release was made by the code of ${at(there)}, not by the code of this cell: the code was moved, or the release was kept and shown here; show each release in the cell that asks for it (${which})`,
+      });
+      continue;
+    }
+    findings.push({
+      cell: rel.cell,
+      kind: "code-mismatch",
+      message:
+        `${at(rel)}: the code of this cell is not the code that made this release (${which}): it was changed after the release was made (any edit counts, even spacing). ` +
+        "If the cell was run again after the change and asked the same question, the curator returned the first release, which names the first code: restore that code",
+    });
+  }
+  return findings;
+}
