@@ -13,7 +13,7 @@ import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
 import { clone, releaseWithSeq } from "./tamper.js";
 import { badge, box, budgetBar, esc, notesList, table } from "../../kernel/display/html.js";
-import { assembleNotebook, rowsOf, signedChain } from "./signed-notebook.js";
+import { assembleNotebook, releaseCell, rowsOf, signedChain } from "./signed-notebook.js";
 
 describe("notebook audit on a signed, assembled notebook", () => {
   let fx: CorpusFixture;
@@ -65,6 +65,7 @@ describe("notebook audit on a signed, assembled notebook", () => {
         population: "clinic-patients",
         seq: 1,
         digest: "1".padStart(64, "0"),
+        cell: releaseCell(1),
         unit: "rho",
         cost: "1/200",
         total: "1/200",
@@ -151,5 +152,29 @@ describe("notebook audit on a signed, assembled notebook", () => {
     );
     for (const c of nb.cells) for (const o of c.outputs ?? []) if (o.data !== undefined) o.data["text/html"] = html;
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+  });
+
+  it("passes release code saved with CRLF or CR line endings (the digest makes line endings LF)", () => {
+    for (const eol of ["\r\n", "\r"]) {
+      const nb = clone(fx.nb);
+      for (const c of nb.cells) if (Array.isArray(c.source)) c.source = c.source.map((l) => l.replace(/\n/g, eol));
+      expect(JSON.stringify(nb)).toContain(JSON.stringify(eol).slice(1, -1));
+      expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+    }
+  });
+
+  it("reports a release asked outside a notebook kernel as not bound to a cell, and only that", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const [bound] = signedChain(key, { analyst: "kit", dataset: "visits-course", cap: "1" }, [{ cost: "0.1", rows: rowsOf("count", null, [["5995", "5755", "6235"]]) }]);
+    const { cell: _cell, sig: _sig, keyId: _keyId, format: _format, ...fields } = bound;
+    const unbound = signReceipt(fields, key);
+    expect("cell" in unbound).toBe(false);
+    const r = auditNotebook(assembleNotebook([unbound, unbound]), fx.key);
+    // Three outputs show it (assembleNotebook shows each receipt given, then the second again).
+    expect(r.findings.map((f) => f.kind)).toEqual(["not-bound", "not-bound", "not-bound"]);
+    expect(r.findings[0].message).toMatch(/^cell 2 \(In \[2\]\): this release is not bound to a cell: receipt seq 1 names no code, so it was asked from outside a hush notebook kernel/);
+    // A digest that is not one is reported, not trusted or crashed on.
+    const odd = signReceipt({ ...fields, cell: "not a digest" }, key);
+    expect(auditNotebook(assembleNotebook([odd, odd]), fx.key).findings.map((f) => f.kind)).toEqual(["code-mismatch", "code-mismatch", "code-mismatch"]);
   });
 });
