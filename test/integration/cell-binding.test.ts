@@ -91,5 +91,8 @@ describe("cell source digest in asks and receipts", () => {
     expect(parseRequest(env({ op: "ask", plan: countPlan("0.1"), cell })).body).toEqual({ op: "ask", plan: countPlan("0.1"), cell });
     expect(parseRequest(env({ op: "ask", plan: countPlan("0.1") })).body).toEqual({ op: "ask", plan: countPlan("0.1") });
     expect(() => parseRequest(env({ op: "preview", plan: countPlan("0.1"), cell }))).toThrow(ProtocolError);
+    for (const bad of ["abc", "A".repeat(64), "0".repeat(63) + "\n", 7, null, ["0".repeat(64)]]) {
+      expect(() => parseRequest(env({ op: "ask", plan: countPlan("0.1"), cell: bad })), JSON.stringify(bad)).toThrow(/request\.body\.cell/);
+    }
   });
 });
