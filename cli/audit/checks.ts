@@ -128,7 +128,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   }
 
   // ---- each release under the code that asked for it ---------------------------------------
-  findings.push(...sourceBindingFindings(nb, releases, at));
+  findings.push(...sourceBindingFindings(nb, releases, publicKey, at));
 
   // ---- seq order ---------------------------------------------------------------------------
   const chain = [...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq);

@@ -9,16 +9,22 @@
  * - The digest of another cell of the notebook: the code was moved, or the release was kept in a
  *   variable and displayed in a later cell. Both are reported (a reader takes the code above an
  *   output for the code that made it), worded without accusing, naming the cell whose code asked.
- * - No cell's digest: the code was changed after it ran. A replay from changed code (the same
- *   question asked again after, say, a comment was edited) also lands here, because a replay returns
- *   the first receipt unchanged: the wording says so and how to fix it.
+ * - Another digest, but the output carries the curator's signed statement that this cell's code
+ *   asked the same question again (`reasked`, runtime/protocol/reasked.ts): fine. This is the
+ *   honest re-run after an edit that left the question alone (a comment added): the replay returns
+ *   the first receipt, which names the first code, and the statement names this code.
+ * - No cell's digest: the code was changed after it ran. (A replay from an older curator, without
+ *   the statement, lands here too: the wording says so and how to fix it.)
  * - No digest at all: the release was asked outside a hush notebook kernel (a script using the
  *   client directly), so nothing ties it to the code shown.
  *
  * What this cannot see: the digest is computed on the notebook side, so a modified kernel can claim
  * any code. It stops editing after the run, not a student who rewrites the kernel (README).
  */
+import type { KeyObject } from "node:crypto";
 import { cellSourceDigest, CELL_DIGEST_PATTERN } from "../../runtime/protocol/cell-source.js";
+import { OUTPUT_METADATA_KEY, type Receipt } from "../../runtime/protocol/messages.js";
+import { reaskedHolds } from "../../runtime/protocol/reasked.js";
 import type { Finding } from "./findings.js";
 import type { FoundRelease, NbCell, Notebook } from "./notebook.js";
 
@@ -32,7 +38,19 @@ function sourceOf(cell: NbCell): string {
 
 type Where = (rel: { cell: number; executionCount: number | null }) => string;
 
-export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], at: Where): Finding[] {
+/** The curator's statement on this output holds for this receipt and this code; hostile JSON is a statement that does not hold. */
+function reaskedHere(rel: FoundRelease, cell: string, publicKey: KeyObject): boolean {
+  // Read from the output itself: notebook.ts keeps only the receipt fields of the metadata.
+  const meta = rel.out.metadata?.[OUTPUT_METADATA_KEY] as { reasked?: unknown } | undefined;
+  if (meta?.reasked === undefined) return false;
+  try {
+    return reaskedHolds(meta.reasked, rel.meta.receipt as Receipt, cell, publicKey);
+  } catch {
+    return false;
+  }
+}
+
+export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], publicKey: KeyObject, at: Where): Finding[] {
   const findings: Finding[] = [];
   // digest -> first code cell with that source, computed once: the notebook is already in memory
   // and each cell is hashed once, so the work is linear in its size.
@@ -67,7 +85,9 @@ export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], at
       continue;
     }
     const here = nb.cells[rel.cell];
-    if (here !== undefined && cellSourceDigest(sourceOf(here)) === cell) continue;
+    const hereDigest = here === undefined ? null : cellSourceDigest(sourceOf(here));
+    if (hereDigest === cell) continue;
+    if (hereDigest !== null && reaskedHere(rel, hereDigest, publicKey)) continue;
     const other = cellWith(cell);
     if (other !== undefined) {
       const there = { cell: other, executionCount: typeof nb.cells[other].execution_count === "number" ? nb.cells[other].execution_count! : null };
@@ -83,7 +103,7 @@ export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], at
       kind: "code-mismatch",
       message:
         `${at(rel)}: the code of this cell is not the code that made this release (${which}): it was changed after the release was made (any edit counts, even spacing). ` +
-        "If the cell was run again after the change and asked the same question, the curator returned the first release, which names the first code: restore that code",
+        "If the cell was run again after the change and asked the same question, the curator returned the first release, which names the first code, without its statement that this code asked again: restore that code, or run the cell again",
     });
   }
   return findings;

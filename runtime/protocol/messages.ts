@@ -170,6 +170,22 @@ export interface Receipt {
   sig: string;
 }
 
+/**
+ * The curator's signed statement that the code with source digest `cell` asked again for the
+ * release whose receipt hashes to `receipt` (runtime/protocol/reasked.ts). Sent only with a replay
+ * asked from code other than the code its receipt names.
+ */
+export interface Reasked {
+  format: "hush-reasked/1";
+  /** sha256 hex of the canonical JSON of the release's receipt (with its sig). */
+  receipt: string;
+  /** The asking cell's source digest (runtime/protocol/cell-source.ts). */
+  cell: string;
+  keyId: string;
+  /** base64 Ed25519 signature over the canonical JSON of this statement without `sig`. */
+  sig: string;
+}
+
 export interface Release {
   dataset: string;
   digest: string;
@@ -189,6 +205,8 @@ export interface Release {
   /** True when this plan was answered before and the stored release is returned at no new cost. */
   replay: boolean;
   receipt: Receipt;
+  /** On a replay asked from code other than the code `receipt.cell` names: the curator's statement that this code asked again. */
+  reasked?: Reasked;
   /** Cautions worth showing: bounding, clamping, budget split. */
   notes: string[];
 }
@@ -258,6 +276,8 @@ export interface OutputMetadata {
   receipt: Receipt;
   replay: boolean;
   dataset: string;
+  /** Copied from the release: this cell's code asked again for a release first made by other code. */
+  reasked?: Reasked;
 }
 
 export type Response =

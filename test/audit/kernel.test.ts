@@ -19,7 +19,7 @@ import type { Notebook } from "../../cli/audit/notebook.js";
 import { Answer } from "../../runtime/api/answer.js";
 import { answerBundle } from "../../kernel/display/bundle.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
-import { releasesOf } from "./tamper.js";
+import { editReleaseCode, lowerEpsilonInCode, releasesOf } from "./tamper.js";
 
 const NOTEBOOK = resolve(import.meta.dirname, "../../notebooks/course-assignment.ipynb");
 
@@ -64,7 +64,7 @@ describe("notebook audit on the course assignment executed by the kernel", () =>
     expect(auditNotebook(again, fx.key).findings).toEqual([]);
   }, 300_000);
 
-  it("reports the same question asked again from changed code (a comment added): the replay names the first code, and the finding says how to fix it", async () => {
+  it("passes the same question asked again from changed code (a comment added): the replay carries the first receipt and the curator's statement that this code asked", async () => {
     let cell = -1;
     const again = await runAgain((nb) => {
       cell = nb.cells.findIndex((c) => c.cell_type === "code" && [c.source].flat().join("") === "await visits.count({ epsilon: 0.1 })");
@@ -72,9 +72,25 @@ describe("notebook audit on the course assignment executed by the kernel", () =>
       nb.cells[cell].source = "// everyone in the course data\nawait visits.count({ epsilon: 0.1 })";
     });
     expect(receipts(again)).toEqual(receipts(fx.nb));
-    const r = auditNotebook(again, fx.key);
+    const metas = releasesOf(again).map((x) => x.meta);
+    expect(metas.filter((m) => m.reasked !== undefined).map((m) => m.receipt.seq)).toEqual([1]);
+    expect(auditNotebook(again, fx.key).findings).toEqual([]);
+
+    // The statement names that code: editing it again after the run is caught.
+    const edited = editReleaseCode(again, 1, lowerEpsilonInCode);
+    expect(auditNotebook(edited, fx.key).findings.map((f) => [f.kind, f.cell])).toEqual([["code-mismatch", cell]]);
+    // ... and it names that receipt: copied, with its code, onto another release, it does not hold.
+    const moved = JSON.parse(JSON.stringify(again)) as Notebook;
+    const target = releasesOf(moved).find((x) => x.meta.receipt.seq === 2)!;
+    moved.cells[target.cell].source = moved.cells[cell].source;
+    target.output.metadata!.hush = { ...target.meta, reasked: metas.find((m) => m.reasked)!.reasked };
+    expect(auditNotebook(moved, fx.key).findings.map((f) => [f.kind, f.cell])).toEqual([["code-mismatch", target.cell]]);
+    // Without the statement (a curator before this change), the finding says how to fix it.
+    const stripped = JSON.parse(JSON.stringify(again)) as Notebook;
+    for (const x of releasesOf(stripped)) delete (x.output.metadata!.hush as { reasked?: unknown }).reasked;
+    const r = auditNotebook(stripped, fx.key);
     expect(r.findings.map((f) => [f.kind, f.cell])).toEqual([["code-mismatch", cell]]);
-    expect(r.findings[0].message).toMatch(/the curator returned the first release, which names the first code: restore that code/);
+    expect(r.findings[0].message).toMatch(/the curator returned the first release, which names the first code, without its statement that this code asked again: restore that code, or run the cell again/);
   }, 300_000);
 
   it("reports a release asked by a script outside the kernel and pasted into the notebook as not bound to a cell", async () => {

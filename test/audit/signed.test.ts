@@ -4,7 +4,9 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.js";
-import { signReceipt } from "../../runtime/curator/receipts.js";
+import { signReasked, signReceipt } from "../../runtime/curator/receipts.js";
+import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
+import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
 import { GENESIS_PREV } from "../../runtime/protocol/receipts.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
@@ -176,5 +178,38 @@ describe("notebook audit on a signed, assembled notebook", () => {
     // A digest that is not one is reported, not trusted or crashed on.
     const odd = signReceipt({ ...fields, cell: "not a digest" }, key);
     expect(auditNotebook(assembleNotebook([odd, odd]), fx.key).findings.map((f) => f.kind)).toEqual(["code-mismatch", "code-mismatch", "code-mismatch"]);
+  });
+
+  it("accepts a replay under changed code only with the curator's statement for that code and that receipt", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const last = fx.nb.cells.length - 1; // the second question asked again (assembleNotebook)
+    const code = "// the second question again, with a comment\nawait visits.count({ epsilon: 0.2 })";
+    const withStatement = (statement: unknown): Notebook => {
+      const nb = clone(fx.nb);
+      nb.cells[last].source = code;
+      const out = nb.cells[last].outputs![0];
+      if (statement !== undefined) out.metadata![OUTPUT_METADATA_KEY] = { ...(out.metadata![OUTPUT_METADATA_KEY] as object), reasked: statement };
+      return nb;
+    };
+    const receipt2 = releaseWithSeq(fx.nb, 2).meta.receipt;
+    const receipt3 = releaseWithSeq(fx.nb, 3).meta.receipt;
+    const kinds = (nb: Notebook) => auditNotebook(nb, fx.key).findings.map((f) => [f.kind, f.cell]);
+    expect(kinds(withStatement(signReasked(receipt2, cellSourceDigest(code), key)))).toEqual([]);
+    // Missing, for other code, for another receipt, by another key, with its signature edited, or not a statement at all.
+    const otherKey = join(fx.dir, "other.key");
+    generateCuratorKey(otherKey);
+    const good = signReasked(receipt2, cellSourceDigest(code), key);
+    for (const bad of [
+      undefined,
+      signReasked(receipt2, cellSourceDigest(`${code} `), key),
+      signReasked(receipt3, cellSourceDigest(code), key),
+      signReasked(receipt2, cellSourceDigest(code), loadCuratorKey(otherKey)),
+      { ...good, sig: signReasked(receipt3, cellSourceDigest(code), key).sig },
+      { ...good, format: "hush-receipt/1" },
+      "yes",
+      { format: "hush-reasked/1", receipt: 5, cell: [], keyId: null, sig: {} },
+    ]) {
+      expect(kinds(withStatement(bad)), JSON.stringify(bad)).toEqual([["code-mismatch", last]]);
+    }
   });
 });

@@ -2,7 +2,8 @@
  * The asking cell's source digest on the wire (runtime/protocol/cell-source.ts): a real curator
  * process signs it into the receipt, a request without it still works (scripts outside a notebook)
  * and says so by leaving the receipt unbound, a malformed digest is refused before anything is
- * spent, and a replay returns the first receipt (naming the first code) whatever digest it carries.
+ * spent, and a replay returns the first receipt (naming the first code) whatever digest it carries,
+ * with a signed statement when it was asked from other code (runtime/protocol/reasked.ts).
  */
 import { rmSync } from "node:fs";
 import { join } from "node:path";
@@ -10,7 +11,8 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { CuratorClient } from "../../runtime/client/client.js";
 import { ProtocolError } from "../../runtime/errors.js";
 import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
-import { loadPublicKey, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import { loadPublicKey, receiptHash, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import { reaskedHolds } from "../../runtime/protocol/reasked.js";
 import { parseRequest } from "../../runtime/protocol/schema.js";
 import { countPlan, makeWorkspace, RawSpeaker, requireBuild, startCuratorChild, type CuratorChild, type Workspace } from "./helpers.js";
 
@@ -68,6 +70,17 @@ describe("cell source digest in asks and receipts", () => {
       expect(r.receipt).toEqual(a.receipt);
     }
     expect(a.receipt.cell).toBe(first);
+    // Only the ask from other code carries the curator's statement that this code asked again.
+    expect(same.reasked).toBeUndefined();
+    expect(none.reasked).toBeUndefined();
+    const edited = cellSourceDigest("// edited\nawait visits.count({ epsilon: 0.2 })");
+    const key = loadPublicKey(ws.publicKeyB64);
+    expect(other.reasked).toMatchObject({ format: "hush-reasked/1", receipt: receiptHash(a.receipt), cell: edited });
+    expect(reaskedHolds(other.reasked, a.receipt, edited, key)).toBe(true);
+    // It holds for that code and that receipt only, and only as signed.
+    expect(reaskedHolds(other.reasked, a.receipt, first, key)).toBe(false);
+    expect(reaskedHolds(other.reasked, (await client.ask(countPlan("0.01"), first)).receipt, edited, key)).toBe(false);
+    expect(reaskedHolds({ ...other.reasked!, cell: first }, a.receipt, first, key)).toBe(false);
   });
 
   it("refuses a malformed digest as a protocol error, and spends nothing", async () => {
