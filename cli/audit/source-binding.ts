@@ -16,7 +16,8 @@
  * - No cell's digest: the code was changed after it ran. (A replay from an older curator, without
  *   the statement, lands here too: the wording says so and how to fix it.)
  * - No digest at all: the release was asked outside a hush notebook kernel (a script using the
- *   client directly), so nothing ties it to the code shown.
+ *   client directly), so nothing ties it to the code shown, unless the curator's statement says
+ *   this cell's code asked for it again.
  *
  * What this cannot see: the digest is computed on the notebook side, so a modified kernel can claim
  * any code. It stops editing after the run, not a student who rewrites the kernel (README).
@@ -72,6 +73,11 @@ export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], pu
     if (r === null || typeof r !== "object") continue;
     const { cell, seq } = r as { cell?: unknown; seq?: unknown };
     const which = typeof seq === "number" ? `receipt seq ${seq}` : "its receipt";
+    // A release is always shown in a cell (notebook.ts finds them in code cells).
+    const hereDigest = cellSourceDigest(sourceOf(nb.cells[rel.cell]));
+    if (cell === hereDigest) continue;
+    // The curator's statement that this code asked again also covers a release first asked with no code.
+    if (reaskedHere(rel, hereDigest, publicKey)) continue;
     if (cell === undefined) {
       findings.push({
         cell: rel.cell,
@@ -84,10 +90,6 @@ export function sourceBindingFindings(nb: Notebook, releases: FoundRelease[], pu
       findings.push({ cell: rel.cell, kind: "code-mismatch", message: `${at(rel)}: ${which} names its code with an unreadable digest` });
       continue;
     }
-    const here = nb.cells[rel.cell];
-    const hereDigest = here === undefined ? null : cellSourceDigest(sourceOf(here));
-    if (hereDigest === cell) continue;
-    if (hereDigest !== null && reaskedHere(rel, hereDigest, publicKey)) continue;
     const other = cellWith(cell);
     if (other !== undefined) {
       const there = { cell: other, executionCount: typeof nb.cells[other].execution_count === "number" ? nb.cells[other].execution_count! : null };

@@ -276,7 +276,8 @@ export class CuratorService {
   private replayed(analyst: string, d: DatasetPolicy, row: LedgerRow, cell: string | undefined): Release {
     const { reasked: _stored, ...release } = row.release;
     const other = cell !== undefined && cell !== release.receipt.cell;
-    return { ...release, cost: "0", replay: true, spend: this.spendNow(analyst, d), ...(other ? { reasked: signReasked(release.receipt, cell, this.key) } : {}) };
+    const reasked = other ? { reasked: signReasked(release.receipt, cell, this.key) } : {};
+    return { ...release, cost: "0", replay: true, spend: this.spendNow(analyst, d), ...reasked };
   }
 
   /** `cell`: the asking cell's source digest, signed into a new receipt. A replay returns the stored

@@ -175,6 +175,15 @@ describe("notebook audit on a signed, assembled notebook", () => {
     // Three outputs show it (assembleNotebook shows each receipt given, then the second again).
     expect(r.findings.map((f) => f.kind)).toEqual(["not-bound", "not-bound", "not-bound"]);
     expect(r.findings[0].message).toMatch(/^cell 2 \(In \[2\]\): this release is not bound to a cell: receipt seq 1 names no code, so it was asked from outside a hush notebook kernel/);
+    // Asked again from a notebook cell, the curator's statement names that cell's code: then it is bound.
+    const nb = assembleNotebook([unbound, unbound]);
+    for (const c of nb.cells) {
+      for (const o of c.outputs ?? []) {
+        const code = [c.source].flat().join("");
+        o.metadata![OUTPUT_METADATA_KEY] = { ...(o.metadata![OUTPUT_METADATA_KEY] as object), reasked: signReasked(unbound, cellSourceDigest(code), key) };
+      }
+    }
+    expect(auditNotebook(nb, fx.key).findings).toEqual([]);
     // A digest that is not one is reported, not trusted or crashed on.
     const odd = signReceipt({ ...fields, cell: "not a digest" }, key);
     expect(auditNotebook(assembleNotebook([odd, odd]), fx.key).findings.map((f) => f.kind)).toEqual(["code-mismatch", "code-mismatch", "code-mismatch"]);

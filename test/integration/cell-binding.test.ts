@@ -57,6 +57,11 @@ describe("cell source digest in asks and receipts", () => {
     expect(r.replay).toBe(false);
     expect("cell" in r.receipt).toBe(false);
     expect(verifyReceipt(r.receipt, loadPublicKey(ws.publicKeyB64))).toEqual({ ok: true });
+    // Asked again from a notebook cell: the same receipt, with the statement that this code asked.
+    const cell = cellSourceDigest("await visits.count({ epsilon: 0.05 })");
+    const again = await client.ask(countPlan("0.05"), cell);
+    expect(again.receipt).toEqual(r.receipt);
+    expect(reaskedHolds(again.reasked, r.receipt, cell, loadPublicKey(ws.publicKeyB64))).toBe(true);
   });
 
   it("replays the first receipt, naming the first code, when the same plan comes from other code", async () => {
