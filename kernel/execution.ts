@@ -13,6 +13,7 @@ import { createRequire } from "node:module";
 import { format, inspect } from "node:util";
 import type * as TsExecutor from "tslab/dist/executor.js";
 import type * as TsConverter from "tslab/dist/converter.js";
+import { runAsCell } from "../runtime/api/asking-cell.js";
 import { hasTopLevelAwait } from "./top-level-await.js";
 
 const require = createRequire(import.meta.url);
@@ -151,7 +152,8 @@ export function createExecution(opts: ExecutionOptions): Execution {
     async run(code) {
       result = null;
       failures = [];
-      const ok = await executor.execute(code);
+      // Asks made by this code (now or later, from work it started) carry its source digest.
+      const ok = await runAsCell(code, () => executor.execute(code));
       exposeLocals();
       if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures) };
       const r = result as { value: unknown } | null;

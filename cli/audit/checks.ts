@@ -4,7 +4,8 @@
  *
  * In notebook order: every receipt's signature and key, one analyst and population per notebook (a
  * notebook may use several datasets over the same people: their receipts form one chain), the
- * shown numbers equal the signed ones, no release without a receipt. In seq order: each `prev` is
+ * shown numbers equal the signed ones, each release shown under the unchanged code of the cell that
+ * asked for it (source-binding.ts), no release without a receipt. In seq order: each `prev` is
  * the hash of the receipt before, each total is the previous total plus the cost in exact
  * rationals, and the spend stays within the cap.
  *
@@ -24,6 +25,7 @@ import { type Linked, chainCheck, exact, shown, signatureFinding } from "./chain
 import type { Finding } from "./findings.js";
 import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
 import { type Superseded, notShownNotes, spendOrderNote, supersededOf } from "./superseded.js";
+import { sourceBindingFindings } from "./source-binding.js";
 import { checkShown } from "./views.js";
 
 export interface AuditReport {
@@ -143,6 +145,9 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     }
     if (highest === null || r.seq > highest.r.seq) highest = placed;
   }
+
+  // ---- each release under the code that asked for it ---------------------------------------
+  findings.push(...sourceBindingFindings(nb, releases, publicKey, at));
 
   // ---- seq order ---------------------------------------------------------------------------
   const chain = [...bySeq.values()].sort((a, b) => a.r.seq - b.r.seq);

@@ -11,6 +11,8 @@ export type FindingKind =
   | "bundle-value" // a structured bundle disagrees with the signed result
   | "spend-order" // a receipt shown below one with a later seq (a note unless --strict)
   | "superseded" // seqs the notebook does not show, spend vouched by the totals (a note unless --strict)
+  | "code-mismatch" // the cell showing a release does not hold the code that asked for it (source-binding.ts)
+  | "not-bound" // a receipt that names no code: asked from outside a notebook kernel
   | "duplicate-seq" // two different receipts with one seq
   | "chain-start" // a set of receipts (a ledger's) lacks seq 1
   | "gap" // a set of receipts (a ledger's) lacks seqs

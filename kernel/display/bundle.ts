@@ -33,6 +33,8 @@ export async function answerBundle(a: Answer): Promise<MimeBundle> {
   }
   data["text/html"] = answerHtml(a, img);
   const meta: OutputMetadata = { receipt: a.release.receipt, replay: a.release.replay, dataset: a.release.dataset };
+  // A replay asked from other code than its receipt names: the curator's statement travels with it, for the audit.
+  if (a.release.reasked !== undefined) meta.reasked = a.release.reasked;
   return { data, metadata: { [OUTPUT_METADATA_KEY]: meta } };
 }
 

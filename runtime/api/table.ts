@@ -14,6 +14,7 @@ import { Answer } from "./answer.js";
 import { BudgetReport } from "./budget.js";
 import { type ApiContext, withBudgetNote } from "./context.js";
 import { checkAgainstSchema, conditionText, type FilterInput, toCondition } from "./expr.js";
+import { askingCell } from "./asking-cell.js";
 import { type SpendOptions, privacyAsk } from "./privacy.js";
 import { CostQuote } from "./quote.js";
 import { aligned, groupText, planText, spendText } from "./text.js";
@@ -208,8 +209,10 @@ export class SealedTable extends Aggregates<Answer> {
     const s = state(this);
     try {
       const plan = makePlan(s, make(), spend, what);
+      // Read before any await: the cell this ask belongs to (runtime/api/asking-cell.ts).
+      const cell = askingCell();
       const port = await s.ctx.port();
-      const release = await port.ask(plan);
+      const release = await port.ask(plan, cell);
       const { sessionSpent } = s.ctx.spend.record(release, planText(plan));
       return new Answer(release, sessionSpent);
     } catch (e: unknown) {

@@ -253,8 +253,9 @@ export class CuratorClient {
     return (await this.request({ op: "open", dataset })).info;
   }
 
-  async ask(plan: QueryPlan): Promise<Release> {
-    return (await this.request({ op: "ask", plan })).release;
+  /** `cell`: the asking notebook cell's source digest (runtime/protocol/cell-source.ts), if any. */
+  async ask(plan: QueryPlan, cell?: string): Promise<Release> {
+    return (await this.request(cell === undefined ? { op: "ask", plan } : { op: "ask", plan, cell })).release;
   }
 
   async preview(plan: QueryPlan): Promise<Preview> {

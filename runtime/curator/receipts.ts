@@ -3,8 +3,9 @@
  * notebook audit's verification can never drift apart.
  */
 import { sign } from "node:crypto";
-import type { MechanismRecord, Receipt, ReleaseRow } from "../protocol/messages.js";
-import { receiptSigningBytes } from "../protocol/receipts.js";
+import type { MechanismRecord, Reasked, Receipt, ReleaseRow } from "../protocol/messages.js";
+import { reaskedSigningBytes } from "../protocol/reasked.js";
+import { receiptHash, receiptSigningBytes } from "../protocol/receipts.js";
 import type { CuratorKey } from "./keys.js";
 
 export type UnsignedReceipt = Omit<Receipt, "sig" | "keyId" | "format">;
@@ -18,6 +19,12 @@ export function signReceipt(fields: UnsignedReceipt, key: CuratorKey): Receipt {
   const body: Receipt = { format: "hush-receipt/1", ...fields, keyId: key.keyId, sig: "" };
   const sig = sign(null, receiptSigningBytes(body), key.privateKey).toString("base64");
   return { ...body, sig };
+}
+
+/** The statement that code with digest `cell` asked again for the release of `receipt` (protocol/reasked.ts). */
+export function signReasked(receipt: Receipt, cell: string, key: CuratorKey): Reasked {
+  const body: Reasked = { format: "hush-reasked/1", receipt: receiptHash(receipt), cell, keyId: key.keyId, sig: "" };
+  return { ...body, sig: sign(null, reaskedSigningBytes(body), key.privateKey).toString("base64") };
 }
 
 /** Mechanism records are copied so that later mutation of a release cannot change what was signed. */

@@ -31,7 +31,7 @@ import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
 import { KeyedLock } from "./keyed-lock.js";
-import { copyMechanisms, receiptResult, signReceipt } from "./receipts.js";
+import { copyMechanisms, receiptResult, signReasked, signReceipt } from "./receipts.js";
 import { encodeResponse, readRequestFrame } from "./request-frame.js";
 import { SignIn } from "./sign-in.js";
 import { capOf, overCapError, spendSummary } from "./spend-summary.js";
@@ -199,7 +199,7 @@ export class CuratorService {
       case "preview":
         return { op: "preview", preview: await this.preview(analyst, body.plan) };
       case "ask":
-        return { op: "ask", release: await this.ask(analyst, body.plan) };
+        return { op: "ask", release: await this.ask(analyst, body.plan, body.cell) };
     }
   }
 
@@ -271,21 +271,29 @@ export class CuratorService {
     };
   }
 
-  private replayed(analyst: string, d: DatasetPolicy, row: LedgerRow): Release {
-    return { ...row.release, cost: "0", replay: true, spend: this.spendNow(analyst, d) };
+  /** A stored release again, free. Asked from other code than its receipt names, it carries the
+   * curator's signed statement that this code asked again (protocol/reasked.ts). */
+  private replayed(analyst: string, d: DatasetPolicy, row: LedgerRow, cell: string | undefined): Release {
+    const { reasked: _stored, ...release } = row.release;
+    const other = cell !== undefined && cell !== release.receipt.cell;
+    const reasked = other ? { reasked: signReasked(release.receipt, cell, this.key) } : {};
+    return { ...release, cost: "0", replay: true, spend: this.spendNow(analyst, d), ...reasked };
   }
 
-  private async ask(analyst: string, plan: QueryPlan): Promise<Release> {
+  /** `cell`: the asking cell's source digest, signed into a new receipt. A replay returns the stored
+   * receipt unchanged (the chain cannot be rewritten), so it names the code of the first ask; from
+   * other code, the replay adds a signed statement that this code asked again. */
+  private async ask(analyst: string, plan: QueryPlan, cell: string | undefined): Promise<Release> {
     const d = this.dataset(analyst, plan.dataset);
     const prepared = await this.answerer.prepare(analyst, plan);
     const earlier = this.ledger.find(analyst, d.population, prepared.digest);
-    if (earlier !== null) return this.replayed(analyst, d, earlier);
+    if (earlier !== null) return this.replayed(analyst, d, earlier, cell);
     const cap = capOf(d);
     // One lock per account: asks on two datasets of one population queue behind each other.
     return this.lock.run(`${analyst}\u0000${d.population}`, async () => {
       // While this request waited, another one may have released the same plan or spent budget.
       const again = this.ledger.find(analyst, d.population, prepared.digest);
-      if (again !== null) return this.replayed(analyst, d, again);
+      if (again !== null) return this.replayed(analyst, d, again, cell);
       const before = this.ledger.spent(analyst, d.population);
       if (before.spent.add(prepared.cost).gt(cap)) throw overCapError(analyst, d, prepared.cost, before.spent, before.releases);
       // The rule (DEVELOPERS.md, "Answering"): a release is never delivered without a debit, and
@@ -310,6 +318,7 @@ export class CuratorService {
               population: d.population,
               seq: ctx.seq,
               digest: prepared.digest,
+              ...(cell !== undefined ? { cell } : {}),
               unit: prepared.unit,
               cost: prepared.cost.toString(),
               total: ctx.total.toString(),
@@ -345,7 +354,7 @@ export class CuratorService {
         case "new":
           return outcome.row.release;
         case "replay":
-          return this.replayed(analyst, d, outcome.row);
+          return this.replayed(analyst, d, outcome.row, cell);
         case "over-cap":
           // Another curator process on the same ledger spent in the meantime; the noisy answer is dropped unseen.
           throw overCapError(analyst, d, prepared.cost, outcome.spent, outcome.releases);

@@ -145,6 +145,11 @@ export interface Receipt {
   seq: number;
   /** sha256 hex of the canonical JSON of the plan. */
   digest: string;
+  /** sha256 hex of the source of the notebook cell that first asked for this release
+   * (runtime/protocol/cell-source.ts), as the notebook side sent it; absent when the ask came from
+   * outside a notebook kernel (a script using the client). A replay returns the stored receipt, so
+   * this names the code of the first ask. */
+  cell?: string;
   unit: "epsilon" | "rho";
   /** Exact rationals in `unit`. */
   cost: string;
@@ -162,6 +167,22 @@ export interface Receipt {
   /** First 16 hex chars of sha256 of the curator public key (SPKI DER). */
   keyId: string;
   /** base64 Ed25519 signature over the canonical JSON of this receipt without `sig`. */
+  sig: string;
+}
+
+/**
+ * The curator's signed statement that the code with source digest `cell` asked again for the
+ * release whose receipt hashes to `receipt` (runtime/protocol/reasked.ts). Sent only with a replay
+ * asked from code other than the code its receipt names.
+ */
+export interface Reasked {
+  format: "hush-reasked/1";
+  /** sha256 hex of the canonical JSON of the release's receipt (with its sig). */
+  receipt: string;
+  /** The asking cell's source digest (runtime/protocol/cell-source.ts). */
+  cell: string;
+  keyId: string;
+  /** base64 Ed25519 signature over the canonical JSON of this statement without `sig`. */
   sig: string;
 }
 
@@ -184,6 +205,8 @@ export interface Release {
   /** True when this plan was answered before and the stored release is returned at no new cost. */
   replay: boolean;
   receipt: Receipt;
+  /** On a replay asked from code other than the code `receipt.cell` names: the curator's statement that this code asked again. */
+  reasked?: Reasked;
   /** Cautions worth showing: bounding, clamping, budget split. */
   notes: string[];
 }
@@ -225,7 +248,8 @@ export interface LedgerEntry {
 export type RequestBody =
   | { op: "catalogue" }
   | { op: "open"; dataset: string }
-  | { op: "ask"; plan: QueryPlan }
+  /** `cell`: the asking cell's source digest (runtime/protocol/cell-source.ts), signed into the receipt. */
+  | { op: "ask"; plan: QueryPlan; cell?: string }
   | { op: "preview"; plan: QueryPlan }
   | { op: "spend"; dataset: string }
   | { op: "ledger"; dataset?: string };
@@ -252,6 +276,8 @@ export interface OutputMetadata {
   receipt: Receipt;
   replay: boolean;
   dataset: string;
+  /** Copied from the release: this cell's code asked again for a release first made by other code. */
+  reasked?: Reasked;
 }
 
 export type Response =

@@ -22,6 +22,7 @@ import {
   type MechanismRecord,
   type Preview,
   type QueryPlan,
+  type Reasked,
   type Receipt,
   type Release,
   type ReleaseRow,
@@ -131,6 +132,7 @@ const receipt = z.strictObject({
   population: z.string(),
   seq: position,
   digest: hex64,
+  cell: hex64.optional(),
   unit: accountingUnit,
   cost: exact,
   total: exact,
@@ -142,6 +144,14 @@ const receipt = z.strictObject({
   mechanisms: z.array(mechanismRecord),
   issuedAt: timestamp,
   prev: hex64,
+  keyId: z.string().regex(/^[0-9a-f]{16}$/, { message: "must be 16 lowercase hex digits" }),
+  sig: base64,
+});
+
+const reasked = z.strictObject({
+  format: z.literal("hush-reasked/1"),
+  receipt: hex64,
+  cell: hex64,
   keyId: z.string().regex(/^[0-9a-f]{16}$/, { message: "must be 16 lowercase hex digits" }),
   sig: base64,
 });
@@ -160,6 +170,7 @@ const release = z.strictObject({
   spend: spendSummary,
   replay: z.boolean(),
   receipt,
+  reasked: reasked.optional(),
   notes: z.array(z.string()),
 });
 
@@ -253,6 +264,7 @@ export type ReplySchemaMatchesTypes = [
   Holds<Same<z.output<typeof releaseRow>, ReleaseRow>>,
   Holds<Same<z.output<typeof mechanismRecord>, MechanismRecord>>,
   Holds<Same<z.output<typeof receipt>, Receipt>>,
+  Holds<Same<z.output<typeof reasked>, Reasked>>,
   Holds<Same<z.output<typeof release>, Release>>,
   Holds<Same<z.output<typeof preview>, Preview>>,
   Holds<Same<z.output<typeof ledgerEntry>, LedgerEntry>>,

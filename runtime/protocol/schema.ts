@@ -8,6 +8,7 @@
 import { z } from "zod";
 import { BadInputError, ProtocolError } from "../errors.js";
 import { PLAN_LIMITS, PRIVACY_LIMITS } from "./limits.js";
+import { CELL_DIGEST_PATTERN } from "./cell-source.js";
 import { PROTOCOL_VERSION, type QueryPlan, type Request } from "./messages.js";
 
 /** Exact privacy parameter as sent: a decimal ("0.1", "1e-6") or a fraction ("1/3"). */
@@ -146,7 +147,13 @@ const body = z.discriminatedUnion(
   [
     z.strictObject({ op: z.literal("catalogue") }),
     z.strictObject({ op: z.literal("open"), dataset: name }),
-    z.strictObject({ op: z.literal(["ask", "preview"]), plan: z.unknown() }),
+    z.strictObject({
+      op: z.literal("ask"),
+      plan: z.unknown(),
+      // The asking cell's source digest (cell-source.ts); optional: scripts outside a notebook have no cell.
+      cell: z.string({ error: "must be a string" }).regex(CELL_DIGEST_PATTERN, { message: "must be 64 lowercase hex digits (sha256 of the cell's source)" }).optional(),
+    }),
+    z.strictObject({ op: z.literal("preview"), plan: z.unknown() }),
     z.strictObject({ op: z.literal("spend"), dataset: name }),
     z.strictObject({ op: z.literal("ledger"), dataset: name.optional() }),
   ],
@@ -227,9 +234,14 @@ export function parseRequest(raw: unknown): Request {
   const r = requestSchema.safeParse(raw);
   if (!r.success) throw new ProtocolError(`invalid request: ${describeIssues("request", r.error)}`);
   const req = r.data;
-  if (req.body.op === "ask" || req.body.op === "preview") {
+  if (req.body.op === "ask") {
     const plan = parsePlanAt(req.body.plan, "request.body.plan");
-    return { ...req, body: { op: req.body.op, plan } } as Request;
+    const cell = req.body.cell;
+    return { ...req, body: { op: "ask", plan, ...(cell !== undefined ? { cell } : {}) } } as Request;
+  }
+  if (req.body.op === "preview") {
+    const plan = parsePlanAt(req.body.plan, "request.body.plan");
+    return { ...req, body: { op: "preview", plan } } as Request;
   }
   return req as Request;
 }

@@ -16,6 +16,8 @@ import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
 import { HushSession, type MimeBundle } from "../../kernel/hush-session.js";
 import { type EmbeddedCurator, startEmbeddedCurator } from "../../runtime/client/embedded.js";
 import { Answer } from "../../runtime/api/answer.js";
+import { runAsCell } from "../../runtime/api/asking-cell.js";
+import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
 import type { SealedTable } from "../../runtime/api/table.js";
 import { BadInputError, OverCapError, UnknownDatasetError } from "../../runtime/errors.js";
 import { formatDecimal } from "../../runtime/protocol/format.js";
@@ -43,10 +45,13 @@ afterAll(async () => {
   if (ws) rmSync(ws.dir, { recursive: true, force: true });
 });
 
+/** The code of the cell each release is asked from: the sixth asks the first question again, from the first cell's code. */
+const SOURCES = ["// cell 1", "// cell 2", "// cell 3", "// cell 4", "// cell 5", "// cell 1"];
+
 function notebookOf(bundles: MimeBundle[]): Notebook {
   const cells: NbCell[] = bundles.map((b, i) => ({
     cell_type: "code",
-    source: `// cell ${i + 1}`,
+    source: SOURCES[i],
     execution_count: i + 1,
     metadata: {},
     outputs: [{ output_type: "display_data", data: b.data, metadata: b.metadata }],
@@ -67,14 +72,17 @@ describe("cell API on a real curator", () => {
   });
 
   test("releases render with receipts, and the notebook they make passes the audit", async () => {
-    const answers: Answer[] = [
-      await clinic.count({ epsilon: 0.1 }),
-      await clinic.where(session.api.col("age").ge(40)).by("district").mean("wait_minutes", { epsilon: "0.2" }),
-      await clinic.histogram("age", { bins: 5, epsilon: 0.1 }),
-      await clinic.crosstab("district", "insured", { epsilon: 0.1 }),
-      await clinic.by("district").count({ within: 30 }),
-      await clinic.count({ epsilon: 0.1 }), // the first question again: a replay
+    // Each ask runs as the kernel runs a cell (kernel/execution.ts), so its receipt names that cell's code.
+    const asks = [
+      () => clinic.count({ epsilon: 0.1 }),
+      () => clinic.where(session.api.col("age").ge(40)).by("district").mean("wait_minutes", { epsilon: "0.2" }),
+      () => clinic.histogram("age", { bins: 5, epsilon: 0.1 }),
+      () => clinic.crosstab("district", "insured", { epsilon: 0.1 }),
+      () => clinic.by("district").count({ within: 30 }),
+      () => clinic.count({ epsilon: 0.1 }), // the first question again: a replay
     ];
+    const answers: Answer[] = [];
+    for (const [i, ask] of asks.entries()) answers.push(await runAsCell(SOURCES[i], ask));
     expect(answers.map((a) => a.replay)).toEqual([false, false, false, false, false, true]);
     expect(answers[1].rows.map((r) => r.key.district)).toEqual(DISTRICTS);
     for (const a of answers) releases.push((await session.render(a))!);
@@ -91,6 +99,7 @@ describe("cell API on a real curator", () => {
     expect(report.ok).toBe(true);
     expect(report.receipts).toBe(5);
     expect(report.replays).toBe(1);
+    expect(answers.map((a) => a.release.receipt.cell)).toEqual(SOURCES.map((src) => cellSourceDigest(src)));
   });
 
   test("the audit notices when a displayed number is edited (so the check above could fail)", () => {

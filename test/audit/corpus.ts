@@ -42,6 +42,12 @@ import {
   replaceKey,
   substituteReceipt,
   swapReleaseCells,
+  editReleaseCode,
+  lowerEpsilonInCode,
+  addFilterToCode,
+  widenSpacingInCode,
+  swapReleaseCode,
+  moveCodeAbove,
 } from "./tamper.js";
 
 export interface CorpusFixture {
@@ -144,6 +150,59 @@ export function auditCorpus(get: () => CorpusFixture): void {
     const cell = releaseWithSeq(get().nb, 2).cell;
     const r = audit(stripReceipt(get().nb, 2));
     expectFinding(r, "no-receipt", cell);
+  });
+
+  // ---- the code above a release (receipts sign the asking cell's source digest) ----------------
+  const codeFinding = (bad: Notebook, seq: number): string => {
+    const r = audit(bad);
+    const cell = releaseWithSeq(bad, seq).cell;
+    expectFinding(r, "code-mismatch", cell);
+    return r.findings.find((f) => f.kind === "code-mismatch" && f.cell === cell)!.message;
+  };
+
+  it("catches a release cell whose epsilon was edited in the code after it ran (epsilon: 0.1 -> 0.01)", () => {
+    const bad = editReleaseCode(get().nb, 1, lowerEpsilonInCode);
+    const message = codeFinding(bad, 1);
+    expect(message).toMatch(/^cell \d+ \(In \[\d+\]\): the code of this cell is not the code that made this release \(receipt seq 1\): it was changed after/);
+    // Only the code was touched: the receipts, figures and chain are all still fine.
+    expect(kinds(audit(bad))).toEqual(["code-mismatch"]);
+  });
+
+  it("catches a filter added to the code of a release cell", () => {
+    const bad = editReleaseCode(get().nb, 2, addFilterToCode);
+    codeFinding(bad, 2);
+  });
+
+  it("reports a spacing-only edit of a release cell's code (spacing can change a string the query uses)", () => {
+    const bad = editReleaseCode(get().nb, 3, widenSpacingInCode);
+    expect(codeFinding(bad, 3)).toContain("even spacing");
+  });
+
+  it("catches the code of two release cells exchanged, naming the cell whose code made each release", () => {
+    const { nb } = get();
+    const bad = swapReleaseCode(nb, 1, 3);
+    const c1 = releaseWithSeq(bad, 1).cell;
+    const c3 = releaseWithSeq(bad, 3).cell;
+    expect(codeFinding(bad, 1)).toMatch(new RegExp(`made by the code of cell ${c3}\\b`));
+    expect(codeFinding(bad, 3)).toMatch(new RegExp(`made by the code of cell ${c1}\\b`));
+  });
+
+  it("catches the true code moved to a cell above and the release cell's code edited", () => {
+    const bad = moveCodeAbove(get().nb, 2);
+    const moved = releaseWithSeq(bad, 2).cell - 1;
+    expect(codeFinding(bad, 2)).toMatch(new RegExp(`made by the code of cell ${moved}\\b.*show each release in the cell that asks for it`));
+  });
+
+  it("passes a release cell rerun unchanged, its release shown again (the repeat carries the first receipt and the same code)", () => {
+    const { nb } = get();
+    const out = JSON.parse(JSON.stringify(nb)) as Notebook;
+    const rel = releaseWithSeq(out, 1);
+    const copy = JSON.parse(JSON.stringify(out.cells[rel.cell])) as Notebook["cells"][number];
+    copy.execution_count = 99;
+    out.cells.push(copy);
+    const r = audit(out);
+    expect(r.findings).toEqual([]);
+    expect(r.replays).toBeGreaterThanOrEqual(1);
   });
 
   it("notes cells shown out of spend order (a finding only under --strict)", () => {

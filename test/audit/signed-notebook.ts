@@ -11,6 +11,12 @@ import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import { OUTPUT_METADATA_KEY, type Receipt } from "../../runtime/protocol/messages.js";
 import { GENESIS_PREV, receiptHash } from "../../runtime/protocol/receipts.js";
+import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
+
+/** The code of the cell that asks for release `seq` in an assembled notebook (its receipt signs its digest). */
+export const releaseSource = (seq: number): string[] => [`// release ${seq}\n`, `await visits.count({ epsilon: 0.${seq} })`];
+/** The `cell` field a receipt made by `releaseSource(seq)` carries. */
+export const releaseCell = (seq: number): string => cellSourceDigest(releaseSource(seq).join(""));
 
 type Row = Receipt["result"][number];
 
@@ -34,6 +40,7 @@ export function signedChain(
         population: who.population ?? "clinic-patients",
         seq: i + 1,
         digest: String(i + 1).padStart(64, "0"),
+        cell: releaseCell(i + 1),
         unit: "epsilon",
         cost: p.cost,
         total: total.toString(),
@@ -85,18 +92,21 @@ export function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["o
   };
 }
 
-/** Markdown, a plain code cell, one cell per receipt, and a repeat of the second release at the end. */
+/**
+ * Markdown, a plain code cell, one cell per receipt (its code `releaseSource(seq)`), and the second
+ * question asked again from the same code at the end (answered from the ledger).
+ */
 export function assembleNotebook(receipts: Receipt[]): Notebook {
   const cells: NbCell[] = [
     { cell_type: "markdown", source: "# Course assignment\n", metadata: {} },
     { cell_type: "code", source: 'const v = await hush.open("visits-course")', execution_count: 1, outputs: [], metadata: {} },
   ];
   receipts.forEach((r, i) => {
-    cells.push({ cell_type: "code", source: `// release ${r.seq}`, execution_count: i + 2, outputs: [releaseOutput(r)], metadata: {} });
+    cells.push({ cell_type: "code", source: releaseSource(r.seq), execution_count: i + 2, outputs: [releaseOutput(r)], metadata: {} });
   });
   cells.push({
     cell_type: "code",
-    source: "// the second question again: answered from the ledger at no cost",
+    source: releaseSource(receipts[1].seq),
     execution_count: receipts.length + 2,
     outputs: [releaseOutput(receipts[1], true)],
     metadata: {},

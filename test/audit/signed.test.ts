@@ -4,7 +4,9 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { generateCuratorKey, loadCuratorKey } from "../../runtime/curator/keys.js";
-import { signReceipt } from "../../runtime/curator/receipts.js";
+import { signReasked, signReceipt } from "../../runtime/curator/receipts.js";
+import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
+import type { Notebook } from "../../cli/audit/notebook.js";
 import { Rational } from "../../runtime/core/index.js";
 import { GENESIS_PREV } from "../../runtime/protocol/receipts.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
@@ -13,7 +15,7 @@ import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
 import { clone, releaseWithSeq } from "./tamper.js";
 import { badge, box, budgetBar, esc, notesList, table } from "../../kernel/display/html.js";
-import { assembleNotebook, rowsOf, signedChain } from "./signed-notebook.js";
+import { assembleNotebook, releaseCell, rowsOf, signedChain } from "./signed-notebook.js";
 
 describe("notebook audit on a signed, assembled notebook", () => {
   let fx: CorpusFixture;
@@ -65,6 +67,7 @@ describe("notebook audit on a signed, assembled notebook", () => {
         population: "clinic-patients",
         seq: 1,
         digest: "1".padStart(64, "0"),
+        cell: releaseCell(1),
         unit: "rho",
         cost: "1/200",
         total: "1/200",
@@ -155,5 +158,71 @@ describe("notebook audit on a signed, assembled notebook", () => {
     );
     for (const c of nb.cells) for (const o of c.outputs ?? []) if (o.data !== undefined) o.data["text/html"] = html;
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+  });
+
+  it("passes release code saved with CRLF or CR line endings (the digest makes line endings LF)", () => {
+    for (const eol of ["\r\n", "\r"]) {
+      const nb = clone(fx.nb);
+      for (const c of nb.cells) if (Array.isArray(c.source)) c.source = c.source.map((l) => l.replace(/\n/g, eol));
+      expect(JSON.stringify(nb)).toContain(JSON.stringify(eol).slice(1, -1));
+      expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+    }
+  });
+
+  it("reports a release asked outside a notebook kernel as not bound to a cell, and only that", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const [bound] = signedChain(key, { analyst: "kit", dataset: "visits-course", cap: "1" }, [{ cost: "0.1", rows: rowsOf("count", null, [["5995", "5755", "6235"]]) }]);
+    const { cell: _cell, sig: _sig, keyId: _keyId, format: _format, ...fields } = bound;
+    const unbound = signReceipt(fields, key);
+    expect("cell" in unbound).toBe(false);
+    const r = auditNotebook(assembleNotebook([unbound, unbound]), fx.key);
+    // Three outputs show it (assembleNotebook shows each receipt given, then the second again).
+    expect(r.findings.map((f) => f.kind)).toEqual(["not-bound", "not-bound", "not-bound"]);
+    expect(r.findings[0].message).toMatch(/^cell 2 \(In \[2\]\): this release is not bound to a cell: receipt seq 1 names no code, so it was asked from outside a hush notebook kernel/);
+    // Asked again from a notebook cell, the curator's statement names that cell's code: then it is bound.
+    const nb = assembleNotebook([unbound, unbound]);
+    for (const c of nb.cells) {
+      for (const o of c.outputs ?? []) {
+        const code = [c.source].flat().join("");
+        o.metadata![OUTPUT_METADATA_KEY] = { ...(o.metadata![OUTPUT_METADATA_KEY] as object), reasked: signReasked(unbound, cellSourceDigest(code), key) };
+      }
+    }
+    expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+    // A digest that is not one is reported, not trusted or crashed on.
+    const odd = signReceipt({ ...fields, cell: "not a digest" }, key);
+    expect(auditNotebook(assembleNotebook([odd, odd]), fx.key).findings.map((f) => f.kind)).toEqual(["code-mismatch", "code-mismatch", "code-mismatch"]);
+  });
+
+  it("accepts a replay under changed code only with the curator's statement for that code and that receipt", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    const last = fx.nb.cells.length - 1; // the second question asked again (assembleNotebook)
+    const code = "// the second question again, with a comment\nawait visits.count({ epsilon: 0.2 })";
+    const withStatement = (statement: unknown): Notebook => {
+      const nb = clone(fx.nb);
+      nb.cells[last].source = code;
+      const out = nb.cells[last].outputs![0];
+      if (statement !== undefined) out.metadata![OUTPUT_METADATA_KEY] = { ...(out.metadata![OUTPUT_METADATA_KEY] as object), reasked: statement };
+      return nb;
+    };
+    const receipt2 = releaseWithSeq(fx.nb, 2).meta.receipt;
+    const receipt3 = releaseWithSeq(fx.nb, 3).meta.receipt;
+    const kinds = (nb: Notebook) => auditNotebook(nb, fx.key).findings.map((f) => [f.kind, f.cell]);
+    expect(kinds(withStatement(signReasked(receipt2, cellSourceDigest(code), key)))).toEqual([]);
+    // Missing, for other code, for another receipt, by another key, with its signature edited, or not a statement at all.
+    const otherKey = join(fx.dir, "other.key");
+    generateCuratorKey(otherKey);
+    const good = signReasked(receipt2, cellSourceDigest(code), key);
+    for (const bad of [
+      undefined,
+      signReasked(receipt2, cellSourceDigest(`${code} `), key),
+      signReasked(receipt3, cellSourceDigest(code), key),
+      signReasked(receipt2, cellSourceDigest(code), loadCuratorKey(otherKey)),
+      { ...good, sig: signReasked(receipt3, cellSourceDigest(code), key).sig },
+      { ...good, format: "hush-receipt/1" },
+      "yes",
+      { format: "hush-reasked/1", receipt: 5, cell: [], keyId: null, sig: {} },
+    ]) {
+      expect(kinds(withStatement(bad)), JSON.stringify(bad)).toEqual([["code-mismatch", last]]);
+    }
   });
 });

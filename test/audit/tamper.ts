@@ -392,3 +392,62 @@ export function respellStatedCost(nb: Notebook, seq: number, f: (unit: string, a
 
 /** A tenth of a stated amount, as a person would edit it ("0.1" to "0.01", "0.333333" to "0.0333333"). */
 export const tenth = (a: string): string => Rational.parse(a).div(Rational.of(10)).toDecimal(12);
+
+// ---- the code above a release ------------------------------------------------------------------
+
+const codeOf = (nb: Notebook, cell: number): string => {
+  const s = nb.cells[cell].source;
+  return Array.isArray(s) ? s.join("") : s;
+};
+
+/** The code of the cell showing release `seq` rewritten by `edit`; its output and receipt are left alone. */
+export function editReleaseCode(nb: Notebook, seq: number, edit: (code: string) => string): Notebook {
+  const out = clone(nb);
+  const { cell } = releaseWithSeq(out, seq);
+  const before = codeOf(out, cell);
+  const after = edit(before);
+  if (after === before) throw new Error(`the edit does not change the code of release seq ${seq}: ${JSON.stringify(before)}`);
+  out.cells[cell].source = after;
+  return out;
+}
+
+/** `epsilon: 0.1` becomes `epsilon: 0.01` (or 0.02 when it was 0.01): what a reader takes for the spend. */
+export function lowerEpsilonInCode(code: string): string {
+  const m = /epsilon:\s*([0-9.]+)/.exec(code);
+  if (m === null) throw new Error(`no epsilon in ${JSON.stringify(code)}`);
+  return code.replace(m[0], `epsilon: ${m[1] === "0.01" ? "0.02" : "0.01"}`);
+}
+
+/** A filter added to the query, so the figure seems to be about fewer people. */
+export function addFilterToCode(code: string): string {
+  if (!/await \w+\./.test(code)) throw new Error(`no query in ${JSON.stringify(code)}`);
+  return code.replace(/await (\w+)\./, "await $1.where({ age: { ge: 65 } }).");
+}
+
+/** One space more after `epsilon:`: changes nothing a reader sees, and is still an edit. */
+export function widenSpacingInCode(code: string): string {
+  if (!code.includes("epsilon: ")) throw new Error(`no "epsilon: " in ${JSON.stringify(code)}`);
+  return code.replace("epsilon: ", "epsilon:  ");
+}
+
+/** The code of the cells showing releases `a` and `b` exchanged; outputs stay where they were. */
+export function swapReleaseCode(nb: Notebook, a: number, b: number): Notebook {
+  const out = clone(nb);
+  const ca = releaseWithSeq(out, a).cell;
+  const cb = releaseWithSeq(out, b).cell;
+  const code = out.cells[ca].source;
+  out.cells[ca].source = out.cells[cb].source;
+  out.cells[cb].source = code;
+  return out;
+}
+
+/**
+ * The code that made release `seq` copied into a new cell just above (no output), and the release
+ * cell's own code edited: the true code is in the notebook, but not above the figure it made.
+ */
+export function moveCodeAbove(nb: Notebook, seq: number): Notebook {
+  const out = editReleaseCode(nb, seq, lowerEpsilonInCode);
+  const { cell } = releaseWithSeq(out, seq);
+  out.cells.splice(cell, 0, { cell_type: "code", source: codeOf(nb, releaseWithSeq(nb, seq).cell), execution_count: null, outputs: [], metadata: {} });
+  return out;
+}
