@@ -39,6 +39,12 @@ const ENDLESS: QuantileRecipe = {
   step: Rational.ONE,
   parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.parse("2e-6") }],
 };
+/**
+ * Sixty such draws in one job. One draw's time is random (an early acceptance ends it after its
+ * padding, 70-90 ms on an idle machine here); each draw makes at least its padded trials, so sixty take seconds
+ * whatever the luck.
+ */
+const ENDLESS_MANY: QuantileRecipe = { ...ENDLESS, parts: Array.from({ length: 60 }, (_, i) => ({ ...ENDLESS.parts[0], stat: `p50 #${i + 1}` })) };
 const ENDLESS_DATA: [bigint, bigint][] = Array.from({ length: 2001 }, (_, j) => [BigInt(j + 1), 10_000_000n]);
 
 describe("curator worker pool", () => {
@@ -63,7 +69,7 @@ describe("curator worker pool", () => {
     const pool = new WorkerPool(1);
     pools.push(pool);
     const t0 = performance.now();
-    const refused = await pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 300, 300).then(
+    const refused = await pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 300, 300).then(
       () => null,
       (e: unknown) => e,
     );
@@ -79,7 +85,7 @@ describe("curator worker pool", () => {
   it("refuses queued jobs whose deadline passes while they wait", async () => {
     const pool = new WorkerPool(1);
     pools.push(pool);
-    const first = pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 2000, 2000).catch((e: unknown) => e);
+    const first = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 2000, 2000).catch((e: unknown) => e);
     const queued = await pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 200, 200).catch((e: unknown) => e);
     expect(queued).toBeInstanceOf(TimeLimitError);
     expect(await first).toBeInstanceOf(TimeLimitError);
@@ -87,7 +93,7 @@ describe("curator worker pool", () => {
 
   it("refuses everything once closed", async () => {
     const pool = new WorkerPool(1);
-    const running = pool.run("quantile", ENDLESS, ENDLESS_DATA, performance.now() + 60_000, 60_000).catch((e: unknown) => e);
+    const running = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 60_000, 60_000).catch((e: unknown) => e);
     await pool.close();
     expect(await running).toBeInstanceOf(UnreachableError);
     await expect(pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 1000, 1000)).rejects.toBeInstanceOf(UnreachableError);

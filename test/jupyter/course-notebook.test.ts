@@ -23,6 +23,8 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { KernelManager, KernelSpecManager, ServerConnection, SessionManager, type KernelMessage } from "@jupyterlab/services";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
+import { auditNotebook } from "../../cli/audit/checks.js";
+import type { NbCell, Notebook } from "../../cli/audit/notebook.js";
 import { loadPublicKey, verifyReceipt } from "../../runtime/protocol/receipts.js";
 import { findPython, run, startJupyterServer, type RunningServer } from "./tools.js";
 
@@ -36,6 +38,21 @@ const SERVERS = [
   { what: "jupyter server", python, classic: false },
   { what: "the classic notebook server", python: classicPython, classic: true },
 ];
+
+/** One iopub output message as nbformat 4 stores it in a saved notebook. */
+function savedOutput(m: KernelMessage.IIOPubMessage, count: number | null): NonNullable<NbCell["outputs"]>[number] {
+  const c = m.content as Record<string, unknown>;
+  switch (m.header.msg_type) {
+    case "execute_result":
+      return { output_type: "execute_result", data: c.data, metadata: c.metadata ?? {}, execution_count: count } as NonNullable<NbCell["outputs"]>[number];
+    case "display_data":
+      return { output_type: "display_data", data: c.data, metadata: c.metadata ?? {} } as NonNullable<NbCell["outputs"]>[number];
+    case "stream":
+      return { output_type: "stream", name: c.name, text: c.text } as NonNullable<NbCell["outputs"]>[number];
+    default:
+      return { output_type: "error", ename: c.ename, evalue: c.evalue, traceback: c.traceback } as NonNullable<NbCell["outputs"]>[number];
+  }
+}
 
 /** The fenced block after "The student version" in README.md, as lines. */
 function readmeCourseSteps(): string[] {
@@ -124,9 +141,16 @@ describe.skipIf(!python && !classicPython)("the course notebook, as the README t
       const session = await sessions.startNew({ path: NOTEBOOK, name: "course-assignment.ipynb", type: "notebook", kernel: { name: kernelName } });
       const receipts: Receipt[] = [];
       const texts: string[] = [];
+      // The notebook as the frontend saves it after Run All (nbformat 4 outputs from the iopub
+      // messages), so the audit can hold it to the student as a teaching assistant would.
+      const saved: Notebook = { ...nb, cells: [] };
       try {
         expect(session.kernel?.name).toBe(kernelName);
-        for (const cell of nb.cells.filter((c: { cell_type: string }) => c.cell_type === "code")) {
+        for (const cell of nb.cells as NbCell[]) {
+          if (cell.cell_type !== "code") {
+            saved.cells.push(cell);
+            continue;
+          }
           const code = Array.isArray(cell.source) ? cell.source.join("") : String(cell.source);
           const future = session.kernel!.requestExecute({ code });
           const outputs: KernelMessage.IIOPubMessage[] = [];
@@ -136,6 +160,8 @@ describe.skipIf(!python && !classicPython)("the course notebook, as the README t
           const reply = await future.done;
           const shown = outputs.map((m) => JSON.stringify(m.content)).join("\n");
           expect(reply.content.status, `cell ${code}\n${shown}\n${server.log().slice(-2000)}`).toBe("ok");
+          const count = (reply.content as { execution_count?: number }).execution_count ?? null;
+          saved.cells.push({ ...cell, execution_count: count, outputs: outputs.map((m) => savedOutput(m, count)) });
           for (const m of outputs) {
             const c = m.content as { data?: Record<string, unknown>; metadata?: Record<string, unknown> };
             if (typeof c.data?.["text/plain"] === "string") texts.push(c.data["text/plain"]);
@@ -159,6 +185,10 @@ describe.skipIf(!python && !classicPython)("the course notebook, as the README t
         expect(verifyReceipt(r, key)).toEqual({ ok: true });
       }
       expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
+      // The saved notebook passes the audit held to the student and the course dataset.
+      const report = auditNotebook(saved, key, { analyst: "kit", dataset: "visits-course" });
+      expect(report.findings).toEqual([]);
+      expect(report.notes).toEqual([]);
     });
   }
 
