@@ -151,7 +151,11 @@ export function paddedTrials(m: number, x: bigint, one: bigint): number {
  * draw, further trials are made and discarded until paddedTrials(m, x, one) trials have been made
  * in all: the time then follows public quantities (issue 9, data-independent timing). Discarded
  * trials are independent of the draw, so the law is unchanged. A draw that needs more than the
- * padding (rare: twice its expected bound) or more than MAX_PADDED_TRIALS is not padded further.
+ * padding or more than MAX_PADDED_TRIALS is not padded further: its time then shows through, to
+ * the reply ladder's slot (workers/pacing.ts). That is not rare on the worst data: when one
+ * candidate alone takes the weight, a proposal is accepted with probability about 1/m, and more
+ * than 2m proposals are needed with probability about e^-2 (one draw in seven); at small epsilon
+ * the cap is reached first. DEVELOPERS.md states this as what still leaks.
  */
 function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): number {
   const m = d.length;
