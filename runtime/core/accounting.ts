@@ -1,5 +1,5 @@
 /**
- * Privacy accounting (methods.md §1–2). Costs are exact rationals. Pure epsilon composes by
+ * Privacy accounting (docs/methods.md §1–2). Costs are exact rationals. Pure epsilon composes by
  * addition; zCDP rho composes by addition and its cap is given by the steward as (epsilon, delta),
  * converted once to a rho cap with the Canonne, Kamath & Steinke (2020) bound. Converted values are
  * rounded in the safe direction before they are stored or shown: a rho cap down, an epsilon up.
@@ -29,7 +29,7 @@ export function pureToRho(epsilon: Rational): Rational {
   return epsilon.mul(epsilon).div(2n);
 }
 
-/** Sequential composition: costs add (pure epsilon and zCDP rho alike; methods.md §1, [C1.1]). */
+/** Sequential composition: costs add (pure epsilon and zCDP rho alike; docs/methods.md §1, [C1.1]). */
 export function composeSequential(costs: Rational[]): Rational {
   let total = Rational.ZERO;
   for (const c of costs) {
@@ -54,14 +54,14 @@ export function epsilonBS(rho: number, delta: number): number {
   return rho + 2 * Math.sqrt(rho * Math.log(1 / delta));
 }
 
-/** CKS 2020 objective at order alpha > 1 (methods.md §2). */
+/** CKS 2020 objective at order alpha > 1 (docs/methods.md §2). */
 export function epsilonAtOrder(alpha: number, rho: number, delta: number): number {
   return alpha * rho + (Math.log(1 / delta) + (alpha - 1) * Math.log1p(-1 / alpha) - Math.log(alpha)) / (alpha - 1);
 }
 
 const GOLDEN = (Math.sqrt(5) - 1) / 2;
 
-/** Golden-section minimisation over u = ln(alpha - 1) in [ln 1e-6, ln 1e6] (methods.md §2 steps 1–4). */
+/** Golden-section minimisation over u = ln(alpha - 1) in [ln 1e-6, ln 1e6] (docs/methods.md §2 steps 1–4). */
 function minimiseOverOrder(f: (alpha: number) => number): { alpha: number; value: number } {
   const g = (u: number): number => f(1 + Math.exp(u));
   let a = Math.log(1e-6);
@@ -90,7 +90,7 @@ function minimiseOverOrder(f: (alpha: number) => number): { alpha: number; value
   return { alpha: 1 + Math.exp(u), value: g(u) };
 }
 
-/** CKS 2020 epsilon at delta for rho-zCDP, binary64 (methods.md §2; [C2.3*]). */
+/** CKS 2020 epsilon at delta for rho-zCDP, binary64 (docs/methods.md §2; [C2.3*]). */
 export function epsilonCKS(rho: number, delta: number): { epsilon: number; alpha: number } {
   if (rho === 0) return { epsilon: 0, alpha: Infinity };
   const r = minimiseOverOrder((alpha) => epsilonAtOrder(alpha, rho, delta));

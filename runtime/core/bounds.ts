@@ -4,7 +4,7 @@
  * A bound at precision p is an integer pair [lo, hi] with lo / 2^p <= f <= hi / 2^p. Every series
  * runs for a number of terms fixed by p and the size of its argument (never "until it looks
  * converged" in binary64), and every rounding goes outward, so a caller that decides a comparison
- * with these bounds is never on the unsafe side (methods.md §4 cautions: half-widths must not be
+ * with these bounds is never on the unsafe side (docs/methods.md §4 cautions: half-widths must not be
  * optimistic). Used by the interval, planning and quantile code instead of Math.exp / Math.log.
  */
 import { BadInputError } from "../errors.js";

@@ -1,5 +1,5 @@
 /**
- * Fixed-point values (methods.md §6–7). Values are rounded to a public grid of step g and clamped
+ * Fixed-point values (docs/methods.md §6–7). Values are rounded to a public grid of step g and clamped
  * to public bounds in integer arithmetic, so sums are exact integers in grid units and the noise is
  * added on that same grid: the remedy for the floating-point attacks of Mironov (2012) and the
  * sensitivity underestimation of Casacuberta, Shoemate, Vadhan & Wagaman (2022).
@@ -62,7 +62,7 @@ const factors = new WeakMap<Grid, { stepNum: number; stepDen: number; lo: number
 
 /**
  * Rounds x to the nearest grid point (ties away from zero), then clamps in integer arithmetic
- * (methods.md §6 recipe step 2). Clamping after rounding bounds |units| by maxAbsUnits whatever the
+ * (docs/methods.md §6 recipe step 2). Clamping after rounding bounds |units| by maxAbsUnits whatever the
  * floating-point error in x/g. Returns null for NaN and infinities: callers drop such values by a
  * rule that does not depend on other rows.
  */
@@ -98,13 +98,13 @@ function checkRows(rowsPerUnit: number): bigint {
   return BigInt(rowsPerUnit);
 }
 
-/** Sum sensitivity in grid units under add/remove: k * max(|L|, |U|)/g (methods.md §7 table, [C6.3a], [C7.1]). */
+/** Sum sensitivity in grid units under add/remove: k * max(|L|, |U|)/g (docs/methods.md §7 table, [C6.3a], [C7.1]). */
 export function sumSensitivity(grid: Grid, rowsPerUnit: number): bigint {
   return checkRows(rowsPerUnit) * grid.maxAbsUnits;
 }
 
 /**
- * Centred sum (methods.md §7): sum of (x - c) with c = (L+U)/2 has sensitivity k (U-L)/2. The
+ * Centred sum (docs/methods.md §7): sum of (x - c) with c = (L+U)/2 has sensitivity k (U-L)/2. The
  * centre may fall between grid points, so this works in half-units (step g/2): each row contributes
  * 2*x_units - centreUnits2, where centreUnits2 = L/g + U/g, and the per-unit sensitivity in
  * half-units is k * (U-L)/g. Release half-unit values with step g/2 (fromGridUnits(v, step/2)); the

@@ -1,8 +1,8 @@
 /**
  * Error bars. Half-widths come from rigorous upper bounds on the tails of the integer noise, in
- * exact integer arithmetic (tailbounds.ts; methods.md §4–5: the smallest integer h with
+ * exact integer arithmetic (tailbounds.ts; docs/methods.md §4–5: the smallest integer h with
  * P(|noise| > h) <= a, never smaller). Ratio estimates (means, variances) get conservative
- * noise-only intervals by the corner method of methods.md §8: they cover the DP noise, not clamping
+ * noise-only intervals by the corner method of docs/methods.md §8: they cover the DP noise, not clamping
  * bias, grid rounding or sampling error.
  */
 import { BadInputError } from "../errors.js";
@@ -57,7 +57,7 @@ export function noiseVariance(law: NoiseLaw): number {
 }
 
 /**
- * Smallest integer h >= 0 with P(|noise| > h) <= 1 - confidence (methods.md §4–5), from rigorous
+ * Smallest integer h >= 0 with P(|noise| > h) <= 1 - confidence (docs/methods.md §4–5), from rigorous
  * upper bounds on the tail in exact integer arithmetic (tailbounds.ts): never below the exact
  * value, at most one grid unit above it for the discrete Laplace, and within the relative slack
  * stated in tailbounds.ts for the discrete Gaussian. A binary64 normal quantile only picks where the
@@ -140,7 +140,7 @@ export interface RatioIntervalArgs {
 }
 
 /**
- * Mean interval by the corner method (methods.md §8): a_S = a_N = a/2 (union bound), half-widths
+ * Mean interval by the corner method (docs/methods.md §8): a_S = a_N = a/2 (union bound), half-widths
  * h_S, h_N; if N~ - h_N <= 0 report [L, U]; otherwise the extremes of (S~ ± h_S)/(N~ ± h_N),
  * intersected with [L, U]. Guaranteed noise-only coverage (1 - tail_S)(1 - tail_N) >= 1 - a
  * ([C8.3]).
@@ -159,7 +159,7 @@ export function ratioInterval(args: RatioIntervalArgs): IntervalResult {
   const N = args.count.noisy;
   const toValue = (s: bigint, n: bigint): Rational => c.add(g.mul(s).div(n));
   const estimate = N > 0n ? clampR(toValue(S, N), args.lower, args.upper) : null;
-  const method = `corner method (methods.md §8), union bound a/2 per part, sum ±${hS}, count ±${hN}; noise only, excludes clamping and grid bias`;
+  const method = `corner method (docs/methods.md §8), union bound a/2 per part, sum ±${hS}, count ±${hN}; noise only, excludes clamping and grid bias`;
   if (N - hN <= 0n) return { estimate, low: args.lower, high: args.upper, method, noiseOnly: true, coverage };
   let low: Rational | null = null;
   let high: Rational | null = null;
@@ -196,7 +196,7 @@ export interface VarianceIntervalArgs {
 }
 
 /**
- * Population variance v = Q/N - (S/N)^2 from three releases on centred values (methods.md §8).
+ * Population variance v = Q/N - (S/N)^2 from three releases on centred values (docs/methods.md §8).
  * Conservative interval: a/3 per part (union bound) and the exact extremes of v over the box of
  * half-widths. v rises with Q; for fixed Q and |S| it is f(u) = Q u - S^2 u^2 in u = 1/N, concave,
  * so the maximum uses Q_hi, the |S| nearest 0 and u clamped around Q/(2 S^2), and the minimum uses
@@ -220,7 +220,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
   const qVal = (q: bigint): Rational => args.squareStep.mul(q);
   const v = (q: Rational, s: Rational, u: Rational): Rational => q.mul(u).sub(s.mul(s).mul(u).mul(u));
   const estimate = N > 0n ? clampR(v(qVal(args.sumSquares.noisy), sVal(args.sum.noisy), Rational.of(1n, N)), zero, vmax) : null;
-  const method = `corner method (methods.md §8), union bound a/3 per part, count ±${hN}, sum ±${hS}, sum of squares ±${hQ}; noise only, excludes clamping and grid bias`;
+  const method = `corner method (docs/methods.md §8), union bound a/3 per part, count ±${hN}, sum ±${hS}, sum of squares ±${hQ}; noise only, excludes clamping and grid bias`;
   if (N - hN <= 0n) return { estimate, low: zero, high: vmax, method, noiseOnly: true, coverage };
   const uLo = Rational.of(1n, N + hN);
   const uHi = Rational.of(1n, N - hN);

@@ -1,5 +1,5 @@
 /**
- * Additive noise mechanisms as pure functions (methods.md §4–5): an exact integer aggregate, its
+ * Additive noise mechanisms as pure functions (docs/methods.md §4–5): an exact integer aggregate, its
  * integer sensitivity and a privacy parameter give a noisy integer and a description of the noise.
  * Pure epsilon uses the discrete Laplace with scale t = Delta/epsilon (Ghosh, Roughgarden &
  * Sundararajan 2009); zCDP rho uses the discrete Gaussian with sigma^2 = Delta^2/(2 rho) (Canonne,
@@ -63,7 +63,7 @@ export function addNoise(value: bigint, law: NoiseLaw, bits: Bits): bigint {
 
 /**
  * One exact draw of the law's noise. The number of sampler rounds depends on the value drawn, so
- * callers whose timing is observable should draw before touching the data (methods.md §5 timing
+ * callers whose timing is observable should draw before touching the data (docs/methods.md §5 timing
  * caution) and add the noise afterwards.
  */
 export function drawNoise(law: NoiseLaw, bits: Bits): bigint {

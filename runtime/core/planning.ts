@@ -1,5 +1,5 @@
 /**
- * Accuracy-first planning (methods.md §11): from a requested half-width at a confidence to the
+ * Accuracy-first planning (docs/methods.md §11): from a requested half-width at a confidence to the
  * smallest privacy cost, and from a cost to the half-width it buys. Public inputs only: no data, no
  * spend. Rounding goes the accurate way (epsilon up, sigma^2 down), every search is an integer
  * bisection over short decimals (no binary64 step decides a cost), and every plan is confirmed with
@@ -26,7 +26,7 @@ function checkPlanInputs(sensitivity: bigint, h: bigint): void {
 }
 
 /**
- * Continuous references for fast previews (methods.md §3 and §11; the project never releases
+ * Continuous references for fast previews (docs/methods.md §3 and §11; the project never releases
  * continuous noise): the Laplace mechanism with b = Delta/epsilon has half-width b ln(1/a) and
  * variance 2 b^2, so epsilon = Delta ln(1/a)/H; the Gaussian has sigma = H / z_(1-a/2) and
  * rho = Delta^2/(2 sigma^2).
@@ -68,7 +68,7 @@ function guessIndex(x: number, fallback: bigint): bigint {
 }
 
 /**
- * Smallest cost whose noise has half-width <= halfWidthUnits at the confidence (methods.md §11):
+ * Smallest cost whose noise has half-width <= halfWidthUnits at the confidence (docs/methods.md §11):
  * the smallest 6-significant-digit epsilon (discrete Laplace), or the largest 6-significant-digit
  * sigma^2 (discrete Gaussian, rho = Delta^2/(2 sigma^2)), found by integer bisection over the
  * ordered short decimals of the supported range, each step an exact half-width (intervals.ts).
@@ -131,7 +131,7 @@ export interface MeanPlanArgs {
   /** value of one sum grid unit (g, or g/2 for a centred sum in half-units) */
   sumStep: Rational;
   confidence: number;
-  /** public guess of the number of rows (never the true count; methods.md §11 cautions) */
+  /** public guess of the number of rows (never the true count; docs/methods.md §11 cautions) */
   expectedCount: number;
   /** public guess of |mean - centre| in value units (0 when centred at a good guess) */
   expectedOffset: number;
@@ -152,7 +152,7 @@ function split(total: Rational, family: NoiseLaw["family"]): PrivacyParam {
 }
 
 /**
- * Expected half-width of the corner mean interval (methods.md §8, §11 "Means"):
+ * Expected half-width of the corner mean interval (docs/methods.md §8, §11 "Means"):
  * (g h_S + |m - c| h_N) / (N - h_N), with a/2 per part and an equal budget split (§8 default).
  */
 export function meanPlanFor(args: MeanPlanArgs & { total: Rational }): MeanPlan {

@@ -1,8 +1,8 @@
 /**
  * Quantiles by the exponential mechanism (McSherry & Talwar 2007) on a public candidate grid,
- * sampled exactly with a dyadic base in the spirit of Ilvento (2020), methods.md §9. Weights are
+ * sampled exactly with a dyadic base in the spirit of Ilvento (2020), docs/methods.md §9. Weights are
  * integers x^c * 2^(y (C - c)) proportional to beta^c with beta = x/2^y >= exp(-epsilon/(2 Delta')),
- * and the draw has the law of one UniformInt over their sum (methods.md §9 step 3), realised by
+ * and the draw has the law of one UniformInt over their sum (docs/methods.md §9 step 3), realised by
  * rejection with exact Bernoulli(x/2^y) trials: no floating point touches the selection.
  */
 import { BadInputError } from "../errors.js";
@@ -11,7 +11,7 @@ import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
 
 export interface QuantileArgs {
-  /** r(y_j) = #{rows < y_j} for each candidate j (strict <, methods.md §9 cautions), non-decreasing */
+  /** r(y_j) = #{rows < y_j} for each candidate j (strict <, docs/methods.md §9 cautions), non-decreasing */
   countsBelow: bigint[];
   /** number of rows (used only inside the mechanism) */
   n: bigint;
@@ -19,7 +19,7 @@ export interface QuantileArgs {
   p: Rational;
   epsilon: Rational;
   bits: Bits;
-  /** public cap on the integer cost c' (methods.md §9 step 4); default from epsilon, Delta' and m */
+  /** public cap on the integer cost c' (docs/methods.md §9 step 4); default from epsilon, Delta' and m */
   costCap?: bigint;
   /** y of the dyadic base x/2^y (default 20) */
   baseBits?: number;
@@ -36,7 +36,7 @@ export interface QuantileResult {
   epsilonEffective: number;
 }
 
-/** Integer costs c'_j = |b r_j - a n| for p = a/b, and Delta' = max(a, b - a) (methods.md §9; [C9.1]). */
+/** Integer costs c'_j = |b r_j - a n| for p = a/b, and Delta' = max(a, b - a) (docs/methods.md §9; [C9.1]). */
 export function quantileCosts(countsBelow: bigint[], n: bigint, p: Rational): { costs: bigint[]; sensitivity: bigint } {
   if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
   const a = p.num;

@@ -2,7 +2,7 @@
  * Randomness for the noise path. One interface (ByteSource); production reads the operating
  * system's CSPRNG through node:crypto, tests inject a deterministic keystream. Bits turns bytes into
  * exact uniform integers and Bernoulli trials by rejection sampling (the RandBits/UniformInt/
- * Bernoulli primitives of Canonne, Kamath & Steinke 2020, restated in methods.md §5). No
+ * Bernoulli primitives of Canonne, Kamath & Steinke 2020, restated in docs/methods.md §5). No
  * floating-point value ever influences a draw: the only numbers here are integers below 2^53.
  */
 import { createCipheriv, createHash, randomFillSync } from "node:crypto";

@@ -1,6 +1,6 @@
 /**
  * Exact rationals on bigint. The ledger stores privacy parameters in this form because binary64
- * addition of budgets drifts (methods.md §1, [C1.4a]/[C1.4b]).
+ * addition of budgets drifts (docs/methods.md §1, [C1.4a]/[C1.4b]).
  */
 import { BadInputError } from "../errors.js";
 

@@ -1,7 +1,7 @@
 /**
  * Exact samplers for Bernoulli(exp(-gamma)), the discrete Laplace and the discrete Gaussian, after
  * Canonne, Kamath & Steinke (2020), "The Discrete Gaussian for Differential Privacy", section on
- * sampling (restated as algorithms A–D in methods.md §5). Only integer and rational arithmetic:
+ * sampling (restated as algorithms A–D in docs/methods.md §5). Only integer and rational arithmetic:
  * every quantity is an integer held in a number while it stays below 2^53 (the fast path) and in a
  * bigint otherwise. Both paths draw from the same distribution; the tests check each against the
  * exact pmf.
@@ -84,7 +84,7 @@ function expBig(n: bigint, d: bigint, bits: Bits): boolean {
   return expFracBig(r, d, bits);
 }
 
-/** Bernoulli(exp(-gamma)) for rational gamma >= 0 (CKS 2020; methods.md §5 algorithms A and B). */
+/** Bernoulli(exp(-gamma)) for rational gamma >= 0 (CKS 2020; docs/methods.md §5 algorithms A and B). */
 export function sampleBernoulliExp(gamma: Rational, bits: Bits): boolean {
   if (gamma.sign() < 0) throw new BadInputError(`Bernoulli(exp(-gamma)) needs gamma >= 0, got ${gamma}`);
   if (gamma.den <= BigInt(MAX_SMALL) && gamma.num <= BigInt(LIMIT)) {

@@ -19,7 +19,7 @@ function ceilDiv(n: bigint, d: bigint): bigint {
 }
 
 /**
- * Discrete Laplace with scale t: P(|Y| > h) = 2 q^(h+1)/(1+q), q = e^(-1/t) (methods.md §4), so the
+ * Discrete Laplace with scale t: P(|Y| > h) = 2 q^(h+1)/(1+q), q = e^(-1/t) (docs/methods.md §4), so the
  * smallest h is max(0, ceil(t L) - 1) with L = ln(2/((1+q) a)). L is bracketed with enough bits that
  * t (L_hi - L_lo) < 2^-40; when the bracket still straddles an integer (after a second try with
  * more bits) the larger h is returned: at most one grid unit above the exact value.

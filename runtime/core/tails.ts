@@ -1,8 +1,8 @@
 /**
  * Tail sums of the two noise families in binary64, for display only (the `coverage` figure and
  * variances): no half-width, cost or draw depends on them; those use the exact bounds of
- * tailbounds.ts. Every routine here runs in bounded time (closed forms, or at most 80,000 terms). Discrete Laplace has closed forms (methods.md §4); the discrete Gaussian is summed
- * directly, smallest terms first, truncated at |x| <= ceil(40 sigma) + 1 (methods.md §5). Above
+ * tailbounds.ts. Every routine here runs in bounded time (closed forms, or at most 80,000 terms). Discrete Laplace has closed forms (docs/methods.md §4); the discrete Gaussian is summed
+ * directly, smallest terms first, truncated at |x| <= ceil(40 sigma) + 1 (docs/methods.md §5). Above
  * DIRECT_SUM_LIMIT the sums switch to Euler–Maclaurin around the Gaussian integral, whose error is
  * of relative order sigma^-4 there (common practice; the tests compare both routes where they meet).
  */
@@ -17,7 +17,7 @@ export function laplaceTail(t: number, h: number): number {
   return Math.min(1, 2 * Math.exp(-(h + 1) / t) / (1 + q));
 }
 
-/** Variance of the discrete Laplace with scale t: 1/(2 sinh(1/(2t))^2) (methods.md §4). */
+/** Variance of the discrete Laplace with scale t: 1/(2 sinh(1/(2t))^2) (docs/methods.md §4). */
 export function laplaceVariance(t: number): number {
   const s = Math.sinh(1 / (2 * t));
   return 1 / (2 * s * s);
@@ -103,7 +103,7 @@ function gaussTailSumEM(sigma2: number, h: number): number {
   return integral + w / 2 - deriv / 12;
 }
 
-/** P(|X| > h) for the discrete Gaussian N_Z(0, sigma2) (methods.md §5). */
+/** P(|X| > h) for the discrete Gaussian N_Z(0, sigma2) (docs/methods.md §5). */
 export function gaussianTail(sigma2: number, h: number): number {
   if (h < 0) return 1;
   const s = gaussSums(sigma2);
@@ -112,7 +112,7 @@ export function gaussianTail(sigma2: number, h: number): number {
   return (2 * s.tail[h]) / s.total;
 }
 
-/** Exact variance of the discrete Gaussian by direct summation; sigma^2 itself beyond sigma = 20 (gap < 1e-3000 relative, methods.md §5). */
+/** Exact variance of the discrete Gaussian by direct summation; sigma^2 itself beyond sigma = 20 (gap < 1e-3000 relative, docs/methods.md §5). */
 export function gaussianVariance(sigma2: number): number {
   const sigma = Math.sqrt(sigma2);
   if (sigma > 20) return sigma2;

@@ -18,7 +18,7 @@
  * numbers, non-whole numbers in integer columns, category values outside the declared list, dates
  * outside the declared range, missing unit ids, and CSV lines with the wrong number of fields (the
  * CSV header comes from the file's first line, never from DuckDB's sniffer). Numbers outside their declared range are NOT
- * rejected but clamped to it: clamping is what bounds the sensitivity (methods.md §6 recipe), and
+ * rejected but clamped to it: clamping is what bounds the sensitivity (docs/methods.md §6 recipe), and
  * dropping such rows would make a row's presence depend on its value. Empty cells are NULL.
  *
  * Hash collisions of unit ids can only merge two units into one, which keeps fewer rows of each

@@ -258,7 +258,7 @@ export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: 
 
 /**
  * The rows an aggregate may see: the filtered rows, with each unit's contribution bounded to at
- * most maxRows rows chosen uniformly at random (methods.md §7, "Enforcing the bounds").
+ * most maxRows rows chosen uniformly at random (docs/methods.md §7, "Enforcing the bounds").
  *
  * The engine stores __rk, each row's rank in a uniformly random order of its unit's rows (drawn
  * from the CSPRNG at load; 1 for units with at most maxRows rows). Without a filter the kept rows

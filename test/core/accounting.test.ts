@@ -17,7 +17,7 @@ const R = Rational.parse;
 const rel = (a: number, b: number): number => Math.abs(a - b) / Math.abs(b);
 const DELTA = R("1e-6");
 
-describe("composition (methods.md §1)", () => {
+describe("composition (docs/methods.md §1)", () => {
   it("[C1.1] 1/2 + 1/4 + 1/4 -> 1", () => {
     expect(composeSequential([R("1/2"), R("1/4"), R("1/4")]).toString()).toBe("1");
   });
@@ -37,7 +37,7 @@ describe("composition (methods.md §1)", () => {
   });
 });
 
-describe("conversions (methods.md §2)", () => {
+describe("conversions (docs/methods.md §2)", () => {
   it("[C2.1a] epsilon = 1 -> rho 1/2; [C2.1b] epsilon = 0.1 -> rho 1/200", () => {
     expect(pureToRho(R("1")).toString()).toBe("1/2");
     expect(pureToRho(R("0.1")).toString()).toBe("1/200");

@@ -1,5 +1,5 @@
 /**
- * Coverage of the 95% intervals in 10,000 simulated releases (methods.md §12.2). Symmetric
+ * Coverage of the 95% intervals in 10,000 simulated releases (docs/methods.md §12.2). Symmetric
  * intervals are checked against the two-sided 99.9% band 9427..9570 ([C12.1a], [C12.1b]) for laws
  * whose exact coverage is within 0.001 of 95%, and against the band at their exact coverage; the
  * conservative mean interval against the one-sided limit 9431 ([C12.2]). Fixed seeds.
@@ -37,7 +37,7 @@ function expectInBands(hits: number, exact: number): void {
 
 describe("coverage of 95% intervals, 10,000 releases each", () => {
   it("[C12.1c/d] the band's tail probabilities are at most beta/2", () => {
-    // P(X < 9427) = 0.000474302 and P(X > 9570) = 0.000475967 at p = 0.95 (methods.md §12.2)
+    // P(X < 9427) = 0.000474302 and P(X > 9570) = 0.000475967 at p = 0.95 (docs/methods.md §12.2)
     expect(binomialBand(RUNS, 0.95, 0.001)).toEqual({ lo: 9427, hi: 9570 });
   });
 
@@ -66,7 +66,7 @@ describe("coverage of 95% intervals, 10,000 releases each", () => {
   });
 
   it("mean by the corner method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
-    // 400 rows in [0, 10] on grid 1, epsilon = 1 split 1/2 : 1/2 (methods.md §8 setup)
+    // 400 rows in [0, 10] on grid 1, epsilon = 1 split 1/2 : 1/2 (docs/methods.md §8 setup)
     const n = 400n;
     const S = 1720n;
     const truth = Rational.of(S, n);

@@ -5,7 +5,7 @@ import { addNoise, calibrate } from "../../runtime/core/mechanisms.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
 
-describe("fixed-point grids (methods.md §6–7)", () => {
+describe("fixed-point grids (docs/methods.md §6–7)", () => {
   it("expresses bounds in grid units", () => {
     const g = makeGrid({ lower: "-5", upper: "10", step: "0.5" });
     expect(g.lowerUnits).toBe(-10n);

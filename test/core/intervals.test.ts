@@ -11,7 +11,7 @@ const lap = (t: string): NoiseLaw => ({ family: "discrete-laplace", scale: R(t) 
 const gau = (sigma: string): NoiseLaw => ({ family: "discrete-gaussian", sigma2: R(sigma).mul(R(sigma)) });
 const rel = (a: number, b: number): number => Math.abs(a - b) / Math.abs(b);
 
-describe("discrete Laplace tails and half-widths (methods.md §4)", () => {
+describe("discrete Laplace tails and half-widths (docs/methods.md §4)", () => {
   // [C4.1x] variance; [C4.2x] h; [C4.3x] tail at h; [C4.4x] tail at h - 1
   const rows = [
     ["1", 1.84134718842, 3n, 0.0267796098654, 0.0727945268703],
@@ -38,7 +38,7 @@ describe("discrete Laplace tails and half-widths (methods.md §4)", () => {
   });
 });
 
-describe("discrete Gaussian tails and half-widths (methods.md §5)", () => {
+describe("discrete Gaussian tails and half-widths (docs/methods.md §5)", () => {
   // [C5.3x] h; [C5.4x] tail at h; [C5.5x] tail at h - 1
   const rows = [
     ["1", 2n, 0.00913434283561, 0.117116275284],
@@ -77,7 +77,7 @@ describe("discrete Gaussian tails and half-widths (methods.md §5)", () => {
   });
 });
 
-describe("mean interval by the corner method (methods.md §8 worked example)", () => {
+describe("mean interval by the corner method (docs/methods.md §8 worked example)", () => {
   // values in [0, 10], g = 1, k = 1; t_S = 20, t_N = 2; a_S = a_N = 0.025; S~ = 5000, N~ = 1000
   const res = ratioInterval({
     sum: { noisy: 5000n, law: lap("20") },

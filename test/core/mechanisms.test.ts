@@ -6,7 +6,7 @@ import { Rational } from "../../runtime/core/rational.js";
 
 const R = Rational.parse;
 
-describe("mechanisms (methods.md §4–5)", () => {
+describe("mechanisms (docs/methods.md §4–5)", () => {
   it("pure epsilon calibrates a discrete Laplace with t = Delta/epsilon (§4: epsilon = p/r gives t = Delta r/p)", () => {
     const law = calibrate(10n, { epsilon: R("0.5") });
     expect(law).toEqual({ family: "discrete-laplace", scale: R("20") }); // [C8] setup: t_S = 10/0.5 = 20

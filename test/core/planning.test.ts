@@ -7,7 +7,7 @@ import { Rational } from "../../runtime/core/rational.js";
 const R = Rational.parse;
 const rel = (a: number, b: number): number => Math.abs(a - b) / Math.abs(b);
 
-describe("accuracy-first planning (methods.md §11), Delta = 1, H = 10, a = 0.05", () => {
+describe("accuracy-first planning (docs/methods.md §11), Delta = 1, H = 10, a = 0.05", () => {
   it("[C11.1] Laplace reference epsilon 0.299573227355; [C11.3a-c] z 1.95996398454, sigma 5.10213456925, rho 0.0192072941035", () => {
     expect(rel(laplaceReference({ sensitivity: 1, a: 0.05, halfWidth: 10 }).epsilon, 0.299573227355)).toBeLessThan(1e-9);
     const g = gaussianReference({ sensitivity: 1, a: 0.05, halfWidth: 10 });
@@ -75,7 +75,7 @@ describe("accuracy-first planning (methods.md §11), Delta = 1, H = 10, a = 0.05
   });
 });
 
-describe("mean planning (methods.md §11 'Means', §8 worked example)", () => {
+describe("mean planning (docs/methods.md §11 'Means', §8 worked example)", () => {
   // §8 setup: values in [0, 10], g = 1, k = 1, epsilon = 1 split 0.5/0.5 -> h_S = 74 [C8.1a], h_N = 7 [C8.1b]
   const base = {
     family: "discrete-laplace" as const,

@@ -1,6 +1,6 @@
 /**
  * Empirical privacy test of Ding, Wang, Wang, Zhang & Kifer (2018), "Detecting Violations of
- * Differential Privacy" (methods.md §12.1): on neighbouring inputs, pick the most suspicious event on a
+ * Differential Privacy" (docs/methods.md §12.1): on neighbouring inputs, pick the most suspicious event on a
  * first batch, then on fresh runs test H0: P[M(D) in E] <= e^eps P[M(D') in E] with the
  * thinning-averaged Fisher p-value, doubled (Vovk & Wang 2020), in both directions. Fixed seeds;
  * decision level 1e-3 as the handbook suggests for CI. A mechanism with half the claimed noise scale
@@ -98,7 +98,7 @@ describe("hypothesis test for privacy violations (Ding et al. 2018)", () => {
   });
 
   it("count with discrete Gaussian at rho = 0.05: no violation of its epsilon at delta = 1e-6", () => {
-    // rho-zCDP gives (eps, 1e-6)-DP (CKS 2020 conversion, methods.md §2); with 5*10^4 runs the delta
+    // rho-zCDP gives (eps, 1e-6)-DP (CKS 2020 conversion, docs/methods.md §2); with 5*10^4 runs the delta
     // slack (0.05 expected events) is invisible to the pure-epsilon test
     const bits = new Bits(seededBytes("ding-gauss"));
     const eps = epsilonFromRho(R("0.05"), R("1e-6")).toNumber();
@@ -117,7 +117,7 @@ describe("hypothesis test for privacy violations (Ding et al. 2018)", () => {
   });
 
   it("a broken sum mechanism (sensitivity taken as U - L = 5 instead of max(|L|,|U|) = 10) IS detected", () => {
-    // Casacuberta et al. 2022 / methods.md §7: an interval excluding 0 still costs max(|L|, |U|) under add/remove
+    // Casacuberta et al. 2022 / docs/methods.md §7: an interval excluding 0 still costs max(|L|, |U|) under add/remove
     const bits = new Bits(seededBytes("ding-broken-sum"));
     const broken = calibrate(5n, { epsilon: R("1") });
     const r = dingTest(additive(60n, broken, bits), additive(70n, broken, bits), 1);

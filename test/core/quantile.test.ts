@@ -6,11 +6,11 @@ import { Rational } from "../../runtime/core/rational.js";
 import { chiSquarePValue } from "./stats.js";
 
 const R = Rational.parse;
-// methods.md §9 worked example: D = [1, 2, 2, 4, 5, 5, 5, 8, 9, 10], candidates 0..10, median, epsilon = 1
+// docs/methods.md §9 worked example: D = [1, 2, 2, 4, 5, 5, 5, 8, 9, 10], candidates 0..10, median, epsilon = 1
 const D = [1, 2, 2, 4, 5, 5, 5, 8, 9, 10];
 const countsBelow = Array.from({ length: 11 }, (_, y) => BigInt(D.filter((x) => x < y).length));
 
-describe("exponential-mechanism quantile (methods.md §9)", () => {
+describe("exponential-mechanism quantile (docs/methods.md §9)", () => {
   it("[C9.1] costs |2 r(y) - n| -> [10, 10, 8, 4, 4, 2, 4, 4, 4, 6, 8], Delta' = 1", () => {
     const { costs, sensitivity } = quantileCosts(countsBelow, 10n, R("1/2"));
     expect(costs).toEqual([10n, 10n, 8n, 4n, 4n, 2n, 4n, 4n, 4n, 6n, 8n]);

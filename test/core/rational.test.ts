@@ -46,7 +46,7 @@ describe("Rational", () => {
     expect(() => a.div(Rational.ZERO)).toThrow(BadInputError);
   });
 
-  // methods.md §1: [C1.4a] 0.1 + 0.2 in binary64 = 0.30000000000000004; [C1.4b] ten 0.1 = 0.9999999999999999;
+  // docs/methods.md §1: [C1.4a] 0.1 + 0.2 in binary64 = 0.30000000000000004; [C1.4b] ten 0.1 = 0.9999999999999999;
   // [C1.4c] exact rational sum of ten 1/10 = 1
   it("[C1.4a-c] exact sums do not drift like binary64", () => {
     expect(0.1 + 0.2).toBe(0.30000000000000004);

@@ -1,5 +1,5 @@
 /**
- * Review checks of the exponential-mechanism quantile at small epsilon (methods.md §9): the draw
+ * Review checks of the exponential-mechanism quantile at small epsilon (docs/methods.md §9): the draw
  * keeps the exact law of the dyadic weights, and a small per-row epsilon with many rows is answered
  * without forming weights of millions of bits (it took about a minute per quantile at epsilon 0.001
  * over 2001 candidates and 200000 rows, and minutes for a describe; this suite runs under vitest's
@@ -22,14 +22,14 @@ describe("review: exponential-mechanism quantile at small epsilon", () => {
     const bits = new Bits(seededBytes("review-q"));
     for (let i = 0; i < 5; i++) {
       const r = exponentialQuantile({ countsBelow: below, n, p: R("1/2"), epsilon: R("0.001"), bits });
-      // McSherry & Talwar utility bound (methods.md §9): cost <= OPT + (2 Delta'/eps)(ln m + s) with
+      // McSherry & Talwar utility bound (docs/methods.md §9): cost <= OPT + (2 Delta'/eps)(ln m + s) with
       // probability >= 1 - e^-s; s = 10 gives 2000 * (ln 2001 + 10) ~ 35200, i.e. |j - 1000| <= 176.
       expect(Math.abs(r.index - 1000)).toBeLessThanOrEqual(176);
     }
   });
 
   it("draws follow the exact dyadic probabilities when many trials are needed (epsilon 0.2, 10^5 draws, chi-square at 0.001)", () => {
-    // methods.md §9 worked example data; dyadic base 2^-9 precision as in [C9.3a].
+    // docs/methods.md §9 worked example data; dyadic base 2^-9 precision as in [C9.3a].
     const D = [1, 2, 2, 4, 5, 5, 5, 8, 9, 10];
     const countsBelow = Array.from({ length: 11 }, (_, y) => BigInt(D.filter((x) => x < y).length));
     const first = exponentialQuantile({ countsBelow, n: 10n, p: R("1/2"), epsilon: R("0.2"), bits: new Bits(seededBytes("r0")), baseBits: 9 });

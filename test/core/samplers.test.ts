@@ -3,8 +3,8 @@
  * {0.5, 1, 3, 10, 1000}: 10^5 draws from a fixed-seed source, chi-square test against the exact pmf
  * at significance 0.001, and sample mean/variance against the published formulas.
  * pmfs: discrete Laplace P(y) = (1-q)/(1+q) q^|y|, q = e^(-1/t) (Ghosh, Roughgarden & Sundararajan
- * 2009; methods.md §4); discrete Gaussian P(x) = e^(-x^2/(2 sigma^2)) / sum_y e^(-y^2/(2 sigma^2))
- * (Canonne, Kamath & Steinke 2020, definition; methods.md §5). Variance: 2q/(1-q)^2 (methods.md §4)
+ * 2009; docs/methods.md §4); discrete Gaussian P(x) = e^(-x^2/(2 sigma^2)) / sum_y e^(-y^2/(2 sigma^2))
+ * (Canonne, Kamath & Steinke 2020, definition; docs/methods.md §5). Variance: 2q/(1-q)^2 (docs/methods.md §4)
  * and, for the Gaussian, the same ratio of sums with Var <= sigma^2 (CKS 2020).
  */
 import { describe, expect, it } from "vitest";
@@ -134,7 +134,7 @@ describe("discrete Gaussian sampler (CKS 2020 algorithm D)", () => {
   });
   it("sigma^2 = 2^50 (accept step in bigints) matches the normal limit in 20 equal-probability bins", () => {
     // For sigma = 2^25 the discrete Gaussian equals N(0, sigma^2) rounded to integers up to O(1/sigma)
-    // (Poisson summation, methods.md §5); bins from the normal quantile function of jstat.
+    // (Poisson summation, docs/methods.md §5); bins from the normal quantile function of jstat.
     const bits = new Bits(seededBytes("gauss-2^50"));
     const sigma2 = Rational.of(2n ** 50n);
     const sigma = 2 ** 25;
@@ -151,7 +151,7 @@ describe("discrete Gaussian sampler (CKS 2020 algorithm D)", () => {
     for (const c of counts) stat += (c - n / 20) ** 2 / (n / 20);
     expect(chiSquarePValue(stat, 19)).toBeGreaterThan(LEVEL);
   });
-  // methods.md §5 check values: [C5.6] P(X = 0) at sigma = 1 = 0.398942278267; [C5.1a] Var = 0.999999788768
+  // docs/methods.md §5 check values: [C5.6] P(X = 0) at sigma = 1 = 0.398942278267; [C5.1a] Var = 0.999999788768
   it("[C5.6] [C5.1a] the independent pmf reproduces the handbook values", () => {
     const pmf = gaussianPmf(1);
     expect(pmf(0)).toBeCloseTo(0.398942278267, 11);
@@ -160,7 +160,7 @@ describe("discrete Gaussian sampler (CKS 2020 algorithm D)", () => {
 });
 
 describe("Bernoulli(exp(-gamma)) (CKS 2020 algorithms A and B)", () => {
-  // methods.md §5 tests: Bernoulli primitives against e^(-1/2) and e^(-5/2)
+  // docs/methods.md §5 tests: Bernoulli primitives against e^(-1/2) and e^(-5/2)
   for (const [g, label] of [
     ["1/2", "e^(-1/2)"],
     ["5/2", "e^(-5/2)"],

@@ -17,7 +17,7 @@ describe("test statistics helpers", () => {
   });
 
   const sig6 = (x: number): number => Number(x.toPrecision(6));
-  // methods.md §12.1 check values, n1 = n2 = 10000, epsilon = 1 (6 digits as shown)
+  // docs/methods.md §12.1 check values, n1 = n2 = 10000, epsilon = 1 (6 digits as shown)
   it("[C12.3a] Fisher one-sided p, 1104/10000 vs 1000/10000 = 0.00879376", () => {
     expect(sig6(fisherOneSided(1104, 10000, 1000, 10000))).toBe(0.00879376);
   });

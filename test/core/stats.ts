@@ -1,7 +1,7 @@
 /**
  * Statistical helpers for the core's tests: exact-pmf chi-square goodness of fit (p-value from
  * jstat's chi-square cdf), a log-gamma hypergeometric tail and the thinning-averaged p-value of
- * Ding, Wang, Wang, Zhang & Kifer (2018) with the factor 2 of Vovk & Wang (2020) (methods.md §12.1).
+ * Ding, Wang, Wang, Zhang & Kifer (2018) with the factor 2 of Vovk & Wang (2020) (docs/methods.md §12.1).
  */
 // @ts-expect-error jstat ships no type declarations
 import jStatModule from "jstat";
@@ -122,7 +122,7 @@ export function fisherOneSided(c1: number, n1: number, c2: number, n2: number): 
 
 /**
  * Thinning-averaged p-value of Ding et al. 2018: sum_k Binom(k; c1, e^-eps) * P(H_k >= k),
- * H_k ~ Hypergeom(n1+n2, k + c2, n1) (methods.md §12.1 step 3).
+ * H_k ~ Hypergeom(n1+n2, k + c2, n1) (docs/methods.md §12.1 step 3).
  */
 export function thinnedPValue(c1: number, n1: number, c2: number, n2: number, epsilon: number): number {
   const r = Math.exp(-epsilon);
@@ -144,7 +144,7 @@ export function dingPValue(c1: number, n1: number, c2: number, n2: number, epsil
   return Math.min(1, 2 * thinnedPValue(c1, n1, c2, n2, epsilon));
 }
 
-/** Two-sided binomial acceptance band (methods.md §12.2). */
+/** Two-sided binomial acceptance band (docs/methods.md §12.2). */
 export function binomialBand(R: number, p: number, beta: number): { lo: number; hi: number } {
   let lo = -1;
   let hi = -1;
@@ -167,7 +167,7 @@ export function binomialCdf(k: number, R: number, p: number): number {
   return Math.min(1, cdf);
 }
 
-/** One-sided lower limit: the smallest k with P(X <= k) >= beta (methods.md §12.2, [C12.2]). */
+/** One-sided lower limit: the smallest k with P(X <= k) >= beta (docs/methods.md §12.2, [C12.2]). */
 export function binomialLowerLimit(R: number, p: number, beta: number): number {
   let cdf = 0;
   for (let k = 0; k <= R; k++) {

@@ -1,10 +1,10 @@
 /**
  * Coverage of released intervals through the whole answering path (SQL, bounding, noise,
- * intervals), by the procedure of methods.md §12.2: R releases with independent (seeded) noise on
+ * intervals), by the procedure of docs/methods.md §12.2: R releases with independent (seeded) noise on
  * data that needs no clamping; count how many intervals contain the noise-free value; accept when
  * the count is at least the one-sided 99.9% lower limit of Binomial(R, nominal), computed with
  * jstat. The discrete mechanisms and the corner intervals over-cover, so "at least nominal" is
- * the right test (methods.md §12.2 cautions). Fixed seeds keep the test deterministic.
+ * the right test (docs/methods.md §12.2 cautions). Fixed seeds keep the test deterministic.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { Bits, seededBytes } from "../../runtime/core/index.js";
@@ -40,7 +40,7 @@ async function coverage(plan: QueryPlan, truth: number): Promise<number> {
   return covered;
 }
 
-describe("interval coverage through the answering path (methods.md §12.2)", () => {
+describe("interval coverage through the answering path (docs/methods.md §12.2)", () => {
   const limit = lowerLimit(R, NOMINAL);
 
   it("count on the row-level zCDP dataset (discrete Gaussian)", async () => {

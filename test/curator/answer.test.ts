@@ -112,7 +112,7 @@ describe("costs and sensitivities", () => {
     expect(sum.cost.toString()).toBe("1");
     expect(sum.unit).toBe("epsilon");
     return sum.compute(bits(1)).then((r) => {
-      // k * max(|L|,|U|)/g = 4 * 100 (methods.md §7 table); scale t = 400/1
+      // k * max(|L|,|U|)/g = 4 * 100 (docs/methods.md §7 table); scale t = 400/1
       expect(r.mechanisms).toEqual([
         { target: "sum of age", family: "discrete-laplace", scale: "400", sensitivity: "400", step: "1", cost: "1" },
       ]);
@@ -135,7 +135,7 @@ describe("costs and sensitivities", () => {
     ]);
   });
 
-  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (methods.md §9)", async () => {
+  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9)", async () => {
     const q = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5, 0.9] }, privacy: { epsilon: "2" } }));
     expect(q.mechanisms).toEqual([
       { target: "p50 of age", family: "exponential", scale: "1", sensitivity: "4", step: "1", cost: "1" },
@@ -174,7 +174,7 @@ describe("costs and sensitivities", () => {
     expect(r.unit).toBe("rho");
     expect(r.cost.toString()).toBe("1/8");
     const rr = await r.compute(bits(3));
-    // sigma^2 = Delta^2/(2 rho) = 1/(1/4) = 4 (methods.md §5)
+    // sigma^2 = Delta^2/(2 rho) = 1/(1/4) = 4 (docs/methods.md §5)
     expect(rr.mechanisms[0]).toMatchObject({ family: "discrete-gaussian", scale: "4", sensitivity: "1" });
     const e = ctx.answerer.prepare("ada", plan({ measure: { kind: "count" }, privacy: { epsilon: "1" } }, "rows"));
     // epsilon-DP implies epsilon^2/2-zCDP ([C2.1a]: epsilon = 1 -> rho 1/2)
@@ -231,7 +231,7 @@ describe("intervals and previews", () => {
     expect(pv.notes.some((n) => n.startsWith("The std's error bar depends on the noisy count"))).toBe(true);
   });
 
-  it("row-level count at epsilon 1 has 95% half-width 3 (methods.md [C4.2a], t = 1)", () => {
+  it("row-level count at epsilon 1 has 95% half-width 3 (docs/methods.md [C4.2a], t = 1)", () => {
     const file = tempPolicy(
       policyWith(`    source: ${join(FIXTURES, "visits.csv")}
     accounting: { mode: pure, cap: { epsilon: "5" } }
@@ -243,7 +243,7 @@ describe("intervals and previews", () => {
     return open(file).then(async (o) => {
       const pv = o.answerer.preview("ada", plan({ measure: { kind: "count" } }, "d"));
       expect(pv.halfWidths[0].halfWidth).toBe("3");
-      // accuracy first: half-width 10 at 95% needs epsilon >= 0.284348512423 ([C11.2], methods.md §11)
+      // accuracy first: half-width 10 at 95% needs epsilon >= 0.284348512423 ([C11.2], docs/methods.md §11)
       const af = o.answerer.preview("ada", plan({ measure: { kind: "count" }, privacy: { within: 10 } }, "d"));
       expect(af.prepared.cost.toNumber()).toBeGreaterThanOrEqual(0.284348512423);
       expect(af.prepared.cost.toNumber()).toBeLessThan(0.2844);
@@ -300,7 +300,7 @@ describe("large epsilon recovers the bounded, clamped truth of the fixture", () 
     expect(expected.reduce((a, b) => a + b, 0)).toBe(ages.length);
   });
 
-  it("median of the row-level dataset has the smallest rank cost |2 r(y) - n| (methods.md §9), missing ages left out", async () => {
+  it("median of the row-level dataset has the smallest rank cost |2 r(y) - n| (docs/methods.md §9), missing ages left out", async () => {
     const ages = lines
       .filter(([, age, wait, district, date]) => age !== "" && /^\d+$/.test(age) && (wait === "" || Number.isFinite(Number(wait))) && DISTRICTS.includes(district) && date >= "2025-01-01" && date <= "2025-12-31")
       .map((l) => Math.min(100, Number(l[1])));

@@ -82,12 +82,12 @@ describe("Ledger", () => {
       const out = debit(ledger, "ada", i, "0.1");
       expect(out.kind).toBe("new");
     }
-    // methods.md [C1.4c]: the exact sum of ten 1/10 is 1, where binary64 gives 0.9999999999999999 ([C1.4b]).
+    // docs/methods.md [C1.4c]: the exact sum of ten 1/10 is 1, where binary64 gives 0.9999999999999999 ([C1.4b]).
     expect(ledger.spent("ada", PEOPLE).spent.toString()).toBe("1");
     const refused = debit(ledger, "ada", 11, "0.1");
     expect(refused).toEqual({ kind: "over-cap", spent: Rational.ONE, releases: 10 });
     expect(ledger.entries("ada", "visits")).toHaveLength(10);
-    // methods.md §1 caution: with a cap of 0.3, 0.1 then 0.2 fits exactly.
+    // docs/methods.md §1 caution: with a cap of 0.3, 0.1 then 0.2 fits exactly.
     const b = Ledger.open(join(dir, "exact-b.sqlite"));
     expect(debit(b, "ada", 1, "0.1", "0.3").kind).toBe("new");
     expect(debit(b, "ada", 2, "0.2", "0.3").kind).toBe("new");

@@ -60,7 +60,7 @@ describe("loadPolicy on the fixture", () => {
     const rows = p.datasets.get("rows")!;
     expect(rows.unit).toEqual({ column: null, maxRows: 1, maxGroups: 1 });
     if (rows.accounting.mode !== "zcdp") throw new Error("expected zcdp");
-    // The rho cap is the CKS conversion of (5, 1e-6) done by the core (methods.md §2).
+    // The rho cap is the CKS conversion of (5, 1e-6) done by the core (docs/methods.md §2).
     expect(rows.accounting.capRho.eq(rhoFromEpsilonDelta(Rational.parse("5"), Rational.parse("1e-6")))).toBe(true);
     expect(rows.analysts).toEqual(["ada", "ben"]);
   });

@@ -117,7 +117,7 @@ describe("receipt bytes", () => {
 describe("checkReceiptChains (the audit's chain checks over any set of receipts)", () => {
   const key = freshKey();
 
-  it("accepts a chain whose totals are exact running sums (methods.md [C1.4c]: ten 1/10 make 1)", () => {
+  it("accepts a chain whose totals are exact running sums (docs/methods.md [C1.4c]: ten 1/10 make 1)", () => {
     const costs = Array.from({ length: 10 }, () => "0.1");
     const totals = Array.from({ length: 10 }, (_, i) => `${i + 1}/10`);
     const rs = chain(key, costs, totals);

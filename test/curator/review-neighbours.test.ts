@@ -1,12 +1,12 @@
 /**
  * Review check of contribution bounding against its definition: neighbouring datasets differ by
- * all rows of one unit (methods.md §1, add/remove one unit), and every released vector may move by
- * at most its recorded sensitivity (methods.md §7: counts k, sums k * max(|L|,|U|)/g, over all
+ * all rows of one unit (docs/methods.md §1, add/remove one unit), and every released vector may move by
+ * at most its recorded sensitivity (docs/methods.md §7: counts k, sums k * max(|L|,|U|)/g, over all
  * groups together). The removed unit has many more rows than maxRows = k, rows with missing values
  * and missing keys, and rows at both clamp bounds; filters and grouping are applied on top.
  *
  * The releases are taken at a huge epsilon, where the discrete Laplace noise is 0 except with
- * probability about 2 exp(-10^9 / 30) (methods.md §4 tail), so the rows are the bounded true values.
+ * probability about 2 exp(-10^9 / 30) (docs/methods.md §4 tail), so the rows are the bounded true values.
  * The data are invented for this test (common practice for a stability check).
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
@@ -99,13 +99,13 @@ describe("review: removing one unit moves each released vector by at most its se
       const step = Rational.parse(m.step);
       let l1 = Rational.ZERO;
       for (let i = 0; i < a.rows.length; i++) l1 = l1.add(Rational.parse(a.rows[i].value!).sub(Rational.parse(b.rows[i].value!)).abs());
-      // Sensitivity in grid units (methods.md §7): count k, sum k * max(|-5|, |10|) = 30 ([C7.1]).
+      // Sensitivity in grid units (docs/methods.md §7): count k, sum k * max(|-5|, |10|) = 30 ([C7.1]).
       expect(m.sensitivity).toBe(p.measure.kind === "sum" ? String(K * 10) : String(K));
       expect(l1.le(step.mul(BigInt(m.sensitivity)))).toBe(true);
     }
   });
 
-  it("the heavy unit keeps K rows after the filter (bounded after filtering, methods.md §7)", async () => {
+  it("the heavy unit keeps K rows after the filter (bounded after filtering, docs/methods.md §7)", async () => {
     // The big unit has 24 rows; most have v = 50 (clamped to 10, so they match v >= 0), a few are
     // missing v or hold -50. Its matching rows are more than K, so it adds exactly K.
     const a = await release(withUnit, plan({ measure: { kind: "count" }, where: FILTER }), 1);

@@ -1,6 +1,6 @@
 /**
  * Review checks of the service with the real engine and answerer (in process): the amount charged
- * equals the sum of the costs of the mechanisms actually run (sequential composition, methods.md
+ * equals the sum of the costs of the mechanisms actually run (sequential composition, docs/methods.md
  * §1), the ledger total grows by exactly that, a replay charges nothing, and a preview reports the
  * confidence its half-widths were computed at.
  */

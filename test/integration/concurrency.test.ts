@@ -50,7 +50,7 @@ describe("concurrent spending", () => {
     );
     expect(results.flatMap((r) => r.other)).toEqual([]);
     const released = results.flatMap((r) => r.released);
-    // Each query costs exactly 1/100 against a cap of 1: exactly 100 fit (methods.md [C1.4c] style
+    // Each query costs exactly 1/100 against a cap of 1: exactly 100 fit (docs/methods.md [C1.4c] style
     // exactness; binary64 sums would stop at 99 or allow 101 depending on order), the rest are refused.
     expect(released).toHaveLength(100);
     expect(results.reduce((a, r) => a + r.refused, 0)).toBe(CHILDREN * PER_CHILD - 100);

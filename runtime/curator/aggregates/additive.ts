@@ -2,15 +2,15 @@
  * Aggregates built from noisy exact sums, ungrouped or grouped by public keys: count, sum, mean,
  * variance and std. Every declared key is released (also keys absent from the data).
  *
- * Sensitivities, in grid units, under add/remove of one unit (methods.md §7). Each unit keeps at
+ * Sensitivities, in grid units, under add/remove of one unit (docs/methods.md §7). Each unit keeps at
  * most k = maxRows rows in total (1 without a unit column), and each kept row falls in exactly one
  * group, so for the whole vector of groups:
  *   count:          L1 = L2 = k                      (a unit adds at most k to the cells, summed)
  *   sum:            L1 = L2 = k * M,  M = max(|L|,|U|)/g   (sumSensitivity)
  *   centred sum:    L1 = L2 = k * (U-L)/g  in half-units g/2, each row adding 2x - (L+U)/g
- *   centred squares:L1 = L2 = k * ((U-L)/g)^2 in quarter-units (g/2)^2  (methods.md §8)
+ *   centred squares:L1 = L2 = k * ((U-L)/g)^2 in quarter-units (g/2)^2  (docs/methods.md §8)
  * The L2 bound: a vector of non-negative per-cell changes summing to at most S has L2 norm <= S.
- * These are no larger than the L0 * Linf * M of methods.md §7 with Linf = k, so bounding the
+ * These are no larger than the L0 * Linf * M of docs/methods.md §7 with Linf = k, so bounding the
  * groups per unit (maxGroups) would not lower them: the total bound k is what is enforced.
  */
 import { Rational, sumSensitivity } from "../../core/index.js";
@@ -69,7 +69,7 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
 export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const { columns, labels, cells } = groupLabels(src, keys);
-  // L1 = L2 = k * max(|L|,|U|)/g in grid units (methods.md §7 table, [C7.1]).
+  // L1 = L2 = k * max(|L|,|U|)/g in grid units (docs/methods.md §7 table, [C7.1]).
   const sens = sumSensitivity(c.grid, rowsPerUnit(src));
   const spec = alloc.additive(`sum of ${c.name}${keys.length ? ` by ${columns.join(", ")}` : ""}`, sens, fraction, c.grid.step);
   const conf = alloc.confidence;
@@ -90,7 +90,7 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
   };
 }
 
-/** Mean per cell: noisy count of values and noisy centred sum, half the budget each (methods.md §8). */
+/** Mean per cell: noisy count of values and noisy centred sum, half the budget each (docs/methods.md §8). */
 export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const { columns, labels, cells } = groupLabels(src, keys);
@@ -122,7 +122,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
       `The mean of ${c.name} splits its budget evenly between a noisy count of values and a noisy sum centred at ${exactDecimal(centre)}.`,
       `A mean whose noisy count is not positive is reported as unavailable, with the declared range as its interval.`,
     ],
-    methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (methods.md §8)`],
+    methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (docs/methods.md §8)`],
     size: cells,
     steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
@@ -132,7 +132,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
   };
 }
 
-/** Variance or std per cell: noisy count, centred sum and centred sum of squares, a third each (methods.md §8). */
+/** Variance or std per cell: noisy count, centred sum and centred sum of squares, a third each (docs/methods.md §8). */
 export function spreadPiece(
   alloc: Allocator,
   src: Source,
@@ -175,7 +175,7 @@ export function spreadPiece(
       ...groupedNote(keys, columns, cells),
       `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
     ],
-    methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
+    methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (docs/methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
     steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {

@@ -2,15 +2,15 @@
  * Turning a privacy ask into noise laws and exact costs, before any data is read.
  *
  * Dataset accounting decides the noise family and the unit of cost:
- *   pure  + { epsilon }  -> discrete Laplace, cost in epsilon (methods.md §4).
- *   zcdp  + { rho }      -> discrete Gaussian, cost in rho (methods.md §5).
+ *   pure  + { epsilon }  -> discrete Laplace, cost in epsilon (docs/methods.md §4).
+ *   zcdp  + { rho }      -> discrete Gaussian, cost in rho (docs/methods.md §5).
  *   zcdp  + { epsilon }  -> discrete Laplace at that epsilon, charged rho = epsilon^2/2: an
  *                           epsilon-DP mechanism is (epsilon^2/2)-zCDP (Bun & Steinke 2016, §2).
  *   pure  + { rho }      -> refused (a rho guarantee is not an epsilon-DP guarantee).
- *   { within, confidence } -> accuracy first (methods.md §11): the smallest parameter whose
+ *   { within, confidence } -> accuracy first (docs/methods.md §11): the smallest parameter whose
  *                           half-width at that confidence is at most `within`; only for releases
  *                           made of one noisy vector (count, sum, histogram, crosstab, grouped).
- * Several parts of one release compose sequentially (costs add, methods.md §1).
+ * Several parts of one release compose sequentially (costs add, docs/methods.md §1).
  */
 import { BadInputError } from "../../errors.js";
 import {

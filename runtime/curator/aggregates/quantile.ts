@@ -1,12 +1,12 @@
 /**
- * Quantiles by the exponential mechanism on the column's public grid (methods.md §9, McSherry &
+ * Quantiles by the exponential mechanism on the column's public grid (docs/methods.md §9, McSherry &
  * Talwar 2007; exact dyadic sampling in runtime/core, after Ilvento 2020).
  *
  * Ranks come from SQL: one GROUP BY over the kept rows gives the count of each grid value, and a
  * merge gives r(y_j) = #{x < y_j} for every candidate y_j. Missing values are left out.
  *
  * Sensitivity: for p = a/b the integer utility |b r(y) - a n| moves by at most max(a, b-a) when one
- * row is added or removed; a unit holds at most k rows, so by group privacy (methods.md §1) the
+ * row is added or removed; a unit holds at most k rows, so by group privacy (docs/methods.md §1) the
  * mechanism runs at epsilon/k per row to be epsilon-DP per unit. Several p compose sequentially:
  * the part's budget is split evenly among them.
  */
@@ -95,7 +95,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
 }
 
 /**
- * Rank error bound of the exponential mechanism (McSherry & Talwar 2007; methods.md §9):
+ * Rank error bound of the exponential mechanism (McSherry & Talwar 2007; docs/methods.md §9):
  * utility within (2 Delta/eps)(ln m + ln(1/a)) of the best with probability >= 1 - a, in units of
  * |b r - a n|, so a rank error of that divided by b. Public (no data), rounded up for display:
  * binary64 here is display-only post-processing and runs in constant time.
