@@ -12,6 +12,7 @@ import type { ApiContext } from "../runtime/api/context.js";
 import { HUSH_DECLARATIONS } from "../runtime/api/declarations.js";
 import { Hush } from "../runtime/api/hush.js";
 import { SessionSpend } from "../runtime/api/session-spend.js";
+import { Rational } from "../runtime/core/index.js";
 import { lossBundle, noticeBundle, renderValue } from "./display/bundle.js";
 import type { LossLine } from "./display/views.js";
 
@@ -58,8 +59,8 @@ export class HushSession {
   }
 
   /**
-   * After a cell: if it released (or replayed) anything, the running privacy loss on each dataset
-   * it touched — this kernel session's spend and the analyst's total against the cap.
+   * After a cell: if it released (or replayed) anything, the one privacy-loss line of the cell:
+   * per account it touched, the analyst's total against the cap, this cell's part and what is left.
    */
   async afterCell(): Promise<MimeBundle | null> {
     const records = this.#spend.takeCell();
@@ -72,6 +73,7 @@ export class HushSession {
       lines.push({
         dataset,
         sessionSpent: this.#spend.sessionSpent(dataset),
+        cellSpent: mine.reduce((sum, r) => sum.add(Rational.parse(r.cost)), Rational.ZERO).toString(),
         spend,
         released: mine.filter((r) => !r.replay).length,
         replayed: mine.filter((r) => r.replay).length,

@@ -7,9 +7,13 @@
  * read another number than the folded text says are reported (oddCharacters).
  */
 
-// A number as runtime/protocol/format.ts writes it ("12", "-0.5", "1.25e-9"), and a figure with
-// an error bar in either of its two forms: "v ± w" or "v [lo, hi]".
-const NUM = String.raw`-?\d+(?:\.\d+)?(?:e[+-]?\d+)?`;
+// A number as runtime/protocol/format.ts writes it ("12", "-0.5", "1,234.5", "1.25e-9": integer
+// parts in groups of three after the first, docs/methods.md §18), and a figure with an error bar
+// in either of its two forms: "v ± w" or "v [lo, hi]". An ungrouped "1234" is still read as one
+// number (then it is not the kernel's spelling, and no signed figure matches it); a broken group
+// ("1,5 ± 1", "12,34 ± 1") leaves digits and a comma before the figure, which then does not stand
+// on its own.
+const NUM = String.raw`-?(?:\d{1,3}(?:,\d{3})+|\d+)(?:\.\d+)?(?:e[+-]?\d+)?`;
 const BAR = String.raw`${NUM} (?:± ${NUM}|\[${NUM}, ${NUM}\])`;
 const ANY_FIGURE = new RegExp(BAR, "g");
 const WHOLE_FIGURE = new RegExp(`^${BAR}$`);

@@ -11,7 +11,7 @@
  * still read, so a figure under it is compared too.
  */
 import { type DefaultTreeAdapterTypes as T, parse, parseFragment } from "parse5";
-import { quoted } from "./figure-text.js";
+import { figureText, figuresIn, quoted } from "./figure-text.js";
 
 export interface HtmlText {
   /** What a person reads: block ends and <br> as line breaks, table cells separated by tabs. */
@@ -34,6 +34,9 @@ const TAGS: Record<string, Layout> = {
   tr: "block",
   ul: "block",
   li: "block",
+  // The kernel folds a release's method statement, notes and receipt into a disclosure element.
+  details: "block",
+  summary: "block",
   th: "cell",
   td: "cell",
   span: "inline",
@@ -47,6 +50,28 @@ const TAGS: Record<string, Layout> = {
 };
 
 const HTML_NS = "http://www.w3.org/1999/xhtml";
+
+/**
+ * The classes the kernel writes (kernel/display/views.ts, html.ts): the box of each kind of view,
+ * and the hooks a browser test finds a release's parts by: `hush-release` (one per release),
+ * `hush-value` and `hush-errorbar` (a figure's value and its ± or [low, high] part), `hush-loss`
+ * (the one privacy-loss line under a spending cell), `hush-notes` (the folded details),
+ * `hush-refusal` (a refusal), `hush-chart` (the chart's container).
+ */
+export const KERNEL_CLASSES: ReadonlySet<string> = new Set([
+  "hush-release",
+  "hush-value",
+  "hush-errorbar",
+  "hush-loss",
+  "hush-notes",
+  "hush-refusal",
+  "hush-chart",
+  "hush-preview",
+  "hush-dataset",
+  "hush-budget",
+  "hush-ledger",
+  "hush-help",
+]);
 
 function isElement(n: T.Node): n is T.Element {
   return "tagName" in n;
@@ -224,8 +249,8 @@ function judge(el: T.Element, chart: string | null, text: boolean, problems: str
       if (layout === "cell" && right !== null && right < 4) problems.push(`a table cell with padding "${value}" (cells drawn without space between them)`);
     } else if (name === "class") {
       // Frontends style their own classes ("hidden" in the classic notebook's Bootstrap,
-      // "lm-mod-hidden" in JupyterLab); the kernel's boxes are "hush-*", which no frontend styles.
-      for (const c of value.split(/\s+/).filter((x) => x !== "")) if (!/^hush-[a-z-]+$/.test(c)) problems.push(`class "${c}" on <${tag}>`);
+      // "lm-mod-hidden" in JupyterLab); the kernel writes only its own, which no frontend styles.
+      for (const c of value.split(/\s+/).filter((x) => x !== "")) if (!KERNEL_CLASSES.has(c)) problems.push(`class "${c}" on <${tag}>`);
     } else if (name === "title" || (tag === "img" && name === "alt")) {
       // Tooltips and an image's alternative text are not drawn in the output.
     } else if (tag === "img" && name === "src") {
@@ -256,25 +281,29 @@ export function htmlText(raw: string, chart: string | null): HtmlText {
     out.push(s);
     last = s[s.length - 1];
   };
-  type Item = { node: T.Node; pre: boolean } | { close: string };
+  // Text inside a <details> (not its <summary>) is hidden until a reader opens it: the kernel folds
+  // only words there, so a figure with an error bar in it is reported.
+  let folded = "";
+  type Item = { node: T.Node; pre: boolean; fold: boolean } | { close: string };
   // Parsed in the context of a <div>, as innerHTML of an output element is: a stray <td> outside a
   // table is then dropped and its text runs on, as a browser draws it.
   const root = parseFragment(outputElement(), raw, {});
   const holders = textHolders(root);
-  const stack: Item[] = [{ node: root, pre: false }];
+  const stack: Item[] = [{ node: root, pre: false, fold: false }];
   while (stack.length > 0) {
     const item = stack.pop()!;
     if ("close" in item) {
       emit(item.close);
       continue;
     }
-    const { node, pre } = item;
+    const { node, pre, fold } = item;
     if (node.nodeName === "#text") {
       const v = (node as T.TextNode).value;
       // Outside <pre>, a browser draws each run of ASCII white space as one space (CSS Text 3, §4.1.1).
       let shown = pre ? v : v.replace(/[ \t\n\r\f]+/g, " ");
       if (!pre && shown.startsWith(" ") && (last === "" || /[ \t\n]/.test(last))) shown = shown.slice(1);
       emit(shown);
+      if (fold) folded += ` ${v}`;
       continue;
     }
     if (node.nodeName === "#comment" || node.nodeName === "#documentType") continue; // not drawn
@@ -286,19 +315,25 @@ export function htmlText(raw: string, chart: string | null): HtmlText {
       const ws = node.attrs.find((a) => a.name === "style")?.value ?? "";
       keep = pre || node.tagName === "pre" || /white-space\s*:\s*pre/i.test(ws);
       // A <template>'s content is never drawn; it is reported above and read here all the same.
-      if (node.tagName === "template") stack.push({ node: (node as T.Template).content, pre: keep });
+      if (node.tagName === "template") stack.push({ node: (node as T.Template).content, pre: keep, fold });
     }
     const close = layout === "block" ? "\n" : layout === "cell" ? "\t" : "";
     if (layout === "block" || layout === "break") emit("\n");
     stack.push({ close });
     const children = "childNodes" in node ? (node as T.ParentNode).childNodes : [];
-    for (let i = children.length - 1; i >= 0; i--) stack.push({ node: children[i], pre: keep });
+    const details = isElement(node) && node.tagName === "details";
+    for (let i = children.length - 1; i >= 0; i--) {
+      const child = children[i];
+      const summary = details && isElement(child) && child.tagName === "summary";
+      stack.push({ node: child, pre: keep, fold: fold || (details && !summary) });
+    }
   }
   const text = out
     .join("")
     .replace(/ *\t[ \t]*/g, "\t")
     .replace(/[ \t]*\n[ \t\n]*/g, "\n")
     .replace(/^\s+|\s+$/g, "");
+  if (folded !== "" && figuresIn(figureText(folded)).length > 0) problems.push("a figure with an error bar inside a folded <details> (hidden until opened)");
   // Names and values come from the notebook: quoted, so they cannot act on a reviewer's terminal.
   return { text, problems: [...new Set(problems)].map((p) => quoted(p, 120)) };
 }

@@ -97,13 +97,13 @@ export function shownText(out: NbOutput): string {
   return typeof plain === "string" || Array.isArray(plain) ? joinText(plain as string | string[]) : "";
 }
 
-// A release display shows a number with its error bar ("24.5 ± 1.25" or "12 [10, 15]", as
+// A release display shows a number with its error bar ("24.5 ± 1.3" or "1,200 [1,000, 1,500]", as
 // runtime/protocol/format.ts writes them) and its cost ("cost ε=0.1", "replayed, no new cost", or a
 // running "total 0.3 / 1" — the kernel's wording in runtime/api/text.ts). An output showing both
 // without a receipt was typed in or copied, not released. A preview shows only "± width" with no
 // value before it, so it is not taken for a release. A quantile shows "= 115 (no value interval, ...)"
 // instead of an error bar (its guarantee is on rank).
-const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.e+-]*, -?\d[\d.e+-]*\]|\d \(no value interval/;
+const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.,e+-]*, -?\d[\d.,e+-]*\]|\d \(no value interval/;
 const SPEND = /cost (ε|ρ)\s*=|replayed, no new cost|total -?[\d.e/+-]+ \/ [\d.e/+-]+|(ε|ρ)\s*(spent|used)\b/;
 
 /** Every figure some receipt in the notebook signed, as the shared formatter shows it. */

@@ -29,7 +29,7 @@ export async function answerBundle(a: Answer): Promise<MimeBundle> {
     data[VEGALITE_MIME] = spec;
     data["image/svg+xml"] = svg;
     // Most frontends prefer text/html over the chart types, so the chart is in the HTML too, as an image.
-    img = `<div style="margin:6px 0"><img alt="${esc(`chart: ${a.what}`)}" src="data:image/svg+xml;base64,${Buffer.from(svg, "utf8").toString("base64")}"></div>`;
+    img = `<img alt="${esc(`chart: ${a.what}`)}" src="data:image/svg+xml;base64,${Buffer.from(svg, "utf8").toString("base64")}">`;
   }
   data["text/html"] = answerHtml(a, img);
   const meta: OutputMetadata = { receipt: a.release.receipt, replay: a.release.replay, dataset: a.release.dataset };

@@ -8,54 +8,76 @@ import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
-import { costText, percent, planText, q, rowLabel, shownValue, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
-import { formatDecimal } from "../../runtime/protocol/format.js";
-import type { SpendSummary } from "../../runtime/protocol/messages.js";
-import { MUTED, badge, box, budgetBar, esc, notesList, table } from "./html.js";
+import { foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
+import { Rational } from "../../runtime/core/index.js";
+import { MUTED, badge, box, budgetBar, capParts, esc, notesList, table, textBar } from "./html.js";
 
 const NOISE_ONLY =
-  "noise-only interval: it covers the privacy noise, not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
+  "The error bars cover the privacy noise only: not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
 
-function interval(low: string | null, high: string | null): string {
-  return low === null || high === null ? "—" : `[${esc(formatDecimal(low))}, ${esc(formatDecimal(high))}]`;
+/** One figure with the browser test's hooks: `hush-value` on the value, `hush-errorbar` on its bar. */
+function figureHtml(row: ReleaseRow): string {
+  const f = shownParts(row);
+  return `<span class="hush-value">${esc(f.value)}</span>${f.bar === null ? "" : ` <span class="hush-errorbar">${esc(f.bar)}</span>`}`;
 }
 
+/**
+ * Folded away: the exact statement of the method, the noise-only caution (only when there is an
+ * interval), the notes, and the receipt. A disclosure element, so it needs no script.
+ */
+function detailsHtml(a: Answer): string {
+  const r = a.release;
+  const notes = foldedNotes(r.notes);
+  const hasBar = r.rows.some((x) => x.low !== null && x.high !== null);
+  const summary = `details${notes.length ? ` and ${plural(notes.length, "note")}` : ""}`;
+  const receipt = `receipt #${r.receipt.seq} for ${r.receipt.analyst} · signed by key ${r.receipt.keyId} · plan ${r.digest.slice(0, 12)}`;
+  return (
+    `<details class="hush-notes" style="margin-top:2px;font-size:12px"><summary style="${MUTED}">${esc(summary)}</summary>` +
+    `<div style="${MUTED}">method: ${esc(r.intervalMethod)}</div>` +
+    (hasBar ? `<div style="${MUTED}">${esc(NOISE_ONLY)}</div>` : "") +
+    notesList(notes) +
+    `<div style="font-size:11px;${MUTED}">${esc(receipt)}</div>` +
+    `</details>`
+  );
+}
 
+/**
+ * A release: what was asked, the figure(s) rounded to what the error bar supports, one plain line
+ * on the error bars, the chart, the cost, and the rest folded away. The running privacy loss is
+ * shown once under the cell (lossHtml), not here.
+ */
 export function answerHtml(a: Answer, chartImg: string | null): string {
   const r = a.release;
-  const head = `<div><b>${esc(a.what)}</b> <span style="${MUTED}">on ${esc(r.dataset)}</span>${r.replay ? badge("replayed — no new cost", "#2e7d32") : ""}</div>`;
+  const head = `<div><b>${esc(a.what)}</b> <span style="${MUTED}">on ${esc(r.dataset)}</span>${r.replay ? badge("replayed, no new cost", "#2e7d32") : ""}</div>`;
   let body: string;
   if (a.isScalar) {
-    const row = r.rows[0];
-    body =
-      `<div style="font-size:18px;margin:2px 0">${esc(shownValue(row))}</div>` +
-      `<div style="${MUTED}">${esc(percent(r.confidence))} interval ${interval(row.low, row.high)} · ${esc(r.intervalMethod)}</div>`;
+    body = `<div style="font-size:18px;margin:2px 0">${figureHtml(r.rows[0])}</div>`;
   } else {
     const uniform = uniformStat(r.rows);
     const keyed = uniform && r.groupColumns.length > 0;
-    const headCells = [...(keyed ? r.groupColumns.map(esc) : ["statistic"]), `estimate (${esc(percent(r.confidence))})`, "interval"];
-    const rows = r.rows.map((row) => [
-      ...(keyed ? row.key.map((k) => esc(k ?? "(missing)")) : [esc(rowLabel(row, true))]),
-      esc(shownValue(row)),
-      interval(row.low, row.high),
-    ]);
-    const n = headCells.length;
-    body = table(headCells, rows, new Set([n - 2, n - 1])) + `<div style="${MUTED}">${esc(r.intervalMethod)}</div>`;
+    const first = r.rows[0];
+    const statHead = uniform && first ? (first.column === null ? first.stat : `${first.stat} ${first.column}`) : "estimate";
+    const headCells = [...(keyed ? r.groupColumns.map(esc) : ["statistic"]), `${esc(statHead)} (${esc(percent(r.confidence))})`];
+    const rows = r.rows.map((row) => [...(keyed ? row.key.map((k) => esc(k ?? "(missing)")) : [esc(rowLabel(row, true))]), figureHtml(row)]);
+    body = table(headCells, rows, new Set([headCells.length - 1]));
   }
-  const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: a.sessionSpent, spend: r.spend });
-  const bar = budgetBar({ ...spendAmounts(r.spend), sessionSpent: a.sessionSpent });
-  const receipt = `<div style="font-size:11px;${MUTED}">receipt #${r.receipt.seq} for ${esc(r.receipt.analyst)} · signed by key ${esc(r.receipt.keyId)} · plan ${esc(r.digest.slice(0, 12))}</div>`;
+  const cost = r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
   return box(
     head +
       body +
-      (chartImg ?? "") +
-      `<div style="margin-top:4px">${esc(cost)}</div>` +
-      bar +
-      `<div style="font-size:12px;${MUTED}">ⓘ ${esc(NOISE_ONLY)}</div>` +
-      notesList(r.notes.filter((n) => !n.startsWith("Error bars are noise-only"))) +
-      receipt,
+      `<div style="font-size:12px;${MUTED}">${esc(methodLine(r))}</div>` +
+      (chartImg === null ? "" : `<div class="hush-chart" style="margin:6px 0">${chartImg}</div>`) +
+      `<div style="margin-top:2px">${esc(cost)}</div>` +
+      detailsHtml(a),
     "release",
   );
+}
+
+/** The cap with this kernel session's part marked. */
+function sessionBar(spend: SpendSummary, sessionSpent: string): string {
+  const a = spendAmounts(spend);
+  return budgetBar({ total: a.total, recent: sessionSpent, cap: a.cap, symbol: a.symbol, recentLabel: "this session", beforeLabel: "earlier sessions" });
 }
 
 export function quoteHtml(c: CostQuote): string {
@@ -72,7 +94,7 @@ export function quoteHtml(c: CostQuote): string {
     `<div><b>preview</b> ${esc(c.what)}${status}</div>` +
       `<div>would cost <b>${esc(unitSymbol(p.unit))}=${esc(q(p.cost))}</b> · nothing spent yet</div>` +
       (rows.length ? table(["statistic", "column", `expected error (${esc(percent(p.confidence))})`], rows, new Set([2])) : "") +
-      budgetBar({ ...s, sessionSpent: "0" }) +
+      budgetBar({ total: s.total, recent: "0", cap: s.cap, symbol: s.symbol, recentLabel: "this session", beforeLabel: "spent" }) +
       notesList(p.notes),
     "preview",
   );
@@ -94,7 +116,7 @@ export function tableHtml(t: SealedTable): string {
       query +
       cols +
       `<div>spend of ${esc(s.analyst)}: ${esc(spendText(s))}</div>` +
-      budgetBar({ ...spendAmounts(s), sessionSpent: t.sessionSpent }),
+      sessionBar(s, t.sessionSpent),
     "dataset",
   );
 }
@@ -113,7 +135,7 @@ export function budgetHtml(b: BudgetReport): string {
   const parts = b.datasets.map(
     (d) =>
       `<div style="margin-top:6px"><b>${esc(d.dataset)}</b> <span style="${MUTED}">${esc(d.spend.mode === "zcdp" ? "zCDP accounting" : "pure ε accounting")}</span></div>` +
-      budgetBar({ ...spendAmounts(d.spend), sessionSpent: d.sessionSpent }) +
+      sessionBar(d.spend, d.sessionSpent) +
       `<div>${esc(spendText(d.spend))}</div>` +
       (d.queries.length ? table(["receipt", "query (this session)", "cost", "total after"], queryRows(d.queries), new Set([2, 3])) : `<div style="${MUTED}">no queries in this session</div>`),
   );
@@ -133,33 +155,92 @@ export function ledgerHtml(l: LedgerView): string {
   return box(`<div><b>ledger</b> (${l.entries.length} releases, signed receipts)</div>` + table(["dataset", "receipt", "query", "cost", "total after", "issued"], rows, new Set([3, 4])), "ledger");
 }
 
-/** The running privacy loss under a cell: one line per dataset touched in the cell. */
+/** The running privacy loss under a cell: one entry per dataset touched in the cell. */
 export interface LossLine {
   dataset: string;
   sessionSpent: string;
+  /** What this cell's new releases on the dataset cost, exact, in the accounting unit. */
+  cellSpent: string;
   spend: SpendSummary;
   released: number;
   replayed: number;
 }
 
+/** Datasets of one population share one account, so they share one line: amounts added, names listed. */
+interface Account {
+  datasets: string[];
+  cellSpent: Rational;
+  spend: SpendSummary;
+  released: number;
+  replayed: number;
+}
+
+function accounts(lines: readonly LossLine[]): Account[] {
+  const out = new Map<string, Account>();
+  for (const l of lines) {
+    const k = `${l.spend.analyst}\u0000${l.spend.population}`;
+    const a = out.get(k);
+    let cell = Rational.ZERO;
+    try {
+      cell = Rational.parse(l.cellSpent);
+    } catch {
+      // an unreadable amount counts as nothing spent in this cell; the total still shows
+    }
+    if (a === undefined) {
+      out.set(k, { datasets: [l.dataset], cellSpent: cell, spend: l.spend, released: l.released, replayed: l.replayed });
+      continue;
+    }
+    a.datasets.push(l.dataset);
+    a.cellSpent = a.cellSpent.add(cell);
+    a.spend = l.spend; // the later summary is the newer one
+    a.released += l.released;
+    a.replayed += l.replayed;
+  }
+  return [...out.values()];
+}
+
+function accountName(a: Account): string {
+  const names = a.datasets.join(", ");
+  return a.datasets.length === 1 && a.datasets[0] === a.spend.population ? names : `${names} (population ${a.spend.population})`;
+}
+
+function replayNote(a: Account): string {
+  return a.replayed ? ` (${plural(a.replayed, "answer")} replayed, no new cost)` : "";
+}
+
+/** The zCDP line's ε equivalent: "(ε 1.2 of 2 at δ=1e-6)". */
+function epsilonEquivalent(s: SpendSummary): string {
+  return s.mode === "zcdp" && s.spentRho !== undefined && s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
+}
+
+/**
+ * The one privacy-loss line under a cell that released something (text/plain): per account, the
+ * analyst's total against the cap, this cell's part, what is left, and a bar.
+ * "privacy loss on visits: ε 0.3 of 3 used · this cell 0.05 · left 2.7 [##+.....]".
+ */
 export function lossText(lines: readonly LossLine[]): string {
-  return lines
-    .map((l) => {
-      const s = spendAmounts(l.spend);
-      const what = [l.released ? `${l.released} new` : "", l.replayed ? `${l.replayed} replayed` : ""].filter(Boolean).join(", ");
-      const eps = s.unit === "rho" && l.spend.delta !== undefined ? `, ε ${q(l.spend.spentEpsilon)} of ${q(l.spend.capEpsilon)} at δ=${q(l.spend.delta)}` : "";
-      // The total is the analyst's on the population: every dataset over the same people counts.
-      return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total on ${l.spend.population} ${s.symbol} ${q(s.total)} of ${q(s.cap)}${eps} (${what})`;
+  return accounts(lines)
+    .map((a) => {
+      const s = spendAmounts(a.spend);
+      const p = capParts(s.total, a.cellSpent.toString(), s.cap);
+      return (
+        `privacy loss on ${accountName(a)}: ${s.symbol} ${q(s.total)} of ${q(s.cap)} used${epsilonEquivalent(a.spend)}` +
+        ` · this cell ${q(p.recent === "?" ? "0" : p.recent)}${replayNote(a)} · left ${p.left === "?" ? "?" : q(p.left)} ${textBar(s.total, a.cellSpent.toString(), s.cap)}`
+      );
     })
     .join("\n");
 }
 
+/** The same in HTML: one `hush-loss` element per cell, with a labelled bar per account. */
 export function lossHtml(lines: readonly LossLine[]): string {
   return box(
-    lines
-      .map((l) => {
-        const s = spendAmounts(l.spend);
-        return `<div><b>privacy loss</b> · ${esc(l.dataset)} <span style="${MUTED}">(total on ${esc(l.spend.population)}: the cap is per analyst and population, shared by every dataset over the same people, and persists across sessions)</span></div>${budgetBar({ ...s, sessionSpent: l.sessionSpent })}`;
+    accounts(lines)
+      .map((a) => {
+        const s = spendAmounts(a.spend);
+        return (
+          `<div><b>privacy loss</b> on ${esc(accountName(a))}${esc(epsilonEquivalent(a.spend))}${esc(replayNote(a))} <span style="font-size:11px;${MUTED}">(the cap is per analyst and population and persists across sessions)</span></div>` +
+          budgetBar({ total: s.total, recent: a.cellSpent.toString(), cap: s.cap, symbol: s.symbol, recentLabel: "this cell", beforeLabel: "earlier" })
+        );
       })
       .join(""),
     "loss",

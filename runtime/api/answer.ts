@@ -4,7 +4,10 @@
  */
 import { BadInputError } from "../errors.js";
 import type { MechanismRecord, Receipt, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
-import { aligned, costText, percent, planText, rowLabel, shownValue, uniformStat } from "./text.js";
+import { aligned, methodLine, notesHint, percent, planText, q, rowLabel, shownValue, uniformStat, unitSymbol } from "./text.js";
+
+/** Node's hook for console.log and util.inspect (a registered symbol, so no import of node:util). */
+export const INSPECT = Symbol.for("nodejs.util.inspect.custom");
 
 /** One released number with its key, as numbers for computing and the exact strings as signed. */
 export interface ResultRow {
@@ -134,19 +137,30 @@ export class Answer {
     return [...this.release.mechanisms];
   }
 
-  /** One line for a single number; a small table for grouped results. */
+  /**
+   * The compact text view (docs/methods.md §18): the figure(s) rounded to what the error bar
+   * supports, the cost, one plain sentence on the error bars, and how many notes there are. The
+   * running privacy loss is not here: the kernel shows it once per cell.
+   */
   toString(): string {
     const r = this.release;
-    const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: this.sessionSpent, spend: r.spend });
+    const cost = r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
+    const tail = [cost, notesHint(r.notes)].filter((x) => x !== "").join(" · ");
     if (this.isScalar) {
-      const row = r.rows[0];
-      // A quantile from the exponential mechanism has a rank guarantee, not a value interval (notes).
-      const bar = row.value !== null && (row.low === null || row.high === null) ? "no value interval, see notes" : percent(r.confidence);
-      return `${this.what} = ${shownValue(row)} (${bar}) · ${cost}`;
+      return `${this.what} = ${shownValue(r.rows[0])} · ${cost}\n  ${methodLine(r)}${notesHint(r.notes) ? ` · ${notesHint(r.notes)}` : ""}`;
     }
     const uniform = uniformStat(r.rows);
     const lines = aligned(r.rows.map((row) => [rowLabel(row, !uniform), shownValue(row)]));
-    return [`${this.what} (${percent(r.confidence)}, noise-only error bars):`, ...lines, cost].join("\n");
+    return [`${this.what} (${percent(r.confidence)}):`, ...lines, `  ${methodLine(r)}`, tail].join("\n");
+  }
+
+  /** console.log(answer), util.inspect: a one-line summary, not the internal object. */
+  [INSPECT](): string {
+    const r = this.release;
+    const first = r.rows[0];
+    const shown = this.isScalar && first ? `${this.what} = ${shownValue(first)}` : `${this.what}: ${r.rows.length} values`;
+    // No cost wording here: a copy of the answer in a log is not a release (cli/audit/notebook.ts).
+    return `Answer <${shown} (${percent(r.confidence)}) · receipt #${r.receipt.seq} on ${r.dataset}${r.replay ? ", replayed" : ""}>`;
   }
 
   toJSON(): Release {

@@ -3,8 +3,8 @@
  * Every released number goes through protocol/format.ts, the same functions the notebook audit uses
  * to check that what a notebook shows is what the curator signed.
  */
-import { formatDecimal, formatWithError } from "../protocol/format.js";
-import type { GroupKey, Measure, QueryPlan, ReleaseRow, SpendSummary } from "../protocol/messages.js";
+import { type FigureParts, figureParts, formatDecimal, formatWithError } from "../protocol/format.js";
+import type { GroupKey, Measure, QueryPlan, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
 import { conditionText } from "./expr.js";
 
 /** "ε" or "ρ" for a receipt or preview unit. */
@@ -17,9 +17,72 @@ export function q(s: string): string {
   return formatDecimal(s, 6);
 }
 
-/** A released value with its error bar, as the audit expects to find it. */
+/**
+ * A released value with its error bar, rounded to what the error bar supports and with thousands
+ * separators (docs/methods.md §18), as the audit expects to find it: "177,760 ± 480".
+ */
 export function shownValue(row: Pick<ReleaseRow, "value" | "low" | "high">): string {
   return formatWithError(row.value, row.low, row.high);
+}
+
+/** The value and the error-bar part of shownValue, apart (for the HTML view's hooks). */
+export function shownParts(row: Pick<ReleaseRow, "value" | "low" | "high">): FigureParts {
+  return figureParts(row.value, row.low, row.high);
+}
+
+/** What the statistic of a measure is called in a sentence ("count", "mean", "median"). */
+function statNoun(m: Measure): string {
+  switch (m.kind) {
+    case "count":
+    case "histogram":
+    case "crosstab":
+      return "count";
+    case "sum":
+    case "mean":
+    case "variance":
+      return m.kind;
+    case "std":
+      return "standard deviation";
+    case "quantile":
+      return m.p.length === 1 ? quantileName(m.p[0]) : "quantile";
+    case "describe":
+      return "statistic";
+  }
+}
+
+/**
+ * One plain sentence on what the error bars mean, with the exact statement left to the release's
+ * intervalMethod (shown one click away in HTML). A release without any interval (a quantile whose
+ * guarantee is on rank) says so instead, and carries no noise-only notice.
+ */
+export function methodLine(r: Pick<Release, "plan" | "rows" | "confidence" | "groupColumns">): string {
+  const noun = statNoun(r.plan.measure);
+  const withBar = r.rows.filter((x) => x.value !== null && x.low !== null && x.high !== null);
+  if (withBar.length === 0) {
+    return r.plan.measure.kind === "quantile" ? `no interval on the value: the ${noun}'s guarantee is on its rank (see the notes)` : "no error bar";
+  }
+  const pct = percent(r.confidence);
+  const scalar = r.rows.length === 1 && r.groupColumns.length === 0;
+  const bars = withBar.map((x) => shownParts(x).bar ?? "");
+  const each = scalar ? "" : "for each value, ";
+  if (bars.every((b) => b.startsWith("±"))) {
+    // Discrete noise: the stated half-width has a tail at most 1 - confidence (docs/methods.md §4, §13),
+    // and the printed one is never narrower (§18).
+    const h = scalar ? bars[0].replace("± ", "±") : "the ± shown";
+    return `${each}at least ${pct} of such answers fall within ${h} of the true ${noun} (privacy noise only)`;
+  }
+  return `${each}at least ${pct} of such intervals contain the true ${noun} (privacy noise only)`;
+}
+
+/** The release's notes that the method line does not already say. */
+export function foldedNotes(notes: readonly string[]): string[] {
+  return notes.filter((n) => !n.startsWith("Error bars are noise-only"));
+}
+
+/** "2 notes: .notes" for text views; empty with no notes. */
+export function notesHint(notes: readonly string[]): string {
+  const n = foldedNotes(notes).length;
+  return n === 0 ? "" : `${plural(n, "note")}: .notes`;
 }
 
 /** "95%" for 0.95; "99.5%" for 0.995. */

@@ -125,19 +125,114 @@ function same(a: Exact, b: Exact): boolean {
   return a.neg === b.neg && a.num * b.den === b.num * a.den;
 }
 
+/** Thousands separators on the integer part of a plain decimal ("-1234567.25" → "-1,234,567.25"). */
+export function groupThousands(plainText: string): string {
+  if (/e/i.test(plainText)) return plainText;
+  const m = /^(-?)(\d+)(\.\d+)?$/.exec(plainText);
+  if (m === null) return plainText;
+  return `${m[1]}${m[2].replace(/\B(?=(\d{3})+(?!\d))/g, ",")}${m[3] ?? ""}`;
+}
+
+// ---- The display rule for a figure with an error bar (docs/methods.md §18) ----
+
+/** Below this decimal place the three numbers of a figure are written in scientific form. */
+const SCI_PLACE = -9;
+
+const signed = (x: Exact): bigint => (x.neg ? -x.num : x.num);
+const pow10 = (k: number): bigint => 10n ** BigInt(k);
+
+function floorDiv(a: bigint, b: bigint): bigint {
+  const q = a / b;
+  return a % b !== 0n && a < 0n !== b < 0n ? q - 1n : q;
+}
+
+function ceilDiv(a: bigint, b: bigint): bigint {
+  return -floorDiv(-a, b);
+}
+
+/** x / 10^p as an exact signed fraction (num, den > 0). */
+function atPlace(x: Exact, p: number): [bigint, bigint] {
+  return p >= 0 ? [signed(x), x.den * pow10(p)] : [signed(x) * pow10(-p), x.den];
+}
+
+/** Rounds a signed fraction to the nearest integer, halves away from zero. */
+function roundSigned(num: bigint, den: bigint): bigint {
+  const r = roundHalfAway(num < 0n ? -num : num, den);
+  return num < 0n ? -r : r;
+}
+
+/** `m × 10^p` written with exactly the digits down to place p (trailing zeros kept: they are significant). */
+function writeAt(m: bigint, p: number): string {
+  if (m === 0n) return "0";
+  const sign = m < 0n ? "-" : "";
+  const digits = (m < 0n ? -m : m).toString();
+  if (p < SCI_PLACE) {
+    const e = digits.length - 1 + p;
+    return `${sign}${digits[0]}${digits.length > 1 ? `.${digits.slice(1)}` : ""}e${e}`;
+  }
+  if (p >= 0) return groupThousands(`${sign}${digits}${"0".repeat(p)}`);
+  const padded = digits.padStart(-p + 1, "0");
+  return groupThousands(`${sign}${padded.slice(0, padded.length + p)}.${padded.slice(padded.length + p)}`);
+}
+
+const isInteger = (x: Exact): boolean => x.num % x.den === 0n;
+
+/** The two parts of a shown figure: the value, and its error bar ("± 480" or "[22.6, 25.9]") or null. */
+export interface FigureParts {
+  value: string;
+  bar: string | null;
+}
+
 /**
- * "12.5 ± 0.75" from an estimate and its interval ends when the interval is symmetric (checked
- * exactly), otherwise "12.5 [11.9, 13.4]". Missing ends show the estimate alone; a missing estimate "n/a".
+ * How a released value and its interval are shown (docs/methods.md §18). With a positive
+ * half-width w (the exact half-width of a symmetric interval, half the width of another one):
+ * - the decimal place p is that of w's second significant digit, and never below the units when
+ *   the value and both ends are integers (counts stay whole numbers);
+ * - the value is rounded to place p, halves away from zero;
+ * - a symmetric interval shows "value ± W", W being w rounded up at place p (never narrower than
+ *   the exact half-width); another interval shows "value [L, H]" with L rounded down and H
+ *   rounded up at place p (the printed ends hold the exact ones);
+ * - the integer parts carry thousands separators ("177,760 ± 480"), and below place 10^-9 each
+ *   number is written in scientific form ("5.2e-14").
+ * A zero half-width (or a value without interval) leaves nothing to round to: the value shows at
+ * 6 significant digits, integers in full. The exact figures stay in the release and its receipt.
  */
-export function formatWithError(value: string | null, low: string | null, high: string | null, sig = 6): string {
-  if (value === null) return "n/a";
-  checkSig(sig, "formatWithError");
+export function figureParts(value: string | null, low: string | null, high: string | null): FigureParts {
+  if (value === null) return { value: "n/a", bar: null };
   const v = parseExact(value, "formatWithError");
-  if (low === null || high === null) return formatExact(v, sig);
+  if (low === null || high === null) return { value: groupThousands(formatExact(v, 6)), bar: null };
   const lo = parseExact(low, "formatWithError");
   const hi = parseExact(high, "formatWithError");
   const below = sub(v, lo);
   const above = sub(hi, v);
-  if (same(below, above) && !above.neg) return `${formatExact(v, sig)} ± ${formatExact(above, sig)}`;
-  return `${formatExact(v, sig)} [${formatExact(lo, sig)}, ${formatExact(hi, sig)}]`;
+  const symmetric = same(below, above) && !above.neg;
+  // The half-width that sets the decimal place: exact for ±, half the width otherwise.
+  const width = sub(hi, lo);
+  const w: Exact = symmetric ? above : { neg: false, num: width.num, den: width.den * 2n };
+  const six = (x: Exact): string => groupThousands(formatExact(x, 6));
+  if (w.num === 0n) {
+    return symmetric ? { value: six(v), bar: "± 0" } : { value: six(v), bar: `[${six(lo)}, ${six(hi)}]` };
+  }
+  let p = magnitude(w.num, w.den) - 1;
+  if (p < 0 && isInteger(v) && isInteger(lo) && isInteger(hi)) p = 0;
+  const [vn, vd] = atPlace(v, p);
+  const V = roundSigned(vn, vd);
+  if (symmetric) {
+    // W·10^p >= w: the printed half-width is never narrower than the exact one.
+    const [wn, wd] = atPlace(w, p);
+    return { value: writeAt(V, p), bar: `± ${writeAt(ceilDiv(wn, wd), p)}` };
+  }
+  const [ln, ld] = atPlace(lo, p);
+  const [hn, hd] = atPlace(hi, p);
+  return { value: writeAt(V, p), bar: `[${writeAt(floorDiv(ln, ld), p)}, ${writeAt(ceilDiv(hn, hd), p)}]` };
+}
+
+/**
+ * A released value with its error bar as every view shows it and the notebook audit reads it:
+ * "177,760 ± 480", "24.3 [22.6, 25.9]", or the value alone; "n/a" for a missing value. The rule
+ * is figureParts's (docs/methods.md §18). Throws a TypeError on a string that is not a number.
+ */
+export function formatWithError(value: string | null, low: string | null, high: string | null): string {
+  const f = figureParts(value, low, high);
+  return f.bar === null ? f.value : `${f.value} ${f.bar}`;
 }
