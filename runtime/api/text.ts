@@ -3,7 +3,7 @@
  * Every released number goes through protocol/format.ts, the same functions the notebook audit uses
  * to check that what a notebook shows is what the curator signed.
  */
-import { type FigureParts, figureParts, formatDecimal, formatWithError } from "../protocol/format.js";
+import { type FigureParts, figureParts, formatAmount, formatDecimal, formatWithError } from "../protocol/format.js";
 import type { GroupKey, Measure, QueryPlan, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
 import { conditionText } from "./expr.js";
 
@@ -173,10 +173,11 @@ export function spendText(s: SpendSummary): string {
  */
 export function remainingText(s: SpendSummary): string {
   const on = s.population === s.dataset ? s.dataset : `${s.dataset} (population ${s.population})`;
+  // What is left is rounded down, so it never reads as more than there is.
   if (s.mode === "zcdp" && s.remainingRho !== undefined && s.capRho !== undefined) {
-    return `ρ ${q(s.remainingRho)} of ${q(s.capRho)} remains on ${on} for ${s.analyst}`;
+    return `ρ ${formatAmount(s.remainingRho, "down")} of ${formatAmount(s.capRho, "down")} remains on ${on} for ${s.analyst}`;
   }
-  return `ε ${q(s.remainingEpsilon)} of ${q(s.capEpsilon)} remains on ${on} for ${s.analyst}`;
+  return `ε ${formatAmount(s.remainingEpsilon, "down")} of ${formatAmount(s.capEpsilon, "down")} remains on ${on} for ${s.analyst}`;
 }
 
 export function plural(n: number, word: string): string {

@@ -5,6 +5,7 @@
  */
 import { epsilonFromRho, Rational } from "../core/index.js";
 import { OverCapError } from "../errors.js";
+import { formatAmount } from "../protocol/format.js";
 import type { SpendSummary } from "../protocol/messages.js";
 import { exactDecimal } from "./aggregates/budget.js";
 import type { DatasetPolicy } from "./policy.js";
@@ -50,14 +51,20 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
   };
 }
 
-/** The refusal of a release that would cross the cap; names amounts, never a data value. */
+/**
+ * The refusal of a release that would cross the cap; names amounts, never a data value. Amounts
+ * are decimals with the accounting unit's symbol, rounded so the refusal never reads as if the ask
+ * fitted: the cost and the spend up, what is left down (runtime/protocol/format.ts formatAmount).
+ */
 export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
   const cap = capOf(d);
-  const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
+  const unit = d.accounting.mode === "pure" ? "ε" : "ρ";
+  const up = (x: Rational): string => formatAmount(x.toString(), "up");
+  const down = (x: Rational): string => formatAmount(x.toString(), "down");
   return new OverCapError(
-    `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
-      `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on population ${d.population} ` +
-      `(dataset ${d.name} and every other dataset over the same people; spent ${spent.toString()}); nothing was spent`,
+    `over the cap: this query costs ${unit} ${up(cost)}, but ${analyst} has ${unit} ` +
+      `${down(cap.sub(spent).max(Rational.ZERO))} left of the cap ${down(cap)} on population ${d.population} ` +
+      `(dataset ${d.name} and every other dataset over the same people; spent ${up(spent)}); nothing was spent`,
     { spend: spendSummary(analyst, d, spent, releases) },
   );
 }

@@ -163,7 +163,8 @@ function roundSigned(num: bigint, den: bigint): bigint {
 
 /** `m × 10^p` written with exactly the digits down to place p (trailing zeros kept: they are significant). */
 function writeAt(m: bigint, p: number): string {
-  if (m === 0n) return "0";
+  // Zero keeps its decimal places ("0.00 ± 0.50"); it never has a sign.
+  if (m === 0n) return p < 0 && p >= SCI_PLACE ? `0.${"0".repeat(-p)}` : "0";
   const sign = m < 0n ? "-" : "";
   const digits = (m < 0n ? -m : m).toString();
   if (p < SCI_PLACE) {
@@ -235,4 +236,25 @@ export function figureParts(value: string | null, low: string | null, high: stri
 export function formatWithError(value: string | null, low: string | null, high: string | null): string {
   const f = figureParts(value, low, high);
   return f.bar === null ? f.value : `${f.value} ${f.bar}`;
+}
+
+/**
+ * A privacy amount (a cost, a total, what is left of a cap) as a decimal of at most `sig`
+ * significant digits, never as a fraction, rounded in one direction: "up" for what an ask costs
+ * or what was spent, "down" for what is left. A refusal then never reads as if the ask fitted
+ * (the cost shown is at least the true cost, which is more than what is left, which is at least
+ * the amount shown as left). Integers keep all their digits.
+ */
+export function formatAmount(value: string, direction: "up" | "down", sig = 6): string {
+  checkSig(sig, "formatAmount");
+  const x = parseExact(value, "formatAmount");
+  if (x.num === 0n) return "0";
+  if (x.num % x.den === 0n) return formatExact(x, sig);
+  const e = magnitude(x.num, x.den);
+  const k = sig - 1 - e; // fraction digits that keep `sig` significant digits
+  const [n, d] = atPlace(x, -k); // x · 10^k
+  const m = direction === "up" ? ceilDiv(n, d) : floorDiv(n, d);
+  if (m === 0n) return "0";
+  // Written back through the exact formatter: m · 10^-k has at most sig (+1 on a carry) digits.
+  return formatExact(parseExact(`${m}e${-k}`, "formatAmount"), sig + 1);
 }

@@ -130,7 +130,9 @@ describe("notebook audit on a signed, assembled notebook", () => {
     for (const c of nb.cells) {
       for (const o of c.outputs ?? []) {
         if (o.data === undefined) continue;
-        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>5995 &plusmn; 240</td></tr><tr><td>2025</td><td>[90, 100]</td><td>6120 &plusmn; 240</td></tr></table><div>cost &epsilon;=0.1 · total 0.1 / 1</div>`;
+        // The figures as the kernel rounds them ("6,000 ± 240", docs/methods.md §18), ± as a reference.
+        const [a, b] = [formatWithError("5995", "5755", "6235"), formatWithError("6120", "5880", "6360")].map((f) => f.replace("±", "&plusmn;"));
+        o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>${a}</td></tr><tr><td>2025</td><td>[90, 100]</td><td>${b}</td></tr></table><div>cost &epsilon;=0.1 · total 0.1 / 1</div>`;
       }
     }
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
@@ -147,15 +149,15 @@ describe("notebook audit on a signed, assembled notebook", () => {
     const nb = assembleNotebook([r, r]);
     const figures = values.map(([v, lo, hi]) => formatWithError(v, lo, hi));
     // The kernel's own building blocks (kernel/display/html.ts), as a release view puts them together.
+    const figureHtml = (f: string): string => `<span class="hush-value">${esc(f.split(" ")[0])}</span> <span class="hush-errorbar">${esc(f.split(" ").slice(1).join(" "))}</span>`;
     const html = box(
-      `<div><b>count by zone</b> <span style="opacity:0.75">on visits-course</span>${badge("replayed — no new cost", "#2e7d32")}</div>` +
-        table(["zone", "estimate (95%)", "interval"], keys.map((k, i) => [esc(k[0]), esc(figures[i]), `[${values[i][1]}, ${values[i][2]}]`]), new Set([1, 2])) +
-        `<div style="margin-top:4px">cost ε=0.1 · total 0.1 / 1</div>` +
-        budgetBar({ total: "0.1", sessionSpent: "0.1", cap: "1", symbol: "ε" }) +
-        `<div style="font-size:12px;opacity:0.75">ⓘ noise-only interval</div>` +
-        notesList(["a note — with a dash"]),
+      `<div><b>count by zone</b> <span style="opacity:0.75">on visits-course</span>${badge("replayed, no new cost", "#2e7d32")}</div>` +
+        table(["zone", "count (95%)"], keys.map((k, i) => [esc(k[0]), figureHtml(figures[i])]), new Set([1])) +
+        `<div style="font-size:12px;opacity:0.75">for each value, at least 95% of such answers fall within the ± shown of the true count (privacy noise only)</div>` +
+        `<div style="margin-top:4px">cost ε=0.1</div>` +
+        `<details class="hush-notes" style="margin-top:2px;font-size:12px"><summary style="opacity:0.75">details and 1 note</summary>${notesList(["a note — with a dash"])}</details>`,
       "release",
-    );
+    ) + box(`<div><b>privacy loss</b> on visits-course</div>${budgetBar({ total: "0.1", recent: "0.1", cap: "1", symbol: "ε", recentLabel: "this cell", beforeLabel: "earlier" })}`, "loss");
     for (const c of nb.cells) for (const o of c.outputs ?? []) if (o.data !== undefined) o.data["text/html"] = html;
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
   });

@@ -145,10 +145,21 @@ function firstFigure(rel: Located): string {
   return formatWithError(row[3], row[4], row[5]);
 }
 
+/**
+ * The kernel's HTML marks a figure's value and error bar for the browser test
+ * (`<span class="hush-value">177,760</span> <span class="hush-errorbar">± 480</span>`); a tamper
+ * edits the figure as a person reads it, so the marks are taken off first (still the kernel's
+ * vocabulary, and the same text to a reader).
+ */
+export function plainFigures(html: string): string {
+  return html.replace(/<span class="hush-value">([^<]*)<\/span> <span class="hush-errorbar">([^<]*)<\/span>/g, "$1 $2").replace(/<span class="hush-value">([^<]*)<\/span>/g, "$1");
+}
+
 function mapText(o: NbOutput, mimes: string[], f: (s: string) => string): void {
   for (const mime of mimes) {
     const v = o.data?.[mime];
-    if (typeof v === "string" || Array.isArray(v)) o.data![mime] = f(Array.isArray(v) ? (v as string[]).join("") : v);
+    const text = Array.isArray(v) ? (v as string[]).join("") : v;
+    if (typeof text === "string") o.data![mime] = f(mime === "text/html" ? plainFigures(text) : text);
   }
 }
 
@@ -178,7 +189,7 @@ export function hideSignedInHtml(nb: Notebook, seq: number): Notebook {
   const shown = firstFigure(rel);
   const plain = textOf(rel.output);
   const html = rel.output.data!["text/html"];
-  const base = html === undefined ? `<pre>${plain}</pre>` : Array.isArray(html) ? (html as string[]).join("") : String(html);
+  const base = html === undefined ? `<pre>${plain}</pre>` : plainFigures(Array.isArray(html) ? (html as string[]).join("") : String(html));
   rel.output.data!["text/html"] = base.replace(shown, `${MADE_UP}<span style="display:none">${shown}</span>`);
   return out;
 }
@@ -366,7 +377,8 @@ export function rewriteFigure(nb: Notebook, seq: number, t: ReadingTamper): Note
   for (const mime of mimes) {
     const v = data[mime];
     if (v === undefined) continue;
-    const s = Array.isArray(v) ? (v as string[]).join("") : String(v);
+    const raw = Array.isArray(v) ? (v as string[]).join("") : String(v);
+    const s = mime === "text/html" ? plainFigures(raw) : raw;
     if (!s.includes(shown)) throw new Error(`release seq ${seq} does not show "${shown}" in ${mime}`);
     data[mime] = s.replace(shown, t.edit(shown));
   }

@@ -33,21 +33,27 @@ function expectShown(b: MimeBundle, a: Answer): void {
 }
 
 describe("release bundles", () => {
-  test("a scalar: one line, HTML with value, interval, method, cost and budget bar; receipt in metadata", async () => {
+  test("a scalar: the compact view in text/plain and HTML, with the browser test's hooks; receipt in metadata", async () => {
     const { session, hush } = await fakeSession();
     const t = await hush.open("clinic");
     const a = await t.mean("wait_minutes", { epsilon: 0.1 });
     const b = (await session.render(a))!;
-    expect(b.data["text/plain"]).toBe("mean wait_minutes = 100 ± 5 (95%) · cost ε=0.1 · session 0.1 · total 0.1 / 1");
-    expect(b.data["text/plain"]).toMatch(/^\S.* = \S+ ± \S+ \(\d+%\) · cost ε=[\d.]+ · session [\d.]+ · total [\d.]+ \/ [\d.]+$/);
+    // Written by hand: the figure, the cost, one plain sentence, the number of notes.
+    expect(b.data["text/plain"]).toBe(
+      "mean wait_minutes = 100 ± 5 · cost ε=0.1\n  at least 95% of such answers fall within ±5 of the true mean (privacy noise only) · 1 note: .notes",
+    );
     const html = b.data["text/html"] as string;
-    expect(html).toContain("100 ± 5");
-    expect(html).toContain("[95, 105]");
-    expect(html).toContain("invented interval (fake curator)");
-    expect(html).toContain("noise-only interval");
-    expect(html).toContain("cost ε=0.1 · session 0.1 · total 0.1 / 1");
-    expect(html).toContain("ε 0.1 of 1 used (this session 0.1)");
-    expect(html).not.toContain("<script");
+    expect(html.startsWith('<div class="hush-release" ')).toBe(true);
+    expect(html.match(/class="hush-release"/g)).toHaveLength(1);
+    expect(html).toContain('<span class="hush-value">100</span> <span class="hush-errorbar">± 5</span>');
+    expect(html).toContain(">at least 95% of such answers fall within ±5 of the true mean (privacy noise only)</div>");
+    expect(html).toContain('<div style="margin-top:2px">cost ε=0.1</div>');
+    // Notes, the exact method and the receipt are folded away in a disclosure element, after the cost.
+    expect(html).toMatch(/<details class="hush-notes"[^>]*><summary[^>]*>details and 1 note<\/summary>.*method: invented interval \(fake curator\).*<li>invented note<\/li>.*receipt #1 for ada.*<\/details><\/div>$/);
+    expect(html.indexOf("cost ε=0.1")).toBeLessThan(html.indexOf("<details"));
+    // No running total inside the release (the one privacy-loss line is under the cell), no glyph
+    // Debian Chromium's default fonts lack.
+    expect(html).not.toMatch(/session|total|hush-loss|ⓘ|<script/);
     expect(b.metadata).toEqual({ [OUTPUT_METADATA_KEY]: { receipt: a.receipt, replay: false, dataset: "clinic" } });
     expect(b.data[VEGALITE_MIME]).toBeUndefined();
     expectShown(b, a);
@@ -122,8 +128,9 @@ describe("release bundles", () => {
     await t.count({ epsilon: 0.1 });
     const again = await t.count({ epsilon: 0.1 });
     const b = (await session.render(again))!;
-    expect(b.data["text/html"]).toContain("replayed — no new cost");
-    expect(b.data["text/plain"]).toContain("replayed, no new cost");
+    expect(b.data["text/html"]).toContain("replayed, no new cost");
+    expect(b.data["text/html"]).not.toContain("cost ε=");
+    expect(b.data["text/plain"]).toBe("count = 100 ± 5 · replayed, no new cost\n  at least 95% of such answers fall within ±5 of the true count (privacy noise only) · 1 note: .notes");
     expect((b.metadata[OUTPUT_METADATA_KEY] as { replay: boolean }).replay).toBe(true);
   });
 
@@ -132,8 +139,13 @@ describe("release bundles", () => {
     const t = await hush.open("clinic");
     const q = await t.quantiles("age", [0.25, 0.75], { epsilon: 0.1 });
     const b = (await session.render(q))!;
-    expect(b.data["text/plain"]).toContain("p25 age  30.5");
-    expect(b.data["text/html"]).toContain("<td");
+    expect(b.data["text/plain"]).toBe(
+      "quantiles p25, p75 of age (95%):\n  p25 age  30.5\n  p75 age  30.5\n  no interval on the value: the quantile's guarantee is on its rank (see the notes)\ncost ε=0.1 · 1 note: .notes",
+    );
+    const html = b.data["text/html"] as string;
+    expect(html).toContain('<td style="text-align:right;padding:1px 10px 1px 0;white-space:nowrap"><span class="hush-value">30.5</span></td>');
+    // No interval, so no noise-only notice and no error-bar hook.
+    expect(html).not.toMatch(/hush-errorbar|noise only|noise-only/);
     expectShown(b, q);
   });
 });
@@ -169,9 +181,18 @@ describe("other bundles", () => {
     await t.sum("age", { epsilon: 0.2 });
     await t.count({ epsilon: 0.1 });
     const b = (await session.afterCell())!;
-    expect(b.data["text/plain"]).toBe("privacy loss · clinic: this session ε 0.3 · ada's total on clinic ε 0.3 of 1 (2 new, 1 replayed)");
-    expect(b.data["text/html"]).toContain("ε 0.3 of 1 used (this session 0.3)");
+    expect(b.data["text/plain"]).toBe("privacy loss on clinic: ε 0.3 of 1 used · this cell 0.3 (1 answer replayed, no new cost) · left 0.7 [+++++++.................]");
+    const html = b.data["text/html"] as string;
+    expect(html.match(/class="hush-loss"/g)).toHaveLength(1);
+    // The bar's three parts, labelled with their amounts.
+    expect(html).toMatch(/<span>earlier 0<\/span>.*<span>this cell 0\.3<\/span>.*<span>left 0\.7<\/span>.*ε 0\.3 of 1 used/);
+    expect(html).toContain("width:30.00%;background:#e8a33d");
     expect(await session.afterCell()).toBeNull();
+    // The next cell: what it spent is "this cell", the rest "earlier".
+    await t.sum("age", { epsilon: 0.05 });
+    const next = (await session.afterCell())!;
+    expect(next.data["text/plain"]).toBe("privacy loss on clinic: ε 0.35 of 1 used · this cell 0.05 · left 0.65 [#######+................]");
+    expect(next.data["text/html"]).toMatch(/<span>earlier 0\.3<\/span>.*<span>this cell 0\.05<\/span>.*<span>left 0\.65<\/span>/);
   });
 
   test("HTML escaping", () => {

@@ -72,7 +72,7 @@ describe.each<Transport>(["ipc", "tcp"])("spend per population over %s", (transp
       );
       expect(err).toBeInstanceOf(OverCapError);
       const over = err as OverCapError;
-      expect(over.message).toMatch(/costs epsilon 1\/2.*2\/5 left of the cap 1 on population clinic\.csv.*spent 3\/5.*nothing was spent/);
+      expect(over.message).toMatch(/costs ε 0\.5, but .* has ε 0\.4 left of the cap 1 on population clinic\.csv.*spent 0\.6\).*nothing was spent/);
       expect(over.spend).toMatchObject({ dataset: "clinic_b", population: "clinic.csv", spentEpsilon: "3/5", releases: 1 });
       // Nothing was spent on the refusal, on either view.
       expect(await ada.spend("clinic_b")).toMatchObject({ spentEpsilon: "3/5", releases: 1 });

@@ -139,7 +139,7 @@ describe.each<Transport>(["ipc", "tcp"])("curator over %s", (transport) => {
       );
       expect(err).toBeInstanceOf(OverCapError);
       const e = err as OverCapError;
-      expect(e.message).toMatch(/over the cap.*costs epsilon 1\/2.*2\/5 left of the cap 1/);
+      expect(e.message).toMatch(/over the cap.*costs ε 0\.5.*ε 0\.4 left of the cap 1/);
       expect(e.spend).toMatchObject({ spentEpsilon: "3/5", remainingEpsilon: "2/5", releases: 1 });
       expect((await ben.spend("clinic")).spentEpsilon).toBe("3/5");
       // Exactly the remainder still fits: the cap is inclusive and the arithmetic exact.
