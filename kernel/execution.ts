@@ -10,11 +10,29 @@
  * be cancelled from outside.
  */
 import { createRequire } from "node:module";
-import { format, inspect } from "node:util";
+import vm from "node:vm";
 import type * as TsExecutor from "tslab/dist/executor.js";
 import type * as TsConverter from "tslab/dist/converter.js";
 import { runAsCell } from "../runtime/api/asking-cell.js";
+import { type CellError, diagnosticText, readableError, registerCell } from "./cell-errors.js";
 import { hasTopLevelAwait } from "./top-level-await.js";
+
+export type { CellError } from "./cell-errors.js";
+
+// tslab runs each cell with vm.runInThisContext and no file name. The next call gets the name the
+// cell was registered under (cell-errors.ts), so its stack frames say which cell holds the code.
+let nextFileName: string | null = null;
+const runInThisContext = vm.runInThisContext;
+if (!(runInThisContext as { hushNamed?: boolean }).hushNamed) {
+  const named = function (code: string, options?: vm.RunningScriptOptions | string): unknown {
+    const filename = nextFileName;
+    nextFileName = null;
+    if (filename === null || typeof options === "string") return runInThisContext.call(vm, code, options);
+    return runInThisContext.call(vm, code, { ...options, filename });
+  };
+  (named as { hushNamed?: boolean }).hushNamed = true;
+  vm.runInThisContext = named as typeof vm.runInThisContext;
+}
 
 const require = createRequire(import.meta.url);
 
@@ -49,16 +67,11 @@ function tslab(): Tslab {
 /** TypeScript version of the language service, read without loading the compiler. */
 export const TYPESCRIPT_VERSION = (require("@tslab/typescript-for-tslab/package.json") as { version: string }).version;
 
-export interface CellError {
-  ename: string;
-  evalue: string;
-  traceback: string[];
-}
-
 export type RunOutcome = { status: "ok"; hasValue: boolean; value?: unknown } | ({ status: "error" } & CellError);
 
 export interface Execution {
-  run(code: string): Promise<RunOutcome>;
+  /** Runs a cell; `count` is its execution count, used to name it in errors (null when not counted). */
+  run(code: string, count?: number | null): Promise<RunOutcome>;
   complete(code: string, cursor: number): { matches: string[]; cursor_start: number; cursor_end: number };
   /** Plain-text quick info at the cursor, or null when nothing is there. */
   inspect(code: string, cursor: number): string | null;
@@ -78,12 +91,11 @@ export interface ExecutionOptions {
   declarations: string;
 }
 
-const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`"];
-
 export function createExecution(opts: ExecutionOptions): Execution {
   const { createConverter, createExecutor, printQuickInfo } = tslab();
   const node = createConverter({ isJS: false, isBrowser: false });
   const globalBlock = asGlobalBlock(opts.declarations);
+  let runningCount: number | null = null;
   // Declarations of earlier cells arrive as `prevDecl`; the globals ride in front of them inside a
   // `declare global` block, which tslab never copies into the next cell's declarations.
   const withGlobals: TsConverter.Converter = {
@@ -94,6 +106,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
       if (converted.output && !converted.hasToplevelAwait && hasTopLevelAwait(converted.output)) {
         converted.hasToplevelAwait = true;
       }
+      if (converted.output) nextFileName = registerCell(src, converted.output, runningCount);
       return converted;
     },
     inspect: (prev, src, pos) => node.inspect(globalBlock + prev, src, pos),
@@ -149,13 +162,19 @@ export function createExecution(opts: ExecutionOptions): Execution {
   };
 
   return {
-    async run(code) {
+    async run(code, count = null) {
       result = null;
       failures = [];
+      runningCount = count;
       // Asks made by this code (now or later, from work it started) carry its source digest.
-      const ok = await runAsCell(code, () => executor.execute(code));
+      let ok: boolean;
+      try {
+        ok = await runAsCell(code, () => executor.execute(code));
+      } finally {
+        nextFileName = null;
+      }
       exposeLocals();
-      if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures) };
+      if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures, count) };
       const r = result as { value: unknown } | null;
       return r ? { status: "ok", hasValue: true, value: r.value } : { status: "ok", hasValue: false };
     },
@@ -204,11 +223,11 @@ function hasParseErrors(code: string): boolean {
   return (sf.parseDiagnostics?.length ?? 0) > 0;
 }
 
-function describeFailures(failures: unknown[][]): CellError {
+function describeFailures(failures: unknown[][], count: number | null): CellError {
   // Compile diagnostics come as printf-style calls ("%s%d:%d - %s", file, line, col, text).
   const diagnostics = failures.filter((f) => typeof f[0] === "string" && f.length > 1);
   if (diagnostics.length > 0) {
-    const lines = diagnostics.map((f) => format(...(f as [string, ...unknown[]])));
+    const lines = diagnostics.map((f) => diagnosticText(f, count));
     return {
       ename: "TypeScriptError",
       evalue: lines.length === 1 ? lines[0] : `${lines[0]} (and ${lines.length - 1} more)`,
@@ -219,24 +238,7 @@ function describeFailures(failures: unknown[][]): CellError {
   return describeThrown(thrown);
 }
 
+/** A thrown value as the analyst reads it: no internal frames, the cell and line (cell-errors.ts). */
 export function describeThrown(thrown: unknown): CellError {
-  if (thrown instanceof Error) {
-    if (INTERRUPT_MESSAGES.includes(thrown.message)) {
-      return { ename: "Interrupted", evalue: "the cell was interrupted", traceback: ["Interrupted: the cell was interrupted"] };
-    }
-    return { ename: thrown.name, evalue: thrown.message, traceback: cellStack(thrown) };
-  }
-  const text = inspect(thrown, { depth: 3 });
-  return { ename: "Thrown", evalue: text, traceback: [`Thrown: ${text}`] };
-}
-
-/** The error's stack without kernel and tslab frames; cell frames are named `<cell>`. */
-function cellStack(e: Error): string[] {
-  const lines = (e.stack ?? `${e.name}: ${e.message}`).split("\n");
-  const kept: string[] = [];
-  for (const line of lines) {
-    if (/^\s+at /.test(line) && /node:vm|node:internal|tslab[/\\]dist|[/\\]kernel[/\\]/.test(line)) continue;
-    kept.push(line.replace(/evalmachine\.<anonymous>/g, "<cell>"));
-  }
-  return kept;
+  return readableError(thrown);
 }

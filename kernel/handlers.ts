@@ -107,7 +107,7 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       let outcome: Awaited<ReturnType<Execution["run"]>>;
       try {
         if (!c.silent) await ctx.publish("execute_input", { code: c.code, execution_count: count });
-        outcome = await execution.run(c.code);
+        outcome = await execution.run(c.code, counted ? count : null);
       } finally {
         parts.cellRunning(false);
       }
@@ -121,7 +121,11 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
           await ctx.publish("stream", { name: "stderr", text: `hush: could not display the result: ${errorText(e)}\n` });
         }
       }
-      if (outcome.status === "error" && !c.silent) await ctx.publish("error", errorContent(outcome));
+      if (outcome.status === "error" && !c.silent) {
+        // A refusal is drawn as an output of its own (kernel/display/refusal.ts), then reported as the error.
+        if (outcome.display) await ctx.publish("display_data", { data: outcome.display.data, metadata: outcome.display.metadata, transient: {} });
+        await ctx.publish("error", errorContent(outcome));
+      }
       const userExpressions = outcome.status === "ok" ? await evaluateExpressions(engine, c.user_expressions) : {};
       if (!c.silent) await publishAfterCell(session, ctx);
       if (counted) history.add({ line: count, input: c.code, output: resultText });

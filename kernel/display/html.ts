@@ -5,17 +5,9 @@
  */
 import { Rational } from "../../runtime/core/index.js";
 import { q } from "../../runtime/api/text.js";
+import { MUTED, esc } from "./markup.js";
 
-export function esc(s: string): string {
-  return s.replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;").replace(/"/g, "&quot;").replace(/'/g, "&#39;");
-}
-
-/** The outer box of every hush view. */
-export function box(inner: string, kind: string): string {
-  return `<div class="hush-${kind}" style="font-family:system-ui,-apple-system,'Segoe UI',sans-serif;font-size:13px;line-height:1.45;max-width:760px">${inner}</div>`;
-}
-
-export const MUTED = "opacity:0.75";
+export { type BoxKind, MUTED, box, esc } from "./markup.js";
 
 export function badge(text: string, colour: string): string {
   return `<span style="display:inline-block;margin-left:6px;padding:0 6px;border-radius:8px;font-size:11px;border:1px solid ${colour};color:${colour}">${esc(text)}</span>`;

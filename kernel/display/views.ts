@@ -11,7 +11,7 @@ import { columnText, type SealedTable } from "../../runtime/api/table.js";
 import { foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
-import { MUTED, badge, box, budgetBar, capParts, esc, notesList, table, textBar } from "./html.js";
+import { type BoxKind, MUTED, badge, box, budgetBar, capParts, esc, notesList, table, textBar } from "./html.js";
 
 const NOISE_ONLY =
   "The error bars cover the privacy noise only: not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
@@ -247,6 +247,6 @@ export function lossHtml(lines: readonly LossLine[]): string {
   );
 }
 
-export function preHtml(text: string, kind: string): string {
+export function preHtml(text: string, kind: BoxKind): string {
   return box(`<pre style="margin:0;white-space:pre-wrap">${esc(text)}</pre>`, kind);
 }

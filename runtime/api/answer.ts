@@ -4,10 +4,7 @@
  */
 import { BadInputError } from "../errors.js";
 import type { MechanismRecord, Receipt, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
-import { aligned, methodLine, notesHint, percent, planText, q, rowLabel, shownValue, uniformStat, unitSymbol } from "./text.js";
-
-/** Node's hook for console.log and util.inspect (a registered symbol, so no import of node:util). */
-export const INSPECT = Symbol.for("nodejs.util.inspect.custom");
+import { INSPECT, aligned, methodLine, notesHint, percent, planText, q, rowLabel, shownValue, uniformStat, unitSymbol } from "./text.js";
 
 /** One released number with its key, as numbers for computing and the exact strings as signed. */
 export interface ResultRow {

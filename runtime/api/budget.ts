@@ -5,7 +5,7 @@
  */
 import type { LedgerEntry, SpendSummary } from "../protocol/messages.js";
 import type { QueryRecord } from "./session-spend.js";
-import { aligned, planText, plural, q, spendText, unitSymbol } from "./text.js";
+import { INSPECT, aligned, planText, plural, q, spendText, unitSymbol } from "./text.js";
 
 /** Spend on one dataset. */
 export interface DatasetBudget {
@@ -34,6 +34,11 @@ export class BudgetReport {
     return this.datasets.find((d) => d.dataset === dataset);
   }
 
+  /** console.log(budget): the same text as the kernel shows. */
+  [INSPECT](): string {
+    return this.toString();
+  }
+
   toString(): string {
     if (this.datasets.length === 0) return `privacy budget of ${this.analyst}: no dataset opened yet (hush.open(name))`;
     const out = [`privacy budget of ${this.analyst}`];
@@ -57,6 +62,10 @@ export class LedgerView {
   constructor(entries: LedgerEntry[]) {
     this.entries = Object.freeze(entries.map((e) => Object.freeze(structuredClone(e))));
     Object.freeze(this);
+  }
+
+  [INSPECT](): string {
+    return this.toString();
   }
 
   toString(): string {

@@ -4,6 +4,7 @@
  */
 import { BadInputError } from "../errors.js";
 import { BudgetReport, type DatasetBudget, LedgerView } from "./budget.js";
+import { INSPECT } from "./text.js";
 import type { ApiContext } from "./context.js";
 import { withBudgetNote } from "./context.js";
 import { type Column, col } from "./expr.js";
@@ -81,6 +82,11 @@ export class Hush {
   }
 
   toString(): string {
+    return HUSH_HELP;
+  }
+
+  /** console.log(hush): the help text, not the internal fields. */
+  [INSPECT](): string {
     return HUSH_HELP;
   }
 }

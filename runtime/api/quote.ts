@@ -4,7 +4,7 @@
  * is revealed.
  */
 import type { Preview, SpendSummary } from "../protocol/messages.js";
-import { aligned, percent, q, spendText, unitSymbol } from "./text.js";
+import { INSPECT, aligned, percent, q, spendText, unitSymbol } from "./text.js";
 
 export interface ExpectedError {
   stat: string;
@@ -64,6 +64,10 @@ export class CostQuote {
 
   get notes(): string[] {
     return [...this.preview.notes];
+  }
+
+  [INSPECT](): string {
+    return this.toString();
   }
 
   toString(): string {

@@ -17,7 +17,7 @@ import { checkAgainstSchema, conditionText, type FilterInput, toCondition } from
 import { askingCell } from "./asking-cell.js";
 import { type SpendOptions, privacyAsk } from "./privacy.js";
 import { CostQuote } from "./quote.js";
-import { aligned, groupText, planText, spendText } from "./text.js";
+import { INSPECT, aligned, groupText, planText, spendText } from "./text.js";
 
 interface TableState {
   ctx: ApiContext;
@@ -220,6 +220,15 @@ export class SealedTable extends Aggregates<Answer> {
     }
   }
 
+  /** console.log(table): one line naming the dataset, its unit, columns and the query so far (no data). */
+  [INSPECT](): string {
+    const s = state(this);
+    const u = s.info.unit;
+    const query = `${s.where ? ` where ${conditionText(s.where)}` : ""}${groupText(s.groupBy)}`;
+    const cols = s.info.columns.map((c) => c.name).join(", ");
+    return `SealedTable <${s.info.name}${query}: sealed, aggregates only · privacy unit ${u.column ?? "each row"} · columns ${cols}>`;
+  }
+
   /** The schema, the spend, and the current filter and groups. */
   override toString(): string {
     const s = state(this);
@@ -262,6 +271,10 @@ export class CostPreview extends Aggregates<CostQuote> {
     super();
     this.#table = table;
     Object.freeze(this);
+  }
+
+  [INSPECT](): string {
+    return `CostPreview <prices asks on ${state(this.#table).info.name}; spends nothing>`;
   }
 
   protected override async measure(make: () => Measure, spend: SpendOptions, what: string): Promise<CostQuote> {

@@ -7,6 +7,12 @@ import { type FigureParts, figureParts, formatAmount, formatDecimal, formatWithE
 import type { GroupKey, Measure, QueryPlan, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
 import { conditionText } from "./expr.js";
 
+/**
+ * Node's hook for console.log and util.inspect (a registered symbol, so no import of node:util):
+ * every cell API object answers it with a readable summary instead of its internal fields.
+ */
+export const INSPECT = Symbol.for("nodejs.util.inspect.custom");
+
 /** "ε" or "ρ" for a receipt or preview unit. */
 export function unitSymbol(unit: "epsilon" | "rho"): string {
   return unit === "rho" ? "ρ" : "ε";
