@@ -141,7 +141,9 @@ export function cellFrames(stack: string): CellFrame[] {
     // The wrapper tslab puts around a cell has frames of its own, past the last statement.
     if (line === null) continue;
     const text = cell.code.split(/\r\n?|\n/)[line - 1]?.trim() ?? null;
-    frames.push({ fn: m[1] === undefined || m[1].startsWith("hush-cell") ? null : m[1], where: `${cellName(cell.count)}, line ${line}`, text });
+    // A function of an earlier cell is called through tslab's exports object, which V8 names "Proxy.f".
+    const fn = m[1] === undefined || m[1].startsWith(FILE_PREFIX) ? null : m[1].replace(/^Proxy\./, "");
+    frames.push({ fn, where: `${cellName(cell.count)}, line ${line}`, text });
   }
   return frames;
 }

@@ -122,16 +122,54 @@ describe("execute", () => {
     expect(r.outputs).toHaveLength(1);
     const e = r.outputs[0];
     if (e.output_type !== "error") throw new Error("expected an error output");
-    expect(e.traceback.join("\n")).toMatch(/RangeError: out of range: 7/);
-    expect(e.traceback.join("\n")).toMatch(/at failing \(<cell>/);
-    expect(e.traceback.join("\n")).not.toMatch(/tslab|node:vm/);
+    // Only the user's frames, each with the cell's In [n], its own line and that line's code.
+    const n = r.reply.execution_count as number;
+    expect(e.traceback).toEqual([
+      "RangeError: out of range: 7",
+      `    at failing (In [${n}], line 1):  function failing(n: number) { throw new RangeError('out of range: ' + n) }`,
+      `    at In [${n}], line 2:  failing(7)`,
+    ]);
     expect((await k.execute("1 + 1")).reply.status).toBe("ok");
   });
 
-  it("reports a type error as TypeScriptError with the compiler's message", async () => {
-    const r = await k.execute("const wrongType: string = 5");
+  it("names the user's line after blank lines, types and an await, and in a function an earlier cell defined", async () => {
+    const r = await k.execute("interface Shape { w: number }\n\ntype Id = string;\nconst sides: number = 4;\nawait new Promise((r) => setTimeout(r, 5));\n\nconst bad: any = null;\nbad.width");
+    const n = r.reply.execution_count as number;
+    const e = r.outputs.find((o) => o.output_type === "error");
+    if (e?.output_type !== "error") throw new Error("expected an error output");
+    expect(e.traceback).toEqual(["TypeError: Cannot read properties of null (reading 'width')", `    at In [${n}], line 8:  bad.width`]);
+    const def = await k.execute("function laterFails(x: number): number {\n  if (x > 1) throw new Error('too big');\n  return x;\n}");
+    const call = await k.execute("const fine = 1;\nlaterFails(fine + 5)");
+    const [d, c] = [def.reply.execution_count as number, call.reply.execution_count as number];
+    const ce = call.outputs.find((o) => o.output_type === "error");
+    if (ce?.output_type !== "error") throw new Error("expected an error output");
+    expect(ce.traceback).toEqual(["Error: too big", `    at laterFails (In [${d}], line 2):  if (x > 1) throw new Error('too big');`, `    at In [${c}], line 2:  laterFails(fine + 5)`]);
+  });
+
+  it("draws a refusal as an output with the cell and line, and reports it in one traceback line", async () => {
+    const code = [
+      "// a refusal as the cell API throws it (runtime/errors.ts: a name and a kind), made outside the cell's code",
+      "const refuse = new Function(\"m\", \"return Object.assign(new Error(m), { name: 'OverCapError', kind: 'over-cap' })\");",
+      "await Promise.resolve();",
+      "throw refuse('over the cap: this query costs ε 0.71, but ada has ε 0.5 left');",
+    ].join("\n");
+    const r = await k.execute(code);
+    const n = r.reply.execution_count as number;
+    expect(r.reply).toMatchObject({ status: "error", ename: "OverCapError", evalue: "over the cap: this query costs ε 0.71, but ada has ε 0.5 left" });
+    expect(r.outputs.map((o) => o.output_type)).toEqual(["display_data", "error"]);
+    const shown = r.outputs[0];
+    if (shown.output_type !== "display_data") throw new Error("expected the refusal drawn");
+    expect(shown.data["text/plain"]).toBe(`refused: over the cap (In [${n}], line 4)\n  over the cap: this query costs ε 0.71, but ada has ε 0.5 left`);
+    expect(shown.data["text/html"]).toMatch(/^<div class="hush-refusal" /);
+    const e = r.outputs[1];
+    if (e.output_type !== "error") throw new Error("expected an error output");
+    expect(e.traceback).toEqual([`OverCapError at In [${n}], line 4: refused, nothing was spent (shown above)`]);
+  });
+
+  it("reports a type error as TypeScriptError with the compiler's message, the cell and the line", async () => {
+    const r = await k.execute("const fineHere = 1;\nconst wrongType: string = 5");
     expect(r.reply).toMatchObject({ status: "error", ename: "TypeScriptError" });
-    expect(String(r.reply.evalue)).toMatch(/Type 'number' is not assignable to type 'string'/);
+    expect(String(r.reply.evalue)).toBe(`In [${r.reply.execution_count as number}], line 2, column 7: Type 'number' is not assignable to type 'string'.`);
   });
 
   it("evaluates user_expressions after the cell", async () => {
