@@ -16,6 +16,8 @@ import { Rational } from "../../runtime/core/index.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import {
+  RESPELLINGS,
+  respellFigure,
   MADE_UP,
   READING_TAMPERS,
   respellStatedCost,
@@ -119,6 +121,15 @@ export function auditCorpus(get: () => CorpusFixture): void {
     expect(cli.stderr).toBe("");
     expect(cli.stdout).toMatch(/^verdict: PASS/m);
     expect(cli.code).toBe(0);
+  });
+
+  it("catches a signed figure shown otherwise than the display rule writes it (unrounded, ungrouped, another last digit)", () => {
+    for (const r of RESPELLINGS) {
+      const bad = respellFigure(get().nb, 1, r.spell);
+      const report = audit(bad);
+      expect(report.ok, r.name).toBe(false);
+      expect(report.findings.some((f) => f.kind === "shown-value" && f.cell === releaseWithSeq(bad, 1).cell && f.message.includes("text/plain")), r.name).toBe(true);
+    }
   });
 
   it("catches a shown value edited away from the signed one", () => {

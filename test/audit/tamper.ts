@@ -130,6 +130,41 @@ export function replaceKey(nb: Notebook, other: { privateKey: KeyObject; publicK
   return out;
 }
 
+/**
+ * Ways to show a signed figure that the display rule (docs/methods.md §18) does not write: each is
+ * a number a reader may take for the signed one, and each must be caught. `row` is the signed row.
+ */
+export const RESPELLINGS: { name: string; spell: (row: Receipt["result"][number]) => string }[] = [
+  {
+    // The exact figures, as a kernel without the rule would print them (more digits than the error bar supports).
+    name: "unrounded (the exact value and interval at 12 significant digits)",
+    spell: ([, , , v, lo, hi]) => {
+      const [V, L, H] = [v!, lo!, hi!].map((x) => Rational.parse(x));
+      const d = (x: Rational): string => x.toDecimal(12);
+      return V.sub(L).eq(H.sub(V)) ? `${d(V)} ± ${d(H.sub(V))}` : `${d(V)} [${d(L)}, ${d(H)}]`;
+    },
+  },
+  { name: "without thousands separators", spell: ([, , , v, lo, hi]) => formatWithError(v, lo, hi).replace(/(\d),(?=\d{3})/g, "$1") },
+  {
+    // The last digit of the error bar one lower (or higher after a 0): a narrower or wider bar.
+    name: "with the error bar's last digit changed",
+    spell: ([, , , v, lo, hi]) =>
+      formatWithError(v, lo, hi).replace(/(\d)(\]?)$/, (_m, d: string, close: string) => `${d === "0" ? "1" : String(Number(d) - 1)}${close}`),
+  },
+];
+
+/** Shows release `seq`'s first figure spelled by `spell` in its text views, leaving the receipt alone. */
+export function respellFigure(nb: Notebook, seq: number, spell: (row: Receipt["result"][number]) => string): Notebook {
+  const out = clone(nb);
+  const rel = releaseWithSeq(out, seq);
+  const row = rel.meta.receipt.result.find((r) => r[3] !== null && r[4] !== null)!;
+  const shown = formatWithError(row[3], row[4], row[5]);
+  const respelled = spell(row);
+  if (respelled === shown) throw new Error(`"${shown}" is already spelled that way; the tamper would change nothing`);
+  mapText(rel.output, ["text/plain", "text/html"], (s) => s.split(shown).join(respelled));
+  return out;
+}
+
 /** Drops the receipt from release `seq`'s output(s), leaving the shown text: a release without a receipt. */
 export function stripReceipt(nb: Notebook, seq: number): Notebook {
   const out = clone(nb);
