@@ -9,6 +9,7 @@ import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
 import { foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import { formatHalfWidth } from "../../runtime/protocol/format.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
 import { type BoxKind, MUTED, badge, box, budgetBar, capParts, esc, notesList, table, textBar } from "./html.js";
@@ -88,7 +89,7 @@ export function quoteHtml(c: CostQuote): string {
       ? badge("fits under the cap", "#2e7d32")
       : badge("does not fit under the cap", "#c62828");
   const errs = c.expectedErrors;
-  const rows = errs.map((e) => [esc(e.stat), esc(e.column ?? ""), `± ${esc(q(e.exact))}`]);
+  const rows = errs.map((e) => [esc(e.stat), esc(e.column ?? ""), `± ${esc(formatHalfWidth(e.exact))}`]);
   const s = spendAmounts(p.spend);
   return box(
     `<div><b>preview</b> ${esc(c.what)}${status}</div>` +

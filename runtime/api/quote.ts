@@ -4,6 +4,7 @@
  * is revealed.
  */
 import type { Preview, SpendSummary } from "../protocol/messages.js";
+import { formatHalfWidth } from "../protocol/format.js";
 import { INSPECT, aligned, percent, q, spendText, unitSymbol } from "./text.js";
 
 export interface ExpectedError {
@@ -79,10 +80,10 @@ export class CostQuote {
     const same = errs.every((e) => e.stat === errs[0]?.stat && e.column === errs[0]?.column && e.exact === errs[0]?.exact);
     const lines =
       errs.length > 0 && same
-        ? [`  expected error ± ${q(errs[0].exact)} (${percent(p.confidence)})${errs.length > 1 ? ` for each of ${errs.length} numbers` : ""}`]
+        ? [`  expected error ± ${formatHalfWidth(errs[0].exact)} (${percent(p.confidence)})${errs.length > 1 ? ` for each of ${errs.length} numbers` : ""}`]
         : aligned(
             // The curator's labels for the parts of a mean already name the column.
-            errs.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${q(e.exact)} (${percent(p.confidence)})`]),
+            errs.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${formatHalfWidth(e.exact)} (${percent(p.confidence)})`]),
             "  ",
           );
     return [head, ...lines, `  now: ${spendText(p.spend)}`].join("\n");

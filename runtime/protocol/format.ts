@@ -258,3 +258,15 @@ export function formatAmount(value: string, direction: "up" | "down", sig = 6): 
   // Written back through the exact formatter: m · 10^-k has at most sig (+1 on a carry) digits.
   return formatExact(parseExact(`${m}e${-k}`, "formatAmount"), sig + 1);
 }
+
+/**
+ * An expected half-width alone (a preview's "± 240"), by the figure rule (docs/methods.md §18):
+ * rounded up to two significant digits, never below the units for a whole number, with separators.
+ */
+export function formatHalfWidth(w: string): string {
+  const x = parseExact(w, "formatHalfWidth");
+  if (x.num === 0n) return "0";
+  const neg = x.neg ? w.trim().slice(1) : `-${w.trim()}`;
+  const pos = x.neg ? neg : w.trim();
+  return (figureParts("0", x.neg ? w : neg, pos).bar ?? "").replace(/^± /, "");
+}

@@ -7,7 +7,7 @@
  */
 import { describe, expect, test } from "vitest";
 import { spawnSync } from "node:child_process";
-import { figureParts, formatAmount, formatDecimal, formatWithError, groupThousands } from "../../runtime/protocol/format.js";
+import { figureParts, formatAmount, formatDecimal, formatHalfWidth, formatWithError, groupThousands } from "../../runtime/protocol/format.js";
 
 describe("formatDecimal", () => {
   test.each([
@@ -250,6 +250,17 @@ describe("formatAmount: privacy amounts as decimals, rounded in one direction", 
     const cost = "7107021/10000000";
     const left = "7107020/10000000";
     expect(Number(formatAmount(cost, "up"))).toBeGreaterThan(Number(formatAmount(left, "down")));
+  });
+});
+
+describe("formatHalfWidth: a preview's expected error by the same rule", () => {
+  test("up to two significant digits, whole numbers stay whole, separators", () => {
+    expect(formatHalfWidth("239659")).toBe("240,000");
+    expect(formatHalfWidth("240")).toBe("240");
+    expect(formatHalfWidth("3")).toBe("3");
+    expect(formatHalfWidth("0.0123")).toBe("0.013");
+    expect(formatHalfWidth("1/3")).toBe("0.34");
+    expect(formatHalfWidth("0")).toBe("0");
   });
 });
 
