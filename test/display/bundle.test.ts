@@ -1,6 +1,7 @@
 /**
  * Mime bundles of the cell API objects, from a HushSession wired to the stand-in curator.
  */
+import { inspect } from "node:util";
 import { describe, expect, test } from "vitest";
 import { compile } from "vega-lite";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
@@ -165,6 +166,27 @@ describe("other bundles", () => {
       expect(b.metadata).toEqual({});
     }
     expect((await session.render(t)).data["text/html"]).toContain("sealed — aggregates only");
+  });
+
+  test("console.log and util.inspect show readable summaries, not internal fields", async () => {
+    const { hush } = await fakeSession();
+    const t = await hush.open("clinic");
+    const a = await t.mean("wait_minutes", { epsilon: 0.1 });
+    expect(inspect(a)).toBe("Answer <mean wait_minutes = 100 ± 5 (95%) · receipt #1 on clinic>");
+    const g = await t.by("district").mean("wait_minutes", { epsilon: 0.1 });
+    expect(inspect(g)).toBe("Answer <mean wait_minutes by district: 3 values (95%) · receipt #2 on clinic>");
+    // Inside other values too (the kernel shows a bare expression with util.inspect).
+    expect(inspect({ first: a }, { breakLength: Infinity })).toBe("{ first: Answer <mean wait_minutes = 100 ± 5 (95%) · receipt #1 on clinic> }");
+    expect(inspect(t)).toMatch(/^SealedTable <clinic: sealed, aggregates only · privacy unit \S+ · columns [a-z_, ]+>$/);
+    expect(inspect(t.where({ age: { ge: 65 } }).by("district"))).toMatch(/^SealedTable <clinic where age ≥ 65 by district: /);
+    expect(inspect(t.preview)).toBe("CostPreview <prices asks on clinic; spends nothing>");
+    const budget = await hush.budget();
+    expect(inspect(budget)).toBe(budget.toString());
+    const quote = await t.preview.sum("age", { epsilon: 0.1 });
+    expect(inspect(quote)).toBe(quote.toString());
+    expect(inspect(hush)).toBe(hush.toString());
+    // No field of the release (receipt, signature, mechanisms) leaks into the summary.
+    expect(inspect(a)).not.toMatch(/sig|digest|mechanisms|release/);
   });
 
   test("values hush does not know render as null (the kernel's default applies)", async () => {
