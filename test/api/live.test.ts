@@ -20,7 +20,7 @@ import { runAsCell } from "../../runtime/api/asking-cell.js";
 import { cellSourceDigest } from "../../runtime/protocol/cell-source.js";
 import type { SealedTable } from "../../runtime/api/table.js";
 import { BadInputError, OverCapError, UnknownDatasetError } from "../../runtime/errors.js";
-import { formatDecimal } from "../../runtime/protocol/format.js";
+import { formatAmount } from "../../runtime/protocol/format.js";
 import { loadPublicKey } from "../../runtime/protocol/receipts.js";
 import { CANARY, DISTRICTS, makeWorkspace, requireBuild, type Workspace } from "../integration/helpers.js";
 
@@ -90,9 +90,9 @@ describe("cell API on a real curator", () => {
       expect(b.metadata.hush, `release ${i}`).toMatchObject({ dataset: "clinic", replay: i === 5 });
       expect(JSON.stringify(b)).not.toContain(CANARY);
     }
-    expect(releases[0].data["text/plain"]).toMatch(/^count = -?\d+ ± \d+(\.\d+)? \(95%\) · cost ε=0\.1 · session 0\.1 · total 0\.1 \/ 2$/);
+    expect(releases[0].data["text/plain"]).toMatch(/^count = -?[\d,]+ ± [\d,]+ · cost ε=0\.1\n  at least 95% of such answers fall within ±[\d,]+ of the true count \(privacy noise only\)/);
     expect((releases[2].data["image/svg+xml"] as string).startsWith("<svg")).toBe(true);
-    expect(releases[5].data["text/html"]).toContain("replayed — no new cost");
+    expect(releases[5].data["text/html"]).toContain("replayed, no new cost");
 
     const report = auditNotebook(notebookOf(releases), loadPublicKey(curator.publicKeyB64));
     expect(report.findings).toEqual([]);
@@ -113,7 +113,7 @@ describe("cell API on a real curator", () => {
 
   test("afterCell reports this session's spend against the cap", async () => {
     const b = (await session.afterCell())!;
-    expect(b.data["text/plain"]).toMatch(/^privacy loss · clinic: this session ε [\d.]+ · ada's total on clinic\.csv ε [\d.]+ of 2 \(5 new, 1 replayed\)$/);
+    expect(b.data["text/plain"]).toMatch(/^privacy loss on clinic \(population clinic\.csv\): ε [\d.]+ of 2 used · this cell [\d.]+ \(1 answer replayed, no new cost\) · left [\d.]+ \[[#+.]{24}\]$/);
     expect(await session.afterCell()).toBeNull();
   });
 
@@ -131,7 +131,10 @@ describe("cell API on a real curator", () => {
     const before = (await session.api.budget("clinic")).of("clinic")!.spend;
     const p = clinic.count({ epsilon: 5 });
     await expect(p).rejects.toThrow(OverCapError);
-    const left = formatDecimal(before.remainingEpsilon).replace(".", "\\.");
+    // What is left is rounded down (docs/methods.md §18), the cost up; amounts in decimals, never fractions.
+    const left = formatAmount(before.remainingEpsilon, "down").replace(".", "\\.");
+    await expect(p).rejects.toThrow(new RegExp(`^over the cap: this query costs ε 5, but ada has ε ${left} left of the cap 2 on population clinic\\.csv \\(.*; spent [\\d.]+\\); nothing was spent\\n`));
+    await expect(p).rejects.not.toThrow(/\d\/\d/);
     await expect(p).rejects.toThrow(new RegExp(`^over the cap: .*nothing was spent\\nε ${left} of 2 remains on clinic \\(population clinic\\.csv\\) for ada\\.$`, "s"));
     expect((await session.api.budget("clinic")).of("clinic")!.spend).toEqual(before);
   });
@@ -149,11 +152,11 @@ describe("cell API on a real curator", () => {
   test("zCDP dataset: costs in ρ with the ε equivalent", async () => {
     const z = await session.api.open("clinic_z");
     const a = await z.count({ rho: "0.001" });
-    expect(String(a)).toMatch(/cost ρ=0\.001 · session 0\.001 · total 0\.001 \/ [\d.]+ \(ε [\d.]+ of 1 at δ=0\.000001\)$/);
+    expect(String(a)).toMatch(/ · cost ρ=0\.001\n/);
     const b = (await session.render(a))!;
-    expect(b.data["text/html"]).toContain("ρ 0.001 of");
+    expect(b.data["text/html"]).toContain("cost ρ=0.001");
     const loss = (await session.afterCell())!;
-    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total on clinic-z\.csv ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss on clinic_z \(population clinic-z\.csv\): ρ 0\.001 of [\d.]+ used \(ε [\d.]+ of 1 at δ=0\.000001\) · this cell 0\.001 · left [\d.]+ \[[#+.]{24}\]$/);
   });
 
   test("budget and ledger", async () => {
@@ -180,7 +183,7 @@ describe("embedded default on the demo scenario", () => {
       );
       const a = await visits.count({ epsilon: 0.05 });
       expect(a.value).toBeGreaterThan(0);
-      expect(String(a)).toMatch(/ · total 0\.05 \/ 3$/);
+      expect(String(a)).toMatch(/ · cost ε=0\.05\n/);
       expect(shown).toHaveLength(1); // said once
     } finally {
       await demo.close();

@@ -42,6 +42,8 @@ describe("sealed handle", () => {
     const allowed = [
       // schema and state
       "constructor", "name", "description", "columns", "unit", "spend", "sessionSpent", "filter", "groups", "toString",
+      // console.log/util.inspect: a one-line summary of the schema and query (no data)
+      "Symbol(nodejs.util.inspect.custom)",
       // query building (return new handles)
       "where", "by",
       // differentially private aggregates and their previews, budget
@@ -208,7 +210,7 @@ describe("releases, previews, budget, ledger", () => {
     expect(a.receipt.seq).toBe(1);
     expect(a.cost).toBe("1/10");
     expect(a.what).toBe("mean wait_minutes where age ≥ 65");
-    expect(String(a)).toBe("mean wait_minutes where age ≥ 65 = 100 ± 5 (95%) · cost ε=0.1 · session 0.1 · total 0.1 / 1");
+    expect(String(a)).toBe("mean wait_minutes where age ≥ 65 = 100 ± 5 · cost ε=0.1\n  at least 95% of such answers fall within ±5 of the true mean (privacy noise only) · 1 note: .notes");
     expect(Object.isFrozen(a.release.rows[0])).toBe(true);
   });
 
@@ -216,7 +218,7 @@ describe("releases, previews, budget, ledger", () => {
     const { hush } = await fakeSession();
     const t = await hush.open("clinic");
     const a = await t.median("wait_minutes", { epsilon: 0.1 });
-    expect(String(a)).toMatch(/^median wait_minutes = 30\.5 \(no value interval, see notes\) · cost ε=0\.1/);
+    expect(String(a)).toBe("median wait_minutes = 30.5 · cost ε=0.1\n  no interval on the value: the median's guarantee is on its rank (see the notes) · 1 note: .notes");
   });
 
   test("grouped answers: rows by key; .value refuses with a pointer to .rows", async () => {
@@ -229,11 +231,12 @@ describe("releases, previews, budget, ledger", () => {
     expect(a.get("Atlantis")).toBeUndefined();
     expect(() => a.value).toThrow(/3 numbers.*\.rows/);
     expect(String(a).split("\n")).toEqual([
-      "count by district (95%, noise-only error bars):",
+      "count by district (95%):",
       "  Northgate  100 ± 5",
       "  Riverside  110 ± 5",
       "  Eastfield  120 ± 5",
-      "cost ε=0.1 · session 0.1 · total 0.1 / 1",
+      "  for each value, at least 95% of such answers fall within the ± shown of the true count (privacy noise only)",
+      "cost ε=0.1 · 1 note: .notes",
     ]);
   });
 
@@ -244,7 +247,7 @@ describe("releases, previews, budget, ledger", () => {
     const again = await t.count({ epsilon: 0.2 });
     expect(again.replay).toBe(true);
     expect(again.cost).toBe("0");
-    expect(String(again)).toContain("replayed, no new cost · session 0.2 · total 0.2 / 1");
+    expect(String(again)).toMatch(/^count = 100 ± 5 · replayed, no new cost\n/);
     const b = await hush.budget();
     expect(b.of("clinic")?.queries.map((q) => [q.seq, q.replay, q.cost])).toEqual([
       [1, false, "1/5"],
