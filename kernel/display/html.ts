@@ -5,6 +5,7 @@
  */
 import { Rational } from "../../runtime/core/index.js";
 import { q } from "../../runtime/api/text.js";
+import { formatAmount } from "../../runtime/protocol/format.js";
 import { MUTED, esc } from "./markup.js";
 
 export { type BoxKind, MUTED, box, esc } from "./markup.js";
@@ -72,6 +73,11 @@ function swatch(colour: string | null): string {
 
 const shown = (x: string): string => (x === "?" ? "?" : q(x));
 
+/** What is left of a cap, rounded down so it never reads as more than there is (docs/methods.md §18). */
+export function leftText(x: string): string {
+  return x === "?" ? "?" : formatAmount(x, "down");
+}
+
 /**
  * A labelled bar of the cap: spent before (grey), spent recently (amber; `recentLabel` says when:
  * "this cell", "this session"), left (empty), each with its amount, then the total against the cap.
@@ -86,7 +92,7 @@ export function budgetBar(a: { total: string; recent: string; cap: string; symbo
   const legend =
     `${swatch(BEFORE_COLOUR)}<span>${esc(a.beforeLabel)} ${esc(shown(p.before))}</span>` +
     `${swatch(RECENT_COLOUR)}<span>${esc(a.recentLabel)} ${esc(shown(p.recent))}</span>` +
-    `${swatch(null)}<span>left ${esc(shown(p.left))}</span>` +
+    `${swatch(null)}<span>left ${esc(leftText(p.left))}</span>` +
     `<span style="${MUTED};margin-left:8px">${esc(`${a.symbol} ${shown(a.total)} of ${shown(a.cap)} used`)}</span>`;
   return `<div style="margin:4px 0">${bar}${legend}</div>`;
 }

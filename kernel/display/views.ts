@@ -12,7 +12,7 @@ import { foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownP
 import { formatHalfWidth } from "../../runtime/protocol/format.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
-import { type BoxKind, MUTED, badge, box, budgetBar, capParts, esc, notesList, table, textBar } from "./html.js";
+import { type BoxKind, MUTED, badge, box, budgetBar, capParts, esc, leftText, notesList, table, textBar } from "./html.js";
 
 const NOISE_ONLY =
   "The error bars cover the privacy noise only: not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
@@ -226,7 +226,7 @@ export function lossText(lines: readonly LossLine[]): string {
       const p = capParts(s.total, a.cellSpent.toString(), s.cap);
       return (
         `privacy loss on ${accountName(a)}: ${s.symbol} ${q(s.total)} of ${q(s.cap)} used${epsilonEquivalent(a.spend)}` +
-        ` · this cell ${q(p.recent === "?" ? "0" : p.recent)}${replayNote(a)} · left ${p.left === "?" ? "?" : q(p.left)} ${textBar(s.total, a.cellSpent.toString(), s.cap)}`
+        ` · this cell ${q(p.recent === "?" ? "0" : p.recent)}${replayNote(a)} · left ${leftText(p.left)} ${textBar(s.total, a.cellSpent.toString(), s.cap)}`
       );
     })
     .join("\n");
