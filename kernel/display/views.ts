@@ -96,7 +96,7 @@ export function quoteHtml(c: CostQuote): string {
       `<div>would cost <b>${esc(unitSymbol(p.unit))}=${esc(q(p.cost))}</b> · nothing spent yet</div>` +
       (rows.length ? table(["statistic", "column", `expected error (${esc(percent(p.confidence))})`], rows, new Set([2])) : "") +
       budgetBar({ total: s.total, recent: "0", cap: s.cap, symbol: s.symbol, recentLabel: "this session", beforeLabel: "spent" }) +
-      notesList(p.notes),
+      (p.notes.length ? `<details class="hush-notes" style="margin-top:2px;font-size:12px"><summary style="${MUTED}">${esc(plural(p.notes.length, "note"))}</summary>${notesList(p.notes)}</details>` : ""),
     "preview",
   );
 }

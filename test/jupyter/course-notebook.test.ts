@@ -184,7 +184,7 @@ describe.skipIf(!python && !classicPython)("the course notebook, as the README t
         expect(r.dataset).toBe("visits-course");
         expect(verifyReceipt(r, key)).toEqual({ ok: true });
       }
-      expect(texts.join("\n")).toMatch(/\/ 1\b/); // the running spend is against kit's cap of ε = 1
+      expect(texts.join("\n")).toMatch(/privacy loss on visits-course \(population clinic-patients\): ε [\d.]+ of 1 used/); // the running spend is against kit's cap of ε = 1
       // The saved notebook passes the audit held to the student and the course dataset.
       const report = auditNotebook(saved, key, { analyst: "kit", dataset: "visits-course" });
       expect(report.findings).toEqual([]);
