@@ -75,6 +75,33 @@ describe("htmlText: what a person reads in a text/html view", () => {
     for (const [html, why] of cases) expect(htmlText(html, null).problems.join("; "), html).toMatch(why);
   });
 
+  it("reads the kernel's disclosure element, and reports a figure folded inside it (hidden until opened)", () => {
+    const words = `<details class="hush-notes"><summary>details and 2 notes</summary><div>method: released value ± the smallest half-width</div><ul><li>Values are clamped to [0, 240].</li></ul></details>`;
+    expect(htmlText(`<div class="hush-release"><span class="hush-value">177,760</span> <span class="hush-errorbar">± 480</span>${words}</div>`, null)).toEqual({
+      text: "177,760 ± 480\ndetails and 2 notes\nmethod: released value ± the smallest half-width\nValues are clamped to [0, 240].",
+      problems: [],
+    });
+    // A figure in the summary is drawn; one in the folded part is not, until a reader opens it.
+    expect(htmlText(`<details><summary>177,760 ± 480</summary>words</details>`, null).problems).toEqual([]);
+    expect(htmlText(`<details><summary>more</summary><div><b>177,760 ± 480</b></div></details>`, null).problems).toEqual(["a figure with an error bar inside a folded <details> (hidden until opened)"]);
+    expect(htmlText(`<details><summary>more</summary>24.3 [22.6, 25.9]</details>`, null).problems).toHaveLength(1);
+  });
+
+  it("knows the kernel's classes by name: another hush-looking class is reported", () => {
+    for (const c of ["hush-release", "hush-value", "hush-errorbar", "hush-loss", "hush-notes", "hush-refusal", "hush-chart"]) {
+      expect(htmlText(`<span class="${c}">x</span>`, null).problems, c).toEqual([]);
+    }
+    expect(htmlText(`<span class="hush-hidden">x</span>`, null).problems).toEqual(['class "hush-hidden" on <span>']);
+  });
+
+  it("reads figures with thousands separators as one number, and a broken group as digits run into a figure", () => {
+    expect(figuresIn("count = 177,760 ± 480").map((f) => [f.text, f.alone])).toEqual([["177,760 ± 480", true]]);
+    expect(figuresIn("1,234,567.89 [1,234,000.5, 1,235,000]").map((f) => [f.text, f.alone])).toEqual([["1,234,567.89 [1,234,000.5, 1,235,000]", true]]);
+    expect(figuresIn("12,34 ± 1").every((f) => !f.alone)).toBe(true);
+    expect(figuresIn("1234,567 ± 1").every((f) => !f.alone)).toBe(true);
+    expect(figureAt("x 177760 ± 480", "177,760 ± 480", 0)).toBe(-1);
+  });
+
   it("reads a deeply nested view without exhausting the stack", () => {
     const r = htmlText(`${"<span>".repeat(50_000)}5 ± 1`, null);
     expect(r.text).toBe("5 ± 1");

@@ -7,6 +7,8 @@ import { compile } from "vega-lite";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { esc } from "../../kernel/display/html.js";
+import { refusalBundle } from "../../kernel/display/refusal.js";
+import { KERNEL_CLASSES, htmlText } from "../../cli/audit/html-text.js";
 import { VEGALITE_MIME } from "../../kernel/display/chart.js";
 import { HushSession, type MimeBundle } from "../../kernel/hush-session.js";
 import type { Answer } from "../../runtime/api/answer.js";
@@ -215,6 +217,36 @@ describe("other bundles", () => {
     const next = (await session.afterCell())!;
     expect(next.data["text/plain"]).toBe("privacy loss on clinic: ε 0.35 of 1 used · this cell 0.05 · left 0.65 [#######+................]");
     expect(next.data["text/html"]).toMatch(/<span>earlier 0\.3<\/span>.*<span>this cell 0\.05<\/span>.*<span>left 0\.65<\/span>/);
+  });
+
+  test("every view's markup is in the audit's vocabulary: its classes, elements and styles draw no finding", async () => {
+    const { session, hush } = await fakeSession();
+    const t = await hush.open("clinic");
+    const views: unknown[] = [
+      t,
+      await t.mean("wait_minutes", { epsilon: 0.1 }),
+      await t.by("district").mean("wait_minutes", { epsilon: 0.1 }),
+      await t.histogram("age", { bins: 4, epsilon: 0.1 }),
+      await t.quantiles("age", [0.25, 0.75], { epsilon: 0.1 }),
+      await t.preview.sum("age", { epsilon: 0.1 }),
+      await hush.budget(),
+      await hush.ledger(),
+      hush,
+    ];
+    const bundles = [...(await Promise.all(views.map((v) => session.render(v)))), await session.afterCell()];
+    bundles.push(refusalBundle({ name: "OverCapError", kind: "over-cap", message: "over the cap: this query costs ε 0.5\nNothing was spent.", where: "In [3], line 2" }));
+    const seen = new Set<string>();
+    for (const b of bundles) {
+      const html = b!.data["text/html"] as string;
+      for (const m of html.matchAll(/class="([^"]*)"/g)) for (const c of m[1].split(" ")) seen.add(c);
+      const svg = b!.data["image/svg+xml"];
+      const chart = typeof svg === "string" ? `data:image/svg+xml;base64,${Buffer.from(svg, "utf8").toString("base64")}` : null;
+      expect(htmlText(html, chart).problems, html.slice(0, 80)).toEqual([]);
+      // No glyph that Debian Chromium's default fonts lack (the old info sign).
+      expect(html).not.toMatch(/[\u24b6-\u24ff]/);
+    }
+    expect([...seen].filter((c) => !KERNEL_CLASSES.has(c))).toEqual([]);
+    for (const hook of ["hush-release", "hush-value", "hush-errorbar", "hush-loss", "hush-notes", "hush-refusal", "hush-chart"]) expect(seen.has(hook), hook).toBe(true);
   });
 
   test("HTML escaping", () => {
