@@ -101,9 +101,9 @@ export function shownText(out: NbOutput): string {
 // runtime/protocol/format.ts writes them) and its cost ("cost ε=0.1", "replayed, no new cost", or a
 // running "total 0.3 / 1" — the kernel's wording in runtime/api/text.ts). An output showing both
 // without a receipt was typed in or copied, not released. A preview shows only "± width" with no
-// value before it, so it is not taken for a release. A quantile shows "= 115 (no value interval, ...)"
-// instead of an error bar (its guarantee is on rank).
-const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.,e+-]*, -?\d[\d.,e+-]*\]|\d \(no value interval/;
+// value before it, so it is not taken for a release. A quantile says "no interval on the value"
+// instead of showing an error bar (its guarantee is on rank; runtime/api/text.ts methodLine).
+const ERROR_BAR = /\d ± \d|\d \[-?\d[\d.,e+-]*, -?\d[\d.,e+-]*\]|no interval on the value/;
 const SPEND = /cost (ε|ρ)\s*=|replayed, no new cost|total -?[\d.e/+-]+ \/ [\d.e/+-]+|(ε|ρ)\s*(spent|used)\b/;
 
 /** Every figure some receipt in the notebook signed, as the shared formatter shows it. */

@@ -165,11 +165,12 @@ export function costText(a: { cost: string; replay: boolean; sessionSpent: strin
 /** "ε 0.5 of 3 used · 2.5 remaining · 7 releases" (zCDP: in ρ with the ε equivalent). */
 export function spendText(s: SpendSummary): string {
   if (s.mode === "zcdp" && s.spentRho !== undefined && s.capRho !== undefined) {
-    const rem = s.remainingRho !== undefined ? ` · ${q(s.remainingRho)} remaining` : "";
+    const rem = s.remainingRho !== undefined ? ` · ${formatAmount(s.remainingRho, "down")} remaining` : "";
     const eps = s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
     return `ρ ${q(s.spentRho)} of ${q(s.capRho)} used${rem}${eps} · ${plural(s.releases, "release")}`;
   }
-  return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} used · ${q(s.remainingEpsilon)} remaining · ${plural(s.releases, "release")}`;
+  // What remains is rounded down: it never reads as more than there is (docs/methods.md §18).
+  return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} used · ${formatAmount(s.remainingEpsilon, "down")} remaining · ${plural(s.releases, "release")}`;
 }
 
 /**
