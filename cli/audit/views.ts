@@ -81,7 +81,7 @@ function viewProblem(text: string, signed: { row: Row; figure: string }[]): stri
 }
 
 /**
- * The cost a release line states ("cost ε=0.1", runtime/api/text.ts costText, 6 significant
+ * The cost a release line states ("cost ε=0.1", runtime/api/text.ts costStatement, 6 significant
  * digits) must be the signed cost in the signed unit. The running total beside it is the
  * analyst's total when the cell ran (a replay shows today's), so only the audit's own total counts.
  */
@@ -97,7 +97,7 @@ function costProblem(text: string, r: Receipt, replay: boolean): string | null {
   for (const m of text.matchAll(/cost (\p{L})\s*=\s*([^\s·,;)]*)/gu)) {
     if (m[0] !== want) return `states "${quoted(m[0])}", but receipt seq ${r.seq} signed "${want}"`;
   }
-  // The kernel states the cost of every new release in each view (runtime/api/text.ts costText),
+  // The kernel states the cost of every new release in each view (runtime/api/text.ts costStatement),
   // so a view without the signed statement has had it removed or spelled otherwise ("cost: 0.01").
   if (!replay && !text.includes(want)) return `does not state the cost "${want}" that receipt seq ${r.seq} signed`;
   return null;

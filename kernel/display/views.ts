@@ -8,7 +8,7 @@ import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
-import { foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import { costStatement, foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
 import { formatHalfWidth } from "../../runtime/protocol/format.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
@@ -63,7 +63,7 @@ export function answerHtml(a: Answer, chartImg: string | null): string {
     const rows = r.rows.map((row) => [...(keyed ? row.key.map((k) => esc(k ?? "(missing)")) : [esc(rowLabel(row, true))]), figureHtml(row)]);
     body = table(headCells, rows, new Set([headCells.length - 1]));
   }
-  const cost = r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
+  const cost = costStatement(r);
   return box(
     head +
       body +

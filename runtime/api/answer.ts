@@ -4,7 +4,7 @@
  */
 import { BadInputError } from "../errors.js";
 import type { MechanismRecord, Receipt, Release, ReleaseRow, SpendSummary } from "../protocol/messages.js";
-import { INSPECT, aligned, methodLine, notesHint, percent, planText, q, rowLabel, shownValue, uniformStat, unitSymbol } from "./text.js";
+import { INSPECT, aligned, costStatement, methodLine, notesHint, percent, planText, rowLabel, shownValue, uniformStat } from "./text.js";
 
 /** One released number with its key, as numbers for computing and the exact strings as signed. */
 export interface ResultRow {
@@ -141,7 +141,7 @@ export class Answer {
    */
   toString(): string {
     const r = this.release;
-    const cost = r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
+    const cost = costStatement(r);
     const tail = [cost, notesHint(r.notes)].filter((x) => x !== "").join(" · ");
     if (this.isScalar) {
       return `${this.what} = ${shownValue(r.rows[0])} · ${cost}\n  ${methodLine(r)}${notesHint(r.notes) ? ` · ${notesHint(r.notes)}` : ""}`;

@@ -151,15 +151,11 @@ export function spendAmounts(s: SpendSummary): { total: string; cap: string; sym
 }
 
 /**
- * The cost part of a release line: "cost ε=0.1 · session 0.3 · total 0.5 / 3". The total is the
- * analyst's current one (a replayed release carries its original receipt, but the spend is now).
+ * The cost statement of a release, "cost ε=0.1" (6 significant digits, in the receipt's unit), or
+ * "replayed, no new cost". Every view states it; the audit compares it with the signed cost.
  */
-export function costText(a: { cost: string; replay: boolean; sessionSpent: string; spend: SpendSummary }): string {
-  const amt = spendAmounts(a.spend);
-  const cost = a.replay ? `replayed, no new cost` : `cost ${amt.symbol}=${q(a.cost)}`;
-  let s = `${cost} · session ${q(a.sessionSpent)} · total ${q(amt.total)} / ${q(amt.cap)}`;
-  if (amt.unit === "rho" && a.spend.delta !== undefined) s += ` (ε ${q(a.spend.spentEpsilon)} of ${q(a.spend.capEpsilon)} at δ=${q(a.spend.delta)})`;
-  return s;
+export function costStatement(r: Pick<Release, "cost" | "replay" | "receipt">): string {
+  return r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
 }
 
 /** "ε 0.5 of 3 used · 2.5 remaining · 7 releases" (zCDP: in ρ with the ε equivalent). */

@@ -62,7 +62,7 @@ export function releaseOutput(r: Receipt, replay = false): NonNullable<NbCell["o
     const label = [...k, column === null ? stat : `${stat}(${column})`].join(" · ");
     return `${label}: ${formatWithError(v, lo, hi)}`;
   });
-  // The kernel's cost wording (runtime/api/text.ts costText).
+  // The kernel's cost wording (runtime/api/text.ts costStatement).
   const q = (x: string): string => formatDecimal(x, 6);
   lines.push(`${replay ? "replayed, no new cost" : `cost ε=${q(r.cost)}`} · total ${q(r.total)} / ${q(r.cap)}`);
   const data: Record<string, unknown> = { "text/plain": lines.join("\n") };
