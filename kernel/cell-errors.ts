@@ -79,7 +79,13 @@ export function sourceLine(code: string, output: string, jsLine: number): number
   const t = ts();
   const out = t.createSourceFile("cell.js", output, t.ScriptTarget.Latest, true, t.ScriptKind.JS);
   const src = t.createSourceFile("cell.ts", code, t.ScriptTarget.Latest, true, t.ScriptKind.TS);
-  const emitted = out.statements.filter((s) => !added(s.getText(out)));
+  // An enum or namespace emits `var E;` before the function that fills it: one statement of the cell.
+  const texts = out.statements.map((s) => s.getText(out));
+  const emitted = out.statements.filter((s, i) => {
+    const m = /^var ([\w$]+);$/.exec(texts[i]);
+    const next = texts.slice(i + 1).find((t) => !added(t)) ?? "";
+    return !added(texts[i]) && !(m !== null && next.startsWith(`(function (${m[1]})`));
+  });
   const own = src.statements.filter(emits);
   if (emitted.length !== own.length) return null;
   const line = (sf: TS.SourceFile, pos: number): number => sf.getLineAndCharacterOfPosition(pos).line;
