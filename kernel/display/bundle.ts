@@ -1,8 +1,10 @@
 /**
- * Mime bundles for the cell API objects. A release gets text/plain (the one-line or table summary),
- * text/html (value, interval, method, cost, running total, budget bar, notes), for grouped results
- * and histograms a Vega-Lite chart with error bars plus the same chart as SVG rendered here, and
- * output metadata carrying the signed receipt so the notebook can be audited without the data.
+ * Mime bundles for the cell API objects. A release gets text/plain and text/html in one compact
+ * view (the figures rounded by docs/methods.md §18, one plain line on the error bars, the cost, the
+ * rest folded away; views.ts), for grouped results and histograms a Vega-Lite chart with error bars
+ * plus the same chart as SVG rendered here, and output metadata carrying the signed receipt so the
+ * notebook can be audited without the data. The running privacy loss is one line per cell
+ * (lossBundle), never inside a release.
  */
 import { Answer } from "../../runtime/api/answer.js";
 import { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
