@@ -10,15 +10,19 @@ declare namespace HushApi {
   /** A literal in a filter: a declared category value, a number, a date "YYYY-MM-DD" or a boolean. */
   type Literal = string | number | boolean;
 
+  /** An exact number as a string: a decimal ("0.1", "1e-3") or a fraction ("1/3"); "lots" is a type error. */
+  type ExactNumber = ${"`${number}` | `${number}/${number}`"};
+  /** A privacy amount: a number, or an exact string. */
+  type PrivacyAmount = number | ExactNumber;
   /** Spend a fixed ε (pure DP). Strings are taken exactly ("0.1", "1e-3", "1/3"). */
   interface EpsilonSpend {
-    epsilon: number | string;
+    epsilon: PrivacyAmount;
     /** Confidence of the error bar, in (0, 1); default 0.95. */
     confidence?: number;
   }
   /** Spend a fixed ρ (zero-concentrated DP). */
   interface RhoSpend {
-    rho: number | string;
+    rho: PrivacyAmount;
     /** Confidence of the error bar, in (0, 1); default 0.95. */
     confidence?: number;
   }
@@ -28,8 +32,10 @@ declare namespace HushApi {
     within: number;
     /** Confidence the half-width is stated at; default 0.95. */
     confidence?: number;
+    /** The most it may spend (ε; ρ on zCDP datasets). Without it, and without a policy default, the ask is refused with its price. */
+    atMost?: PrivacyAmount;
   }
-  /** How much privacy to spend: { epsilon }, { rho } or { within, confidence? }. */
+  /** How much privacy to spend: { epsilon }, { rho } or { within, confidence?, atMost? }. */
   type SpendOptions = EpsilonSpend | RhoSpend | AccuracySpend;
   /** A histogram's bins (1 to 1000, equal width over the declared range) and spend. */
   type HistogramOptions = SpendOptions & { bins: number };
@@ -110,7 +116,7 @@ declare namespace HushApi {
   interface QueryPlan {
     v: 1; dataset: string; where?: Condition; groupBy?: GroupKey[];
     measure: { kind: string; [k: string]: unknown };
-    privacy: { epsilon: string } | { rho: string } | { within: number; confidence?: number };
+    privacy: { epsilon: string } | { rho: string } | { within: number; confidence?: number; atMost?: string };
     confidence?: number;
   }
   interface Release {

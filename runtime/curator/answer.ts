@@ -70,6 +70,7 @@ function normalize(plan: QueryPlan): QueryPlan {
     throw new BadInputError("plan.privacy.confidence: differs from plan.confidence; give one confidence");
   }
   const confidence = plan.confidence ?? pc ?? DEFAULT_CONFIDENCE;
+  // atMost bounds what the ask may spend; it is not part of the question (the digest, the release).
   const privacy = "within" in plan.privacy ? { within: plan.privacy.within, confidence } : plan.privacy;
   const out: QueryPlan = { v: plan.v, dataset: plan.dataset, measure: plan.measure, privacy, confidence };
   if (plan.where !== undefined) out.where = plan.where;

@@ -28,7 +28,7 @@ import {
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
-import { exactDecimal } from "./aggregates/budget.js";
+import { accuracyFirstRefusal, exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
 import { KeyedLock } from "./keyed-lock.js";
 import { copyMechanisms, receiptResult, signReasked, signReceipt } from "./receipts.js";
@@ -289,6 +289,9 @@ export class CuratorService {
     const earlier = this.ledger.find(analyst, d.population, prepared.digest);
     if (earlier !== null) return this.replayed(analyst, d, earlier, cell);
     const cap = capOf(d);
+    // Accuracy first spends only under a bound the analyst (or the policy) set; refused with the price otherwise.
+    const unbounded = accuracyFirstRefusal(d, plan.privacy, (prepared.plan as QueryPlan).confidence ?? 0.95, prepared.cost, cap.sub(this.ledger.spent(analyst, d.population).spent));
+    if (unbounded !== null) throw unbounded;
     // One lock per account: asks on two datasets of one population queue behind each other.
     return this.lock.run(`${analyst}\u0000${d.population}`, async () => {
       // While this request waited, another one may have released the same plan or spent budget.

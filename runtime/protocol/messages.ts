@@ -48,7 +48,14 @@ export type Measure =
 export type PrivacyAsk =
   | { epsilon: string }
   | { rho: string }
-  | { within: number; confidence?: number };
+  /**
+   * Accuracy first. `atMost`: the most this ask may spend, an exact positive number in the
+   * dataset's accounting unit (epsilon, or rho on zCDP datasets). Without it (and without the
+   * dataset's policy default `accuracyFirst.atMost`) an ask is refused with its price, spending
+   * nothing; with it, an ask that would cost more is refused the same way. It is not part of the
+   * question: the plan's digest and the released plan leave it out, so a replay stays free.
+   */
+  | { within: number; confidence?: number; atMost?: string };
 
 export interface QueryPlan {
   v: typeof PROTOCOL_VERSION;

@@ -123,9 +123,10 @@ const privacy = z.union(
           message: `must lie between ${PRIVACY_LIMITS.minWithin} and ${PRIVACY_LIMITS.maxWithin} (the range the curator supports)`,
         }),
       confidence: confidence.optional(),
+      atMost: exactPositive.optional(),
     }),
   ],
-  { error: "must be { epsilon: \"...\" }, { rho: \"...\" } or { within: <number>, confidence?: <number> } with exact positive strings for epsilon and rho" },
+  { error: "must be { epsilon: \"...\" }, { rho: \"...\" } or { within: <number>, confidence?: <number>, atMost?: \"...\" } with exact positive strings for epsilon, rho and atMost" },
 );
 
 const planSchema = z.strictObject({
