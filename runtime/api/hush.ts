@@ -54,11 +54,22 @@ export class Hush {
 
   /**
    * Your privacy budget: for each dataset opened in this session (or the one named), this session's
-   * spend and queries, and your total against the cap (which persists across sessions).
+   * spend and queries, and your total against the cap (which persists across sessions). Before any
+   * dataset is opened (a fresh or restarted kernel), every dataset you may use, with your spend on
+   * it from the curator's ledger: no dataset is opened and no data is read for it.
    */
   async budget(dataset?: string): Promise<BudgetReport> {
     const port = await this.#ctx.port();
     const analyst = await this.#ctx.analyst();
+    if (dataset === undefined && this.#ctx.spend.datasets().length === 0) {
+      const accounts = port.accounts !== undefined ? await port.accounts() : await Promise.all((await port.catalogue()).datasets.map((d) => port.spend(d.name)));
+      for (const s of accounts) this.#ctx.spend.noteSpend(s);
+      return new BudgetReport(
+        analyst,
+        accounts.map((s) => ({ dataset: s.dataset, spend: s, sessionSpent: "0", queries: [] })),
+        true,
+      );
+    }
     const names = dataset !== undefined ? [dataset] : this.#ctx.spend.datasets();
     const out: DatasetBudget[] = [];
     for (const name of names) {

@@ -266,6 +266,11 @@ export class CuratorClient {
     return (await this.request({ op: "spend", dataset })).spend;
   }
 
+  /** The analyst's spend on every dataset they may use (no dataset opened, no data read). */
+  async accounts(): Promise<SpendSummary[]> {
+    return (await this.request({ op: "accounts" })).accounts;
+  }
+
   async ledger(dataset?: string): Promise<LedgerEntry[]> {
     return (await this.request(dataset === undefined ? { op: "ledger" } : { op: "ledger", dataset })).entries;
   }

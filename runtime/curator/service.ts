@@ -196,6 +196,9 @@ export class CuratorService {
         return { op: "spend", spend: this.spendNow(analyst, this.dataset(analyst, body.dataset)) };
       case "ledger":
         return { op: "ledger", entries: this.entries(analyst, body.dataset) };
+      case "accounts":
+        // From the policy and the ledger only: what a restarted kernel shows before opening anything.
+        return { op: "accounts", accounts: this.visibleDatasets(analyst).map((d) => this.spendNow(analyst, d)) };
       case "preview":
         return { op: "preview", preview: await this.preview(analyst, body.plan) };
       case "ask":

@@ -259,7 +259,9 @@ export type RequestBody =
   | { op: "ask"; plan: QueryPlan; cell?: string }
   | { op: "preview"; plan: QueryPlan }
   | { op: "spend"; dataset: string }
-  | { op: "ledger"; dataset?: string };
+  | { op: "ledger"; dataset?: string }
+  /** The analyst's spend on every dataset they may use, from the ledger alone (no dataset opened, no data read). */
+  | { op: "accounts" };
 
 export interface Request {
   v: typeof PROTOCOL_VERSION;
@@ -275,7 +277,9 @@ export type ResponseBody =
   | { op: "ask"; release: Release }
   | { op: "preview"; preview: Preview }
   | { op: "spend"; spend: SpendSummary }
-  | { op: "ledger"; entries: LedgerEntry[] };
+  | { op: "ledger"; entries: LedgerEntry[] }
+  /** One summary per dataset the analyst may use, in policy order; datasets of one population show the same amounts. */
+  | { op: "accounts"; accounts: SpendSummary[] };
 
 /** Where a release's receipt travels in a notebook: `output.metadata[OUTPUT_METADATA_KEY]`. */
 export const OUTPUT_METADATA_KEY = "hush" as const;

@@ -210,6 +210,7 @@ const responseBody = z.discriminatedUnion("op", [
   z.strictObject({ op: z.literal("preview"), preview }),
   z.strictObject({ op: z.literal("spend"), spend: spendSummary }),
   z.strictObject({ op: z.literal("ledger"), entries: z.array(ledgerEntry) }),
+  z.strictObject({ op: z.literal("accounts"), accounts: z.array(spendSummary) }),
 ]);
 
 /** Every HushErrorKind, listed once at run time (the check below keeps it complete). */

@@ -157,6 +157,7 @@ const body = z.discriminatedUnion(
     z.strictObject({ op: z.literal("preview"), plan: z.unknown() }),
     z.strictObject({ op: z.literal("spend"), dataset: name }),
     z.strictObject({ op: z.literal("ledger"), dataset: name.optional() }),
+    z.strictObject({ op: z.literal("accounts") }),
   ],
   { error: "must have op one of catalogue, open, ask, preview, spend, ledger" },
 );
