@@ -37,6 +37,8 @@ declare namespace HushApi {
   }
   /** How much privacy to spend: { epsilon }, { rho } or { within, confidence?, atMost? }. */
   type SpendOptions = EpsilonSpend | RhoSpend | AccuracySpend;
+  /** A preview's options: the spend it prices, and for a mean, variance or std an assumed count of values (per group) for the estimate's own expected error. */
+  type PreviewOptions = SpendOptions & { assumeCount?: number };
   /** A histogram's bins (1 to 1000, equal width over the declared range) and spend. */
   type HistogramOptions = SpendOptions & { bins: number };
 
@@ -128,6 +130,8 @@ declare namespace HushApi {
     dataset: string; digest: string; cost: string; unit: "epsilon" | "rho";
     halfWidths: { stat: string; column: string | null; halfWidth: string }[];
     confidence: number; affordable: boolean; replay: boolean; spend: SpendSummary; notes: string[];
+    /** Means, variances, std: the estimate's own expected error for an assumed count (assumeCount or the policy's size hint). */
+    ratioErrors?: RatioError[];
   }
   interface LedgerEntry { seq: number; dataset: string; digest: string; plan: QueryPlan; cost: string; total: string; issuedAt: string; receipt: Receipt }
 
@@ -181,6 +185,10 @@ declare namespace HushApi {
   }
 
   interface ExpectedError { stat: string; column: string | null; halfWidth: number; exact: string }
+  interface RatioError {
+    stat: "mean" | "variance" | "std"; column: string; assumedCount: number; assumedFrom: "analyst" | "policy";
+    typical: string; typicalAt: string; widest: string;
+  }
   /** Cost and expected error of a query that has not been run; nothing spent. */
   interface CostQuote {
     readonly preview: Preview;
@@ -188,6 +196,8 @@ declare namespace HushApi {
     readonly cost: string;
     readonly unit: "epsilon" | "rho";
     readonly expectedErrors: ExpectedError[];
+    /** Means, variances, std: the error of the estimate itself for an assumed count of values. */
+    readonly estimateErrors: RatioError[];
     /** Would it fit under the cap now? */
     readonly affordable: boolean;
     /** Already released: running it again costs nothing. */
@@ -199,26 +209,26 @@ declare namespace HushApi {
   }
 
   /** The aggregates a sealed dataset answers. Each takes how much privacy to spend. */
-  interface Aggregates<R> {
+  interface Aggregates<R, O = SpendOptions> {
     /** Number of rows, per group when grouped with .by(...). */
-    count(spend: SpendOptions): Promise<R>;
+    count(spend: O): Promise<R>;
     /** Sum of a numeric column (clamped to its declared range). */
-    sum(column: string, spend: SpendOptions): Promise<R>;
+    sum(column: string, spend: O): Promise<R>;
     /** Mean of a numeric column. */
-    mean(column: string, spend: SpendOptions): Promise<R>;
-    variance(column: string, spend: SpendOptions): Promise<R>;
-    std(column: string, spend: SpendOptions): Promise<R>;
+    mean(column: string, spend: O): Promise<R>;
+    variance(column: string, spend: O): Promise<R>;
+    std(column: string, spend: O): Promise<R>;
     /** One quantile, p in (0, 1). */
-    quantile(column: string, p: number, spend: SpendOptions): Promise<R>;
+    quantile(column: string, p: number, spend: O): Promise<R>;
     /** Several quantiles; the budget is split evenly. */
-    quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R>;
-    median(column: string, spend: SpendOptions): Promise<R>;
+    quantiles(column: string, ps: number[], spend: O): Promise<R>;
+    median(column: string, spend: O): Promise<R>;
     /** Counts in equal-width bins: histogram("age", { bins: 10, epsilon: 0.2 }). */
-    histogram(column: string, opts: HistogramOptions): Promise<R>;
+    histogram(column: string, opts: O & { bins: number }): Promise<R>;
     /** Counts for every pair of declared values of two category columns. */
-    crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R>;
+    crosstab(rows: string, cols: string, spend: O): Promise<R>;
     /** Summary of every column, budget split evenly. */
-    describe(spend: SpendOptions): Promise<R>;
+    describe(spend: O): Promise<R>;
   }
 
   /** A sealed dataset: public schema, your spend, and noisy aggregates only. No method returns rows. */
@@ -240,7 +250,7 @@ declare namespace HushApi {
     /** A new handle grouped by a category column, or numeric bins: .by("district"), .by("age", { bins: 10 }). */
     by(column: string, opts?: { bins: number }): SealedTable;
     /** The same aggregates priced, not run: await t.preview.mean("wait_minutes", { epsilon: 0.1 }). */
-    readonly preview: Aggregates<CostQuote>;
+    readonly preview: Aggregates<CostQuote, PreviewOptions>;
     /** Your budget on this dataset. */
     budget(): Promise<BudgetReport>;
     toString(): string;

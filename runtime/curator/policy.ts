@@ -52,6 +52,11 @@ export interface DatasetPolicy {
    * accounting unit (epsilon, or rho on zCDP datasets). Absent: such asks are refused with their price.
    */
   accuracyFirst?: { atMost: Rational };
+  /**
+   * A public, approximate number of rows the steward is willing to state (`sizeHint`), used only by
+   * previews of means, variances and std to give the expected error of the estimate itself.
+   */
+  sizeHint?: number;
   analysts: string[];
   columns: ColumnPolicy[];
 }
@@ -137,6 +142,12 @@ const datasetSchema = z.strictObject({
     { error: "must be { mode: pure, cap: { epsilon } } or { mode: zcdp, cap: { epsilon, delta } }" },
   ),
   accuracyFirst: z.strictObject({ atMost: exact }, { error: "must be { atMost: \"...\" }" }).optional(),
+  sizeHint: z
+    .number({ error: "must be a whole number of rows (public, approximate)" })
+    .int({ message: "must be a whole number" })
+    .min(1, { message: "must be at least 1" })
+    .max(1e15, { message: "must be at most 1e15" })
+    .optional(),
   analysts: z.array(z.string(), { error: "must be a list of analyst names" }).default([]),
   columns: z.record(z.string(), columnSchema, { error: "must map column names to column declarations" }),
 });
@@ -389,6 +400,7 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       unit: { column: unitColumn, maxRows, maxGroups },
       accounting,
       ...(accuracyFirst !== undefined ? { accuracyFirst } : {}),
+      ...(d.sizeHint !== undefined ? { sizeHint: d.sizeHint } : {}),
       analysts: allowed,
       columns,
     });

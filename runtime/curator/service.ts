@@ -54,9 +54,10 @@ export interface AnswerSource {
   preview(
     analyst: string,
     plan: unknown,
+    assumeCount?: number,
   ):
-    | { prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }
-    | Promise<{ prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }>;
+    | { prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: Preview["ratioErrors"] }
+    | Promise<{ prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: Preview["ratioErrors"] }>;
 }
 
 export interface ServiceParts {
@@ -200,7 +201,7 @@ export class CuratorService {
         // From the policy and the ledger only: what a restarted kernel shows before opening anything.
         return { op: "accounts", accounts: this.visibleDatasets(analyst).map((d) => this.spendNow(analyst, d)) };
       case "preview":
-        return { op: "preview", preview: await this.preview(analyst, body.plan) };
+        return { op: "preview", preview: await this.preview(analyst, body.plan, body.assumeCount) };
       case "ask":
         return { op: "ask", release: await this.ask(analyst, body.plan, body.cell) };
     }
@@ -253,9 +254,9 @@ export class CuratorService {
     }));
   }
 
-  private async preview(analyst: string, plan: QueryPlan): Promise<Preview> {
+  private async preview(analyst: string, plan: QueryPlan, assumeCount?: number): Promise<Preview> {
     const d = this.dataset(analyst, plan.dataset);
-    const { prepared, halfWidths, notes } = await this.answerer.preview(analyst, plan);
+    const { prepared, halfWidths, notes, ratioErrors } = await this.answerer.preview(analyst, plan, assumeCount);
     const { spent, releases } = this.ledger.spent(analyst, d.population);
     const replay = this.ledger.find(analyst, d.population, prepared.digest) !== null;
     return {
@@ -271,6 +272,7 @@ export class CuratorService {
       replay,
       spend: spendSummary(analyst, d, spent, releases),
       notes,
+      ...(ratioErrors !== undefined ? { ratioErrors } : {}),
     };
   }
 

@@ -233,6 +233,25 @@ export interface Preview {
   replay: boolean;
   spend: SpendSummary;
   notes: string[];
+  /**
+   * Means, variances and std: the expected error of the estimate itself (not of its parts), for a
+   * count of values the analyst assumed (`assumeCount`) or the policy's public `sizeHint`; absent
+   * when neither is given. Computed from the assumption and the policy alone, never the data.
+   */
+  ratioErrors?: RatioError[];
+}
+
+export interface RatioError {
+  stat: "mean" | "variance" | "std";
+  column: string;
+  /** The count of values (per group) the figures assume, and who stated it. */
+  assumedCount: number;
+  assumedFrom: "analyst" | "policy";
+  /** Half-width of the estimate's error bar, as the release would compute it, at the point `typicalAt` describes. */
+  typical: string;
+  typicalAt: string;
+  /** The largest such half-width over a grid of values the estimate could take within the declared range. */
+  widest: string;
 }
 
 export interface LedgerEntry {
@@ -257,7 +276,8 @@ export type RequestBody =
   | { op: "open"; dataset: string }
   /** `cell`: the asking cell's source digest (runtime/protocol/cell-source.ts), signed into the receipt. */
   | { op: "ask"; plan: QueryPlan; cell?: string }
-  | { op: "preview"; plan: QueryPlan }
+  /** `assumeCount`: the count of values per group the ratio estimates' expected errors assume (Preview.ratioErrors). */
+  | { op: "preview"; plan: QueryPlan; assumeCount?: number }
   | { op: "spend"; dataset: string }
   | { op: "ledger"; dataset?: string }
   /** The analyst's spend on every dataset they may use, from the ledger alone (no dataset opened, no data read). */

@@ -185,6 +185,19 @@ const preview = z.strictObject({
   replay: z.boolean(),
   spend: spendSummary,
   notes: z.array(z.string()),
+  ratioErrors: z
+    .array(
+      z.strictObject({
+        stat: z.literal(["mean", "variance", "std"]),
+        column: z.string(),
+        assumedCount: z.number().int().min(1),
+        assumedFrom: z.literal(["analyst", "policy"]),
+        typical: exact,
+        typicalAt: z.string(),
+        widest: exact,
+      }),
+    )
+    .optional(),
 });
 
 const ledgerEntry = z.strictObject({
