@@ -231,17 +231,18 @@ export function accuracyFirstRefusal(d: DatasetPolicy, ask: PrivacyAsk, confiden
   const price = priceUp(cost);
   const conf = `${Number((confidence * 100).toPrecision(12))}%`;
   const head = `accuracy first: an error bar of ±${ask.within} (${conf}) costs ${sym} ${price}`;
-  const left = `${sym} ${remaining.sign() > 0 ? priceDown(remaining) : "0"} of your cap remain${remaining.le(cost) ? ", which is not enough" : ""}`;
+  // The remaining budget is named only when it would not cover the price (the notebook adds it anyway).
+  const left = remaining.lt(cost) ? `; only ${sym} ${remaining.sign() > 0 ? priceDown(remaining) : "0"} of your cap remain, which is not enough` : "";
   const unitWord = sym === "ε" ? "" : " (in ρ, this dataset's accounting unit)";
   if (bound === null) {
     return new BadInputError(
       `${head}; an accuracy-first ask needs an upper bound on what it may spend, so nothing was spent. ` +
-        `To spend it, ask again with { within: ${ask.within}, atMost: ${price} }${unitWord} or a wider error bar; ${left}.`,
+        `To spend it, ask again with { within: ${ask.within}, atMost: ${price} }${unitWord} or a wider error bar${left}.`,
     );
   }
   return new BadInputError(
     `${head}, more than its bound atMost ${sym} ${exactDecimal(bound)}${ask.atMost === undefined ? " (the dataset's policy default)" : ""}, so nothing was spent. ` +
-      `Ask again with atMost: ${price} or more${unitWord}, or with a wider error bar; ${left}.`,
+      `Ask again with atMost: ${price} or more${unitWord}, or with a wider error bar${left}.`,
   );
 }
 
