@@ -71,6 +71,13 @@ export function quoteHtml(c: CostQuote): string {
   return box(
     `<div><b>preview</b> ${esc(c.what)}${status}</div>` +
       `<div>would cost <b>${esc(unitSymbol(p.unit))}=${esc(q(p.cost))}</b> · nothing spent yet</div>` +
+      // The estimate's own expected error (mean, variance, std) for an assumed count, before its parts.
+      c.estimateErrors
+        .map(
+          (r) =>
+            `<div>expected error of the ${esc(r.stat)} itself <b>± ${esc(q(r.typical))}</b> (${esc(percent(p.confidence))}) for ${esc(r.typicalAt)}; up to ± ${esc(q(r.widest))} elsewhere in the range (${r.assumedFrom === "analyst" ? "your assumed count" : "the steward's public size hint"})</div>`,
+        )
+        .join("") +
       (rows.length ? table(["statistic", "column", `expected error (${esc(percent(p.confidence))})`], rows, new Set([2])) : "") +
       budgetBar({ ...s, sessionSpent: "0" }) +
       notesList(p.notes),

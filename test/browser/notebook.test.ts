@@ -30,8 +30,10 @@ const CLI = join(ROOT, "dist", "cli", "main.js");
 const CHROMIUM = "/usr/bin/chromium";
 const SHOTS = join(ROOT, ".hush", "browser");
 const TEMPLATE = join(ROOT, "notebooks", "exploration.ipynb");
-/** The cell the test adds after Run All: far past the demo cap of ε = 3. */
+/** Cells the test adds after Run All: an accuracy-first ask with no bound (refused with its price), and one far past the demo cap of ε = 3. */
+const UNBOUNDED = "await visits.count({ within: 25 })";
 const OVER_CAP = "await visits.count({ epsilon: 5 })";
+const ADDED = [UNBOUNDED, OVER_CAP];
 
 const python = findPython(["notebook"], "browser test (the classic notebook server, Debian jupyter-notebook)");
 const haveChromium = existsSync(CHROMIUM);
@@ -306,6 +308,7 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
   }, 170_000);
 
   async function runNotebookInBrowser(): Promise<void> {
+    rmSync(SHOTS, { recursive: true, force: true });
     mkdirSync(SHOTS, { recursive: true });
     trackedBefore = trackedDigest();
     statusBefore = gitStatus();
@@ -346,18 +349,21 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
     await page.evaluate(() => (document.querySelector("#run_all_cells > a") as HTMLElement).click());
     await waitForIdleCells(page, "Run All to finish", 120_000);
 
-    // A cell past the cap, added at the bottom and run with Shift-Enter as a user would.
-    await page.evaluate((code: string) => {
-      const J = (window as unknown as { Jupyter: any }).Jupyter;
-      const cell = J.notebook.insert_cell_at_bottom("code");
-      cell.set_text(code);
-      J.notebook.select(J.notebook.ncells() - 1);
-      cell.focus_editor();
-    }, OVER_CAP);
-    await page.keyboard.down("Shift");
-    await page.keyboard.press("Enter");
-    await page.keyboard.up("Shift");
-    await waitForIdleCells(page, "the over-cap cell", 30_000);
+    // Cells added at the bottom and run with Shift-Enter, as a user would.
+    for (const code of ADDED) {
+      await page.evaluate((text: string) => {
+        const J = (window as unknown as { Jupyter: any }).Jupyter;
+        const last = J.notebook.get_cell(J.notebook.ncells() - 1);
+        const cell = last.cell_type === "code" && last.get_text() === "" ? last : J.notebook.insert_cell_at_bottom("code");
+        cell.set_text(text);
+        J.notebook.select(J.notebook.find_cell_index(cell));
+        cell.focus_editor();
+      }, code);
+      await page.keyboard.down("Shift");
+      await page.keyboard.press("Enter");
+      await page.keyboard.up("Shift");
+      await waitForIdleCells(page, `the added cell ${code}`, 30_000);
+    }
 
     cells = await readCells(page);
     glyphs = await readGlyphs(page);
@@ -392,7 +398,7 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
   }, 30_000);
 
   it("runs every cell of the demo: releases with receipts, the replay free, no error before the added cell", () => {
-    const code = cells.filter((c) => c.source !== OVER_CAP);
+    const code = cells.filter((c) => !ADDED.includes(c.source));
     expect(code.length).toBeGreaterThan(5);
     for (const c of code) expect(c.errors, `cell ${c.index}: ${c.source}`).toEqual([]);
     const releases = code.flatMap((c) => c.releases);
@@ -434,6 +440,16 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
       expect(ch.drawn, `chart ${ch.width}x${ch.height}`).toBe(true);
       expect(ch.width).toBeGreaterThan(100);
     }
+  });
+
+  it("prices an accuracy-first ask with no bound and spends nothing; the preview gives the mean's own error", () => {
+    const ask = cells.find((c) => c.source === UNBOUNDED);
+    expect(ask, "the added accuracy-first cell ran").toBeDefined();
+    expect(ask!.releases).toEqual([]);
+    expect(ask!.errors.join("\n")).toMatch(/costs ε \d+(\.\d+)?; an accuracy-first ask needs an upper bound .*nothing was spent.*atMost: \d/s);
+    const preview = cells.find((c) => c.source.includes(".preview.mean("));
+    expect(preview, "the demo previews a mean").toBeDefined();
+    expect(preview!.text).toMatch(/expected error of the mean itself ± [\d,.]+ \(95%\) for 2000 values/);
   });
 
   it("refuses the over-cap ask readably: no stack frame, nothing spent", (ctx) => {
