@@ -315,6 +315,8 @@ export class Answerer {
       return out;
     }
     const ratio = ratioError(shape, count, assumeCount !== undefined ? "analyst" : "policy");
+    // The parts-only explanation (previewNotes) gives way to what the figure assumes.
+    out.notes = [...prepared.notes];
     out.notes.push(
       `The ${shape.stat}'s expected error assumes ${count} values${grouped ? " per group" : ""} (${assumeCount !== undefined ? "your assumption" : "the steward's public size hint"}), not the data's count: it is the half-width the release would compute if its noisy parts matched that assumption (docs/methods.md §8). The release states its own.`,
     );
