@@ -81,6 +81,7 @@ let token = "";
 let cells: CellFacts[] = [];
 let glyphs: GlyphFacts | null = null;
 let newView = false;
+let afterRestart = "";
 let trackedBefore = "";
 let statusBefore = "";
 
@@ -376,6 +377,25 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
     // Save as the user would (Ctrl-S / File → Save), and wait for the server to have it.
     await page.evaluate(() => (window as unknown as { Jupyter: any }).Jupyter.notebook.save_notebook());
     await until("the save", 20_000, () => page!.evaluate(() => !(window as unknown as { Jupyter: any }).Jupyter.notebook.dirty));
+
+    // Kernel → Restart, then the budget before any dataset is opened: the spend above, from the ledger.
+    await page.evaluate(() => (window as unknown as { Jupyter: any }).Jupyter.notebook.kernel.restart());
+    await until("the restarted kernel", 60_000, () =>
+      page!.evaluate(() => {
+        const J = (window as unknown as { Jupyter: any }).Jupyter;
+        return J.notebook.kernel.is_connected() && document.querySelector("#kernel_indicator_icon.kernel_idle_icon") !== null;
+      }),
+    );
+    afterRestart = await page.evaluate(async (code: string) => {
+      const J = (window as unknown as { Jupyter: any }).Jupyter;
+      const cell = J.notebook.insert_cell_at_bottom("code");
+      cell.set_text(code);
+      cell.execute();
+      const end = Date.now() + 60_000;
+      while (typeof cell.input_prompt_number !== "number" && Date.now() < end) await new Promise((r) => setTimeout(r, 250));
+      return (cell.element[0].querySelector(".output") as HTMLElement).innerText;
+    }, "await hush.budget()");
+    await page.screenshot({ path: join(SHOTS, "after-restart.png") as `${string}.png`, fullPage: false });
   }
 
   afterAll(async () => {
@@ -450,6 +470,15 @@ describe.skipIf(!ready)("the demo notebook in the classic notebook server and he
     const preview = cells.find((c) => c.source.includes(".preview.mean("));
     expect(preview, "the demo previews a mean").toBeDefined();
     expect(preview!.text).toMatch(/expected error of the mean itself ± [\d,.]+ \(95%\) for 2000 values/);
+  });
+
+  it("after a kernel restart, hush.budget() shows the notebook's spend without opening a dataset", () => {
+    const spent = cells.flatMap((c) => c.releases).filter((r) => !r.replay).length;
+    expect(spent).toBe(5);
+    expect(afterRestart).not.toMatch(/no dataset opened/);
+    // 0.05 + 0.2 + 0.2 + 0.1 + 0.1: the demo's five fresh releases, on the one population of its three datasets.
+    expect(afterRestart).toMatch(/ε 0\.65 of 3 used/);
+    expect(afterRestart, afterRestart).toMatch(/\bvisits\b/);
   });
 
   it("refuses the over-cap ask readably: no stack frame, nothing spent", (ctx) => {
