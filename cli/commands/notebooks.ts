@@ -6,7 +6,7 @@
  * notebook rewrites its file, so a user works in a copy: saving there touches no tracked file.
  * An existing copy is never overwritten (it may hold the user's work); it is listed as kept.
  */
-import { copyFileSync, existsSync, mkdirSync, readdirSync } from "node:fs";
+import { copyFileSync, existsSync, mkdirSync, readdirSync, statSync } from "node:fs";
 import { join, relative, resolve } from "node:path";
 import { repoRoot } from "../../notebooks/scenario/generate.js";
 import { BadInputError } from "../../runtime/errors.js";
@@ -25,6 +25,7 @@ export function runNotebooks(o: { to?: string }, out: (s: string) => void): { co
   if (rel === "notebooks" || rel.startsWith(`notebooks/`) || rel === "") {
     throw new BadInputError(`--to ${dir}: pick a folder outside the tracked notebooks/ (the templates live there)`);
   }
+  if (existsSync(dir) && !statSync(dir).isDirectory()) throw new BadInputError(`--to ${dir}: is a file, not a folder`);
   mkdirSync(dir, { recursive: true });
   const copied: string[] = [];
   const kept: string[] = [];

@@ -46,6 +46,9 @@ describe.skipIf(!existsSync(CLI))("hush notebooks", () => {
   });
 
   it("refuses to copy into the templates' own folder", () => {
+    const file = join(work, "a-file");
+    writeFileSync(file, "");
+    expect(hush(["notebooks", "--to", file]).stderr).toMatch(/is a file, not a folder/);
     for (const to of [join(ROOT, "notebooks"), join(ROOT, "notebooks", "x"), ROOT]) {
       const r = hush(["notebooks", "--to", to]);
       expect(r.status, to).toBe(2);
