@@ -262,6 +262,8 @@ declare namespace HushApi {
   interface BudgetReport {
     readonly analyst: string;
     readonly datasets: readonly DatasetBudget[];
+    /** True before any dataset is opened in this session: every dataset you may use, spend from the curator's ledger. */
+    readonly overview: boolean;
     of(dataset: string): DatasetBudget | undefined;
     toString(): string;
   }
