@@ -16,11 +16,11 @@ export const HUSH_HELP = [
   '  await visits.count({ epsilon: 0.1 })              a noisy count with its error bar',
   '  await visits.where(hush.col("age").ge(65)).by("district").mean("wait_minutes", { epsilon: 0.2 })',
   '  await visits.histogram("age", { bins: 10, epsilon: 0.2 })',
-  '  await visits.preview.mean("wait_minutes", { epsilon: 0.1 })   cost and expected error, nothing spent',
-  "  await hush.budget()    this session's spend and what remains under the cap",
+  '  await visits.preview.mean("wait_minutes", { epsilon: 0.1, assumeCount: 5000 })   cost and expected error, nothing spent',
+  "  await hush.budget()    your spend and what remains under the cap (before hush.open: every dataset you may use)",
   "  await hush.ledger()    every release recorded for you, with its signed receipt",
   "  await hush.datasets()  the datasets you may open",
-  "Spend with { epsilon }, { rho } or { within, confidence } (accuracy first); confidence defaults to 0.95.",
+  "Spend with { epsilon }, { rho } or { within, atMost } (accuracy first, never more than atMost); confidence defaults to 0.95.",
 ].join("\n");
 
 /** The cell API: open sealed datasets, read your privacy budget and ledger. */
