@@ -231,3 +231,20 @@ describe("the policy's accuracyFirst.atMost", () => {
     expect(load(policyText({ bounded: "3" }))().datasets.get("bounded")?.accuracyFirst?.atMost.eq(Rational.of(3n))).toBe(true);
   });
 });
+
+describe("the price against the methods document's check value", () => {
+  it("C18.1: a count of rows at epsilon per row, within 10 at 95%, costs C11.2 (0.284348512423) rounded up to 6 digits", async () => {
+    const rows = await start({
+      policy: `analysts:
+  ada: { token: "${ADA_HASH}" }
+datasets:
+  open:
+    source: a.csv
+    accounting: { mode: pure, cap: { epsilon: "3" } }
+    analysts: [ada]
+${COLUMNS}`,
+    });
+    const e = await rows.refusal(count("open", { within: 10 }));
+    expect(e.message).toContain("costs ε 0.284349;");
+  });
+});

@@ -217,7 +217,7 @@ export function accuracyFirstBound(d: DatasetPolicy, ask: PrivacyAsk): Rational 
 }
 
 /**
- * Safe accuracy first (docs/methods.md §11): the price of an accuracy-first ask is settled before
+ * Safe accuracy first (docs/methods.md §11, §18): the price of an accuracy-first ask is settled before
  * any data is read, and the ask is answered only under an explicit bound on what it may spend. The
  * refusal states the price so the analyst can ask again; it spends nothing and, since the price
  * follows from the plan and the policy alone, says nothing about the data. Null when the ask may go

@@ -1,5 +1,5 @@
 /**
- * The expected error of a ratio estimate itself (mean, variance, std), for a preview.
+ * The expected error of a ratio estimate itself (mean, variance, std), for a preview (docs/methods.md §18).
  *
  * A mean's error bar depends on its noisy count, which is private, so a preview cannot state it
  * without an assumption. Here the assumption is explicit and public: a count of values per group,
