@@ -25,7 +25,7 @@ import type { Piece, Source } from "./aggregates/common.js";
 import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
-import { ratioError } from "./aggregates/ratio-preview.js";
+import { ratioError, wholeRange } from "./aggregates/ratio-preview.js";
 import type { Engine, TableColumn, TableInfo } from "./engine.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
 import { Params, compileWhere, resolveColumn } from "./sql.js";
@@ -320,6 +320,9 @@ export class Answerer {
     out.notes.push(
       `The ${shape.stat}'s expected error assumes ${count} values${grouped ? " per group" : ""} (${assumeCount !== undefined ? "your assumption" : "the steward's public size hint"}), not the data's count: it is the half-width the release would compute if its noisy parts matched that assumption (docs/methods.md §8). The release states its own.`,
     );
+    if (Rational.parse(ratio.typical).ge(wholeRange(shape))) {
+      out.notes.push(`With ${count} value${count === 1 ? "" : "s"} the ${shape.stat}'s interval would be the whole declared range: the noise outweighs that count. Assume more values (a coarser grouping) or spend more.`);
+    }
     return { ...out, ratioErrors: [ratio] };
   }
 

@@ -115,6 +115,10 @@ describe("the expected error of a mean, variance or std itself", () => {
     // A count too small for the noise: the interval is the whole range, said as such.
     const tiny = await at(1);
     expect(Number(tiny.typical)).toBe(50);
+    const p = await preview({ op: "preview", plan: plan({ kind: "mean", column: "age" }, "0.5"), assumeCount: 1 });
+    expect(p.notes.join(" ")).toMatch(/With 1 value the mean's interval would be the whole declared range/);
+    const big = await preview({ op: "preview", plan: plan({ kind: "mean", column: "age" }, "0.5"), assumeCount: 20_000 });
+    expect(big.notes.join(" ")).not.toMatch(/whole declared range/);
   });
 
   it("variance and std: positive, widest at least typical, smaller for more values", async () => {

@@ -89,6 +89,13 @@ function spreadHalfWidth(s: RatioShape, n: bigint, meanEighths: bigint, spread: 
   return halfLength(sqrtRational(r.low, 12, "down"), sqrtRational(r.high, 12, "up"));
 }
 
+/** The largest half-width the estimate's interval can have: the whole declared range (its square for the variance). */
+export function wholeRange(s: RatioShape): Rational {
+  const half = s.upper.sub(s.lower).div(2n);
+  if (s.stat === "mean") return half;
+  return s.stat === "variance" ? half.mul(half).div(2n) : half.div(2n);
+}
+
 /** The expected error of the estimate for `count` values per group (see the file header). */
 export function ratioError(s: RatioShape, count: number, from: RatioError["assumedFrom"]): RatioError {
   const n = BigInt(count);
