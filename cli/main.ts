@@ -109,6 +109,14 @@ function program(): Command {
       runLedger(o, out);
     });
 
+  p.command("notebooks")
+    .description("copy the demo notebooks into a working folder (default workspace/, ignored by git); the tracked ones stay clean templates")
+    .option("--to <dir>", "the folder to copy them into (default: workspace/ in the repository)")
+    .action(async (o: { to?: string }) => {
+      const { runNotebooks } = await import("./commands/notebooks.js");
+      runNotebooks(o, out);
+    });
+
   p.command("demo")
     .description("the demo: invented clinic data, a local curator, run notebooks/exploration.ipynb, audit the result")
     .option("--state <dir>", "state directory for the demo run (default: .hush/demo-run in the repository)")

@@ -8,7 +8,7 @@
  */
 
 // A number as runtime/protocol/format.ts writes it ("12", "-0.5", "1,234.5", "1.25e-9": integer
-// parts in groups of three after the first, docs/methods.md §18), and a figure with an error bar
+// parts in groups of three after the first, docs/methods.md §23), and a figure with an error bar
 // in either of its two forms: "v ± w" or "v [lo, hi]". An ungrouped "1234" is still read as one
 // number (then it is not the kernel's spelling, and no signed figure matches it); a broken group
 // ("1,5 ± 1", "12,34 ± 1") leaves digits and a comma before the figure, which then does not stand

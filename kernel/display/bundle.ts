@@ -1,6 +1,6 @@
 /**
  * Mime bundles for the cell API objects. A release gets text/plain and text/html in one compact
- * view (the figures rounded by docs/methods.md §18, one plain line on the error bars, the cost, the
+ * view (the figures rounded by docs/methods.md §23, one plain line on the error bars, the cost, the
  * rest folded away; views.ts), for grouped results and histograms a Vega-Lite chart with error bars
  * plus the same chart as SVG rendered here, and output metadata carrying the signed receipt so the
  * notebook can be audited without the data. The running privacy loss is one line per cell

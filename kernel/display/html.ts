@@ -73,7 +73,7 @@ function swatch(colour: string | null): string {
 
 const shown = (x: string): string => (x === "?" ? "?" : q(x));
 
-/** What is left of a cap, rounded down so it never reads as more than there is (docs/methods.md §18). */
+/** What is left of a cap, rounded down so it never reads as more than there is (docs/methods.md §23). */
 export function leftText(x: string): string {
   return x === "?" ? "?" : formatAmount(x, "down");
 }

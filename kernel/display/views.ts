@@ -94,6 +94,13 @@ export function quoteHtml(c: CostQuote): string {
   return box(
     `<div><b>preview</b> ${esc(c.what)}${status}</div>` +
       `<div>would cost <b>${esc(unitSymbol(p.unit))}=${esc(q(p.cost))}</b> · nothing spent yet</div>` +
+      // The estimate's own expected error (mean, variance, std) for an assumed count, before its parts.
+      c.estimateErrors
+        .map(
+          (r) =>
+            `<div>expected error of the ${esc(r.stat)} itself <b>± ${esc(q(r.typical))}</b> (${esc(percent(p.confidence))}) for ${esc(r.typicalAt)}; up to ± ${esc(q(r.widest))} elsewhere in the range (${r.assumedFrom === "analyst" ? "your assumed count" : "the steward's public size hint"})</div>`,
+        )
+        .join("") +
       (rows.length ? table(["statistic", "column", `expected error (${esc(percent(p.confidence))})`], rows, new Set([2])) : "") +
       budgetBar({ total: s.total, recent: "0", cap: s.cap, symbol: s.symbol, recentLabel: "this session", beforeLabel: "spent" }) +
       (p.notes.length ? `<details class="hush-notes" style="margin-top:2px;font-size:12px"><summary style="${MUTED}">${esc(plural(p.notes.length, "note"))}</summary>${notesList(p.notes)}</details>` : ""),

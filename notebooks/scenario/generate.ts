@@ -82,7 +82,9 @@ export function demoPolicyText(root: string, dataFile: string): string {
 
 export async function ensureDemoData(opts: { dir?: string } = {}): Promise<DemoData> {
   const root = repoRoot();
-  const dataFile = ensureVisitsCsv(join(root, "notebooks", "data", "visits.csv"));
+  // Outside the notebook tree and under a hidden, git-ignored folder: a notebook server started in
+  // the clone neither lists nor serves it (DEVELOPERS.md, "Demo layout").
+  const dataFile = ensureVisitsCsv(join(root, ".hush", "data", "visits.csv"));
   const dir = resolve(opts.dir ?? join(root, ".hush", "demo"));
   const policyFile = join(dir, "policy.yaml");
   const keyFile = join(dir, "keys", "curator.key");

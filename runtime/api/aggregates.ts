@@ -31,55 +31,66 @@ function probabilities(ps: unknown, what: string): number[] {
   return list as number[];
 }
 
-export abstract class Aggregates<R> {
+/**
+ * The options of a preview: the spend it prices, and for a mean, variance or std the count of
+ * values (per group) its expected error should assume. The true count is private, so the preview
+ * needs an assumption for the error of the estimate itself; without one (and without the steward's
+ * public size hint) it gives only the errors of the estimate's parts.
+ */
+export type PreviewOptions = SpendOptions & {
+  /** Assumed count of values per group (a whole number, 1 to 1e15), for a mean's, variance's or std's own expected error. */
+  assumeCount?: number;
+};
+
+export abstract class Aggregates<R, O extends SpendOptions = SpendOptions> {
   /**
    * Runs (or prices) one measure. `make` builds it and may throw on bad arguments, so the subclass
    * reports every refusal the same way; `what` names the method for error messages.
    */
-  protected abstract measure(make: () => Measure, spend: SpendOptions, what: string): Promise<R>;
+  protected abstract measure(make: () => Measure, spend: O, what: string): Promise<R>;
 
   /** Number of rows (after the filter), per group when grouped with `.by(...)`. */
-  count(spend: SpendOptions): Promise<R> {
+  count(spend: O): Promise<R> {
     return this.measure(() => ({ kind: "count" }), spend, "count");
   }
 
   /** Sum of a numeric column (values clamped to its declared range). */
-  sum(column: string, spend: SpendOptions): Promise<R> {
+  sum(column: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "sum", column: columnArg(column, "sum(column)") }), spend, "sum");
   }
 
   /** Mean of a numeric column; the budget is split between a noisy sum and a noisy count. */
-  mean(column: string, spend: SpendOptions): Promise<R> {
+  mean(column: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "mean", column: columnArg(column, "mean(column)") }), spend, "mean");
   }
 
   /** Variance of a numeric column. */
-  variance(column: string, spend: SpendOptions): Promise<R> {
+  variance(column: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "variance", column: columnArg(column, "variance(column)") }), spend, "variance");
   }
 
   /** Standard deviation of a numeric column. */
-  std(column: string, spend: SpendOptions): Promise<R> {
+  std(column: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "std", column: columnArg(column, "std(column)") }), spend, "std");
   }
 
   /** One quantile, p in (0, 1), of a numeric column (exponential mechanism on the column's grid). */
-  quantile(column: string, p: number, spend: SpendOptions): Promise<R> {
+  quantile(column: string, p: number, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "quantile", column: columnArg(column, "quantile(column)"), p: probabilities(p, "quantile(p)") }), spend, "quantile");
   }
 
   /** Several quantiles at once, e.g. `[0.25, 0.5, 0.75]`; the budget is split evenly between them. */
-  quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R> {
+  quantiles(column: string, ps: number[], spend: O): Promise<R> {
     return this.measure(() => ({ kind: "quantile", column: columnArg(column, "quantiles(column)"), p: probabilities(ps, "quantiles(ps)") }), spend, "quantiles");
   }
 
   /** The median (the 0.5 quantile) of a numeric column. */
-  median(column: string, spend: SpendOptions): Promise<R> {
+  median(column: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "quantile", column: columnArg(column, "median(column)"), p: [0.5] }), spend, "median");
   }
 
   /** Counts in equal-width bins over a numeric column's declared range: `histogram("age", { bins: 10, epsilon: 0.2 })`. */
-  histogram(column: string, opts: HistogramOptions): Promise<R> {
+  histogram(column: string, opts: O & { bins: number }): Promise<R> {
     return this.measure(
       () => {
         const bins = (opts as { bins?: unknown } | undefined)?.bins;
@@ -94,12 +105,12 @@ export abstract class Aggregates<R> {
   }
 
   /** Counts for every pair of declared values of two category (or boolean) columns. */
-  crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R> {
+  crosstab(rows: string, cols: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "crosstab", rows: columnArg(rows, "crosstab(rows)"), cols: columnArg(cols, "crosstab(cols)") }), spend, "crosstab");
   }
 
   /** A summary of every column (count; mean, std and median of numbers; counts of categories), budget split evenly. */
-  describe(spend: SpendOptions): Promise<R> {
+  describe(spend: O): Promise<R> {
     return this.measure(() => ({ kind: "describe" }), spend, "describe");
   }
 }

@@ -135,7 +135,7 @@ export class Answer {
   }
 
   /**
-   * The compact text view (docs/methods.md §18): the figure(s) rounded to what the error bar
+   * The compact text view (docs/methods.md §23): the figure(s) rounded to what the error bar
    * supports, the cost, one plain sentence on the error bars, and how many notes there are. The
    * running privacy loss is not here: the kernel shows it once per cell.
    */

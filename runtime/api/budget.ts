@@ -22,9 +22,15 @@ export interface DatasetBudget {
 export class BudgetReport {
   readonly analyst: string;
   readonly datasets: readonly DatasetBudget[];
+  /**
+   * True for the overview a session shows before it opens a dataset: every dataset the analyst may
+   * use, with the spend the curator's ledger holds (earlier sessions included), none of it this session's.
+   */
+  readonly overview: boolean;
 
-  constructor(analyst: string, datasets: DatasetBudget[]) {
+  constructor(analyst: string, datasets: DatasetBudget[], overview = false) {
     this.analyst = analyst;
+    this.overview = overview;
     this.datasets = Object.freeze(datasets.map((d) => Object.freeze({ ...d, queries: Object.freeze([...d.queries]) })));
     Object.freeze(this);
   }
@@ -40,7 +46,10 @@ export class BudgetReport {
   }
 
   toString(): string {
-    if (this.datasets.length === 0) return `privacy budget of ${this.analyst}: no dataset opened yet (hush.open(name))`;
+    if (this.datasets.length === 0) {
+      return this.overview ? `privacy budget of ${this.analyst}: no dataset is granted to you` : `privacy budget of ${this.analyst}: no dataset opened yet (hush.open(name))`;
+    }
+    if (this.overview) return overviewText(this.analyst, this.datasets);
     const out = [`privacy budget of ${this.analyst}`];
     for (const d of this.datasets) {
       out.push(`${d.dataset}: ${spendText(d.spend)} · this session ${q(d.sessionSpent)}`);
@@ -53,6 +62,24 @@ export class BudgetReport {
     }
     return out.join("\n");
   }
+}
+
+/**
+ * The overview before any dataset is opened: one line per population (its datasets share one cap),
+ * with the spend from the curator's ledger.
+ */
+function overviewText(analyst: string, datasets: readonly DatasetBudget[]): string {
+  const byPopulation = new Map<string, DatasetBudget[]>();
+  for (const d of datasets) byPopulation.set(d.spend.population, [...(byPopulation.get(d.spend.population) ?? []), d]);
+  const rows: [string, string][] = [...byPopulation].map(([population, ds]) => [
+    `${ds.map((d) => d.dataset).join(", ")}${ds.length > 1 || ds[0].dataset !== population ? ` (population ${population})` : ""}`,
+    spendText(ds[0].spend),
+  ]);
+  return [
+    `privacy budget of ${analyst}: your spend so far, from the curator's ledger (no dataset opened in this session)`,
+    ...aligned(rows, "  "),
+    "Datasets over the same people share one cap. Open one with hush.open(name).",
+  ].join("\n");
 }
 
 /** The analyst's ledger: every release the curator has recorded (this and earlier sessions). */

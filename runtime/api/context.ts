@@ -8,8 +8,11 @@ import type { CuratorClient } from "../client/client.js";
 import type { SessionSpend } from "./session-spend.js";
 import { remainingText } from "./text.js";
 
-/** The curator operations the API uses (CuratorClient satisfies it; tests may pass a stand-in). */
-export type CuratorPort = Pick<CuratorClient, "catalogue" | "open" | "ask" | "preview" | "spend" | "ledger" | "close">;
+/**
+ * The curator operations the API uses (CuratorClient satisfies it; tests may pass a stand-in).
+ * `accounts` is optional: without it the budget overview asks `spend` per catalogued dataset.
+ */
+export type CuratorPort = Pick<CuratorClient, "catalogue" | "open" | "ask" | "preview" | "spend" | "ledger" | "close"> & Partial<Pick<CuratorClient, "accounts">>;
 
 export interface ApiContext {
   /** The curator connection, made on first use. */

@@ -10,15 +10,19 @@ declare namespace HushApi {
   /** A literal in a filter: a declared category value, a number, a date "YYYY-MM-DD" or a boolean. */
   type Literal = string | number | boolean;
 
+  /** An exact number as a string: a decimal ("0.1", "1e-3") or a fraction ("1/3"); "lots" is a type error. */
+  type ExactNumber = ${"`${number}` | `${number}/${number}`"};
+  /** A privacy amount: a number, or an exact string. */
+  type PrivacyAmount = number | ExactNumber;
   /** Spend a fixed ε (pure DP). Strings are taken exactly ("0.1", "1e-3", "1/3"). */
   interface EpsilonSpend {
-    epsilon: number | string;
+    epsilon: PrivacyAmount;
     /** Confidence of the error bar, in (0, 1); default 0.95. */
     confidence?: number;
   }
   /** Spend a fixed ρ (zero-concentrated DP). */
   interface RhoSpend {
-    rho: number | string;
+    rho: PrivacyAmount;
     /** Confidence of the error bar, in (0, 1); default 0.95. */
     confidence?: number;
   }
@@ -28,9 +32,13 @@ declare namespace HushApi {
     within: number;
     /** Confidence the half-width is stated at; default 0.95. */
     confidence?: number;
+    /** The most it may spend (ε; ρ on zCDP datasets). Without it, and without a policy default, the ask is refused with its price. */
+    atMost?: PrivacyAmount;
   }
-  /** How much privacy to spend: { epsilon }, { rho } or { within, confidence? }. */
+  /** How much privacy to spend: { epsilon }, { rho } or { within, confidence?, atMost? }. */
   type SpendOptions = EpsilonSpend | RhoSpend | AccuracySpend;
+  /** A preview's options: the spend it prices, and for a mean, variance or std an assumed count of values (per group) for the estimate's own expected error. */
+  type PreviewOptions = SpendOptions & { assumeCount?: number };
   /** A histogram's bins (1 to 1000, equal width over the declared range) and spend. */
   type HistogramOptions = SpendOptions & { bins: number };
 
@@ -110,7 +118,7 @@ declare namespace HushApi {
   interface QueryPlan {
     v: 1; dataset: string; where?: Condition; groupBy?: GroupKey[];
     measure: { kind: string; [k: string]: unknown };
-    privacy: { epsilon: string } | { rho: string } | { within: number; confidence?: number };
+    privacy: { epsilon: string } | { rho: string } | { within: number; confidence?: number; atMost?: string };
     confidence?: number;
   }
   interface Release {
@@ -122,6 +130,8 @@ declare namespace HushApi {
     dataset: string; digest: string; cost: string; unit: "epsilon" | "rho";
     halfWidths: { stat: string; column: string | null; halfWidth: string }[];
     confidence: number; affordable: boolean; replay: boolean; spend: SpendSummary; notes: string[];
+    /** Means, variances, std: the estimate's own expected error for an assumed count (assumeCount or the policy's size hint). */
+    ratioErrors?: RatioError[];
   }
   interface LedgerEntry { seq: number; dataset: string; digest: string; plan: QueryPlan; cost: string; total: string; issuedAt: string; receipt: Receipt }
 
@@ -175,6 +185,10 @@ declare namespace HushApi {
   }
 
   interface ExpectedError { stat: string; column: string | null; halfWidth: number; exact: string }
+  interface RatioError {
+    stat: "mean" | "variance" | "std"; column: string; assumedCount: number; assumedFrom: "analyst" | "policy";
+    typical: string; typicalAt: string; widest: string;
+  }
   /** Cost and expected error of a query that has not been run; nothing spent. */
   interface CostQuote {
     readonly preview: Preview;
@@ -182,6 +196,8 @@ declare namespace HushApi {
     readonly cost: string;
     readonly unit: "epsilon" | "rho";
     readonly expectedErrors: ExpectedError[];
+    /** Means, variances, std: the error of the estimate itself for an assumed count of values. */
+    readonly estimateErrors: RatioError[];
     /** Would it fit under the cap now? */
     readonly affordable: boolean;
     /** Already released: running it again costs nothing. */
@@ -193,26 +209,26 @@ declare namespace HushApi {
   }
 
   /** The aggregates a sealed dataset answers. Each takes how much privacy to spend. */
-  interface Aggregates<R> {
+  interface Aggregates<R, O = SpendOptions> {
     /** Number of rows, per group when grouped with .by(...). */
-    count(spend: SpendOptions): Promise<R>;
+    count(spend: O): Promise<R>;
     /** Sum of a numeric column (clamped to its declared range). */
-    sum(column: string, spend: SpendOptions): Promise<R>;
+    sum(column: string, spend: O): Promise<R>;
     /** Mean of a numeric column. */
-    mean(column: string, spend: SpendOptions): Promise<R>;
-    variance(column: string, spend: SpendOptions): Promise<R>;
-    std(column: string, spend: SpendOptions): Promise<R>;
+    mean(column: string, spend: O): Promise<R>;
+    variance(column: string, spend: O): Promise<R>;
+    std(column: string, spend: O): Promise<R>;
     /** One quantile, p in (0, 1). */
-    quantile(column: string, p: number, spend: SpendOptions): Promise<R>;
+    quantile(column: string, p: number, spend: O): Promise<R>;
     /** Several quantiles; the budget is split evenly. */
-    quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R>;
-    median(column: string, spend: SpendOptions): Promise<R>;
+    quantiles(column: string, ps: number[], spend: O): Promise<R>;
+    median(column: string, spend: O): Promise<R>;
     /** Counts in equal-width bins: histogram("age", { bins: 10, epsilon: 0.2 }). */
-    histogram(column: string, opts: HistogramOptions): Promise<R>;
+    histogram(column: string, opts: O & { bins: number }): Promise<R>;
     /** Counts for every pair of declared values of two category columns. */
-    crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R>;
+    crosstab(rows: string, cols: string, spend: O): Promise<R>;
     /** Summary of every column, budget split evenly. */
-    describe(spend: SpendOptions): Promise<R>;
+    describe(spend: O): Promise<R>;
   }
 
   /** A sealed dataset: public schema, your spend, and noisy aggregates only. No method returns rows. */
@@ -234,7 +250,7 @@ declare namespace HushApi {
     /** A new handle grouped by a category column, or numeric bins: .by("district"), .by("age", { bins: 10 }). */
     by(column: string, opts?: { bins: number }): SealedTable;
     /** The same aggregates priced, not run: await t.preview.mean("wait_minutes", { epsilon: 0.1 }). */
-    readonly preview: Aggregates<CostQuote>;
+    readonly preview: Aggregates<CostQuote, PreviewOptions>;
     /** Your budget on this dataset. */
     budget(): Promise<BudgetReport>;
     toString(): string;
@@ -246,6 +262,8 @@ declare namespace HushApi {
   interface BudgetReport {
     readonly analyst: string;
     readonly datasets: readonly DatasetBudget[];
+    /** True before any dataset is opened in this session: every dataset you may use, spend from the curator's ledger. */
+    readonly overview: boolean;
     of(dataset: string): DatasetBudget | undefined;
     toString(): string;
   }

@@ -17,11 +17,11 @@ export const HUSH_HELP = [
   '  await visits.count({ epsilon: 0.1 })              a noisy count with its error bar',
   '  await visits.where(hush.col("age").ge(65)).by("district").mean("wait_minutes", { epsilon: 0.2 })',
   '  await visits.histogram("age", { bins: 10, epsilon: 0.2 })',
-  '  await visits.preview.mean("wait_minutes", { epsilon: 0.1 })   cost and expected error, nothing spent',
-  "  await hush.budget()    this session's spend and what remains under the cap",
+  '  await visits.preview.mean("wait_minutes", { epsilon: 0.1, assumeCount: 5000 })   cost and expected error, nothing spent',
+  "  await hush.budget()    your spend and what remains under the cap (before hush.open: every dataset you may use)",
   "  await hush.ledger()    every release recorded for you, with its signed receipt",
   "  await hush.datasets()  the datasets you may open",
-  "Spend with { epsilon }, { rho } or { within, confidence } (accuracy first); confidence defaults to 0.95.",
+  "Spend with { epsilon }, { rho } or { within, atMost } (accuracy first, never more than atMost); confidence defaults to 0.95.",
 ].join("\n");
 
 /** The cell API: open sealed datasets, read your privacy budget and ledger. */
@@ -55,11 +55,22 @@ export class Hush {
 
   /**
    * Your privacy budget: for each dataset opened in this session (or the one named), this session's
-   * spend and queries, and your total against the cap (which persists across sessions).
+   * spend and queries, and your total against the cap (which persists across sessions). Before any
+   * dataset is opened (a fresh or restarted kernel), every dataset you may use, with your spend on
+   * it from the curator's ledger: no dataset is opened and no data is read for it.
    */
   async budget(dataset?: string): Promise<BudgetReport> {
     const port = await this.#ctx.port();
     const analyst = await this.#ctx.analyst();
+    if (dataset === undefined && this.#ctx.spend.datasets().length === 0) {
+      const accounts = port.accounts !== undefined ? await port.accounts() : await Promise.all((await port.catalogue()).datasets.map((d) => port.spend(d.name)));
+      for (const s of accounts) this.#ctx.spend.noteSpend(s);
+      return new BudgetReport(
+        analyst,
+        accounts.map((s) => ({ dataset: s.dataset, spend: s, sessionSpent: "0", queries: [] })),
+        true,
+      );
+    }
     const names = dataset !== undefined ? [dataset] : this.#ctx.spend.datasets();
     const out: DatasetBudget[] = [];
     for (const name of names) {

@@ -7,10 +7,20 @@
 import { BadInputError } from "../errors.js";
 import type { PrivacyAsk } from "../protocol/messages.js";
 
+/**
+ * An exact number written as a string: a decimal (`"0.1"`, `"1e-3"`) or a fraction (`"1/3"`).
+ * The type lets only number-shaped strings through, so `epsilon: "lots"` is a type error in the
+ * cell; the value is still checked when the cell runs (positive, finite, at most 30 digits a part).
+ */
+export type ExactNumber = `${number}` | `${number}/${number}`;
+
+/** A privacy amount: a number (taken as the decimal it prints as) or an exact string. */
+export type PrivacyAmount = number | ExactNumber;
+
 /** Spend a fixed epsilon (pure DP; on a zCDP dataset the curator converts it). */
 export interface EpsilonSpend {
   /** Privacy-loss parameter ε > 0, e.g. `0.1` or `"0.1"` (strings are taken exactly, fractions like `"1/3"` too). */
-  epsilon: number | string;
+  epsilon: PrivacyAmount;
   /** Confidence of the error bar, in (0, 1); default 0.95. */
   confidence?: number;
 }
@@ -18,20 +28,26 @@ export interface EpsilonSpend {
 /** Spend a fixed rho (zero-concentrated DP). */
 export interface RhoSpend {
   /** zCDP parameter ρ > 0, e.g. `0.005` or `"1/200"`. */
-  rho: number | string;
+  rho: PrivacyAmount;
   /** Confidence of the error bar, in (0, 1); default 0.95. */
   confidence?: number;
 }
 
-/** Accuracy first: spend whatever makes the error bar this narrow (count, sum, histogram, crosstab). */
+/**
+ * Accuracy first: spend what makes the error bar this narrow (count, sum, histogram, crosstab), but
+ * never more than `atMost`. Without `atMost` (and without a default in the steward's policy) the
+ * ask is refused with its price and nothing is spent; `preview` shows the price too.
+ */
 export interface AccuracySpend {
   /** Wanted half-width of the error bar, in the units of the result (> 0). */
   within: number;
   /** Confidence the half-width is stated at, in (0, 1); default 0.95. */
   confidence?: number;
+  /** The most this ask may spend, in the dataset's accounting unit (ε; ρ on zCDP datasets), e.g. `0.5` or `"0.5"`. */
+  atMost?: PrivacyAmount;
 }
 
-/** One of: `{ epsilon }`, `{ rho }` or `{ within, confidence? }`. */
+/** One of: `{ epsilon }`, `{ rho }` or `{ within, confidence?, atMost? }`. */
 export type SpendOptions = EpsilonSpend | RhoSpend | AccuracySpend;
 
 export const DEFAULT_CONFIDENCE = 0.95;
@@ -106,6 +122,9 @@ export function privacyAsk(opts: unknown, what: string): { privacy: PrivacyAsk; 
   }
   const o = opts as Record<string, unknown>;
   const given = ["epsilon", "rho", "within"].filter((k) => o[k] !== undefined);
+  if (o.atMost !== undefined && o.within === undefined) {
+    throw new BadInputError(`${what}: atMost bounds an accuracy-first ask ({ within, atMost }); with epsilon or rho the spend is already what you give`);
+  }
   if (given.length === 0) {
     throw new BadInputError(`${what}: say how much to spend, e.g. { epsilon: 0.1 }, { rho: 0.005 } or { within: 5 }`);
   }
@@ -117,5 +136,6 @@ export function privacyAsk(opts: unknown, what: string): { privacy: PrivacyAsk; 
   if (typeof w !== "number" || !Number.isFinite(w) || w <= 0) {
     throw new BadInputError(`${what}: within must be a positive finite number (the wanted half-width), got ${describe(w)}`);
   }
-  return { privacy: { within: w, confidence }, confidence };
+  const atMost = o.atMost === undefined ? {} : { atMost: exactPositive(o.atMost, `${what}: atMost`) };
+  return { privacy: { within: w, confidence, ...atMost }, confidence };
 }

@@ -3,7 +3,7 @@
  * computed from the plan and the public policy only. Nothing is spent and nothing about the data
  * is revealed.
  */
-import type { Preview, SpendSummary } from "../protocol/messages.js";
+import type { Preview, RatioError, SpendSummary } from "../protocol/messages.js";
 import { formatHalfWidth } from "../protocol/format.js";
 import { INSPECT, aligned, percent, q, spendText, unitSymbol } from "./text.js";
 
@@ -42,6 +42,14 @@ export class CostQuote {
   /** Expected half-width of each number the query would release. */
   get expectedErrors(): ExpectedError[] {
     return this.preview.halfWidths.map((h) => ({ stat: h.stat, column: h.column, halfWidth: Number(h.halfWidth), exact: h.halfWidth }));
+  }
+
+  /**
+   * Means, variances and std: the expected error of the estimate itself for an assumed count of
+   * values (`assumeCount`, or the steward's public size hint); empty without one.
+   */
+  get estimateErrors(): RatioError[] {
+    return (this.preview.ratioErrors ?? []).map((r) => ({ ...r }));
   }
 
   /** Would it fit under the cap right now? */
@@ -86,6 +94,11 @@ export class CostQuote {
             errs.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${formatHalfWidth(e.exact)} (${percent(p.confidence)})`]),
             "  ",
           );
-    return [head, ...lines, `  now: ${spendText(p.spend)}`].join("\n");
+    const own = this.estimateErrors.map(
+      (r) =>
+        `  expected error of the ${r.stat} itself ± ${q(r.typical)} (${percent(p.confidence)}) for ${r.typicalAt}; up to ± ${q(r.widest)} elsewhere in the range (${r.assumedFrom === "analyst" ? "your assumed count" : "the steward's public size hint"})`,
+    );
+    const parts = own.length > 0 && lines.length > 0 ? ["  its parts:", ...lines.map((l) => `  ${l}`)] : lines;
+    return [head, ...own, ...parts, `  now: ${spendText(p.spend)}`].join("\n");
   }
 }

@@ -9,7 +9,7 @@ import type { ColumnInfo, Condition, DatasetInfo, GroupKey, Measure, QueryPlan, 
 import { PROTOCOL_VERSION } from "../protocol/messages.js";
 import { PLAN_LIMITS } from "../protocol/limits.js";
 import { parsePlan } from "../protocol/schema.js";
-import { Aggregates } from "./aggregates.js";
+import { Aggregates, type PreviewOptions } from "./aggregates.js";
 import { Answer } from "./answer.js";
 import { BudgetReport } from "./budget.js";
 import { type ApiContext, withBudgetNote } from "./context.js";
@@ -264,7 +264,17 @@ export function columnText(c: ColumnInfo): string {
 }
 
 /** The aggregates of a handle, priced: `await visits.preview.mean("wait_minutes", { epsilon: 0.1 })`. Spends nothing. */
-export class CostPreview extends Aggregates<CostQuote> {
+/** A preview's assumed count of values: a whole number from 1 to 1e15, or absent. */
+function assumedCount(o: unknown, what: string): number | undefined {
+  const n = o !== null && typeof o === "object" ? (o as { assumeCount?: unknown }).assumeCount : undefined;
+  if (n === undefined) return undefined;
+  if (typeof n !== "number" || !Number.isInteger(n) || n < 1 || n > 1e15) {
+    throw new BadInputError(`${what}: assumeCount must be a whole number of values from 1 to 1e15 (an assumption for the expected error), got ${typeof n === "number" ? String(n) : typeof n}`);
+  }
+  return n;
+}
+
+export class CostPreview extends Aggregates<CostQuote, PreviewOptions> {
   readonly #table: SealedTable;
 
   constructor(table: SealedTable) {
@@ -277,12 +287,13 @@ export class CostPreview extends Aggregates<CostQuote> {
     return `CostPreview <prices asks on ${state(this.#table).info.name}; spends nothing>`;
   }
 
-  protected override async measure(make: () => Measure, spend: SpendOptions, what: string): Promise<CostQuote> {
+  protected override async measure(make: () => Measure, spend: PreviewOptions, what: string): Promise<CostQuote> {
     const s = state(this.#table);
     try {
       const plan = makePlan(s, make(), spend, what);
+      const assumeCount = assumedCount(spend, what);
       const port = await s.ctx.port();
-      const preview = await port.preview(plan);
+      const preview = assumeCount === undefined ? await port.preview(plan) : await port.preview(plan, assumeCount);
       s.ctx.spend.noteSpend(preview.spend);
       return new CostQuote(preview, planText(plan));
     } catch (e: unknown) {

@@ -25,7 +25,7 @@ export function q(s: string): string {
 
 /**
  * A released value with its error bar, rounded to what the error bar supports and with thousands
- * separators (docs/methods.md §18), as the audit expects to find it: "177,760 ± 480".
+ * separators (docs/methods.md §23), as the audit expects to find it: "177,760 ± 480".
  */
 export function shownValue(row: Pick<ReleaseRow, "value" | "low" | "high">): string {
   return formatWithError(row.value, row.low, row.high);
@@ -73,7 +73,7 @@ export function methodLine(r: Pick<Release, "plan" | "rows" | "confidence" | "gr
   const each = scalar ? "" : "for each value, ";
   if (bars.every((b) => b.startsWith("±"))) {
     // Discrete noise: the stated half-width has a tail at most 1 - confidence (docs/methods.md §4, §13),
-    // and the printed one is never narrower (§18).
+    // and the printed one is never narrower (§23).
     const h = scalar ? bars[0].replace("± ", "±") : "the ± shown";
     return `${each}at least ${pct} of such answers fall within ${h} of the true ${noun} (privacy noise only)`;
   }
@@ -165,7 +165,7 @@ export function spendText(s: SpendSummary): string {
     const eps = s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
     return `ρ ${q(s.spentRho)} of ${q(s.capRho)} used${rem}${eps} · ${plural(s.releases, "release")}`;
   }
-  // What remains is rounded down: it never reads as more than there is (docs/methods.md §18).
+  // What remains is rounded down: it never reads as more than there is (docs/methods.md §23).
   return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} used · ${formatAmount(s.remainingEpsilon, "down")} remaining · ${plural(s.releases, "release")}`;
 }
 

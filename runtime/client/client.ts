@@ -258,12 +258,18 @@ export class CuratorClient {
     return (await this.request(cell === undefined ? { op: "ask", plan } : { op: "ask", plan, cell })).release;
   }
 
-  async preview(plan: QueryPlan): Promise<Preview> {
-    return (await this.request({ op: "preview", plan })).preview;
+  /** `assumeCount`: the count of values per group a mean's, variance's or std's expected error assumes (Preview.ratioErrors). */
+  async preview(plan: QueryPlan, assumeCount?: number): Promise<Preview> {
+    return (await this.request(assumeCount === undefined ? { op: "preview", plan } : { op: "preview", plan, assumeCount })).preview;
   }
 
   async spend(dataset: string): Promise<SpendSummary> {
     return (await this.request({ op: "spend", dataset })).spend;
+  }
+
+  /** The analyst's spend on every dataset they may use (no dataset opened, no data read). */
+  async accounts(): Promise<SpendSummary[]> {
+    return (await this.request({ op: "accounts" })).accounts;
   }
 
   async ledger(dataset?: string): Promise<LedgerEntry[]> {

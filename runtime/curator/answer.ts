@@ -16,7 +16,7 @@ import { Rational } from "../core/index.js";
 import type { Bits } from "../core/index.js";
 import { createHash } from "node:crypto";
 import { canonicalJson } from "../protocol/canonical.js";
-import type { ColumnInfo, DatasetInfo, GroupKey, MechanismRecord, Preview, QueryPlan, ReleaseRow } from "../protocol/messages.js";
+import type { ColumnInfo, DatasetInfo, GroupKey, MechanismRecord, Preview, QueryPlan, RatioError, ReleaseRow } from "../protocol/messages.js";
 import { PLAN_LIMITS } from "../protocol/limits.js";
 import { parsePlan } from "../protocol/schema.js";
 import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/additive.js";
@@ -25,6 +25,7 @@ import type { Piece, Source } from "./aggregates/common.js";
 import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
+import { ratioError, wholeRange } from "./aggregates/ratio-preview.js";
 import type { Engine, TableColumn, TableInfo } from "./engine.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
 import { Params, compileWhere, resolveColumn } from "./sql.js";
@@ -70,6 +71,7 @@ function normalize(plan: QueryPlan): QueryPlan {
     throw new BadInputError("plan.privacy.confidence: differs from plan.confidence; give one confidence");
   }
   const confidence = plan.confidence ?? pc ?? DEFAULT_CONFIDENCE;
+  // atMost bounds what the ask may spend; it is not part of the question (the digest, the release).
   const privacy = "within" in plan.privacy ? { within: plan.privacy.within, confidence } : plan.privacy;
   const out: QueryPlan = { v: plan.v, dataset: plan.dataset, measure: plan.measure, privacy, confidence };
   if (plan.where !== undefined) out.where = plan.where;
@@ -287,12 +289,41 @@ export class Answerer {
     };
   }
 
-  /** prepare plus the expected half-widths; reads no data and spends nothing. */
-  preview(analyst: string, raw: unknown): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[] } {
+  /**
+   * prepare plus the expected half-widths; reads no data and spends nothing. For a mean, variance
+   * or std, also the expected error of the estimate itself for an assumed count of values per group
+   * (`assumeCount`, else the policy's `sizeHint` for an ungrouped plan; ratio-preview.ts).
+   */
+  preview(
+    analyst: string,
+    raw: unknown,
+    assumeCount?: number,
+  ): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: RatioError[] } {
     const prepared = this.prepare(analyst, raw);
-    const { piece } = this.settle(prepared.plan);
+    const { piece, d } = this.settle(prepared.plan);
     const extra = (piece.previewNotes ?? []).filter((n) => !prepared.notes.includes(n));
-    return { prepared, halfWidths: piece.halfWidths.map((h) => ({ ...h })), notes: [...prepared.notes, ...extra] };
+    const out = { prepared, halfWidths: piece.halfWidths.map((h) => ({ ...h })), notes: [...prepared.notes, ...extra] };
+    const shape = piece.ratioShape;
+    if (shape === undefined) return out;
+    const grouped = (prepared.plan.groupBy ?? []).length > 0;
+    const hint = !grouped && d.sizeHint !== undefined ? d.sizeHint : undefined;
+    const count = assumeCount ?? hint;
+    if (count === undefined) {
+      out.notes.push(
+        `For the expected error of the ${shape.stat} itself, preview again with an assumed count of values${grouped ? " per group" : ""}, e.g. { epsilon: ..., assumeCount: 1000 }: the figure needs a count, and the true one is private.`,
+      );
+      return out;
+    }
+    const ratio = ratioError(shape, count, assumeCount !== undefined ? "analyst" : "policy");
+    // The parts-only explanation (previewNotes) gives way to what the figure assumes.
+    out.notes = [...prepared.notes];
+    out.notes.push(
+      `The ${shape.stat}'s expected error assumes ${count} values${grouped ? " per group" : ""} (${assumeCount !== undefined ? "your assumption" : "the steward's public size hint"}), not the data's count: it is the half-width the release would compute if its noisy parts matched that assumption (docs/methods.md §8). The release states its own.`,
+    );
+    if (Rational.parse(ratio.typical).ge(wholeRange(shape))) {
+      out.notes.push(`With ${count} value${count === 1 ? "" : "s"} the ${shape.stat}'s interval would be the whole declared range: the noise outweighs that count. Assume more values (a coarser grouping) or spend more.`);
+    }
+    return { ...out, ratioErrors: [ratio] };
   }
 
   private build(plan: QueryPlan, src: Source, alloc: Allocator): { piece: Piece; groupColumns: string[]; columnsUsed: string[] } {

@@ -47,6 +47,16 @@ export interface DatasetPolicy {
   /** column null: each row is its own unit (then maxRows = maxGroups = 1). */
   unit: { column: string | null; maxRows: number; maxGroups: number };
   accounting: AccountingPolicy;
+  /**
+   * The default upper bound of an accuracy-first ask that names none (`atMost`), in the dataset's
+   * accounting unit (epsilon, or rho on zCDP datasets). Absent: such asks are refused with their price.
+   */
+  accuracyFirst?: { atMost: Rational };
+  /**
+   * A public, approximate number of rows the steward is willing to state (`sizeHint`), used only by
+   * previews of means, variances and std to give the expected error of the estimate itself.
+   */
+  sizeHint?: number;
   analysts: string[];
   columns: ColumnPolicy[];
 }
@@ -131,6 +141,13 @@ const datasetSchema = z.strictObject({
     ],
     { error: "must be { mode: pure, cap: { epsilon } } or { mode: zcdp, cap: { epsilon, delta } }" },
   ),
+  accuracyFirst: z.strictObject({ atMost: exact }, { error: "must be { atMost: \"...\" }" }).optional(),
+  sizeHint: z
+    .number({ error: "must be a whole number of rows (public, approximate)" })
+    .int({ message: "must be a whole number" })
+    .min(1, { message: "must be at least 1" })
+    .max(1e15, { message: "must be at most 1e15" })
+    .optional(),
   analysts: z.array(z.string(), { error: "must be a list of analyst names" }).default([]),
   columns: z.record(z.string(), columnSchema, { error: "must map column names to column declarations" }),
 });
@@ -357,6 +374,16 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       accounting = { mode: "zcdp", capEpsilon, delta, capRho };
     }
 
+    let accuracyFirst: DatasetPolicy["accuracyFirst"];
+    if (d.accuracyFirst !== undefined) {
+      const path = `${dp}.accuracyFirst.atMost`;
+      const atMost = exactOf(abs, path, d.accuracyFirst.atMost, "the accuracy-first bound");
+      const cap = accounting.mode === "pure" ? accounting.capEpsilon : accounting.capRho;
+      if (atMost.sign() <= 0) fail(abs, path, "must be positive");
+      if (atMost.gt(cap)) fail(abs, path, `must not exceed the cap (${accounting.mode === "pure" ? "epsilon" : "rho"} ${cap.toDecimal(12)}); it is in the dataset's accounting unit`);
+      accuracyFirst = { atMost };
+    }
+
     const allowed: string[] = [];
     d.analysts.forEach((a, i) => {
       if (!analysts.has(a)) fail(abs, `${dp}.analysts[${i}]`, "names an analyst not listed under analysts");
@@ -372,6 +399,8 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       format,
       unit: { column: unitColumn, maxRows, maxGroups },
       accounting,
+      ...(accuracyFirst !== undefined ? { accuracyFirst } : {}),
+      ...(d.sizeHint !== undefined ? { sizeHint: d.sizeHint } : {}),
       analysts: allowed,
       columns,
     });

@@ -7,7 +7,7 @@ import { ProtocolError } from "../errors.js";
 import { MAX_FRAME_BYTES, PROTOCOL_VERSION, type Request, type Response } from "../protocol/messages.js";
 import { parseRequest } from "../protocol/schema.js";
 
-const OPS = new Set(["catalogue", "open", "ask", "preview", "spend", "ledger"]);
+const OPS = new Set(["catalogue", "open", "ask", "preview", "spend", "ledger", "accounts"]);
 /** Longest request id echoed back; a longer one is answered with the empty id. */
 const MAX_ECHOED_ID = 200;
 

@@ -28,7 +28,7 @@ import {
 import { generateCuratorKey, loadCuratorKey, type CuratorKey } from "./keys.js";
 import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
-import { exactDecimal } from "./aggregates/budget.js";
+import { accuracyFirstRefusal, exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
 import { KeyedLock } from "./keyed-lock.js";
 import { copyMechanisms, receiptResult, signReasked, signReceipt } from "./receipts.js";
@@ -54,9 +54,10 @@ export interface AnswerSource {
   preview(
     analyst: string,
     plan: unknown,
+    assumeCount?: number,
   ):
-    | { prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }
-    | Promise<{ prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[] }>;
+    | { prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: Preview["ratioErrors"] }
+    | Promise<{ prepared: PreparedRelease; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: Preview["ratioErrors"] }>;
 }
 
 export interface ServiceParts {
@@ -196,8 +197,11 @@ export class CuratorService {
         return { op: "spend", spend: this.spendNow(analyst, this.dataset(analyst, body.dataset)) };
       case "ledger":
         return { op: "ledger", entries: this.entries(analyst, body.dataset) };
+      case "accounts":
+        // From the policy and the ledger only: what a restarted kernel shows before opening anything.
+        return { op: "accounts", accounts: this.visibleDatasets(analyst).map((d) => this.spendNow(analyst, d)) };
       case "preview":
-        return { op: "preview", preview: await this.preview(analyst, body.plan) };
+        return { op: "preview", preview: await this.preview(analyst, body.plan, body.assumeCount) };
       case "ask":
         return { op: "ask", release: await this.ask(analyst, body.plan, body.cell) };
     }
@@ -250,9 +254,9 @@ export class CuratorService {
     }));
   }
 
-  private async preview(analyst: string, plan: QueryPlan): Promise<Preview> {
+  private async preview(analyst: string, plan: QueryPlan, assumeCount?: number): Promise<Preview> {
     const d = this.dataset(analyst, plan.dataset);
-    const { prepared, halfWidths, notes } = await this.answerer.preview(analyst, plan);
+    const { prepared, halfWidths, notes, ratioErrors } = await this.answerer.preview(analyst, plan, assumeCount);
     const { spent, releases } = this.ledger.spent(analyst, d.population);
     const replay = this.ledger.find(analyst, d.population, prepared.digest) !== null;
     return {
@@ -268,6 +272,7 @@ export class CuratorService {
       replay,
       spend: spendSummary(analyst, d, spent, releases),
       notes,
+      ...(ratioErrors !== undefined ? { ratioErrors } : {}),
     };
   }
 
@@ -289,6 +294,9 @@ export class CuratorService {
     const earlier = this.ledger.find(analyst, d.population, prepared.digest);
     if (earlier !== null) return this.replayed(analyst, d, earlier, cell);
     const cap = capOf(d);
+    // Accuracy first spends only under a bound the analyst (or the policy) set; refused with the price otherwise.
+    const unbounded = accuracyFirstRefusal(d, plan.privacy, (prepared.plan as QueryPlan).confidence ?? 0.95, prepared.cost, cap.sub(this.ledger.spent(analyst, d.population).spent));
+    if (unbounded !== null) throw unbounded;
     // One lock per account: asks on two datasets of one population queue behind each other.
     return this.lock.run(`${analyst}\u0000${d.population}`, async () => {
       // While this request waited, another one may have released the same plan or spent budget.

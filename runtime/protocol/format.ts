@@ -133,7 +133,7 @@ export function groupThousands(plainText: string): string {
   return `${m[1]}${m[2].replace(/\B(?=(\d{3})+(?!\d))/g, ",")}${m[3] ?? ""}`;
 }
 
-// ---- The display rule for a figure with an error bar (docs/methods.md §18) ----
+// ---- The display rule for a figure with an error bar (docs/methods.md §23) ----
 
 /** Below this decimal place the three numbers of a figure are written in scientific form. */
 const SCI_PLACE = -9;
@@ -185,7 +185,7 @@ export interface FigureParts {
 }
 
 /**
- * How a released value and its interval are shown (docs/methods.md §18). With a positive
+ * How a released value and its interval are shown (docs/methods.md §23). With a positive
  * half-width w (the exact half-width of a symmetric interval, half the width of another one):
  * - the decimal place p is that of w's second significant digit, and never below the units when
  *   the value and both ends are integers (counts stay whole numbers);
@@ -231,7 +231,7 @@ export function figureParts(value: string | null, low: string | null, high: stri
 /**
  * A released value with its error bar as every view shows it and the notebook audit reads it:
  * "177,760 ± 480", "24.3 [22.6, 25.9]", or the value alone; "n/a" for a missing value. The rule
- * is figureParts's (docs/methods.md §18). Throws a TypeError on a string that is not a number.
+ * is figureParts's (docs/methods.md §23). Throws a TypeError on a string that is not a number.
  */
 export function formatWithError(value: string | null, low: string | null, high: string | null): string {
   const f = figureParts(value, low, high);
@@ -260,7 +260,7 @@ export function formatAmount(value: string, direction: "up" | "down", sig = 6): 
 }
 
 /**
- * An expected half-width alone (a preview's "± 240"), by the figure rule (docs/methods.md §18):
+ * An expected half-width alone (a preview's "± 240"), by the figure rule (docs/methods.md §23):
  * rounded up to two significant digits, never below the units for a whole number, with separators.
  */
 export function formatHalfWidth(w: string): string {

@@ -48,7 +48,14 @@ export type Measure =
 export type PrivacyAsk =
   | { epsilon: string }
   | { rho: string }
-  | { within: number; confidence?: number };
+  /**
+   * Accuracy first. `atMost`: the most this ask may spend, an exact positive number in the
+   * dataset's accounting unit (epsilon, or rho on zCDP datasets). Without it (and without the
+   * dataset's policy default `accuracyFirst.atMost`) an ask is refused with its price, spending
+   * nothing; with it, an ask that would cost more is refused the same way. It is not part of the
+   * question: the plan's digest and the released plan leave it out, so a replay stays free.
+   */
+  | { within: number; confidence?: number; atMost?: string };
 
 export interface QueryPlan {
   v: typeof PROTOCOL_VERSION;
@@ -226,6 +233,25 @@ export interface Preview {
   replay: boolean;
   spend: SpendSummary;
   notes: string[];
+  /**
+   * Means, variances and std: the expected error of the estimate itself (not of its parts), for a
+   * count of values the analyst assumed (`assumeCount`) or the policy's public `sizeHint`; absent
+   * when neither is given. Computed from the assumption and the policy alone, never the data.
+   */
+  ratioErrors?: RatioError[];
+}
+
+export interface RatioError {
+  stat: "mean" | "variance" | "std";
+  column: string;
+  /** The count of values (per group) the figures assume, and who stated it. */
+  assumedCount: number;
+  assumedFrom: "analyst" | "policy";
+  /** Half-width of the estimate's error bar, as the release would compute it, at the point `typicalAt` describes. */
+  typical: string;
+  typicalAt: string;
+  /** The largest such half-width over a grid of values the estimate could take within the declared range. */
+  widest: string;
 }
 
 export interface LedgerEntry {
@@ -250,9 +276,12 @@ export type RequestBody =
   | { op: "open"; dataset: string }
   /** `cell`: the asking cell's source digest (runtime/protocol/cell-source.ts), signed into the receipt. */
   | { op: "ask"; plan: QueryPlan; cell?: string }
-  | { op: "preview"; plan: QueryPlan }
+  /** `assumeCount`: the count of values per group the ratio estimates' expected errors assume (Preview.ratioErrors). */
+  | { op: "preview"; plan: QueryPlan; assumeCount?: number }
   | { op: "spend"; dataset: string }
-  | { op: "ledger"; dataset?: string };
+  | { op: "ledger"; dataset?: string }
+  /** The analyst's spend on every dataset they may use, from the ledger alone (no dataset opened, no data read). */
+  | { op: "accounts" };
 
 export interface Request {
   v: typeof PROTOCOL_VERSION;
@@ -268,7 +297,9 @@ export type ResponseBody =
   | { op: "ask"; release: Release }
   | { op: "preview"; preview: Preview }
   | { op: "spend"; spend: SpendSummary }
-  | { op: "ledger"; entries: LedgerEntry[] };
+  | { op: "ledger"; entries: LedgerEntry[] }
+  /** One summary per dataset the analyst may use, in policy order; datasets of one population show the same amounts. */
+  | { op: "accounts"; accounts: SpendSummary[] };
 
 /** Where a release's receipt travels in a notebook: `output.metadata[OUTPUT_METADATA_KEY]`. */
 export const OUTPUT_METADATA_KEY = "hush" as const;

@@ -185,6 +185,19 @@ const preview = z.strictObject({
   replay: z.boolean(),
   spend: spendSummary,
   notes: z.array(z.string()),
+  ratioErrors: z
+    .array(
+      z.strictObject({
+        stat: z.literal(["mean", "variance", "std"]),
+        column: z.string(),
+        assumedCount: z.number().int().min(1),
+        assumedFrom: z.literal(["analyst", "policy"]),
+        typical: exact,
+        typicalAt: z.string(),
+        widest: exact,
+      }),
+    )
+    .optional(),
 });
 
 const ledgerEntry = z.strictObject({
@@ -210,6 +223,7 @@ const responseBody = z.discriminatedUnion("op", [
   z.strictObject({ op: z.literal("preview"), preview }),
   z.strictObject({ op: z.literal("spend"), spend: spendSummary }),
   z.strictObject({ op: z.literal("ledger"), entries: z.array(ledgerEntry) }),
+  z.strictObject({ op: z.literal("accounts"), accounts: z.array(spendSummary) }),
 ]);
 
 /** Every HushErrorKind, listed once at run time (the check below keeps it complete). */

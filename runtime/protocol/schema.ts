@@ -123,9 +123,10 @@ const privacy = z.union(
           message: `must lie between ${PRIVACY_LIMITS.minWithin} and ${PRIVACY_LIMITS.maxWithin} (the range the curator supports)`,
         }),
       confidence: confidence.optional(),
+      atMost: exactPositive.optional(),
     }),
   ],
-  { error: "must be { epsilon: \"...\" }, { rho: \"...\" } or { within: <number>, confidence?: <number> } with exact positive strings for epsilon and rho" },
+  { error: "must be { epsilon: \"...\" }, { rho: \"...\" } or { within: <number>, confidence?: <number>, atMost?: \"...\" } with exact positive strings for epsilon, rho and atMost" },
 );
 
 const planSchema = z.strictObject({
@@ -153,9 +154,14 @@ const body = z.discriminatedUnion(
       // The asking cell's source digest (cell-source.ts); optional: scripts outside a notebook have no cell.
       cell: z.string({ error: "must be a string" }).regex(CELL_DIGEST_PATTERN, { message: "must be 64 lowercase hex digits (sha256 of the cell's source)" }).optional(),
     }),
-    z.strictObject({ op: z.literal("preview"), plan: z.unknown() }),
+    z.strictObject({
+      op: z.literal("preview"),
+      plan: z.unknown(),
+      assumeCount: z.number({ error: "must be a whole number" }).int({ message: "must be a whole number" }).min(1, { message: "must be at least 1" }).max(1e15, { message: "must be at most 1e15" }).optional(),
+    }),
     z.strictObject({ op: z.literal("spend"), dataset: name }),
     z.strictObject({ op: z.literal("ledger"), dataset: name.optional() }),
+    z.strictObject({ op: z.literal("accounts") }),
   ],
   { error: "must have op one of catalogue, open, ask, preview, spend, ledger" },
 );
@@ -241,7 +247,8 @@ export function parseRequest(raw: unknown): Request {
   }
   if (req.body.op === "preview") {
     const plan = parsePlanAt(req.body.plan, "request.body.plan");
-    return { ...req, body: { op: "preview", plan } } as Request;
+    const assumeCount = req.body.assumeCount;
+    return { ...req, body: { op: "preview", plan, ...(assumeCount !== undefined ? { assumeCount } : {}) } } as Request;
   }
   return req as Request;
 }

@@ -78,7 +78,7 @@ describe("cell API on a real curator", () => {
       () => clinic.where(session.api.col("age").ge(40)).by("district").mean("wait_minutes", { epsilon: "0.2" }),
       () => clinic.histogram("age", { bins: 5, epsilon: 0.1 }),
       () => clinic.crosstab("district", "insured", { epsilon: 0.1 }),
-      () => clinic.by("district").count({ within: 30 }),
+      () => clinic.by("district").count({ within: 30, atMost: 1 }),
       () => clinic.count({ epsilon: 0.1 }), // the first question again: a replay
     ];
     const answers: Answer[] = [];
@@ -131,7 +131,7 @@ describe("cell API on a real curator", () => {
     const before = (await session.api.budget("clinic")).of("clinic")!.spend;
     const p = clinic.count({ epsilon: 5 });
     await expect(p).rejects.toThrow(OverCapError);
-    // What is left is rounded down (docs/methods.md §18), the cost up; amounts in decimals, never fractions.
+    // What is left is rounded down (docs/methods.md §23), the cost up; amounts in decimals, never fractions.
     const left = formatAmount(before.remainingEpsilon, "down").replace(".", "\\.");
     await expect(p).rejects.toThrow(new RegExp(`^over the cap: this query costs ε 5, but ada has ε ${left} left of the cap 2 on population clinic\\.csv \\(.*; spent [\\d.]+\\); nothing was spent\\n`));
     await expect(p).rejects.not.toThrow(/\d\/\d/);

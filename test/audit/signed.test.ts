@@ -130,7 +130,7 @@ describe("notebook audit on a signed, assembled notebook", () => {
     for (const c of nb.cells) {
       for (const o of c.outputs ?? []) {
         if (o.data === undefined) continue;
-        // The figures as the kernel rounds them ("6,000 ± 240", docs/methods.md §18), ± as a reference.
+        // The figures as the kernel rounds them ("6,000 ± 240", docs/methods.md §23), ± as a reference.
         const [a, b] = [formatWithError("5995", "5755", "6235"), formatWithError("6120", "5880", "6360")].map((f) => f.replace("±", "&plusmn;"));
         o.data["text/html"] = `<table><tr><td>2024</td><td>[90, 100]</td><td>${a}</td></tr><tr><td>2025</td><td>[90, 100]</td><td>${b}</td></tr></table><div>cost &epsilon;=0.1 · total 0.1 / 1</div>`;
       }

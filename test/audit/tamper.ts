@@ -131,7 +131,7 @@ export function replaceKey(nb: Notebook, other: { privateKey: KeyObject; publicK
 }
 
 /**
- * Ways to show a signed figure that the display rule (docs/methods.md §18) does not write: each is
+ * Ways to show a signed figure that the display rule (docs/methods.md §23) does not write: each is
  * a number a reader may take for the signed one, and each must be caught. `row` is the signed row.
  */
 export const RESPELLINGS: { name: string; spell: (row: Receipt["result"][number]) => string }[] = [

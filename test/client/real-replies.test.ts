@@ -83,7 +83,7 @@ const ASKS: [string, QueryPlan][] = [
   ["count by district and binned age, filtered", plan({ kind: "count" }, { groupBy: [{ column: "district" }, { column: "age", bins: 4 }], where: { op: "ge", column: "age", value: 18 } })],
   ["mean by insured", plan({ kind: "mean", column: "age" }, { groupBy: [{ column: "insured" }], confidence: 0.9 })],
   ["zCDP count", { v: 1, dataset: "clinic_z", measure: { kind: "count" }, privacy: { rho: "0.01" } }],
-  ["zCDP accuracy-first sum", { v: 1, dataset: "clinic_z", measure: { kind: "sum", column: "age" }, privacy: { within: 5000 } }],
+  ["zCDP accuracy-first sum", { v: 1, dataset: "clinic_z", measure: { kind: "sum", column: "age" }, privacy: { within: 5000, atMost: "1000" } }],
 ];
 
 describe("real curator replies pass the reply schema", () => {

@@ -57,7 +57,7 @@ const PLANS: { name: string; p: QueryPlan }[] = [
   { name: "pure std by insured", p: P("clinic", { kind: "std", column: "wait_minutes" }, { epsilon: "1/3" }, { groupBy: [{ column: "insured" }] }) },
   { name: "pure quantiles", p: P("clinic", { kind: "quantile", column: "age", p: [0.25, 0.5, 0.75] }, { epsilon: "0.9" }) },
   { name: "pure describe", p: P("clinic", { kind: "describe" }, { epsilon: "2" }) },
-  { name: "pure accuracy-first histogram", p: P("clinic", { kind: "histogram", column: "age", bins: 5 }, { within: 40 }) },
+  { name: "pure accuracy-first histogram", p: P("clinic", { kind: "histogram", column: "age", bins: 5 }, { within: 40, atMost: "1000" }) },
   { name: "zCDP rho variance", p: P("clinic_z", { kind: "variance", column: "age" }, { rho: "0.005" }) },
   { name: "zCDP epsilon mean", p: P("clinic_z", { kind: "mean", column: "age" }, { epsilon: "0.1" }) },
   { name: "zCDP rho describe", p: P("clinic_z", { kind: "describe" }, { rho: "0.005" }) },
@@ -99,7 +99,7 @@ describe("review: the charge is the sum of the mechanisms run", () => {
 
 describe("review: preview reports the confidence of its half-widths", () => {
   it("an accuracy-first ask with its own confidence (no top-level confidence) previews at that confidence", async () => {
-    const p = P("clinic", { kind: "count" }, { within: 20, confidence: 0.9 });
+    const p = P("clinic", { kind: "count" }, { within: 20, confidence: 0.9, atMost: "1000" });
     const pre = await preview(p);
     const r = await ask(p);
     expect(r.confidence).toBe(0.9);

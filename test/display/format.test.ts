@@ -2,7 +2,7 @@
  * The shared display formatter (runtime/protocol/format.ts). formatDecimal's expected strings are
  * worked by hand from the rule "at most `sig` significant digits, halves away from zero, integers
  * keep all digits" (common practice for display rounding); formatWithError's from the figure rule
- * of docs/methods.md §18, by hand and against Python's decimal module. The exact inputs avoid any
+ * of docs/methods.md §23, by hand and against Python's decimal module. The exact inputs avoid any
  * binary-float detour.
  */
 import { describe, expect, test } from "vitest";
@@ -88,7 +88,7 @@ describe("formatDecimal", () => {
   });
 });
 
-describe("formatWithError: the display rule (docs/methods.md §18)", () => {
+describe("formatWithError: the display rule (docs/methods.md §23)", () => {
   // Hand-worked cases. The rule follows the common practice of quoting an uncertainty to at most
   // two significant digits and the estimate to the same decimal place (the GUM, JCGM 100:2008
   // §7.2.6, from memory); hush rounds the half-width up so it is never narrower than the exact one.

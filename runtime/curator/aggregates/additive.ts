@@ -114,6 +114,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     // In words and value units: the count in values, the sum in units of the column (its noise is
     // the same whatever centre the sum is taken about).
     halfWidths: [hw(count, "count (part of mean)", c.name, conf), hw(sum, `sum of ${c.name} (part of mean)`, c.name, conf)],
+    ratioShape: { stat: "mean", column: c.name, lower, upper, centre, half, width: c.grid.upperUnits - c.grid.lowerUnits, confidence: conf, countLaw: count.law, sumLaw: sum.law },
     previewNotes: [
       `The mean's error bar depends on the noisy count of values, which is private, so it is given with the release. The half-widths shown are for the mean's two noisy parts: the count of ${c.name} values and the sum of ${c.name} (taken about ${exactDecimal(centre)}, in ${c.name}'s units).`,
     ],
@@ -168,6 +169,7 @@ export function spreadPiece(
       hw(sum, `sum of ${c.name} (part of ${stat})`, c.name, conf),
       hw(squares, `sum of squares of ${c.name} (part of ${stat}; squared units)`, c.name, conf),
     ],
+    ratioShape: { stat, column: c.name, lower, upper, centre, half, width, confidence: conf, countLaw: count.law, sumLaw: sum.law, squaresLaw: squares.law },
     previewNotes: [
       `The ${stat}'s error bar depends on the noisy count of values, which is private, so it is given with the release. The half-widths shown are for its three noisy parts: the count of ${c.name} values, the sum of ${c.name} and the sum of its squares (both taken about ${exactDecimal(centre)}; the sum in ${c.name}'s units, the squares in squared units).`,
     ],

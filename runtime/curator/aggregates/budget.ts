@@ -23,6 +23,8 @@ import {
   isqrt,
   planForHalfWidth,
   pureToRho,
+  shortAt,
+  shortIndexUp,
   shortSqrtDown,
 } from "../../core/index.js";
 import { PRIVACY_LIMITS } from "../../protocol/limits.js";
@@ -198,3 +200,55 @@ export function sqrtRational(r: Rational, digits: number, dir: "down" | "up"): R
   return Rational.of(s, 10n ** BigInt(digits));
 }
 
+
+/** A positive cost as a decimal of at most 6 significant digits, rounded up (exact when it already is one). */
+export function priceUp(r: Rational): string {
+  return exactDecimal(shortAt(shortIndexUp(r)));
+}
+
+/**
+ * The most an accuracy-first ask may spend: its own `atMost`, else the dataset's policy default
+ * (`accuracyFirst.atMost`), else none. Both are in the dataset's accounting unit.
+ */
+export function accuracyFirstBound(d: DatasetPolicy, ask: PrivacyAsk): Rational | null {
+  if (!("within" in ask)) return null;
+  if (ask.atMost !== undefined) return parseAsk(ask.atMost, "plan.privacy.atMost", d.accounting.mode === "pure" ? "epsilon" : "rho", d.accounting.mode === "pure" ? PRIVACY_LIMITS.minEpsilon : PRIVACY_LIMITS.minRho, d.accounting.mode === "pure" ? PRIVACY_LIMITS.maxEpsilon : PRIVACY_LIMITS.maxRho);
+  return d.accuracyFirst?.atMost ?? null;
+}
+
+/**
+ * Safe accuracy first (docs/methods.md §11, §24): the price of an accuracy-first ask is settled before
+ * any data is read, and the ask is answered only under an explicit bound on what it may spend. The
+ * refusal states the price so the analyst can ask again; it spends nothing and, since the price
+ * follows from the plan and the policy alone, says nothing about the data. Null when the ask may go
+ * ahead (not accuracy first, or its price is within its bound).
+ */
+export function accuracyFirstRefusal(d: DatasetPolicy, ask: PrivacyAsk, confidence: number, cost: Rational, remaining: Rational): BadInputError | null {
+  if (!("within" in ask)) return null;
+  const bound = accuracyFirstBound(d, ask);
+  if (bound !== null && cost.le(bound)) return null;
+  const sym = d.accounting.mode === "pure" ? "ε" : "ρ";
+  const price = priceUp(cost);
+  const conf = `${Number((confidence * 100).toPrecision(12))}%`;
+  const head = `accuracy first: an error bar of ±${ask.within} (${conf}) costs ${sym} ${price}`;
+  // The remaining budget is named only when it would not cover the price (the notebook adds it anyway).
+  const left = remaining.lt(cost) ? `; only ${sym} ${remaining.sign() > 0 ? priceDown(remaining) : "0"} of your cap remain, which is not enough` : "";
+  const unitWord = sym === "ε" ? "" : " (in ρ, this dataset's accounting unit)";
+  if (bound === null) {
+    return new BadInputError(
+      `${head}; an accuracy-first ask needs an upper bound on what it may spend, so nothing was spent. ` +
+        `To spend it, ask again with { within: ${ask.within}, atMost: ${price} }${unitWord} or a wider error bar${left}.`,
+    );
+  }
+  return new BadInputError(
+    `${head}, more than its bound atMost ${sym} ${exactDecimal(bound)}${ask.atMost === undefined ? " (the dataset's policy default)" : ""}, so nothing was spent. ` +
+      `Ask again with atMost: ${price} or more${unitWord}, or with a wider error bar${left}.`,
+  );
+}
+
+/** A non-negative amount as a decimal of at most 6 significant digits, rounded down (so "remain" never overstates). */
+function priceDown(r: Rational): string {
+  const up = shortAt(shortIndexUp(r));
+  if (up.eq(r)) return exactDecimal(r);
+  return exactDecimal(shortAt(shortIndexUp(r) - 1n));
+}

@@ -2,6 +2,7 @@
  * What every aggregate shares: the piece shape (prepared without data, run with data), and the
  * one SQL shape they all use: filtered rows -> per-unit bounded rows -> GROUP BY the public keys.
  */
+import type { RatioShape } from "./ratio-preview.js";
 import type { Rational } from "../../core/index.js";
 import { BadInputError } from "../../errors.js";
 import { PLAN_LIMITS } from "../../protocol/limits.js";
@@ -24,6 +25,8 @@ export interface Piece {
   notes: string[];
   /** Notes for a preview only (about what its half-widths are), not carried into releases. */
   previewNotes?: string[];
+  /** Means, variances and std: what the expected error of the estimate itself needs (ratio-preview.ts). */
+  ratioShape?: RatioShape;
   /** How the intervals of this piece are computed, in words. */
   methods: string[];
   /** Number of rows `run` returns, fixed by the plan and the policy (never by the data). */
