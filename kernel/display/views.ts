@@ -8,7 +8,7 @@ import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
-import { costText, percent, planText, q, rowLabel, shownValue, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import { costText, epsilonAtDelta, percent, planText, q, rowLabel, shownValue, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
 import { formatDecimal } from "../../runtime/protocol/format.js";
 import type { SpendSummary } from "../../runtime/protocol/messages.js";
 import { MUTED, badge, box, budgetBar, esc, notesList, table } from "./html.js";
@@ -147,7 +147,7 @@ export function lossText(lines: readonly LossLine[]): string {
     .map((l) => {
       const s = spendAmounts(l.spend);
       const what = [l.released ? `${l.released} new` : "", l.replayed ? `${l.replayed} replayed` : ""].filter(Boolean).join(", ");
-      const eps = s.unit === "rho" && l.spend.delta !== undefined ? `, ε ${q(l.spend.spentEpsilon)} of ${q(l.spend.capEpsilon)} at δ=${q(l.spend.delta)}` : "";
+      const eps = s.unit === "rho" && l.spend.delta !== undefined ? `, ${epsilonAtDelta(l.spend)}` : "";
       // The total is the analyst's on the population: every dataset over the same people counts.
       return `privacy loss · ${l.dataset}: this session ${s.symbol} ${q(l.sessionSpent)} · ${l.spend.analyst}'s total on ${l.spend.population} ${s.symbol} ${q(s.total)} of ${q(s.cap)}${eps} (${what})`;
     })

@@ -89,15 +89,24 @@ export function costText(a: { cost: string; replay: boolean; sessionSpent: strin
   const amt = spendAmounts(a.spend);
   const cost = a.replay ? `replayed, no new cost` : `cost ${amt.symbol}=${q(a.cost)}`;
   let s = `${cost} · session ${q(a.sessionSpent)} · total ${q(amt.total)} / ${q(amt.cap)}`;
-  if (amt.unit === "rho" && a.spend.delta !== undefined) s += ` (ε ${q(a.spend.spentEpsilon)} of ${q(a.spend.capEpsilon)} at δ=${q(a.spend.delta)})`;
+  if (amt.unit === "rho" && a.spend.delta !== undefined) s += ` (${epsilonAtDelta(a.spend)})`;
   return s;
+}
+
+/**
+ * "ε 1 of 3 at δ=1e-6, by plain composition": a zCDP account's best valid epsilon and how it was
+ * obtained (docs/methods.md §22). The audit reads this statement back (cli/audit/checks.ts).
+ */
+export function epsilonAtDelta(s: SpendSummary): string {
+  const by = s.epsilonBy !== undefined ? `, by ${s.epsilonBy}` : "";
+  return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta ?? "0")}${by}`;
 }
 
 /** "ε 0.5 of 3 used · 2.5 remaining · 7 releases" (zCDP: in ρ with the ε equivalent). */
 export function spendText(s: SpendSummary): string {
   if (s.mode === "zcdp" && s.spentRho !== undefined && s.capRho !== undefined) {
     const rem = s.remainingRho !== undefined ? ` · ${q(s.remainingRho)} remaining` : "";
-    const eps = s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
+    const eps = s.delta !== undefined ? ` (${epsilonAtDelta(s)})` : "";
     return `ρ ${q(s.spentRho)} of ${q(s.capRho)} used${rem}${eps} · ${plural(s.releases, "release")}`;
   }
   return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} used · ${q(s.remainingEpsilon)} remaining · ${plural(s.releases, "release")}`;

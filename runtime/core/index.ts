@@ -48,6 +48,11 @@ export {
   composeSequential,
   composeParallel,
   checkCost,
+  bestEpsilon,
+  pureEpsilonOfParts,
+  type EpsilonRoute,
+  type EpsilonStatement,
+  type PartRecord,
 } from "./accounting.js";
 export {
   type Plan,

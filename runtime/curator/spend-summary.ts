@@ -3,7 +3,7 @@
  * with every open/spend/preview/release, and the over-cap refusal (which carries the same summary).
  * An account is (analyst, population): the amounts are the population's, over all its datasets.
  */
-import { epsilonFromRho, Rational } from "../core/index.js";
+import { bestEpsilon, Rational } from "../core/index.js";
 import { OverCapError } from "../errors.js";
 import type { SpendSummary } from "../protocol/messages.js";
 import { exactDecimal } from "./aggregates/budget.js";
@@ -16,9 +16,12 @@ export function capOf(d: DatasetPolicy): Rational {
 
 /**
  * `spent` is the analyst's exact total on the dataset's population, in the accounting unit; zCDP
- * summaries also state the epsilon it implies at delta.
+ * summaries also state the best valid epsilon at delta and how it was obtained (docs/methods.md
+ * §22): `pure` is the plain-composition sum of the account's releases when every one of them was
+ * pure epsilon-DP, null otherwise (or unknown). The cap check stays in rho (capOf): the reported
+ * epsilon can be smaller than the cap's conversion would suggest, never larger than a valid bound.
  */
-export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
+export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number, pure: Rational | null = null): SpendSummary {
   const acc = d.accounting;
   const zero = Rational.ZERO;
   if (acc.mode === "pure") {
@@ -33,7 +36,8 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
       releases,
     };
   }
-  const spentEpsilon = spent.isZero() ? zero : epsilonFromRho(spent, acc.delta);
+  const stated = spent.isZero() ? { epsilon: zero, by: "plain composition" as const } : bestEpsilon(spent, pure, acc.delta);
+  const spentEpsilon = stated.epsilon;
   return {
     analyst,
     dataset: d.name,
@@ -46,18 +50,19 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
     capRho: acc.capRho.toString(),
     remainingRho: acc.capRho.sub(spent).max(zero).toString(),
     delta: exactDecimal(acc.delta),
+    epsilonBy: stated.by,
     releases,
   };
 }
 
 /** The refusal of a release that would cross the cap; names amounts, never a data value. */
-export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
+export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number, pure: Rational | null = null): OverCapError {
   const cap = capOf(d);
   const unit = d.accounting.mode === "pure" ? "epsilon" : "rho";
   return new OverCapError(
     `over the cap: this query costs ${unit} ${cost.toString()}, but ${analyst} has ${unit} ` +
       `${cap.sub(spent).max(Rational.ZERO).toString()} left of the cap ${cap.toString()} on population ${d.population} ` +
       `(dataset ${d.name} and every other dataset over the same people; spent ${spent.toString()}); nothing was spent`,
-    { spend: spendSummary(analyst, d, spent, releases) },
+    { spend: spendSummary(analyst, d, spent, releases, pure) },
   );
 }
