@@ -177,9 +177,9 @@ const TAIL_REL = 1e-9;
 const TAIL_ABS = 1e-15;
 /** Blocks per extra term: the finest for one extra, coarser when two are nested. */
 const BLOCKS_ONE = 1024;
-const BLOCKS_TWO = 160;
+const BLOCKS_TWO = 64;
 /** Blocks of the outer extra (taken in absolute value) when two are nested. */
-const BLOCKS_OUTER = 48;
+const BLOCKS_OUTER = 24;
 
 /**
  * An upper bound on P(|X + s| > h) for the integer noise X, integer h >= 0 and a shift s >= 0,
@@ -244,21 +244,35 @@ function upNumber(c: Rational): number {
 }
 
 /**
- * The least integer q with P(|X + sum_i c_i Y_i| > q) <= a by the upper bound of sumTail, found
- * by a bounded integer search; never above the union-bound value h_X + sum ceil(c_i h_Yi) with
- * a/(1 + #extras) for each part, which is proven (§13) and returned if the search finds nothing
- * smaller. Returns the half-width and the bound on its miss probability (display).
+ * q(c) = min(q_B(c), q_U(c)): q_B is the least integer with P(|X + sum_i c_i Y_i| > q) <= a by
+ * the upper bound of sumTail, found by a bounded integer search below q_U; q_U is the union-bound
+ * value h_X + sum ceil(c_i h_Yi) at a/(1 + #extras) each, proven (§13). Both are valid for every
+ * c and grow with c, so q does. `unionOnly` returns q_U, which is never below q(c): a cheap first
+ * round. Returns the half-width and the bound on its miss probability (display).
  */
-export function dominatingQuantile(x: NoiseLaw, extras: { law: NoiseLaw; c: Rational }[], a: number, hint?: bigint): { q: bigint; miss: number } {
+export function dominatingQuantile(
+  x: NoiseLaw,
+  extras: { law: NoiseLaw; c: Rational }[],
+  a: number,
+  opts: { hint?: bigint; unionOnly?: boolean } = {},
+): { q: bigint; miss: number } {
   const live = extras.filter((e) => e.c.sign() > 0);
   const share = 1 - a / (1 + live.length);
   let union = halfWidth(x, share);
   for (const e of live) union += e.c.mul(halfWidth(e.law, share)).ceil();
   if (live.length === 0) return { q: union, miss: tailAt(x, Number(union)) };
+  if (opts.unionOnly === true) return { q: union, miss: a };
   const ex = live.map((e) => ({ law: e.law, c: upNumber(e.c) }));
   const cut = a * 1e-4;
   const ok = (h: bigint): boolean => sumTail(Number(h), x, ex, cut) <= a;
-  const q = firstPassing(ok, 0n, union, hint ?? halfWidth(x, 1 - a)) ?? union;
+  let hint = opts.hint;
+  if (hint === undefined) {
+    // Normal approximation of the quantile: only where the search starts.
+    const sd = Math.sqrt(noiseVariance(x) + ex.reduce((s, e) => s + e.c * e.c * noiseVariance(e.law), 0));
+    const guess = sd * normalQuantile(1 - a / 2);
+    hint = Number.isFinite(guess) && guess > 0 ? BigInt(Math.floor(guess)) : 0n;
+  }
+  const q = firstPassing(ok, 0n, union, hint) ?? union;
   return { q, miss: q === union ? a : sumTail(Number(q), x, ex, cut) };
 }
 
@@ -324,7 +338,7 @@ export function ratioInterval(args: RatioIntervalArgs): IntervalResult {
     const b = lo.abs().max(hi.abs());
     if (round > 0 && b.ge(bound)) break;
     bound = b;
-    ({ q, miss } = dominatingQuantile(args.sum.law, [{ law: args.count.law, c: b }], a));
+    ({ q, miss } = dominatingQuantile(args.sum.law, [{ law: args.count.law, c: b }], a, { unionOnly: round === 0 }));
     const nlo = Rational.of(S - q, N).max(mLo);
     const nhi = Rational.of(S + q, N).min(mHi);
     if (nlo.gt(nhi)) {
@@ -403,7 +417,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
     const b = mlo.abs().max(mhi.abs());
     if (round > 0 && b.ge(mb)) break;
     mb = b;
-    const r = dominatingQuantile(args.sum.law, [{ law: args.count.law, c: b }], aMean);
+    const r = dominatingQuantile(args.sum.law, [{ law: args.count.law, c: b }], aMean, { unionOnly: round === 0 });
     missMean = r.miss;
     const nlo = Rational.of(S - r.q, N).max(mMax.neg());
     const nhi = Rational.of(S + r.q, N).min(mMax);
@@ -444,7 +458,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
     const r = dominatingQuantile(args.sumSquares.law, [
       { law: args.sum.law, c: cS },
       { law: args.count.law, c: cN },
-    ], aVar, round > 0 ? q : undefined);
+    ], aVar, { unionOnly: round === 0, ...(round > 1 ? { hint: q } : {}) });
     q = r.q;
     missVar = r.miss;
     const nlo = vTilde.add(shiftMin).sub(Rational.of(q, N)).max(zero);

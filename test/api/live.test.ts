@@ -149,11 +149,11 @@ describe("cell API on a real curator", () => {
   test("zCDP dataset: costs in ρ with the ε equivalent", async () => {
     const z = await session.api.open("clinic_z");
     const a = await z.count({ rho: "0.001" });
-    expect(String(a)).toMatch(/cost ρ=0\.001 · session 0\.001 · total 0\.001 \/ [\d.]+ \(ε [\d.]+ of 1 at δ=0\.000001\)$/);
+    expect(String(a)).toMatch(/cost ρ=0\.001 · session 0\.001 · total 0\.001 \/ [\d.]+ \(ε [\d.]+ of 1 at δ=0\.000001, by zCDP conversion\)$/);
     const b = (await session.render(a))!;
     expect(b.data["text/html"]).toContain("ρ 0.001 of");
     const loss = (await session.afterCell())!;
-    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total on clinic-z\.csv ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001 \(1 new\)$/);
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss · clinic_z: this session ρ 0\.001 · ada's total on clinic-z\.csv ρ 0\.001 of [\d.]+, ε [\d.]+ of 1 at δ=0\.000001, by zCDP conversion \(1 new\)$/);
   });
 
   test("budget and ledger", async () => {
