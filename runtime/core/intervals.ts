@@ -305,10 +305,10 @@ export interface RatioIntervalArgs {
 
 /**
  * Mean interval by the pivot method (docs/methods.md §8). With m the true mean in sum units about
- * the centre, S~ - m N~ = e_S - m e_N exactly, whatever the true count, and
- * |e_S - m e_N| <= |e_S| + |m| |e_N|. So every m with |S~ - m N~| <= q(|m|), where q(b) is the
- * least integer with P(|e_S| + b |e_N| > q) <= a, forms a confidence set of level 1 - a.
- * q grows with b, so starting from b = the largest |m| the range allows, each round's interval
+ * the centre, S~ - m N~ = e_S - m e_N exactly, whatever the true count. With q(b) from
+ * dominatingQuantile (P(|e_S - m e_N| > q(b)) <= a for every |m| <= b, growing with b), every m
+ * with |S~ - m N~| <= q(|m|) forms a confidence set of level 1 - a. Starting from b = the largest
+ * |m| the range allows (first round: the union-bound value, never smaller), each round's interval
  * [(S~ - q)/N~, (S~ + q)/N~] within the range bounds |m| for the next. A noisy count <= 0 gives
  * the declared range, stated in the method.
  */
@@ -351,7 +351,7 @@ export function ratioInterval(args: RatioIntervalArgs): IntervalResult {
   }
   const method =
     `pivot method (docs/methods.md §8): the means m with |noisy sum - m x noisy count| within the ${round6(1 - a)} quantile of ` +
-    `|sum noise| + |m| |count noise| (±${q} sum units for |m| up to ${round6(bound.toNumber())}), within the declared range; noise only, excludes clamping and grid bias`;
+    `|sum noise - m x count noise| (±${q} sum units for |m| up to ${round6(bound.toNumber())}), within the declared range; noise only, excludes clamping and grid bias`;
   return { estimate, low: toValue(lo), high: toValue(hi), method, noiseOnly: true, coverage: 1 - miss };
 }
 
@@ -378,8 +378,8 @@ const MEAN_SHARE = 0.05;
  * (docs/methods.md §8), in sum units m (mean) and square units:
  *   S~ - m N~ = e_S - m e_N                                   (mean pivot, miss a/20)
  *   Q~ - 2 m S~ + (m^2 - v) N~ = e_Q - 2 m e_S + (m^2 - v) e_N  (variance pivot, miss 19a/20)
- * (the second is exact for the true m and v: Q = N (v + m^2), S = N m). Each is dominated by
- * |e| + sum |coefficient| |e'|, whose quantile grows with the coefficients' bounds. On both events
+ * (the second is exact for the true m and v: Q = N (v + m^2), S = N m). Each quantile comes from
+ * dominatingQuantile with bounds on the coefficients, and grows with them. On both events
  * m lies in the mean interval I and v = v~ + (m - m~)^2 +- q/N~ with v~ = Q~/N~ - (S~/N~)^2,
  * m~ = S~/N~, so v lies in [v~ + min_I (m - m~)^2 - q/N~, v~ + max_I (m - m~)^2 + q/N~],
  * within [0, ((U - L)/2)^2]; rounds narrow the coefficient bounds as for the mean.
@@ -472,7 +472,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
   }
   const method =
     `pivot method (docs/methods.md §8): the variances v with |noisy Q - 2m noisy S + (m^2 - v) noisy N| within the quantile of ` +
-    `|Q noise| + ${round6(cS.toNumber())}|S noise| + ${round6(cN.toNumber())}|count noise| (±${q}) at miss ${round6(aVar)}, for m in the mean's interval at miss ${round6(aMean)}; noise only, excludes clamping and grid bias`;
+    `|Q noise - 2m S noise + (m^2 - v) count noise| (±${q}, with |2m| up to ${round6(cS.toNumber())} and |m^2 - v| up to ${round6(cN.toNumber())}) at miss ${round6(aVar)}, for m in the mean's interval at miss ${round6(aMean)}; noise only, excludes clamping and grid bias`;
   return { estimate, low: sq.mul(vlo), high: sq.mul(vhi), method, noiseOnly: true, coverage: 1 - missMean - missVar };
 }
 
