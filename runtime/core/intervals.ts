@@ -243,12 +243,34 @@ function upNumber(c: Rational): number {
   return v === 0 ? 0 : v * (1 + 2 ** -40) + Number.MIN_VALUE;
 }
 
+/** Coefficients are rounded up to the grid 2^(i/32) (steps of 2.2%), so the cells of a release share quantiles. */
+const GRID_STEPS = 32;
+
+/** The least grid value 2^(i/32) >= c (binary64, checked), and its index; null past binary64's range. */
+function snapUp(c: Rational): { value: number; index: number } | null {
+  const v = upNumber(c);
+  if (!Number.isFinite(v) || v <= 0) return null;
+  let i = Math.ceil(GRID_STEPS * Math.log2(v));
+  while (2 ** (i / GRID_STEPS) < v) i++;
+  const value = 2 ** (i / GRID_STEPS);
+  return Number.isFinite(value) ? { value, index: i } : null;
+}
+
+const quantileCache = new Map<string, { q: bigint; miss: number }>();
+const QUANTILE_CACHE_SIZE = 4096;
+
+function lawKey(law: NoiseLaw): string {
+  return `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}`;
+}
+
 /**
- * q(c) = min(q_B(c), q_U(c)): q_B is the least integer with P(|X + sum_i c_i Y_i| > q) <= a by
- * the upper bound of sumTail, found by a bounded integer search below q_U; q_U is the union-bound
- * value h_X + sum ceil(c_i h_Yi) at a/(1 + #extras) each, proven (§13). Both are valid for every
- * c and grow with c, so q does. `unionOnly` returns q_U, which is never below q(c): a cheap first
- * round. Returns the half-width and the bound on its miss probability (display).
+ * q(c) = min(q_B(c'), q_U(c')) with c' each coefficient rounded up to the grid: q_B is the least
+ * integer with P(|X + sum_i c'_i Y_i| > q) <= a by the upper bound of sumTail, found by a bounded
+ * integer search below q_U; q_U is the union-bound value h_X + sum ceil(c'_i h_Yi) at
+ * a/(1 + #extras) each, proven (§13). Both are valid for every c <= c' and grow with c', and c'
+ * grows with c, so q does. `unionOnly` returns q_U(c'), which is never below q(c): a cheap first
+ * round. Results are cached by laws, grid indices and a (the cells of one release share laws).
+ * Returns the half-width and the bound on its miss probability (display).
  */
 export function dominatingQuantile(
   x: NoiseLaw,
@@ -258,11 +280,27 @@ export function dominatingQuantile(
 ): { q: bigint; miss: number } {
   const live = extras.filter((e) => e.c.sign() > 0);
   const share = 1 - a / (1 + live.length);
+  const snapped = live.map((e) => snapUp(e.c));
+  if (snapped.some((s) => s === null)) {
+    // Beyond binary64: the union bound with the exact coefficients, no search.
+    let u = halfWidth(x, share);
+    for (const e of live) u += e.c.mul(halfWidth(e.law, share)).ceil();
+    return { q: u, miss: a };
+  }
+  const grid = snapped as { value: number; index: number }[];
+  const key = `${lawKey(x)}|${live.map((e, i) => `${lawKey(e.law)}@${grid[i].index}`).join("|")}|${a}|${opts.unionOnly === true}`;
+  const hit = quantileCache.get(key);
+  if (hit !== undefined) return hit;
   let union = halfWidth(x, share);
-  for (const e of live) union += e.c.mul(halfWidth(e.law, share)).ceil();
-  if (live.length === 0) return { q: union, miss: tailAt(x, Number(union)) };
-  if (opts.unionOnly === true) return { q: union, miss: a };
-  const ex = live.map((e) => ({ law: e.law, c: upNumber(e.c) }));
+  for (const [i, e] of live.entries()) union += Rational.fromNumberExact(grid[i].value).mul(halfWidth(e.law, share)).ceil();
+  const done = (r: { q: bigint; miss: number }): { q: bigint; miss: number } => {
+    if (quantileCache.size >= QUANTILE_CACHE_SIZE) quantileCache.delete(quantileCache.keys().next().value as string);
+    quantileCache.set(key, r);
+    return r;
+  };
+  if (live.length === 0) return done({ q: union, miss: tailAt(x, Number(union)) });
+  if (opts.unionOnly === true) return done({ q: union, miss: a });
+  const ex = live.map((e, i) => ({ law: e.law, c: grid[i].value }));
   const cut = a * 1e-4;
   const ok = (h: bigint): boolean => sumTail(Number(h), x, ex, cut) <= a;
   let hint = opts.hint;
@@ -273,7 +311,7 @@ export function dominatingQuantile(
     hint = Number.isFinite(guess) && guess > 0 ? BigInt(Math.floor(guess)) : 0n;
   }
   const q = firstPassing(ok, 0n, union, hint) ?? union;
-  return { q, miss: q === union ? a : sumTail(Number(q), x, ex, cut) };
+  return done({ q, miss: q === union ? a : sumTail(Number(q), x, ex, cut) });
 }
 
 function clampR(x: Rational, lo: Rational, hi: Rational): Rational {
