@@ -177,9 +177,9 @@ const TAIL_REL = 1e-9;
 const TAIL_ABS = 1e-15;
 /** Blocks per extra term: the finest for one extra, coarser when two are nested. */
 const BLOCKS_ONE = 1024;
-const BLOCKS_TWO = 64;
+const BLOCKS_TWO = 256;
 /** Blocks of the outer extra (taken in absolute value) when two are nested. */
-const BLOCKS_OUTER = 24;
+const BLOCKS_OUTER = 64;
 
 /**
  * An upper bound on P(|X + s| > h) for the integer noise X, integer h >= 0 and a shift s >= 0,
