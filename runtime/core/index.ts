@@ -36,6 +36,7 @@ export {
   noiseVariance,
   ratioInterval,
   varianceInterval,
+  SEARCH_CELLS,
   checkConfidence,
   DEFAULT_CONFIDENCE,
 } from "./intervals.js";

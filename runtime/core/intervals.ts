@@ -177,9 +177,9 @@ const TAIL_REL = 1e-9;
 const TAIL_ABS = 1e-15;
 /** Blocks per extra term: the finest for one extra, coarser when two are nested. */
 const BLOCKS_ONE = 1024;
-const BLOCKS_TWO = 256;
+const BLOCKS_TWO = 96;
 /** Blocks of the outer extra (taken in absolute value) when two are nested. */
-const BLOCKS_OUTER = 64;
+const BLOCKS_OUTER = 32;
 
 /**
  * An upper bound on P(|X + s| > h) for the integer noise X, integer h >= 0 and a shift s >= 0,
@@ -243,10 +243,10 @@ function upNumber(c: Rational): number {
   return v === 0 ? 0 : v * (1 + 2 ** -40) + Number.MIN_VALUE;
 }
 
-/** Coefficients are rounded up to the grid 2^(i/32) (steps of 2.2%), so the cells of a release share quantiles. */
-const GRID_STEPS = 32;
+/** Coefficients are rounded up to the grid 2^(i/16) (steps of 4.4%), so the cells of a release share quantiles. */
+const GRID_STEPS = 16;
 
-/** The least grid value 2^(i/32) >= c (binary64, checked), and its index; null past binary64's range. */
+/** The least grid value 2^(i/16) >= c (binary64, checked), and its index; null past binary64's range. */
 function snapUp(c: Rational): { value: number; index: number } | null {
   const v = upNumber(c);
   if (!Number.isFinite(v) || v <= 0) return null;
@@ -264,7 +264,7 @@ function lawKey(law: NoiseLaw): string {
 }
 
 /**
- * q(c) = min(q_B(c'), q_U(c')) with c' each coefficient rounded up to the grid: q_B is the least
+ * q(c) = min(q_B(c'), q_U(c')) with c' each coefficient rounded up to the grid 2^(i/16): q_B is the least
  * integer with P(|X + sum_i c'_i Y_i| > q) <= a by the upper bound of sumTail, found by a bounded
  * integer search below q_U; q_U is the union-bound value h_X + sum ceil(c'_i h_Yi) at
  * a/(1 + #extras) each, proven (§13). Both are valid for every c <= c' and grow with c', and c'
@@ -406,7 +406,16 @@ export interface VarianceIntervalArgs {
   lower: Rational;
   upper: Rational;
   confidence: number;
+  /**
+   * false: every round takes the union-bound quantile (proven, no search): for releases of more
+   * than SEARCH_CELLS cells, whose cells would otherwise cost a few ms each (the cell count is
+   * public, so the choice says nothing about the data). Default true.
+   */
+  search?: boolean;
 }
+
+/** Cells of one variance or std release up to which the variance pivot's quantile is searched. */
+export const SEARCH_CELLS = 64;
 
 /** Share of the miss probability given to the mean's pivot in a variance interval (§8). */
 const MEAN_SHARE = 0.05;
@@ -496,7 +505,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
     const r = dominatingQuantile(args.sumSquares.law, [
       { law: args.sum.law, c: cS },
       { law: args.count.law, c: cN },
-    ], aVar, { unionOnly: round === 0, ...(round > 1 ? { hint: q } : {}) });
+    ], aVar, { unionOnly: round === 0 || args.search === false, ...(round > 1 ? { hint: q } : {}) });
     q = r.q;
     missVar = r.miss;
     const nlo = vTilde.add(shiftMin).sub(Rational.of(q, N)).max(zero);
@@ -510,7 +519,7 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
   }
   const method =
     `pivot method (docs/methods.md §8): the variances v with |noisy Q - 2m noisy S + (m^2 - v) noisy N| within the quantile of ` +
-    `|Q noise - 2m S noise + (m^2 - v) count noise| (±${q}, with |2m| up to ${round6(cS.toNumber())} and |m^2 - v| up to ${round6(cN.toNumber())}) at miss ${round6(aVar)}, for m in the mean's interval at miss ${round6(aMean)}; noise only, excludes clamping and grid bias`;
+    `|Q noise - 2m S noise + (m^2 - v) count noise| (±${q}${args.search === false ? " by the union bound" : ""}, with |2m| up to ${round6(cS.toNumber())} and |m^2 - v| up to ${round6(cN.toNumber())}) at miss ${round6(aVar)}, for m in the mean's interval at miss ${round6(aMean)}; noise only, excludes clamping and grid bias`;
   return { estimate, low: sq.mul(vlo), high: sq.mul(vhi), method, noiseOnly: true, coverage: 1 - missMean - missVar };
 }
 

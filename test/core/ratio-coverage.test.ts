@@ -14,6 +14,7 @@
  */
 import { execFileSync } from "node:child_process";
 import { describe, expect, it } from "vitest";
+import { SEARCH_CELLS } from "../../runtime/core/intervals.js";
 import { addNoise, calibrate, type NoiseLaw } from "../../runtime/core/mechanisms.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
@@ -115,6 +116,26 @@ describe("ratio intervals: coverage in [95%, 97%] and width within 1.15 of the b
     ["std, discrete Gaussian, rho 1/2 (1/6 each)", () => spreadCase("std", calibrate(1n, { rho: R("1/6") }), calibrate(100n, { rho: R("1/6") }), calibrate(10000n, { rho: R("1/6") }), "rc-std-gau")],
     ["variance, discrete Laplace, epsilon 1 (1/3 each)", () => spreadCase("variance", calibrate(1n, { epsilon: R("1/3") }), calibrate(100n, { epsilon: R("1/3") }), calibrate(10000n, { epsilon: R("1/3") }), "rc-var-lap")],
   ];
+  it("variance over more than 64 cells (union-bound quantile, intervals.ts SEARCH_CELLS): 31 releases x 65 cells cover at least nominally", () => {
+    const countLaw = calibrate(1n, { epsilon: R("1/3") });
+    const sumLaw = calibrate(100n, { epsilon: R("1/3") });
+    const squaresLaw = calibrate(10000n, { epsilon: R("1/3") });
+    const cells = SEARCH_CELLS + 1;
+    const recipe: SpreadRecipe = { ...grid, labels: [Array.from({ length: cells }, (_, i) => `k${i}`)], stat: "variance", countLaw, sumLaw, squaresLaw };
+    const bits = new Bits(seededBytes("rc-var-union"));
+    let hits = 0;
+    let total = 0;
+    for (let i = 0; total < RELEASES; i++) {
+      for (const row of FINISHERS.spread(recipe, Array.from({ length: cells }, () => [n, s, q]), bits)) {
+        if (R(row.low as string).le(trueVar) && trueVar.le(R(row.high as string))) hits++;
+        total++;
+      }
+    }
+    console.log(`variance over ${cells} cells: coverage ${hits}/${total}`);
+    expect(total).toBe(31 * cells);
+    expect(hits).toBeGreaterThanOrEqual(binomialBand(total, 0.95, 0.001).lo);
+  }, 600_000);
+
   for (const [name, run] of cases) {
     it(name, () => {
       const { hits, ratio } = run();

@@ -13,7 +13,7 @@
  * These are no larger than the L0 * Linf * M of docs/methods.md §7 with Linf = k, so bounding the
  * groups per unit (maxGroups) would not lower them: the total bound k is what is enforced.
  */
-import { Rational, sumSensitivity } from "../../core/index.js";
+import { Rational, SEARCH_CELLS, sumSensitivity } from "../../core/index.js";
 import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
@@ -175,7 +175,7 @@ export function spreadPiece(
       ...groupedNote(keys, columns, cells),
       `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
     ],
-    methods: [`${stat}: pivot interval from the joint noise law of the three noisy parts, Q - 2mS + (m^2 - v)N, with the mean m in its own pivot interval (docs/methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
+    methods: [`${stat}: pivot interval from the joint noise law of the three noisy parts, Q - 2mS + (m^2 - v)N, with the mean m in its own pivot interval (docs/methods.md §8)${cells > SEARCH_CELLS ? `; with ${cells} cells (more than ${SEARCH_CELLS}) its quantile is the union bound, wider but quick` : ""}${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
     steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
