@@ -174,6 +174,7 @@ export function spreadPiece(
     notes: [
       ...groupedNote(keys, columns, cells),
       `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
+      `A ${stat} whose noisy count is not positive is reported as unavailable, with every value the range allows as its interval; a small noisy count gives a wide interval, never a narrow wrong one.`,
     ],
     methods: [`${stat}: pivot interval from the joint noise law of the three noisy parts, Q - 2mS + (m^2 - v)N, with the mean m in its own pivot interval (docs/methods.md §8)${cells > SEARCH_CELLS ? `; with ${cells} cells (more than ${SEARCH_CELLS}) its quantile is the union bound, wider but quick` : ""}${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
