@@ -18,12 +18,13 @@
  * totals are running totals, so the last shown total, held to the cap, includes it.
  */
 import type { KeyObject } from "node:crypto";
-import { type Rational, epsilonFromRho } from "../../runtime/core/index.js";
+import { type EpsilonRoute, Rational, bestEpsilon, epsilonFromRho, pureEpsilonOfParts } from "../../runtime/core/index.js";
+import { formatDecimal } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { keyIdOf, receiptHash } from "../../runtime/protocol/receipts.js";
 import { type Linked, chainCheck, exact, shown, signatureFinding } from "./chain.js";
 import type { Finding } from "./findings.js";
-import { type FoundRelease, type Notebook, findReleases } from "./notebook.js";
+import { type FoundRelease, type Notebook, findReleases, shownText } from "./notebook.js";
 import { type Superseded, notShownNotes, spendOrderNote, supersededOf } from "./superseded.js";
 import { sourceBindingFindings } from "./source-binding.js";
 import { checkShown } from "./views.js";
@@ -45,8 +46,10 @@ export interface AuditReport {
   /** Final total and cap in `unit`, exact rationals as strings; null when there is no receipt. */
   total: string | null;
   cap: string | null;
-  /** zCDP notebooks: the final total as epsilon at the receipts' delta (rounded up). */
+  /** zCDP notebooks: the best valid epsilon at the receipts' delta for the final total
+   * (docs/methods.md §22), and how it was obtained. */
   totalEpsilon: string | null;
+  epsilonBy: EpsilonRoute | null;
   delta: string | null;
   /** The stricter cap given with --cap (epsilon), if any. */
   reviewCap: string | null;
@@ -158,9 +161,29 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
   // --strict: the reviewer wants the notebook to show every release it spent, in spend order.
   if (opts.strict === true) findings.push(...notes.splice(0));
 
+  // ---- the epsilon each zCDP release states -----------------------------------------------
+  // Plain composition needs every release from seq 1 on, each pure (docs/methods.md §22): the
+  // tally is known only over the run of consecutive seqs from 1 that the notebook shows.
+  const pureAt = new Map<number, Rational | null>();
+  {
+    let acc: Rational | null = Rational.ZERO;
+    for (const [i, p] of chain.entries()) {
+      if (p.r.seq !== i + 1) break;
+      const e: Rational | null = acc === null ? null : pureEpsilonOfParts(Array.isArray(p.r.mechanisms) ? p.r.mechanisms : []);
+      acc = acc === null || e === null ? null : acc.add(e);
+      pureAt.set(p.r.seq, acc);
+    }
+  }
+  for (const rel of releases) {
+    if (rel.meta.replay) continue; // a replay shows the current spend, not its receipt's
+    const finding = statementFinding(rel, pureAt, at);
+    if (finding !== null) (finding.kind === "epsilon-statement" ? findings : notes).push(finding);
+  }
+
   // ---- final spend against the reviewer's cap ---------------------------------------------
   const last = chain.at(-1);
   let totalEpsilon: string | null = null;
+  let epsilonBy: EpsilonRoute | null = null;
   if (last !== undefined) {
     const total = exact(last.r.total);
     let eps: Rational | null = last.r.unit === "epsilon" ? total : null;
@@ -172,7 +195,10 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
         // A forged delta outside (0, 1) or a negative total would make the conversion refuse:
         // that is a finding at the receipt, not unreadable input.
         try {
-          eps = epsilonFromRho(total, delta);
+          const pure = pureAt.get(last.r.seq);
+          const best = bestEpsilon(total, pure === undefined ? null : pure, delta);
+          eps = best.epsilon;
+          epsilonBy = best.by;
           totalEpsilon = shown(eps);
         } catch {
           findings.push({
@@ -224,6 +250,7 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     total: last?.r.total ?? null,
     cap: last?.r.cap ?? null,
     totalEpsilon,
+    epsilonBy,
     delta: last?.r.delta ?? null,
     reviewCap: opts.cap === undefined ? null : shown(opts.cap),
     strict: opts.strict === true,
@@ -231,4 +258,54 @@ export function auditNotebook(nb: Notebook, publicKey: KeyObject, opts: AuditOpt
     notes,
     findings,
   };
+}
+
+// The statement the kernel writes beside a zCDP spend (runtime/api/text.ts epsilonAtDelta):
+// "ε 1 of 3 at δ=1e-6, by plain composition"; older notebooks end after the delta.
+const STATEMENT = /ε (\S+) of (\S+) at δ=([^\s,)]+)(?:, by (plain composition|zCDP conversion))?/u;
+
+/**
+ * Checks the epsilon a fresh zCDP release states against its receipt: the stated figure must be
+ * the one the kernel shows for the best valid bound the receipts support (docs/methods.md §22),
+ * and plain composition may be claimed only when every release from seq 1 on is shown and pure.
+ * A claim of plain composition the notebook cannot vouch for (seqs not shown) is a note.
+ */
+function statementFinding(rel: FoundRelease, pureAt: ReadonlyMap<number, Rational | null>, where: (r: FoundRelease) => string): Finding | null {
+  const r = rel.meta.receipt;
+  if (r.unit !== "rho") return null;
+  const m = STATEMENT.exec(shownText(rel.out));
+  if (m === null) return null;
+  const [, statedEps, , , statedBy] = m;
+  const total = exact(r.total);
+  const delta = exact(r.delta);
+  if (total === null || delta === null) return null; // reported elsewhere as malformed
+  let conv: Rational;
+  try {
+    conv = total.isZero() ? Rational.ZERO : epsilonFromRho(total, delta);
+  } catch {
+    return null;
+  }
+  const pure = pureAt.get(r.seq);
+  // As the kernel shows it (runtime/api/text.ts q): 6 significant digits of the exact value.
+  const show = (x: Rational): string => formatDecimal(x.toString(), 6);
+  const bad = (why: string): Finding => ({
+    cell: rel.cell,
+    kind: "epsilon-statement",
+    message: `${where(rel)}: states "${m[0]}" for receipt seq ${r.seq}, but ${why}`,
+  });
+  if (statedBy === "plain composition") {
+    if (pure === undefined) {
+      return { cell: rel.cell, kind: "epsilon-statement-unverified", message: `${where(rel)}: states plain composition for receipt seq ${r.seq}, which needs every release from seq 1 on; the notebook does not show them all` };
+    }
+    if (pure === null) return bad(`a release up to it is not pure epsilon-DP, so plain composition does not apply (the zCDP conversion gives ε ${show(conv)})`);
+    if (statedEps !== show(pure) || pure.gt(conv)) return bad(`plain composition of its receipts gives ε ${show(pure)}${pure.gt(conv) ? `, above the conversion's ${show(conv)}` : ""}`);
+    return null;
+  }
+  // Conversion (stated, or an older statement without a route): the figure must be the conversion,
+  // and must not be stated when plain composition is smaller and known.
+  if (statedEps !== show(conv)) return bad(`the zCDP conversion of its total ρ ${r.total} at δ ${r.delta} gives ε ${show(conv)}`);
+  if (statedBy !== undefined && pure !== undefined && pure !== null && pure.le(conv)) {
+    return bad(`every release up to it is pure, so plain composition gives the smaller ε ${show(pure)}`);
+  }
+  return null;
 }

@@ -20,6 +20,8 @@ export type FindingKind =
   | "total" // running total does not add up
   | "cost" // cost not a positive exact rational
   | "cap" // over the cap, or the cap changed
+  | "epsilon-statement" // a zCDP release states an epsilon at delta its receipts do not give (docs/methods.md §22)
+  | "epsilon-statement-unverified" // claims plain composition over seqs the notebook does not show (a note)
   | "copied" // class audit: the same signed receipt in two students' notebooks
   | "roster"; // class audit: a notebook no roster student matches, or a student with no notebook
 

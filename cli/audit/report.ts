@@ -32,7 +32,7 @@ function spendText(r: AuditReport): string {
   if (r.total === null || r.cap === null) return "no spend shown";
   const sym = r.unit === "rho" ? "ρ" : "ε";
   let s = `${sym} ${amount(r.total)} of cap ${amount(r.cap)}`;
-  if (r.unit === "rho" && r.totalEpsilon !== null) s += ` (ε ${amount(r.totalEpsilon)} at δ ${r.delta ?? "?"})`;
+  if (r.unit === "rho" && r.totalEpsilon !== null) s += ` (ε ${amount(r.totalEpsilon)} at δ ${r.delta ?? "?"}${r.epsilonBy !== null ? `, by ${r.epsilonBy}` : ""})`;
   if (r.reviewCap !== null) s += `; review cap ε ${r.reviewCap}`;
   return s;
 }

@@ -8,7 +8,7 @@ import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import type { CostQuote } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
-import { costStatement, foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
+import { costStatement, epsilonAtDelta, foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
 import { formatHalfWidth } from "../../runtime/protocol/format.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
@@ -218,7 +218,7 @@ function replayNote(a: Account): string {
 
 /** The zCDP line's ε equivalent: "(ε 1.2 of 2 at δ=1e-6)". */
 function epsilonEquivalent(s: SpendSummary): string {
-  return s.mode === "zcdp" && s.spentRho !== undefined && s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
+  return s.mode === "zcdp" && s.spentRho !== undefined && s.delta !== undefined ? ` (${epsilonAtDelta(s)})` : "";
 }
 
 /**

@@ -103,6 +103,8 @@ declare namespace HushApi {
     analyst: string; dataset: string; mode: "pure" | "zcdp";
     spentEpsilon: string; capEpsilon: string; remainingEpsilon: string;
     spentRho?: string; capRho?: string; remainingRho?: string; delta?: string;
+    /** zCDP: how spentEpsilon (the best valid epsilon at delta) was obtained. */
+    epsilonBy?: "plain composition" | "zCDP conversion";
     releases: number;
   }
   /** One released number exactly as signed. */

@@ -158,11 +158,20 @@ export function costStatement(r: Pick<Release, "cost" | "replay" | "receipt">): 
   return r.replay ? "replayed, no new cost" : `cost ${unitSymbol(r.receipt.unit)}=${q(r.cost)}`;
 }
 
+/**
+ * "ε 1 of 3 at δ=1e-6, by plain composition": a zCDP account's best valid epsilon and how it was
+ * obtained (docs/methods.md §22). The audit reads this statement back (cli/audit/checks.ts).
+ */
+export function epsilonAtDelta(s: SpendSummary): string {
+  const by = s.epsilonBy !== undefined ? `, by ${s.epsilonBy}` : "";
+  return `ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta ?? "0")}${by}`;
+}
+
 /** "ε 0.5 of 3 used · 2.5 remaining · 7 releases" (zCDP: in ρ with the ε equivalent). */
 export function spendText(s: SpendSummary): string {
   if (s.mode === "zcdp" && s.spentRho !== undefined && s.capRho !== undefined) {
     const rem = s.remainingRho !== undefined ? ` · ${formatAmount(s.remainingRho, "down")} remaining` : "";
-    const eps = s.delta !== undefined ? ` (ε ${q(s.spentEpsilon)} of ${q(s.capEpsilon)} at δ=${q(s.delta)})` : "";
+    const eps = s.delta !== undefined ? ` (${epsilonAtDelta(s)})` : "";
     return `ρ ${q(s.spentRho)} of ${q(s.capRho)} used${rem}${eps} · ${plural(s.releases, "release")}`;
   }
   // What remains is rounded down: it never reads as more than there is (docs/methods.md §23).

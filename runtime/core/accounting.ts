@@ -147,3 +147,62 @@ export function rhoFromEpsilonDelta(epsilon: Rational, delta: Rational): Rationa
   if (rho.sign() <= 0) throw new BadInputError(`the cap epsilon ${epsilon} at delta ${delta} leaves no usable rho`);
   return rho;
 }
+
+/** How a stated epsilon at delta was obtained (docs/methods.md §22). */
+export type EpsilonRoute = "plain composition" | "zCDP conversion";
+
+export interface EpsilonStatement {
+  /** Exact (plain composition) or rounded up to 6 significant digits (conversion). */
+  epsilon: Rational;
+  by: EpsilonRoute;
+}
+
+/**
+ * The best valid epsilon at delta for a zCDP account (docs/methods.md §22): the smaller of
+ *   - plain composition, sum of the releases' pure epsilons, when every release so far was pure
+ *     epsilon-DP (`pureSum` non-null): an (epsilon, 0)-DP guarantee, hence (epsilon, delta)-DP;
+ *   - the conversion of the account's rho (epsilonFromRho: the better of Canonne, Kamath &
+ *     Steinke 2020 and Bun & Steinke 2016, rounded up), which holds for any mix.
+ * Ties go to plain composition (it also holds at delta = 0).
+ */
+export function bestEpsilon(rho: Rational, pureSum: Rational | null, delta: Rational): EpsilonStatement {
+  const conv = epsilonFromRho(rho, delta);
+  if (pureSum !== null) {
+    if (!(pureSum instanceof Rational) || pureSum.sign() < 0) throw new BadInputError(`a pure epsilon sum must be a non-negative rational, got ${String(pureSum)}`);
+    if (pureSum.le(conv)) return { epsilon: pureSum, by: "plain composition" };
+  }
+  return { epsilon: conv, by: "zCDP conversion" };
+}
+
+/** A noise part as a receipt records it (runtime/protocol/messages.ts MechanismRecord), untrusted. */
+export interface PartRecord {
+  family: string;
+  scale: string;
+  sensitivity: string;
+  cost: string;
+}
+
+/**
+ * The pure epsilon of one release on a zCDP dataset, or null when it is not pure: the sum of its
+ * parts' epsilons (parts compose sequentially, §1) when every part is pure epsilon-DP and was
+ * charged exactly epsilon^2/2 in rho (§2): discrete Laplace at scale t with L1 sensitivity D has
+ * epsilon = D/t (§4); the exponential mechanism records its unit-level epsilon as its scale (§9).
+ * A Gaussian part, an unreadable field or a charge that does not match makes the release not pure.
+ */
+export function pureEpsilonOfParts(parts: readonly PartRecord[]): Rational | null {
+  if (!Array.isArray(parts) || parts.length === 0) return null;
+  let sum = Rational.ZERO;
+  try {
+    for (const p of parts) {
+      let eps: Rational;
+      if (p.family === "exponential") eps = Rational.parse(p.scale);
+      else if (p.family === "discrete-laplace") eps = Rational.parse(p.sensitivity).div(Rational.parse(p.scale));
+      else return null;
+      if (eps.sign() <= 0 || !pureToRho(eps).eq(Rational.parse(p.cost))) return null;
+      sum = sum.add(eps);
+    }
+  } catch {
+    return null;
+  }
+  return sum;
+}

@@ -36,6 +36,7 @@ export {
   noiseVariance,
   ratioInterval,
   varianceInterval,
+  SEARCH_CELLS,
   checkConfidence,
   DEFAULT_CONFIDENCE,
 } from "./intervals.js";
@@ -48,6 +49,11 @@ export {
   composeSequential,
   composeParallel,
   checkCost,
+  bestEpsilon,
+  pureEpsilonOfParts,
+  type EpsilonRoute,
+  type EpsilonStatement,
+  type PartRecord,
 } from "./accounting.js";
 export {
   type Plan,

@@ -156,6 +156,14 @@ export class Ledger {
     return r === undefined ? null : fromRaw(r);
   }
 
+  /** The receipts of one account with seq in (after, upTo], by seq (the spend summary's pure-epsilon tally). */
+  receiptsBetween(analyst: string, population: string, after: number, upTo: number): Receipt[] {
+    const rows = this.db
+      .prepare("SELECT receipt FROM releases WHERE analyst = ? AND population = ? AND seq > ? AND seq <= ? ORDER BY seq")
+      .all(analyst, population, after, upTo) as { receipt: string }[];
+    return rows.map((r) => JSON.parse(r.receipt) as Receipt);
+  }
+
   /** All rows of one analyst (optionally one dataset), by population then seq. */
   entries(analyst: string, dataset?: string): LedgerRow[] {
     const rows =

@@ -10,7 +10,7 @@
  * Spend is per (analyst, population): every dataset over the same people draws on one cap.
  */
 import { existsSync } from "node:fs";
-import { type Bits, type Rational } from "../core/index.js";
+import { type Bits, type PartRecord, Rational, pureEpsilonOfParts } from "../core/index.js";
 import { HushError, OverCapError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
   PROTOCOL_VERSION,
@@ -74,6 +74,8 @@ const INTERNAL = "internal error in the curator; the details are in the curator'
 export class CuratorService {
   private readonly lock = new KeyedLock();
   private readonly inFlight = new Set<Promise<unknown>>();
+  /** Per zCDP account: the plain-composition epsilon of its releases up to `seq`, null once one was not pure. */
+  private readonly pureTally = new Map<string, { seq: number; pure: Rational | null }>();
   private closing = false;
 
   readonly policy: LoadedPolicy;
@@ -225,7 +227,38 @@ export class CuratorService {
 
   private spendNow(analyst: string, d: DatasetPolicy): SpendSummary {
     const { spent, releases } = this.ledger.spent(analyst, d.population);
-    return spendSummary(analyst, d, spent, releases);
+    return spendSummary(analyst, d, spent, releases, this.pureUpTo(analyst, d, releases));
+  }
+
+  /** The tally with the release at `seq` (being written, so not yet readable from the ledger) added. */
+  private pureAfter(analyst: string, d: DatasetPolicy, seq: number, parts: readonly PartRecord[]): Rational | null {
+    const before = this.pureUpTo(analyst, d, seq - 1);
+    const e = pureEpsilonOfParts(parts);
+    return before === null || e === null ? null : before.add(e);
+  }
+
+  /**
+   * Sum of the pure epsilons of an account's releases 1..seq, or null when one of them was not
+   * pure (docs/methods.md §22); zCDP accounts only. Kept per account and extended from the
+   * ledger's receipts past the last seq seen, so each receipt is read once per process (a second
+   * curator process on the same ledger is read through, as its seqs appear).
+   */
+  private pureUpTo(analyst: string, d: DatasetPolicy, seq: number): Rational | null {
+    if (d.accounting.mode !== "zcdp") return null;
+    const key = `${analyst}\u0000${d.population}`;
+    let t = this.pureTally.get(key) ?? { seq: 0, pure: Rational.ZERO };
+    if (t.seq > seq) t = { seq: 0, pure: Rational.ZERO };
+    if (t.seq < seq && t.pure !== null) {
+      let pure: Rational | null = t.pure;
+      for (const r of this.ledger.receiptsBetween(analyst, d.population, t.seq, seq)) {
+        const e = pureEpsilonOfParts(r.mechanisms);
+        pure = e === null ? null : pure.add(e);
+        if (pure === null) break;
+      }
+      t = { seq, pure };
+    } else if (t.pure === null) t = { seq: Math.max(t.seq, seq), pure: null };
+    this.pureTally.set(key, t);
+    return t.pure;
   }
 
   private open(analyst: string, name: string): DatasetInfo {
@@ -270,7 +303,7 @@ export class CuratorService {
       confidence: (prepared.plan as QueryPlan).confidence ?? plan.confidence ?? 0.95,
       affordable: replay || spent.add(prepared.cost).le(capOf(d)),
       replay,
-      spend: spendSummary(analyst, d, spent, releases),
+      spend: spendSummary(analyst, d, spent, releases, this.pureUpTo(analyst, d, releases)),
       notes,
       ...(ratioErrors !== undefined ? { ratioErrors } : {}),
     };
@@ -303,7 +336,9 @@ export class CuratorService {
       const again = this.ledger.find(analyst, d.population, prepared.digest);
       if (again !== null) return this.replayed(analyst, d, again, cell);
       const before = this.ledger.spent(analyst, d.population);
-      if (before.spent.add(prepared.cost).gt(cap)) throw overCapError(analyst, d, prepared.cost, before.spent, before.releases);
+      if (before.spent.add(prepared.cost).gt(cap)) {
+        throw overCapError(analyst, d, prepared.cost, before.spent, before.releases, this.pureUpTo(analyst, d, before.releases));
+      }
       // The rule (DEVELOPERS.md, "Answering"): a release is never delivered without a debit, and
       // never debited without being delivered, now or on a replay. compute may be refused (time
       // limit, shutdown) or fail: then nothing was debited. Once it returns, the debit stores the
@@ -350,7 +385,7 @@ export class CuratorService {
             noiseOnly: true,
             mechanisms: computed.mechanisms,
             cost: prepared.cost.toString(),
-            spend: spendSummary(analyst, d, ctx.total, ctx.seq),
+            spend: spendSummary(analyst, d, ctx.total, ctx.seq, this.pureAfter(analyst, d, ctx.seq, computed.mechanisms)),
             replay: false,
             receipt,
             notes: [...new Set([...prepared.notes, ...computed.notes])],
@@ -365,7 +400,7 @@ export class CuratorService {
           return this.replayed(analyst, d, outcome.row, cell);
         case "over-cap":
           // Another curator process on the same ledger spent in the meantime; the noisy answer is dropped unseen.
-          throw overCapError(analyst, d, prepared.cost, outcome.spent, outcome.releases);
+          throw overCapError(analyst, d, prepared.cost, outcome.spent, outcome.releases, this.pureUpTo(analyst, d, outcome.releases));
       }
     });
   }

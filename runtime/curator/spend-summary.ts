@@ -3,7 +3,7 @@
  * with every open/spend/preview/release, and the over-cap refusal (which carries the same summary).
  * An account is (analyst, population): the amounts are the population's, over all its datasets.
  */
-import { epsilonFromRho, Rational } from "../core/index.js";
+import { bestEpsilon, Rational } from "../core/index.js";
 import { OverCapError } from "../errors.js";
 import { formatAmount } from "../protocol/format.js";
 import type { SpendSummary } from "../protocol/messages.js";
@@ -17,9 +17,12 @@ export function capOf(d: DatasetPolicy): Rational {
 
 /**
  * `spent` is the analyst's exact total on the dataset's population, in the accounting unit; zCDP
- * summaries also state the epsilon it implies at delta.
+ * summaries also state the best valid epsilon at delta and how it was obtained (docs/methods.md
+ * §22): `pure` is the plain-composition sum of the account's releases when every one of them was
+ * pure epsilon-DP, null otherwise (or unknown). The cap check stays in rho (capOf): the reported
+ * epsilon can be smaller than the cap's conversion would suggest, never larger than a valid bound.
  */
-export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number): SpendSummary {
+export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational, releases: number, pure: Rational | null = null): SpendSummary {
   const acc = d.accounting;
   const zero = Rational.ZERO;
   if (acc.mode === "pure") {
@@ -34,7 +37,8 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
       releases,
     };
   }
-  const spentEpsilon = spent.isZero() ? zero : epsilonFromRho(spent, acc.delta);
+  const stated = spent.isZero() ? { epsilon: zero, by: "plain composition" as const } : bestEpsilon(spent, pure, acc.delta);
+  const spentEpsilon = stated.epsilon;
   return {
     analyst,
     dataset: d.name,
@@ -47,6 +51,7 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
     capRho: acc.capRho.toString(),
     remainingRho: acc.capRho.sub(spent).max(zero).toString(),
     delta: exactDecimal(acc.delta),
+    epsilonBy: stated.by,
     releases,
   };
 }
@@ -56,7 +61,7 @@ export function spendSummary(analyst: string, d: DatasetPolicy, spent: Rational,
  * are decimals with the accounting unit's symbol, rounded so the refusal never reads as if the ask
  * fitted: the cost and the spend up, what is left down (runtime/protocol/format.ts formatAmount).
  */
-export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number): OverCapError {
+export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, spent: Rational, releases: number, pure: Rational | null = null): OverCapError {
   const cap = capOf(d);
   const unit = d.accounting.mode === "pure" ? "ε" : "ρ";
   const up = (x: Rational): string => formatAmount(x.toString(), "up");
@@ -65,6 +70,6 @@ export function overCapError(analyst: string, d: DatasetPolicy, cost: Rational, 
     `over the cap: this query costs ${unit} ${up(cost)}, but ${analyst} has ${unit} ` +
       `${down(cap.sub(spent).max(Rational.ZERO))} left of the cap ${down(cap)} on population ${d.population} ` +
       `(dataset ${d.name} and every other dataset over the same people; spent ${up(spent)}); nothing was spent`,
-    { spend: spendSummary(analyst, d, spent, releases) },
+    { spend: spendSummary(analyst, d, spent, releases, pure) },
   );
 }

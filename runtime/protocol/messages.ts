@@ -88,7 +88,9 @@ export interface SpendSummary {
   population: string;
   mode: AccountingMode;
   /** Exact rationals as strings. In zcdp mode `spentRho`/`capRho` hold the accounting unit, and
-   * `spentEpsilon` is the epsilon at `delta` implied by spentRho (rounded up). */
+   * `spentEpsilon` is the best valid epsilon at `delta` (docs/methods.md §22): plain composition of
+   * the pure epsilons when every release was pure, else the conversion of spentRho (rounded up);
+   * `epsilonBy` says which. */
   spentEpsilon: string;
   capEpsilon: string;
   remainingEpsilon: string;
@@ -96,6 +98,8 @@ export interface SpendSummary {
   capRho?: string;
   remainingRho?: string;
   delta?: string;
+  /** zcdp mode: how spentEpsilon was obtained. */
+  epsilonBy?: "plain composition" | "zCDP conversion";
   releases: number;
 }
 

@@ -89,6 +89,7 @@ const spendSummary = z.strictObject({
   capRho: exact.optional(),
   remainingRho: exact.optional(),
   delta: exact.optional(),
+  epsilonBy: z.enum(["plain composition", "zCDP conversion"]).optional(),
   releases: count,
 });
 

@@ -156,7 +156,7 @@ describe("cell API on a real curator", () => {
     const b = (await session.render(a))!;
     expect(b.data["text/html"]).toContain("cost ρ=0.001");
     const loss = (await session.afterCell())!;
-    expect(loss.data["text/plain"]).toMatch(/^privacy loss on clinic_z \(population clinic-z\.csv\): ρ 0\.001 of [\d.]+ used \(ε [\d.]+ of 1 at δ=0\.000001\) · this cell 0\.001 · left [\d.]+ \[[#+.]{24}\]$/);
+    expect(loss.data["text/plain"]).toMatch(/^privacy loss on clinic_z \(population clinic-z\.csv\): ρ 0\.001 of [\d.]+ used \(ε [\d.]+ of 1 at δ=0\.000001, by zCDP conversion\) · this cell 0\.001 · left [\d.]+ \[[#+.]{24}\]$/);
   });
 
   test("budget and ledger", async () => {

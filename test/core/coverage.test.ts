@@ -2,7 +2,7 @@
  * Coverage of the 95% intervals in 10,000 simulated releases (docs/methods.md §12.2). Symmetric
  * intervals are checked against the two-sided 99.9% band 9427..9570 ([C12.1a], [C12.1b]) for laws
  * whose exact coverage is within 0.001 of 95%, and against the band at their exact coverage; the
- * conservative mean interval against the one-sided limit 9431 ([C12.2]). Fixed seeds.
+ * mean and variance intervals against the one-sided limit 9431 ([C12.2]). Fixed seeds.
  */
 import { describe, expect, it } from "vitest";
 import { halfWidth, ratioInterval, tailProbability, varianceInterval } from "../../runtime/core/intervals.js";
@@ -65,7 +65,7 @@ describe("coverage of 95% intervals, 10,000 releases each", () => {
     }
   });
 
-  it("mean by the corner method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
+  it("mean by the pivot method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
     // 400 rows in [0, 10] on grid 1, epsilon = 1 split 1/2 : 1/2 (docs/methods.md §8 setup)
     const n = 400n;
     const S = 1720n;
@@ -91,7 +91,7 @@ describe("coverage of 95% intervals, 10,000 releases each", () => {
     }
   });
 
-  it("variance by the box method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
+  it("variance by the pivot method covers at least nominally ([C12.2] one-sided limit 9431)", () => {
     // 400 rows in [0, 10], g = 1, centred at 5: half-units d = 2x - 10 (|d| <= 10), squares d^2 <= 100
     const bits = new Bits(seededBytes("cov-var-data"));
     const xs = Array.from({ length: 400 }, () => bits.uniformSmall(11));

@@ -3,8 +3,8 @@
  * intervals), by the procedure of docs/methods.md §12.2: R releases with independent (seeded) noise on
  * data that needs no clamping; count how many intervals contain the noise-free value; accept when
  * the count is at least the one-sided 99.9% lower limit of Binomial(R, nominal), computed with
- * jstat. The discrete mechanisms and the corner intervals over-cover, so "at least nominal" is
- * the right test (docs/methods.md §12.2 cautions). Fixed seeds keep the test deterministic.
+ * jstat. The discrete mechanisms over-cover (integer half-widths) and the pivot intervals cover at
+ * least nominally, so "at least nominal" is the right test (docs/methods.md §12.2 cautions). Fixed seeds keep the test deterministic.
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { Bits, seededBytes } from "../../runtime/core/index.js";
@@ -49,7 +49,7 @@ describe("interval coverage through the answering path (docs/methods.md §12.2)"
     expect(covered).toBeGreaterThanOrEqual(limit);
   });
 
-  it("mean on the unit-bounded pure dataset (corner interval)", async () => {
+  it("mean on the unit-bounded pure dataset (pivot interval)", async () => {
     // Every kept row's wait lies inside [0, 240] except one clamped row, which is clamped the same
     // way in the noise-free value; the noise-free mean is read at a huge epsilon.
     const exact = { v: 1, dataset: "visits", where: { op: "lt", column: "age", value: 101 }, measure: { kind: "mean", column: "wait_minutes" } } as const;

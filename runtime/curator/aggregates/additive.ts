@@ -13,7 +13,7 @@
  * These are no larger than the L0 * Linf * M of docs/methods.md §7 with Linf = k, so bounding the
  * groups per unit (maxGroups) would not lower them: the total bound k is what is enforced.
  */
-import { Rational, sumSensitivity } from "../../core/index.js";
+import { Rational, SEARCH_CELLS, sumSensitivity } from "../../core/index.js";
 import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
@@ -90,7 +90,7 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
   };
 }
 
-/** Mean per cell: noisy count of values and noisy centred sum, half the budget each (docs/methods.md §8). */
+/** Mean per cell: noisy count of values and noisy centred sum, half the budget each; pivot interval (docs/methods.md §8). */
 export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const { columns, labels, cells } = groupLabels(src, keys);
@@ -123,7 +123,7 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
       `The mean of ${c.name} splits its budget evenly between a noisy count of values and a noisy sum centred at ${exactDecimal(centre)}.`,
       `A mean whose noisy count is not positive is reported as unavailable, with the declared range as its interval.`,
     ],
-    methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (docs/methods.md §8)`],
+    methods: [`mean: pivot interval, the means m whose |noisy sum - m x noisy count| lies within the quantile of the joint noise law, within the declared range (docs/methods.md §8)`],
     size: cells,
     steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
@@ -176,8 +176,9 @@ export function spreadPiece(
     notes: [
       ...groupedNote(keys, columns, cells),
       `The ${stat} of ${c.name} splits its budget in three equal parts: a noisy count, a noisy centred sum and a noisy centred sum of squares (centre ${exactDecimal(centre)}).`,
+      `A ${stat} whose noisy count is not positive is reported as unavailable, with every value the range allows as its interval; a small noisy count gives a wide interval, never a narrow wrong one.`,
     ],
-    methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (docs/methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
+    methods: [`${stat}: pivot interval from the joint noise law of the three noisy parts, Q - 2mS + (m^2 - v)N, with the mean m in its own pivot interval (docs/methods.md §8)${cells > SEARCH_CELLS ? `; with ${cells} cells (more than ${SEARCH_CELLS}) its quantile is the union bound, wider but quick` : ""}${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
     steps: 1,
     async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {

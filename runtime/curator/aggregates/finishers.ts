@@ -8,7 +8,7 @@
  * Recipes and data cross the thread boundary by structured clone (workers/wire.ts keeps Rationals
  * exact); the formulas are the ones the pieces in additive.ts and quantile.ts document.
  */
-import { Rational, addNoise, exponentialQuantile, ratioInterval, varianceInterval } from "../../core/index.js";
+import { Rational, SEARCH_CELLS, addNoise, exponentialQuantile, ratioInterval, varianceInterval } from "../../core/index.js";
 import type { Bits, NoiseLaw } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import { exactDecimal, sqrtRational } from "./budget.js";
@@ -115,7 +115,9 @@ function spread(r: SpreadRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
     const n = { noisy: addNoise(v[0], r.countLaw, bits), law: r.countLaw };
     const s = { noisy: addNoise(cs.d, r.sumLaw, bits), law: r.sumLaw };
     const q = { noisy: addNoise(cs.d2, r.squaresLaw, bits), law: r.squaresLaw };
-    const x = varianceInterval({ sumSquares: q, sum: s, count: n, sumStep: r.half, squareStep: r.half.mul(r.half), lower: r.lower, upper: r.upper, confidence: r.confidence });
+    // The cell count is public: large releases take the union-bound quantile (intervals.ts SEARCH_CELLS).
+    const search = data.length <= SEARCH_CELLS;
+    const x = varianceInterval({ sumSquares: q, sum: s, count: n, sumStep: r.half, squareStep: r.half.mul(r.half), lower: r.lower, upper: r.upper, confidence: r.confidence, search });
     const est = x.estimate;
     const low = est === null ? Rational.ZERO : x.low;
     const high = est === null ? maxVar : x.high;
