@@ -64,7 +64,7 @@ describe("best epsilon at delta on a zCDP dataset, real curator", () => {
           await ada.ask(count({ epsilon: "0.1" }, 90 + i));
         } catch (e) {
           expect(e).toBeInstanceOf(OverCapError);
-          expect((e as Error).message).toMatch(/this query costs rho 1\/200/);
+          expect((e as Error).message).toMatch(/this query costs ρ 0\.005,/);
           refused++;
         }
       }
