@@ -7,7 +7,8 @@
  * inside tslab, so a SIGINT stops it; a cell awaiting at top level is raced against tslab's
  * interrupt promise, so `interrupt()` stops waiting for it. Work the interrupted async cell had
  * already scheduled (timers, pending promises) keeps running in the background: a promise cannot
- * be cancelled from outside.
+ * be cancelled from outside. Code after an `await` is stopped at interrupt points the converter
+ * adds to every loop of the cell (interrupt-points.ts).
  */
 import { createRequire } from "node:module";
 import { format, inspect } from "node:util";
@@ -15,6 +16,7 @@ import type * as TsExecutor from "tslab/dist/executor.js";
 import type * as TsConverter from "tslab/dist/converter.js";
 import { runAsCell } from "../runtime/api/asking-cell.js";
 import { hasTopLevelAwait } from "./top-level-await.js";
+import { clearInterrupt, installInterruptPoint, INTERRUPTED_MESSAGE, withInterruptPoints } from "./interrupt-points.js";
 
 const require = createRequire(import.meta.url);
 
@@ -78,7 +80,7 @@ export interface ExecutionOptions {
   declarations: string;
 }
 
-const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`"];
+const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`", INTERRUPTED_MESSAGE];
 
 export function createExecution(opts: ExecutionOptions): Execution {
   const { createConverter, createExecutor, printQuickInfo } = tslab();
@@ -94,6 +96,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
       if (converted.output && !converted.hasToplevelAwait && hasTopLevelAwait(converted.output)) {
         converted.hasToplevelAwait = true;
       }
+      if (converted.output) converted.output = withInterruptPoints(converted.output);
       return converted;
     },
     inspect: (prev, src, pos) => node.inspect(globalBlock + prev, src, pos),
@@ -128,6 +131,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
     }
   };
   installGlobals();
+  installInterruptPoint();
 
   // tslab rewrites uses of earlier cells' names to `exports.<name>` but misses shorthand
   // properties (`{ total }` stays a bare `total`). Bare names resolve on the global object, so
@@ -152,6 +156,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
     async run(code) {
       result = null;
       failures = [];
+      clearInterrupt();
       // Asks made by this code (now or later, from work it started) carry its source digest.
       const ok = await runAsCell(code, () => executor.execute(code));
       exposeLocals();
