@@ -5,6 +5,8 @@
  */
 import { inspect } from "node:util";
 import type { HandlerContext, Handler, HandlerTable } from "./dispatch.js";
+import { filterNames, stringArgumentAt, type Completion } from "./completion-quick.js";
+import { languageService } from "./completion-service.js";
 import { isComplete, type Execution, type CellError } from "./execution.js";
 import type { History } from "./history.js";
 import { kernelInfo } from "./kernel-info.js";
@@ -52,6 +54,9 @@ export function plainBundle(value: unknown): MimeBundle {
 export function createHandlers(parts: KernelParts): { table: HandlerTable; aborted: Handler } {
   const { history } = parts;
   let executionCount = 0;
+  // Starts building the TypeScript language service on its own thread now, at kernel start, so
+  // completion and inspection come from it seconds sooner (completion-service.ts).
+  languageService();
 
   const render = async (session: CellSession, value: unknown): Promise<MimeBundle> =>
     (await session.render(value)) ?? plainBundle(value);
@@ -143,21 +148,23 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async complete_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
-      const { execution } = await parts.engine();
-      const r = execution.complete(code, cursor_pos);
+      const engine = await parts.engine();
+      const r = (await namesInString(engine, code, cursor_pos)) ?? (await engine.execution.complete(code, cursor_pos));
       await ctx.reply("complete_reply", {
         status: "ok",
         matches: r.matches,
         cursor_start: toCodePoints(code, r.cursor_start),
         cursor_end: toCodePoints(code, r.cursor_end),
-        metadata: {},
+        // Which path answered: "names" (public schema), "types" (language service), "quick" (live
+        // values, while the language service is still being built).
+        metadata: { hush: { source: r.source } },
       });
     },
 
     async inspect_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
       const { execution } = await parts.engine();
-      const text = execution.inspect(code, cursor_pos);
+      const text = await execution.inspect(code, cursor_pos);
       await ctx.reply("inspect_reply", {
         status: "ok",
         found: text !== null,
@@ -234,6 +241,31 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
   };
 
   return { table, aborted };
+}
+
+/**
+ * Completion inside a string argument of a call on a name (`hush.open("vi`, `visits.mean("ag`):
+ * dataset or column names from the cell API (public schema only); null when the cursor is not in
+ * such a string or the API has no names for that call.
+ */
+async function namesInString(
+  { execution, session }: Engine,
+  code: string,
+  cursor: number,
+): Promise<(Completion & { source: "names" }) | null> {
+  if (!session.publicNames) return null;
+  const at = stringArgumentAt(code, cursor);
+  if (at === null) return null;
+  const receiver = execution.lookup(at.receiver);
+  if (receiver === undefined) return null;
+  let names: string[] | null = null;
+  try {
+    names = await session.publicNames(receiver, at.method);
+  } catch {
+    return null;
+  }
+  if (names === null) return null;
+  return { matches: filterNames(names, at.prefix), cursor_start: at.start, cursor_end: cursor, source: "names" };
 }
 
 function executeContent(msg: Message): ExecuteContent {
