@@ -35,6 +35,8 @@ export interface LanguageService {
 const CONVERT_WAIT_MS = 180_000;
 /** Longest wait for one completion or inspection answer once the service is ready. */
 const ASK_WAIT_MS = 10_000;
+/** Longest wait of an inspection for the service to be built (no quick path for it). */
+const INSPECT_READY_WAIT_MS = 8_000;
 
 const require = createRequire(import.meta.url);
 
@@ -103,6 +105,7 @@ export class ThreadedService implements LanguageService {
   private isReady = false;
   private failed: string | null = null;
   private nextId = 1;
+  private readyWaiters: Array<() => void> = [];
   private readonly waiting = new Map<number, { resolve(v: unknown): void; timer: NodeJS.Timeout }>();
   /** Milliseconds the worker took to build the service (for the log and the bench). */
   buildMs: number | null = null;
@@ -126,6 +129,7 @@ export class ThreadedService implements LanguageService {
     if (m.type === "ready") {
       this.isReady = true;
       this.buildMs = m.ms;
+      this.wakeReadyWaiters();
       return;
     }
     if (m.type === "failed") {
@@ -140,11 +144,18 @@ export class ThreadedService implements LanguageService {
     w.resolve(m.type === "complete" ? m.result : m.text);
   }
 
+  private wakeReadyWaiters(): void {
+    const waiters = this.readyWaiters;
+    this.readyWaiters = [];
+    for (const w of waiters) w();
+  }
+
   private fail(message: string): void {
     if (this.failed !== null) return;
     this.failed = message;
     this.isReady = false;
     kernelLog(message);
+    this.wakeReadyWaiters();
     for (const [id, w] of this.waiting) {
       clearTimeout(w.timer);
       w.resolve(null);
@@ -180,10 +191,24 @@ export class ThreadedService implements LanguageService {
     return this.callSync<TsConverter.Diagnostic[]>({ type: "addModule", name, content, meta });
   }
 
-  private ask<T>(type: "complete" | "inspect", prev: string, src: string, pos: number): Promise<T | null> {
-    if (!this.isReady) return Promise.resolve(null);
+  /** Resolves once the service is ready (true) or after `ms` / on failure (false). */
+  private whenReady(ms: number): Promise<boolean> {
+    if (this.isReady) return Promise.resolve(true);
+    if (this.failed !== null) return Promise.resolve(false);
+    return new Promise<boolean>((resolve) => {
+      const timer = setTimeout(() => resolve(this.isReady), ms);
+      this.readyWaiters.push(() => {
+        clearTimeout(timer);
+        resolve(this.isReady);
+      });
+    });
+  }
+
+  private async ask<T>(type: "complete" | "inspect", prev: string, src: string, pos: number): Promise<T | null> {
+    // Completion has a quick path and answers at once; inspection has none, so it waits a little.
+    if (!this.isReady && (type === "complete" || !(await this.whenReady(INSPECT_READY_WAIT_MS)))) return null;
     const id = this.nextId++;
-    return new Promise<T | null>((resolve) => {
+    return await new Promise<T | null>((resolve) => {
       const timer = setTimeout(() => {
         this.waiting.delete(id);
         resolve(null);

@@ -42,6 +42,9 @@ export function calleePosition(src: string, pos: number): number | null {
   ts ??= require("@tslab/typescript-for-tslab") as Ts;
   const t = ts;
   const file = t.createSourceFile("cell.ts", src, t.ScriptTarget.Latest, true, t.ScriptKind.TS);
+  // Blank space before the cursor belongs to what precedes it (an unclosed call ends at its last
+  // token, so `Math.max(1, |` would otherwise fall outside it).
+  while (pos > 0 && /\s/.test(src[pos - 1])) pos -= 1;
   let call: Node | null = null;
   let onName = false;
   const visit = (node: Node): undefined => {
