@@ -9,7 +9,7 @@ import type { ConnectDeps } from "../runtime/api/connection.js";
 import { Connector } from "../runtime/api/connection.js";
 import { resolveConfig } from "../runtime/api/config.js";
 import type { ApiContext } from "../runtime/api/context.js";
-import { HUSH_DECLARATIONS } from "../runtime/api/declarations.js";
+import { hushDeclarations } from "../runtime/api/declarations.js";
 import { Hush } from "../runtime/api/hush.js";
 import { SessionSpend } from "../runtime/api/session-spend.js";
 import { SealedTable } from "../runtime/api/table.js";
@@ -86,7 +86,7 @@ export class HushSession {
 
   /** Declarations of `hush` and its types, for completion in the kernel's language service. */
   typeDeclarations(): string {
-    return HUSH_DECLARATIONS;
+    return hushDeclarations();
   }
 
   /**
