@@ -152,7 +152,7 @@ describe("other bundles", () => {
       expect(b.data["text/html"]).toMatch(/^<div class="hush-/);
       expect(b.metadata).toEqual({});
     }
-    expect((await session.render(t)).data["text/html"]).toContain("sealed — aggregates only");
+    expect((await session.render(t))?.data["text/html"]).toContain("sealed — aggregates only");
   });
 
   test("values hush does not know render as null (the kernel's default applies)", async () => {
