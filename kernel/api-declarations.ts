@@ -17,10 +17,21 @@
  * `npm run build` runs this after tsc: `node dist/kernel/api-declarations.js` writes
  * dist/runtime/api/hush-declarations.d.ts, which runtime/api/declarations.ts reads.
  */
-import { readdirSync, readFileSync, writeFileSync } from "node:fs";
+import { createHash } from "node:crypto";
+import { existsSync, readdirSync, readFileSync, renameSync, writeFileSync } from "node:fs";
+import { createRequire } from "node:module";
 import { join, relative, resolve, sep } from "node:path";
 import { fileURLToPath, pathToFileURL } from "node:url";
-import ts from "typescript";
+import type * as TS from "typescript";
+
+// The compiler (a development dependency) loads only when a bundle is made, never when the kernel
+// merely reads the generated file.
+const require = createRequire(import.meta.url);
+let ts: typeof TS;
+function compiler(): typeof TS {
+  ts ??= require("typescript") as typeof TS;
+  return ts;
+}
 
 /** The class whose instance is the `hush` global: where the walk starts. */
 const ROOT_CLASS = "Hush";
@@ -46,9 +57,10 @@ interface Edit {
  * "runtime/api/hush.d.ts") to the compiler's .d.ts output.
  */
 export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
+  compiler();
   const root = "/hush-decl/";
   const abs = (p: string) => root + p;
-  const options: ts.CompilerOptions = {
+  const options: TS.CompilerOptions = {
     target: ts.ScriptTarget.ES2022,
     module: ts.ModuleKind.NodeNext,
     moduleResolution: ts.ModuleResolutionKind.NodeNext,
@@ -79,21 +91,21 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
   if (!byAbs.has(rootAbs)) throw new Error(`declarations: ${ROOT_FILE} is missing from the compiler output`);
   const program = ts.createProgram([rootAbs], options, host);
   const checker = program.getTypeChecker();
-  const ours = (sf: ts.SourceFile) => byAbs.has(sf.fileName);
+  const ours = (sf: TS.SourceFile) => byAbs.has(sf.fileName);
 
-  const rootFile = program.getSourceFile(rootAbs) as ts.SourceFile;
+  const rootFile = program.getSourceFile(rootAbs) as TS.SourceFile;
   const rootModule = checker.getSymbolAtLocation(rootFile);
   const rootSymbol = rootModule && checker.getExportsOfModule(rootModule).find((s) => s.name === ROOT_CLASS);
   if (!rootSymbol) throw new Error(`declarations: ${ROOT_FILE} exports no ${ROOT_CLASS}`);
 
   // A variable's declaration is inside a statement: print the statement (its doc comment sits there).
-  const printable = (d: ts.Declaration): ts.Node => (ts.isVariableDeclaration(d) ? d.parent.parent : d);
-  const included = new Map<ts.Symbol, ts.Declaration[]>();
-  const byName = new Map<string, ts.Symbol>();
-  const queue: ts.Symbol[] = [];
-  const editsOf = new Map<ts.Declaration, Edit[]>();
+  const printable = (d: TS.Declaration): TS.Node => (ts.isVariableDeclaration(d) ? d.parent.parent : d);
+  const included = new Map<TS.Symbol, TS.Declaration[]>();
+  const byName = new Map<string, TS.Symbol>();
+  const queue: TS.Symbol[] = [];
+  const editsOf = new Map<TS.Declaration, Edit[]>();
 
-  const include = (symbol: ts.Symbol, from: ts.Node): void => {
+  const include = (symbol: TS.Symbol, from: TS.Node): void => {
     if (included.has(symbol)) return;
     const decls = (symbol.declarations ?? []).filter((d) => ours(d.getSourceFile()));
     if (decls.length === 0) return;
@@ -108,10 +120,10 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
     included.set(symbol, decls);
     queue.push(symbol);
   };
-  const where = (s: ts.Symbol) => (s.declarations?.[0]?.getSourceFile().fileName ?? "?").slice(root.length);
+  const where = (s: TS.Symbol) => (s.declarations?.[0]?.getSourceFile().fileName ?? "?").slice(root.length);
 
   /** The declared symbol a reference names (aliases followed), or null for type parameters and globals. */
-  const target = (name: ts.Node): ts.Symbol | null => {
+  const target = (name: TS.Node): TS.Symbol | null => {
     let s = checker.getSymbolAtLocation(name);
     if (!s) return null;
     if (s.flags & ts.SymbolFlags.Alias) s = checker.getAliasedSymbol(s);
@@ -123,7 +135,7 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
     throw new Error(`declarations: ${name.getText()} comes from ${sf.fileName}, outside the project; the cell API should not expose it`);
   };
 
-  const walk = (node: ts.Node, edits: Edit[]): void => {
+  const walk = (node: TS.Node, edits: Edit[]): void => {
     if (dropped(node)) {
       edits.push({ start: node.getFullStart(), end: node.getEnd(), text: "" });
       return;
@@ -162,7 +174,7 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
 
   include(rootSymbol, rootFile);
   while (queue.length > 0) {
-    const s = queue.shift() as ts.Symbol;
+    const s = queue.shift() as TS.Symbol;
     for (const d of included.get(s) ?? []) {
       const edits: Edit[] = [];
       // Modifiers `export`, `declare`, `default`: everything in a declared namespace is visible.
@@ -204,14 +216,14 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
 }
 
 /** Private or protected class members: not part of what a cell can call. */
-function dropped(node: ts.Node): boolean {
+function dropped(node: TS.Node): boolean {
   if (!ts.isClassElement(node) || ts.isConstructorDeclaration(node)) return false;
   if (node.name && ts.isPrivateIdentifier(node.name)) return false; // `#private;` keeps the class nominal
   const mods = ts.canHaveModifiers(node) ? (ts.getModifiers(node) ?? []) : [];
   return mods.some((m) => m.kind === ts.SyntaxKind.PrivateKeyword || m.kind === ts.SyntaxKind.ProtectedKeyword);
 }
 
-function rightmost(n: ts.Node): ts.Node {
+function rightmost(n: TS.Node): TS.Node {
   if (ts.isQualifiedName(n)) return n.right;
   if (ts.isPropertyAccessExpression(n)) return n.name;
   return n;
@@ -241,13 +253,53 @@ export function readDeclarationTree(dir: string, under: string[] = ["runtime"]):
   return out;
 }
 
+/** dist/: one up when this runs built (dist/kernel/), the repository's dist/ when run from sources. */
+const HERE_ROOT = resolve(fileURLToPath(new URL("..", import.meta.url)));
+const DIST = existsSync(join(HERE_ROOT, "runtime", "api", "declarations.js")) ? HERE_ROOT : join(HERE_ROOT, "dist");
+
+/** First line of the generated file: a digest of the compiler output it was made from. */
+const INPUTS_LINE = /^\/\/ inputs sha256 ([0-9a-f]{64})\n/;
+
+function inputsDigest(files: ReadonlyMap<string, string>): string {
+  const h = createHash("sha256");
+  for (const p of [...files.keys()].sort()) h.update(p).update("\0").update(files.get(p) as string).update("\0");
+  return h.digest("hex");
+}
+
+/** The generated text without its inputs line (the part that is the bundle). */
+export function withoutInputsLine(text: string): string {
+  return text.replace(INPUTS_LINE, "");
+}
+
+/** Bundles dist/'s declaration output and writes the generated file; returns its text. */
+export function generateDeclarations(dist = DIST, files = readDeclarationTree(dist)): string {
+  const text = `// inputs sha256 ${inputsDigest(files)}\n${bundleDeclarations(files)}`;
+  const file = join(dist, GENERATED_FILE);
+  // Written whole, then renamed: a kernel starting meanwhile never reads half a file.
+  writeFileSync(`${file}.${process.pid}.tmp`, text);
+  renameSync(`${file}.${process.pid}.tmp`, file);
+  return text;
+}
+
+/**
+ * The generated text, made again first when it is missing or was made from other compiler output
+ * than dist/ holds now (a build by `tsc` alone after a change). Checking costs a read of the
+ * .d.ts files and one digest; only a change pays for loading the compiler and bundling.
+ */
+export function ensureDeclarations(dist = DIST): string {
+  const file = join(dist, GENERATED_FILE);
+  const files = readDeclarationTree(dist);
+  if (existsSync(file)) {
+    const text = readFileSync(file, "utf8");
+    if (INPUTS_LINE.exec(text)?.[1] === inputsDigest(files)) return text;
+  }
+  return generateDeclarations(dist, files);
+}
+
 if (process.argv[1] && import.meta.url === pathToFileURL(process.argv[1]).href) {
-  // dist/kernel/api-declarations.js: the declaration root is dist/.
-  const dist = resolve(fileURLToPath(new URL("..", import.meta.url)));
   try {
-    const text = bundleDeclarations(readDeclarationTree(dist));
-    writeFileSync(join(dist, GENERATED_FILE), text);
-    process.stdout.write(`hush: wrote ${join(dist, GENERATED_FILE)} (${text.length} characters)\n`);
+    const text = generateDeclarations();
+    process.stdout.write(`hush: wrote ${join(DIST, GENERATED_FILE)} (${text.length} characters)\n`);
   } catch (e: unknown) {
     process.stderr.write(`hush: ${e instanceof Error ? e.message : String(e)}\n`);
     process.exit(1);

@@ -9,7 +9,7 @@ import type { ConnectDeps } from "../runtime/api/connection.js";
 import { Connector } from "../runtime/api/connection.js";
 import { resolveConfig } from "../runtime/api/config.js";
 import type { ApiContext } from "../runtime/api/context.js";
-import { hushDeclarations } from "../runtime/api/declarations.js";
+import { ensureDeclarations } from "./api-declarations.js";
 import { Hush } from "../runtime/api/hush.js";
 import { SessionSpend } from "../runtime/api/session-spend.js";
 import { SealedTable } from "../runtime/api/table.js";
@@ -84,9 +84,13 @@ export class HushSession {
     return lines.length ? lossBundle(lines) : null;
   }
 
-  /** Declarations of `hush` and its types, for completion in the kernel's language service. */
+  /**
+   * Declarations of `hush` and its types, for the kernel's language service: generated from the
+   * compiler's output of runtime/api (kernel/api-declarations.ts), made again here when a build by
+   * `tsc` alone left them missing or older than that output.
+   */
   typeDeclarations(): string {
-    return hushDeclarations();
+    return ensureDeclarations();
   }
 
   /**

@@ -5,11 +5,13 @@
  * the build generated and the kernel gives its language service. Editing runtime/api without
  * rebuilding, or hand-editing the generated file, fails this test.
  */
-import { join } from "node:path";
+import { mkdirSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { dirname, join } from "node:path";
 import { fileURLToPath } from "node:url";
 import ts from "typescript";
 import { beforeAll, describe, expect, it } from "vitest";
-import { bundleDeclarations } from "../../kernel/api-declarations.js";
+import { bundleDeclarations, ensureDeclarations, withoutInputsLine } from "../../kernel/api-declarations.js";
 import { HushSession } from "../../kernel/hush-session.js";
 import { hushDeclarations } from "../../runtime/api/declarations.js";
 
@@ -39,13 +41,37 @@ describe("generated hush declarations", () => {
   it("equal a fresh bundle of the compiler's declaration output of runtime/api", () => {
     expect(emitted.has("runtime/api/hush.d.ts")).toBe(true);
     const fresh = bundleDeclarations(emitted);
-    expect(hushDeclarations()).toBe(fresh);
+    expect(withoutInputsLine(hushDeclarations())).toBe(fresh);
   });
 
   it("are what the kernel's cell API session gives the language service", () => {
     const session = HushSession.create({ display: () => {} }, { HUSH_DEMO_DIR: "/nonexistent-hush-demo" });
     expect(session.typeDeclarations()).toBe(hushDeclarations());
+    expect(hushDeclarations()).toMatch(/^\/\/ inputs sha256 [0-9a-f]{64}\n/);
     void session.close();
+  });
+
+  it("are made again when the compiler output changed since (a build by tsc alone)", () => {
+    const dist = mkdtempSync(join(tmpdir(), "hush-decl-"));
+    try {
+      const put = (files: Map<string, string>) => {
+        for (const [p, text] of files) {
+          mkdirSync(dirname(join(dist, p)), { recursive: true });
+          writeFileSync(join(dist, p), text);
+        }
+      };
+      put(emitted);
+      const first = ensureDeclarations(dist);
+      expect(withoutInputsLine(first)).toBe(bundleDeclarations(emitted));
+      expect(ensureDeclarations(dist)).toBe(first); // unchanged output: the file is reused
+      const changed = new Map([["runtime/api/hush.d.ts", (emitted.get("runtime/api/hush.d.ts") as string).replace("    toString(): string;\n}", "    laterMember(): void;\n    toString(): string;\n}")]]);
+      put(changed);
+      const again = ensureDeclarations(dist);
+      expect(again).toContain("laterMember(): void;");
+      expect(readFileSync(join(dist, "runtime/api/hush-declarations.d.ts"), "utf8")).toBe(again);
+    } finally {
+      rmSync(dist, { recursive: true, force: true });
+    }
   });
 
   it("follow the compiler output: a member added there appears in the bundle (the comparison can fail)", () => {
@@ -54,7 +80,7 @@ describe("generated hush declarations", () => {
     changed.set("runtime/api/hush.d.ts", hush.replace("    toString(): string;\n}", "    /** Added. */\n    extraForTest(): number;\n    toString(): string;\n}"));
     const bundle = bundleDeclarations(changed);
     expect(bundle).toContain("extraForTest(): number;");
-    expect(bundle).not.toBe(hushDeclarations());
+    expect(bundle).not.toBe(withoutInputsLine(hushDeclarations()));
   });
 
   it("declare one global and keep cells away from internals", () => {
