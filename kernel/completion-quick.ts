@@ -217,5 +217,17 @@ export function quickComplete(code: string, cursor: number, scopes: object[]): C
   }
   const names: string[] = [...KEYWORDS];
   for (const s of scopes) names.push(...Object.getOwnPropertyNames(s).filter((n) => /^[A-Za-z_$][\w$]*$/.test(n)));
+  // Names written in the cell itself (declared before they have run), except the one being typed.
+  names.push(...wordsOf(code.slice(0, start)), ...wordsOf(code.slice(cursor)));
   return { matches: filterNames(names, prefix), cursor_start: start, cursor_end: cursor };
+}
+
+/** Identifier-like words of a text, at most 10,000 (a huge cell stays a bounded answer). */
+function wordsOf(text: string): string[] {
+  const out: string[] = [];
+  for (const m of text.matchAll(/[A-Za-z_$][\w$]*/g)) {
+    out.push(m[0]);
+    if (out.length >= 10_000) break;
+  }
+  return out;
 }
