@@ -71,6 +71,8 @@ export interface Execution {
   inspect(code: string, cursor: number): Promise<string | null>;
   /** A value named by a dotted path in the cells' scope (own data properties only; no getter runs). */
   lookup(path: string[]): unknown;
+  /** The values of the cells' own variables (data properties only; at most `max`). */
+  cellValues(max: number): unknown[];
   isComplete(code: string): { status: "complete" | "incomplete" | "invalid"; indent?: string };
   interrupt(): void;
   /** Forgets every variable and declaration of earlier cells. */
@@ -197,6 +199,15 @@ export function createExecution(opts: ExecutionOptions): Execution {
       return node.inspect(earlierDeclarations(code), code, cursor);
     },
     lookup: (path) => lookupPath([executor.locals, globalThis], path),
+    cellValues(max) {
+      const out: unknown[] = [];
+      for (const name of Object.keys(executor.locals)) {
+        if (out.length >= max) break;
+        const d = Object.getOwnPropertyDescriptor(executor.locals, name);
+        if (d && "value" in d) out.push(d.value);
+      }
+      return out;
+    },
     isComplete,
     interrupt: () => executor.interrupt(),
     reset() {

@@ -243,6 +243,9 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
   return { table, aborted };
 }
 
+/** Cell variables looked at for `hush.col("…` (each costs one check). */
+const MAX_CELL_VALUES = 1000;
+
 /**
  * Completion inside a string argument of a call on a name (`hush.open("vi`, `visits.mean("ag`):
  * dataset or column names from the cell API (public schema only); null when the cursor is not in
@@ -261,6 +264,12 @@ async function namesInString(
   let names: string[] | null = null;
   try {
     names = await session.publicNames(receiver, at.method);
+    // `hush.col("…`: a column of any dataset handle the cells hold.
+    if (names === null && at.receiver.length === 1 && at.receiver[0] === "hush" && at.method === "col") {
+      const all = new Set<string>();
+      for (const v of execution.cellValues(MAX_CELL_VALUES)) for (const n of (await session.publicNames(v, "col")) ?? []) all.add(n);
+      names = [...all];
+    }
   } catch {
     return null;
   }

@@ -91,6 +91,12 @@ describe("names inside strings", () => {
     expect(c).toMatchObject({ cursor_start: 'hush.open("'.length });
   });
 
+  it("completes hush.col strings with the columns of the handles the cells hold", async () => {
+    const c = await complete('visits.where(hush.col("dis');
+    expect(c.matches).toEqual(["district"]);
+    expect(c.metadata).toMatchObject({ hush: { source: "names" } });
+  });
+
   it("leaves strings that name nothing alone (no names, no failure)", async () => {
     const c = await complete('const s = "a');
     expect(c.status).toBe("ok");
