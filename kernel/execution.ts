@@ -126,7 +126,11 @@ export function createExecution(opts: ExecutionOptions): Execution {
   /** The declarations of earlier cells, as tslab's executor holds them now. */
   const earlierDeclarations = (code: string): string => {
     notedPrev = "";
-    executor.complete(code, 0);
+    try {
+      executor.complete(code, 0);
+    } catch {
+      // A `//%browser` cell: tslab asks for the browser converter, which hush does not have.
+    }
     return globalBlock + notedPrev;
   };
   const convs: TsExecutor.ConverterSet = {
