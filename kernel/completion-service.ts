@@ -12,7 +12,7 @@
 import { existsSync } from "node:fs";
 import { createRequire } from "node:module";
 import { fileURLToPath } from "node:url";
-import { MessageChannel, receiveMessageOnPort, Worker } from "node:worker_threads";
+import { MessageChannel, receiveMessageOnPort, Worker, type MessagePort } from "node:worker_threads";
 import type * as TsConverter from "tslab/dist/converter.js";
 import type { FromLanguage, SyncAnswer, ToLanguage } from "./completion-thread.js";
 import { calleePosition } from "./inspection-calls.js";
@@ -35,6 +35,8 @@ export interface LanguageService {
 const CONVERT_WAIT_MS = 180_000;
 /** Longest wait for one completion or inspection answer once the service is ready. */
 const ASK_WAIT_MS = 10_000;
+/** Times a dead or hung service is replaced before the kernel gives up on it. */
+const MAX_RESTARTS = 3;
 /** Longest wait of an inspection for the service to be built (no quick path for it). */
 const INSPECT_READY_WAIT_MS = 8_000;
 
@@ -99,30 +101,52 @@ export class InProcessService implements LanguageService {
 
 /** The converter on a worker thread, built there as soon as this object exists. */
 export class ThreadedService implements LanguageService {
-  private readonly worker: Worker;
+  private worker!: Worker;
   private readonly flag = new Int32Array(new SharedArrayBuffer(4));
-  private readonly syncPort;
+  private syncPort!: MessagePort;
   private isReady = false;
   private failed: string | null = null;
+  private closed = false;
+  private restarts = 0;
   private nextId = 1;
   private readyWaiters: Array<() => void> = [];
   private readonly waiting = new Map<number, { resolve(v: unknown): void; timer: NodeJS.Timeout }>();
   /** Milliseconds the worker took to build the service (for the log and the bench). */
   buildMs: number | null = null;
 
-  constructor(file: URL) {
+  constructor(private readonly file: URL) {
+    this.start();
+  }
+
+  private start(): void {
     const channel = new MessageChannel();
     this.syncPort = channel.port1;
-    this.worker = new Worker(file, { stderr: true });
+    const worker = new Worker(this.file, { stderr: true });
+    this.worker = worker;
     // The worker's stderr would otherwise flow through process.stderr, which cells' output captures.
-    this.worker.stderr.on("data", (chunk: Buffer) => kernelLog(`TypeScript service: ${chunk.toString("utf8").trimEnd()}`));
-    this.worker.postMessage({ type: "sync", port: channel.port2, flag: this.flag.buffer as SharedArrayBuffer } satisfies ToLanguage, [
-      channel.port2,
-    ]);
-    this.worker.on("message", (m: FromLanguage) => this.onMessage(m));
-    this.worker.on("error", (e) => this.fail(`the TypeScript service stopped: ${errorText(e)}`));
-    this.worker.on("exit", () => this.fail("the TypeScript service ended"));
-    this.worker.unref();
+    worker.stderr.on("data", (chunk: Buffer) => kernelLog(`TypeScript service: ${chunk.toString("utf8").trimEnd()}`));
+    worker.postMessage({ type: "sync", port: channel.port2, flag: this.flag.buffer as SharedArrayBuffer } satisfies ToLanguage, [channel.port2]);
+    // Events of a worker that was replaced are ignored.
+    worker.on("message", (m: FromLanguage) => worker === this.worker && this.onMessage(m));
+    worker.on("error", (e) => worker === this.worker && this.fail(`the TypeScript service stopped: ${errorText(e)}`));
+    worker.on("exit", () => worker === this.worker && this.fail("the TypeScript service ended"));
+    worker.unref();
+  }
+
+  /**
+   * After the worker died or hung: a new one (the service is rebuilt; earlier cells' declarations
+   * travel with every request, so nothing else is lost), at most MAX_RESTARTS times per kernel.
+   */
+  private restart(): boolean {
+    if (this.closed || this.restarts >= MAX_RESTARTS) return false;
+    this.restarts += 1;
+    kernelLog(`restarting the TypeScript service (${this.restarts} of at most ${MAX_RESTARTS})`);
+    const old = this.worker;
+    this.failed = null;
+    this.isReady = false;
+    this.start();
+    void old.terminate();
+    return true;
   }
 
   private onMessage(m: FromLanguage): void {
@@ -155,12 +179,12 @@ export class ThreadedService implements LanguageService {
     this.failed = message;
     this.isReady = false;
     kernelLog(message);
-    this.wakeReadyWaiters();
     for (const [id, w] of this.waiting) {
       clearTimeout(w.timer);
       w.resolve(null);
       this.waiting.delete(id);
     }
+    if (!this.restart()) this.wakeReadyWaiters();
   }
 
   private callSync<T>(msg: ToLanguage): T {
@@ -175,8 +199,16 @@ export class ThreadedService implements LanguageService {
         if (!a.ok) throw new Error(a.message);
         return a.value;
       }
+      // A worker that is gone never answers (its exit event cannot arrive while this thread waits).
+      if (this.worker.threadId === -1) {
+        this.fail("the TypeScript service ended");
+        throw new Error("the TypeScript service ended while converting the cell; run it again");
+      }
       const left = deadline - Date.now();
-      if (left <= 0) throw new Error("the TypeScript service did not answer in time");
+      if (left <= 0) {
+        this.fail("the TypeScript service did not answer in time");
+        throw new Error("the TypeScript service did not answer in time; run the cell again");
+      }
       // Woken by the worker's notify; the slice bounds the wait if a notify is missed.
       Atomics.wait(this.flag, 0, 0, Math.min(left, 1000));
       Atomics.store(this.flag, 0, 0);
@@ -232,6 +264,7 @@ export class ThreadedService implements LanguageService {
 
   close(): void {
     if (shared === this) shared = null;
+    this.closed = true;
     this.failed ??= "the TypeScript service is closed";
     this.worker.postMessage({ type: "close" } satisfies ToLanguage);
     setTimeout(() => void this.worker.terminate(), 1000).unref();
