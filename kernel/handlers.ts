@@ -259,11 +259,14 @@ async function namesInString(
   if (!session.publicNames) return null;
   const at = stringArgumentAt(code, cursor);
   if (at === null) return null;
-  const receiver = execution.lookup(at.receiver);
-  if (receiver === undefined) return null;
   let names: string[] | null = null;
   try {
-    names = await session.publicNames(receiver, at.method);
+    // The receiver, else the nearest value along its path that has names: `visits.preview.mean("…`
+    // (preview is a getter, which completion never runs) completes with the columns of `visits`.
+    for (let n = at.receiver.length; n > 0 && names === null; n--) {
+      const value = execution.lookup(at.receiver.slice(0, n));
+      if (value !== undefined) names = await session.publicNames(value, at.method);
+    }
     // `hush.col("…`: a column of any dataset handle the cells hold.
     if (names === null && at.receiver.length === 1 && at.receiver[0] === "hush" && at.method === "col") {
       const all = new Set<string>();

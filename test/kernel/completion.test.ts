@@ -91,6 +91,10 @@ describe("names inside strings", () => {
     expect(c).toMatchObject({ cursor_start: 'hush.open("'.length });
   });
 
+  it("completes strings of calls on a handle's properties (preview) with the handle's columns", async () => {
+    expect((await complete('visits.preview.mean("wa')).matches).toEqual(["wait_minutes"]);
+  });
+
   it("completes hush.col strings with the columns of the handles the cells hold", async () => {
     const c = await complete('visits.where(hush.col("dis');
     expect(c.matches).toEqual(["district"]);
