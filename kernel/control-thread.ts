@@ -66,7 +66,10 @@ async function main(): Promise<void> {
     let repeats = 0;
     const timer = setInterval(() => {
       if (!running || cell !== target || ++repeats > REPEAT_MAX) clearInterval(timer);
-      else process.kill(process.pid, "SIGINT");
+      else {
+        if (flag) raiseInterrupt(flag);
+        process.kill(process.pid, "SIGINT");
+      }
     }, REPEAT_MS);
   };
   port.on("message", (m: ToControl) => {

@@ -9,9 +9,9 @@
  * kernel itself).
  *
  * So every loop in a cell's compiled JavaScript gets an interrupt point: its body `B` becomes
- * `{ __hushInterruptPoint(); B }`. The point reads one shared 32-bit flag (a SharedArrayBuffer the
+ * `{ __hushInterruptPoint(); B }`. The point reads a shared 32-bit flag (a SharedArrayBuffer the
  * control thread also holds); the control thread sets it on `interrupt_request` while a cell runs,
- * even while the main thread is blocked, and the next pass through any cell loop throws
+ * even while the main thread is blocked, and a pass through any cell loop soon after throws
  * `CellInterrupted`. The point sits in front of the body, so a `try` inside the loop does not
  * catch it; a `try` around a loop can, but the flag stays set until the next cell starts, so every
  * further loop pass throws again. Edits add no line breaks: line numbers of errors stay the cell's.
@@ -34,22 +34,33 @@ export class CellInterrupted extends Error {
   }
 }
 
-/** The flag shared with the control thread: 0 = run on, 1 = interrupt requested. */
-export const interruptFlag = new SharedArrayBuffer(4);
-const flag = new Int32Array(interruptFlag);
+/**
+ * Shared with the control thread: [0] the flag (0 = run on, 1 = interrupt requested), [1] a pass
+ * counter. A point reads the flag (an atomic load, the only read another thread's store is sure to
+ * reach) on every CHECK_EVERY-th pass only: a load on every pass made the tightest loops about six
+ * times slower, this about two. So that a loop with slow passes (each calling into a library,
+ * say) need not make that many passes first, raising the interrupt also sets the counter to one
+ * short of a check, and the control thread raises it again every 150 ms while the cell runs.
+ */
+export const interruptFlag = new SharedArrayBuffer(8);
+const shared = new Int32Array(interruptFlag);
+/** Passes between two reads of the flag (a power of two). */
+const CHECK_EVERY = 256;
 
-/** Sets the flag of a shared buffer (called on the control thread, which gets the buffer by message). */
+/** Raises the flag of a shared buffer (called on the control thread, which gets the buffer by message). */
 export function raiseInterrupt(buffer: SharedArrayBuffer): void {
-  Atomics.store(new Int32Array(buffer), 0, 1);
+  const view = new Int32Array(buffer);
+  Atomics.store(view, 0, 1);
+  Atomics.store(view, 1, CHECK_EVERY - 1);
 }
 
 /** Clears the flag; called when a cell starts, so an old interrupt does not hit the new cell. */
 export function clearInterrupt(): void {
-  Atomics.store(flag, 0, 0);
+  Atomics.store(shared, 0, 0);
 }
 
 export function interruptRequested(): boolean {
-  return Atomics.load(flag, 0) !== 0;
+  return Atomics.load(shared, 0) !== 0;
 }
 
 /** Defines the global the points call (non-enumerable, not writable: a cell cannot replace it). */
@@ -57,7 +68,9 @@ export function installInterruptPoint(): void {
   if (Object.prototype.hasOwnProperty.call(globalThis, INTERRUPT_POINT)) return;
   Object.defineProperty(globalThis, INTERRUPT_POINT, {
     value: function interruptPoint(): void {
-      if (Atomics.load(flag, 0) !== 0) throw new CellInterrupted();
+      // The counter wraps around harmlessly; its increment races only with raiseInterrupt's store,
+      // which the control thread repeats.
+      if ((++shared[1] & (CHECK_EVERY - 1)) === 0 && Atomics.load(shared, 0) !== 0) throw new CellInterrupted();
     },
     enumerable: false,
     writable: false,
