@@ -54,9 +54,6 @@ export function plainBundle(value: unknown): MimeBundle {
 export function createHandlers(parts: KernelParts): { table: HandlerTable; aborted: Handler } {
   const { history } = parts;
   let executionCount = 0;
-  // Starts building the TypeScript language service on its own thread now, at kernel start, so
-  // completion and inspection come from it seconds sooner (completion-service.ts).
-  languageService();
 
   const render = async (session: CellSession, value: unknown): Promise<MimeBundle> =>
     (await session.render(value)) ?? plainBundle(value);
@@ -95,7 +92,13 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       await ctx.reply("kernel_info_reply", kernelInfo());
       // Clients ask this first, to know the kernel is up; the TypeScript program is built after
       // the answer (shortly after, see kernel.ts), so the notebook shows the kernel ready sooner.
-      ctx.afterIdle(() => parts.warm());
+      ctx.afterIdle(() => {
+        // The TypeScript language service starts building on its own thread right after the
+        // first answer (completion-service.ts), so completion and inspection come from it seconds
+        // sooner; a request that needs it before starts it too.
+        languageService();
+        parts.warm();
+      });
     },
 
     async execute_request(msg, ctx) {
