@@ -3,10 +3,10 @@
  * converts cells for the main thread, and answers completion and inspection.
  *
  * Building the service takes seconds of synchronous work (the compiler program over the standard
- * library and the `hush` declarations). On the main thread that blocked every request at start,
- * completion included (12.6 s to a first completion in the browser). Here it is built on its own
- * thread as soon as the kernel starts, while the main thread stays free to answer requests (from
- * the quick path in completion-quick.ts until this thread reports ready).
+ * library and `@types/node`). On the main thread that blocked every request at start, completion
+ * included (12.6 s to a first completion in the browser). Here it is built on its own thread,
+ * started right after the kernel's first kernel_info answer, while the main thread stays free to
+ * answer requests (from the quick path in completion-quick.ts until this thread reports ready).
  *
  * Requests come in order on the worker port. `convert` and `addModule` are synchronous for the
  * main thread (tslab's executor calls its converter synchronously): their answers go to a separate
