@@ -8,14 +8,14 @@ import { describe, expect, test } from "vitest";
 import { Aggregates } from "../../runtime/api/aggregates.js";
 import { Answer } from "../../runtime/api/answer.js";
 import { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
-import { hushDeclarations } from "../../runtime/api/declarations.js";
+import { ensureDeclarations } from "../../kernel/api-declarations.js";
 import { Column, Filter } from "../../runtime/api/expr.js";
 import { Hush } from "../../runtime/api/hush.js";
 import { CostQuote } from "../../runtime/api/quote.js";
 import { SealedTable } from "../../runtime/api/table.js";
 
-/** The generated text the kernel injects (dist/, written by `npm run build`). */
-const HUSH_DECLARATIONS = hushDeclarations();
+/** The generated text the kernel injects (dist/, written by `npm run build`, made again if stale). */
+const HUSH_DECLARATIONS = ensureDeclarations();
 
 /** Type errors of a cell's code checked against the declaration (strict, ES2022, top-level await as in a module). */
 function diagnostics(cell: string): string[] {

@@ -35,6 +35,8 @@ function emitDeclarations(): Map<string, string> {
 let emitted: Map<string, string>;
 beforeAll(() => {
   emitted = emitDeclarations();
+  // What the kernel does before injecting: (re)generate from dist/ if missing or stale.
+  ensureDeclarations();
 }, 120_000);
 
 describe("generated hush declarations", () => {
