@@ -104,7 +104,7 @@ export async function benchCompletion(opts: { quick?: boolean } = {}): Promise<{
     ),
     "",
     `The first reply came from the quick path (live values) in ${quickCount} of ${runs} runs, from the ` +
-      "language service otherwise. The service is built on its own thread from kernel start; until it " +
+      "language service otherwise. The service is built on its own thread from the first kernel_info answer; until it " +
       "is ready the main thread answers completion from live values, so the first answer waits only " +
       "for the cell API to load, not for the service.",
   ].join("\n");
