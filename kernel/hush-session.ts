@@ -87,7 +87,7 @@ export class HushSession {
   /**
    * Declarations of `hush` and its types, for the kernel's language service: generated from the
    * compiler's output of runtime/api (kernel/api-declarations.ts), made again here when a build by
-   * `tsc` alone left them missing or older than that output.
+   * `tsc` alone left them missing or made from other output.
    */
   typeDeclarations(): string {
     return ensureDeclarations();
