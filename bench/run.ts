@@ -1,5 +1,5 @@
 /**
- * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,memory] [-- --out FILE]`
+ * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,completion,memory] [-- --out FILE]`
  *
  * Runs each bench section and writes a markdown report: machine facts, date, and per figure the
  * median and min–max over repeated runs, as a ratio to a baseline measured in the same run. A full
@@ -37,7 +37,7 @@ function parseArgs(argv: string[]): Options {
     else if (a.startsWith("--only=")) only = new Set(a.slice(7).split(",").filter(Boolean));
     else if (a === "--out") out = argv[++i] ?? null;
     else if (a.startsWith("--out=")) out = a.slice(6);
-    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,flood,memory] [--out FILE]`);
+    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,memory] [--out FILE]`);
   }
   const root = repoRoot();
   return {

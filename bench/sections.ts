@@ -2,6 +2,7 @@
  * Bench sections that come from other parts of the project (exact samplers, kernel), listed in
  * the order the report shows them, between the aggregates and the memory section.
  */
+import { benchCompletion } from "./completion.js";
 import { benchKernel } from "./kernel.js";
 import { benchKernelDp } from "./kernel-dp.js";
 import { benchSamplers } from "./samplers.js";
@@ -28,6 +29,11 @@ export const SECTIONS_EXTRA: ExtraSection[] = [
     name: "kernel",
     title: "Kernel overhead",
     run: async ({ quick }) => (await benchKernel({ quick })).markdown,
+  },
+  {
+    name: "completion",
+    title: "First completion after kernel start",
+    run: async ({ quick }) => (await benchCompletion({ quick })).markdown,
   },
   {
     name: "kernel-dp",

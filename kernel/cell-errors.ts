@@ -14,6 +14,7 @@ import { createRequire } from "node:module";
 import { inspect } from "node:util";
 import type * as TS from "typescript";
 import { REFUSAL_KINDS, type RefusalView, refusalBundle } from "./display/refusal.js";
+import { INTERRUPTED_MESSAGE } from "./interrupt-points.js";
 
 const require = createRequire(import.meta.url);
 
@@ -154,7 +155,7 @@ export function cellFrames(stack: string): CellFrame[] {
   return frames;
 }
 
-const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`"];
+const INTERRUPT_MESSAGES = ["Interrupted asynchronously", "Script execution was interrupted by `SIGINT`", INTERRUPTED_MESSAGE];
 const HUSH_KINDS = new Set(["bad-input", "policy", "over-cap", "unauthorized", "unknown-dataset", "protocol", "unreachable", "busy", "internal"]);
 
 function hushKind(e: Error): string | null {

@@ -6,7 +6,8 @@
  * Every correctly signed control message is forwarded to the main thread, which dispatches it on
  * the one dispatch path. An `interrupt_request` additionally raises SIGINT on this process first:
  * a synchronous cell runs under `vm` with `breakOnSigint`, so the signal stops it; an awaiting cell
- * is stopped by the main thread's SIGINT listener. Badly signed messages are dropped here.
+ * is stopped by the main thread's SIGINT listener, and its loops by the shared interrupt flag this
+ * thread raises (interrupt-points.ts). Badly signed messages are dropped here.
  *
  * The main thread reports each cell's start and end (it can post while a cell blocks it later),
  * so SIGINT is raised only while a cell runs, and raised again until that cell ends: a signal
@@ -18,6 +19,7 @@ import * as zmq from "zeromq";
 import { endpoint, type ConnectionInfo } from "./connection.js";
 import { DELIMITER, Signer } from "./wire.js";
 import { isHushError } from "../runtime/errors.js";
+import { raiseInterrupt } from "./interrupt-points.js";
 
 export type ToMain =
   | { type: "ready" }
@@ -26,6 +28,8 @@ export type ToMain =
 export type ToControl =
   | { type: "send"; frames: Uint8Array[] }
   | { type: "cell"; running: boolean }
+  /** The interrupt flag shared with the main thread (interrupt-points.ts), sent once at start. */
+  | { type: "flag"; buffer: SharedArrayBuffer }
   | { type: "close" };
 
 /** Interval between repeated SIGINTs while the interrupted cell still runs, and their number. */
@@ -52,17 +56,27 @@ async function main(): Promise<void> {
   let sending: Promise<void> = Promise.resolve();
   let cell = 0; // increases when a cell starts
   let running = false;
+  let flag: SharedArrayBuffer | null = null;
   const interrupt = (): void => {
     if (!running) return;
     const target = cell;
+    // Stops cell loops running after an `await`, even while they block the main thread.
+    if (flag) raiseInterrupt(flag);
     process.kill(process.pid, "SIGINT");
     let repeats = 0;
     const timer = setInterval(() => {
       if (!running || cell !== target || ++repeats > REPEAT_MAX) clearInterval(timer);
-      else process.kill(process.pid, "SIGINT");
+      else {
+        if (flag) raiseInterrupt(flag);
+        process.kill(process.pid, "SIGINT");
+      }
     }, REPEAT_MS);
   };
   port.on("message", (m: ToControl) => {
+    if (m.type === "flag") {
+      flag = m.buffer;
+      return;
+    }
     if (m.type === "cell") {
       if (m.running) cell += 1;
       running = m.running;

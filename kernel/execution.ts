@@ -1,13 +1,14 @@
 /**
- * The language hook: runs TypeScript cells with tslab's in-process executor and converter
- * (pinned tslab 1.0.22), and answers completion, inspection and is-complete from the TypeScript
- * language service. Knows nothing about the wire protocol.
+ * The language hook: runs TypeScript cells with tslab's in-process executor (pinned tslab 1.0.22)
+ * and its converter, which runs on the language service's thread (completion-service.ts); answers
+ * completion, inspection and is-complete. Knows nothing about the wire protocol.
  *
  * Interruption: a synchronous cell runs under `vm.runInThisContext({ breakOnSigint: true })`
  * inside tslab, so a SIGINT stops it; a cell awaiting at top level is raced against tslab's
  * interrupt promise, so `interrupt()` stops waiting for it. Work the interrupted async cell had
  * already scheduled (timers, pending promises) keeps running in the background: a promise cannot
- * be cancelled from outside.
+ * be cancelled from outside. Code after an `await` is stopped at interrupt points the converter
+ * adds to every loop of the cell (interrupt-points.ts).
  */
 import { createRequire } from "node:module";
 import vm from "node:vm";
@@ -16,6 +17,9 @@ import type * as TsConverter from "tslab/dist/converter.js";
 import { runAsCell } from "../runtime/api/asking-cell.js";
 import { type CellError, diagnosticText, readableError, registerCell } from "./cell-errors.js";
 import { hasTopLevelAwait } from "./top-level-await.js";
+import { languageService } from "./completion-service.js";
+import { lookupPath, quickComplete, type Completion } from "./completion-quick.js";
+import { clearInterrupt, installInterruptPoint, withInterruptPoints } from "./interrupt-points.js";
 
 export type { CellError } from "./cell-errors.js";
 
@@ -44,9 +48,7 @@ interface Ts {
 }
 interface Tslab {
   createExecutor: typeof TsExecutor.createExecutor;
-  createConverter: typeof TsConverter.createConverter;
   isCompleteCode: typeof TsConverter.isCompleteCode;
-  printQuickInfo(info: unknown): string;
   ts: Ts;
 }
 
@@ -56,9 +58,7 @@ let loaded: Tslab | null = null;
 function tslab(): Tslab {
   loaded ??= {
     createExecutor: (require("tslab/dist/executor") as typeof TsExecutor).createExecutor,
-    createConverter: (require("tslab/dist/converter") as typeof TsConverter).createConverter,
     isCompleteCode: (require("tslab/dist/converter") as typeof TsConverter).isCompleteCode,
-    printQuickInfo: (require("tslab/dist/inspect") as { printQuickInfo(info: unknown): string }).printQuickInfo,
     ts: require("@tslab/typescript-for-tslab") as Ts,
   };
   return loaded;
@@ -72,9 +72,20 @@ export type RunOutcome = { status: "ok"; hasValue: boolean; value?: unknown } | 
 export interface Execution {
   /** Runs a cell; `count` is its execution count, used to name it in errors (null when not counted). */
   run(code: string, count?: number | null): Promise<RunOutcome>;
-  complete(code: string, cursor: number): { matches: string[]; cursor_start: number; cursor_end: number };
-  /** Plain-text quick info at the cursor, or null when nothing is there. */
-  inspect(code: string, cursor: number): string | null;
+  /**
+   * Completion from the language service; from the quick path (completion-quick.ts) while the
+   * service is still being built. `source` says which answered.
+   */
+  complete(code: string, cursor: number): Promise<Completion & { source: "types" | "quick" }>;
+  /**
+   * Plain-text quick info at the cursor (inside a call's parentheses: the called function's
+   * signature and doc), or null when nothing is there or the service is not built yet.
+   */
+  inspect(code: string, cursor: number): Promise<string | null>;
+  /** A value named by a dotted path in the cells' scope (own data properties only; no getter runs). */
+  lookup(path: string[]): unknown;
+  /** The values of the cells' own variables (data properties only; at most `max`). */
+  cellValues(max: number): unknown[];
   isComplete(code: string): { status: "complete" | "incomplete" | "invalid"; indent?: string };
   interrupt(): void;
   /** Forgets every variable and declaration of earlier cells. */
@@ -92,8 +103,9 @@ export interface ExecutionOptions {
 }
 
 export function createExecution(opts: ExecutionOptions): Execution {
-  const { createConverter, createExecutor, printQuickInfo } = tslab();
-  const node = createConverter({ isJS: false, isBrowser: false });
+  const { createExecutor } = tslab();
+  // The converter lives on the language service's own thread in the kernel (completion-service.ts).
+  const node = languageService();
   const globalBlock = asGlobalBlock(opts.declarations);
   let runningCount: number | null = null;
   // Declarations of earlier cells arrive as `prevDecl`; the globals ride in front of them inside a
@@ -106,13 +118,36 @@ export function createExecution(opts: ExecutionOptions): Execution {
       if (converted.output && !converted.hasToplevelAwait && hasTopLevelAwait(converted.output)) {
         converted.hasToplevelAwait = true;
       }
-      if (converted.output) nextFileName = registerCell(src, converted.output, runningCount);
+      if (converted.output) {
+        // Lines are mapped on the converter's output; interrupt points keep every line where it is.
+        nextFileName = registerCell(src, converted.output, runningCount);
+        converted.output = withInterruptPoints(converted.output);
+      }
       return converted;
     },
-    inspect: (prev, src, pos) => node.inspect(globalBlock + prev, src, pos),
-    complete: (prev, src, pos) => node.complete(globalBlock + prev, src, pos),
+    // tslab's executor calls these with the declarations of earlier cells; they only note them,
+    // and `complete`/`inspect` below ask the service asynchronously with what was noted.
+    inspect: (prev) => {
+      notedPrev = prev;
+      return undefined as unknown as ReturnType<TsConverter.Converter["inspect"]>;
+    },
+    complete: (prev) => {
+      notedPrev = prev;
+      return { start: 0, end: 0, candidates: [] };
+    },
     addModule: (name, content, meta) => node.addModule(name, content, meta),
     close: () => node.close(),
+  };
+  let notedPrev = "";
+  /** The declarations of earlier cells, as tslab's executor holds them now. */
+  const earlierDeclarations = (code: string): string => {
+    notedPrev = "";
+    try {
+      executor.complete(code, 0);
+    } catch {
+      // A `//%browser` cell: tslab asks for the browser converter, which hush does not have.
+    }
+    return globalBlock + notedPrev;
   };
   const convs: TsExecutor.ConverterSet = {
     node: withGlobals,
@@ -141,6 +176,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
     }
   };
   installGlobals();
+  installInterruptPoint();
 
   // tslab rewrites uses of earlier cells' names to `exports.<name>` but misses shorthand
   // properties (`{ total }` stays a bare `total`). Bare names resolve on the global object, so
@@ -166,6 +202,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
       result = null;
       failures = [];
       runningCount = count;
+      clearInterrupt();
       // Asks made by this code (now or later, from work it started) carry its source digest.
       let ok: boolean;
       try {
@@ -178,15 +215,24 @@ export function createExecution(opts: ExecutionOptions): Execution {
       const r = result as { value: unknown } | null;
       return r ? { status: "ok", hasValue: true, value: r.value } : { status: "ok", hasValue: false };
     },
-    complete(code, cursor) {
-      const info = executor.complete(code, cursor);
-      return { matches: info.candidates, cursor_start: info.start, cursor_end: info.end };
+    async complete(code, cursor) {
+      const info = await node.complete(earlierDeclarations(code), code, cursor);
+      if (info) return { matches: info.candidates, cursor_start: info.start, cursor_end: info.end, source: "types" };
+      const quick = quickComplete(code, cursor, [executor.locals, globalThis]);
+      return { ...(quick ?? { matches: [], cursor_start: cursor, cursor_end: cursor }), source: "quick" };
     },
     inspect(code, cursor) {
-      const info = executor.inspect(code, cursor);
-      if (!info) return null;
-      const text = printQuickInfo(info);
-      return text === "" ? null : text;
+      return node.inspect(earlierDeclarations(code), code, cursor);
+    },
+    lookup: (path) => lookupPath([executor.locals, globalThis], path),
+    cellValues(max) {
+      const out: unknown[] = [];
+      for (const name of Object.keys(executor.locals)) {
+        if (out.length >= max) break;
+        const d = Object.getOwnPropertyDescriptor(executor.locals, name);
+        if (d && "value" in d) out.push(d.value);
+      }
+      return out;
     },
     isComplete,
     interrupt: () => executor.interrupt(),

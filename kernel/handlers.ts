@@ -5,6 +5,8 @@
  */
 import { inspect } from "node:util";
 import type { HandlerContext, Handler, HandlerTable } from "./dispatch.js";
+import { filterNames, stringArgumentAt, type Completion } from "./completion-quick.js";
+import { languageService } from "./completion-service.js";
 import { isComplete, type Execution, type CellError } from "./execution.js";
 import type { History } from "./history.js";
 import { kernelInfo } from "./kernel-info.js";
@@ -90,7 +92,13 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       await ctx.reply("kernel_info_reply", kernelInfo());
       // Clients ask this first, to know the kernel is up; the TypeScript program is built after
       // the answer (shortly after, see kernel.ts), so the notebook shows the kernel ready sooner.
-      ctx.afterIdle(() => parts.warm());
+      ctx.afterIdle(() => {
+        // The TypeScript language service starts building on its own thread right after the
+        // first answer (completion-service.ts), so completion and inspection come from it seconds
+        // sooner; a request that needs it before starts it too.
+        languageService();
+        parts.warm();
+      });
     },
 
     async execute_request(msg, ctx) {
@@ -147,21 +155,23 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
 
     async complete_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
-      const { execution } = await parts.engine();
-      const r = execution.complete(code, cursor_pos);
+      const engine = await parts.engine();
+      const r = (await namesInString(engine, code, cursor_pos)) ?? (await engine.execution.complete(code, cursor_pos));
       await ctx.reply("complete_reply", {
         status: "ok",
         matches: r.matches,
         cursor_start: toCodePoints(code, r.cursor_start),
         cursor_end: toCodePoints(code, r.cursor_end),
-        metadata: {},
+        // Which path answered: "names" (public schema), "types" (language service), "quick" (live
+        // values, while the language service is still being built).
+        metadata: { hush: { source: r.source } },
       });
     },
 
     async inspect_request(msg, ctx) {
       const { code, cursor_pos } = textAndCursor(msg);
       const { execution } = await parts.engine();
-      const text = execution.inspect(code, cursor_pos);
+      const text = await execution.inspect(code, cursor_pos);
       await ctx.reply("inspect_reply", {
         status: "ok",
         found: text !== null,
@@ -238,6 +248,43 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
   };
 
   return { table, aborted };
+}
+
+/** Cell variables looked at for `hush.col("…` (each costs one check). */
+const MAX_CELL_VALUES = 1000;
+
+/**
+ * Completion inside a string argument of a call on a name (`hush.open("vi`, `visits.mean("ag`):
+ * dataset or column names from the cell API (public schema only); null when the cursor is not in
+ * such a string or the API has no names for that call.
+ */
+async function namesInString(
+  { execution, session }: Engine,
+  code: string,
+  cursor: number,
+): Promise<(Completion & { source: "names" }) | null> {
+  if (!session.publicNames) return null;
+  const at = stringArgumentAt(code, cursor);
+  if (at === null) return null;
+  let names: string[] | null = null;
+  try {
+    // The receiver, else the nearest value along its path that has names: `visits.preview.mean("…`
+    // (preview is a getter, which completion never runs) completes with the columns of `visits`.
+    for (let n = at.receiver.length; n > 0 && names === null; n--) {
+      const value = execution.lookup(at.receiver.slice(0, n));
+      if (value !== undefined) names = await session.publicNames(value, at.method);
+    }
+    // `hush.col("…`: a column of any dataset handle the cells hold.
+    if (names === null && at.receiver.length === 1 && at.receiver[0] === "hush" && at.method === "col") {
+      const all = new Set<string>();
+      for (const v of execution.cellValues(MAX_CELL_VALUES)) for (const n of (await session.publicNames(v, "col")) ?? []) all.add(n);
+      names = [...all];
+    }
+  } catch {
+    return null;
+  }
+  if (names === null) return null;
+  return { matches: filterNames(names, at.prefix), cursor_start: at.start, cursor_end: cursor, source: "names" };
 }
 
 function executeContent(msg: Message): ExecuteContent {

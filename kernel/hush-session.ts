@@ -9,10 +9,11 @@ import type { ConnectDeps } from "../runtime/api/connection.js";
 import { Connector } from "../runtime/api/connection.js";
 import { resolveConfig } from "../runtime/api/config.js";
 import type { ApiContext } from "../runtime/api/context.js";
-import { HUSH_DECLARATIONS } from "../runtime/api/declarations.js";
+import { ensureDeclarations } from "./api-declarations.js";
 import { Hush } from "../runtime/api/hush.js";
 import { SessionSpend } from "../runtime/api/session-spend.js";
 import { Rational } from "../runtime/core/index.js";
+import { SealedTable } from "../runtime/api/table.js";
 import { lossBundle, noticeBundle, renderValue } from "./display/bundle.js";
 import type { LossLine } from "./display/views.js";
 
@@ -24,6 +25,9 @@ export interface MimeBundle {
 export interface CellHost {
   display(bundle: MimeBundle, opts?: { displayId?: string; update?: boolean }): void;
 }
+
+/** Longest wait for the catalogue when completing a dataset name. */
+const CATALOGUE_WAIT_MS = 1000;
 
 export class HushSession {
   /** Exposed as the global `hush` in cells. */
@@ -82,9 +86,38 @@ export class HushSession {
     return lines.length ? lossBundle(lines) : null;
   }
 
-  /** Declarations of `hush` and its types, for completion in the kernel's language service. */
+  /**
+   * Declarations of `hush` and its types, for the kernel's language service: generated from the
+   * compiler's output of runtime/api (kernel/api-declarations.ts), made again here when a build by
+   * `tsc` alone left them missing or made from other output.
+   */
   typeDeclarations(): string {
-    return HUSH_DECLARATIONS;
+    return ensureDeclarations();
+  }
+
+  /**
+   * Names for completion in a string argument (kernel/completion-quick.ts): on `hush`, the datasets
+   * (opened in this session, and the curator's catalogue once connected: completion never starts a
+   * curator); on a dataset handle, its columns. Public schema only, never data.
+   */
+  async publicNames(receiver: unknown, method: string): Promise<string[] | null> {
+    if (receiver instanceof SealedTable) return receiver.columns.map((c) => c.name);
+    if (receiver !== this.api || !["open", "budget", "ledger"].includes(method)) return null;
+    const names = new Set(this.#spend.datasets());
+    const pending = this.#connector.established();
+    if (pending) {
+      let timer: NodeJS.Timeout | undefined;
+      const late = new Promise<null>((r) => (timer = setTimeout(() => r(null), CATALOGUE_WAIT_MS)));
+      try {
+        const listed = await Promise.race([pending.then((c) => c.port.catalogue()), late]);
+        for (const d of listed?.datasets ?? []) names.add(d.name);
+      } catch {
+        // No catalogue (connection failed or refused): the names opened here still complete.
+      } finally {
+        clearTimeout(timer);
+      }
+    }
+    return [...names];
   }
 
   /** Closes the curator connection and stops an embedded curator. */

@@ -11,6 +11,21 @@ const pkg = (pkgUrl ? JSON.parse(readFileSync(pkgUrl, "utf8")) : { version: "0.0
 
 export const KERNEL_VERSION = pkg.version;
 
+/**
+ * Help menu entries (spec "Kernel info": help_links). They point at this install's own copy of the
+ * documents, as file: URLs (the project has no hosted site; a clone moved elsewhere is found again
+ * after `hush install`). The classic notebook and JupyterLab open them in a new tab; a browser may
+ * refuse file: links from a page served over http, in which case the path in the URL is the file.
+ */
+export function helpLinks(root: URL | undefined = pkgUrl ? new URL(".", pkgUrl) : undefined): Array<{ text: string; url: string }> {
+  if (!root) return [];
+  const links = [
+    { text: "hush: getting started (README)", file: "README.md" },
+    { text: "hush: methods, privacy loss and error bars", file: "docs/methods.md" },
+  ];
+  return links.filter((l) => existsSync(new URL(l.file, root))).map((l) => ({ text: l.text, url: new URL(l.file, root).href }));
+}
+
 export function kernelInfo(): JsonObject {
   return {
     status: "ok",
@@ -30,6 +45,6 @@ export function kernelInfo(): JsonObject {
       `hush ${KERNEL_VERSION}: TypeScript cells over sealed datasets; every released aggregate carries ` +
       `noise, an error bar and the running privacy loss (TypeScript ${TYPESCRIPT_VERSION}, Node ${process.versions.node})`,
     debugger: false,
-    help_links: [],
+    help_links: helpLinks(),
   };
 }

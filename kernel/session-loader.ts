@@ -23,6 +23,12 @@ export interface CellSession {
   render(value: unknown): Promise<MimeBundle | null>;
   afterCell(): Promise<MimeBundle | null>;
   typeDeclarations(): string;
+  /**
+   * Names for completion inside a string argument of `receiver.method("…")`: dataset names on the
+   * `hush` object, column names on a dataset handle (public schema only); null when none apply.
+   * Optional: a session without it gets no name completion in strings.
+   */
+  publicNames?(receiver: unknown, method: string): Promise<string[] | null>;
   close(): Promise<void>;
 }
 

@@ -11,6 +11,7 @@ import { endpoint, type ConnectionInfo } from "./connection.js";
 import type { ToControl, ToMain } from "./control-thread.js";
 import { UnreachableError } from "../runtime/errors.js";
 import { errorText, kernelLog } from "./log.js";
+import { interruptFlag } from "./interrupt-points.js";
 
 export type ReplyChannel = "shell" | "control" | "stdin";
 
@@ -69,6 +70,7 @@ export async function openSockets(info: ConnectionInfo): Promise<KernelSockets> 
     worker.once("error", reject);
   });
   worker.unref();
+  worker.postMessage({ type: "flag", buffer: interruptFlag } satisfies ToControl);
 
   const queues = {
     shell: new SendQueue((f) => shell.send(f)),

@@ -105,6 +105,11 @@ export class Connector {
     return this.#pending;
   }
 
+  /** The connection if one was made or is being made; null otherwise (never starts one). */
+  established(): Promise<Connection> | null {
+    return this.#closed ? null : this.#pending;
+  }
+
   async #connect(): Promise<Connection> {
     const cfg = this.#config();
     if (cfg.mode === "remote") {

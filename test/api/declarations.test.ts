@@ -8,11 +8,14 @@ import { describe, expect, test } from "vitest";
 import { Aggregates } from "../../runtime/api/aggregates.js";
 import { Answer } from "../../runtime/api/answer.js";
 import { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
-import { HUSH_DECLARATIONS } from "../../runtime/api/declarations.js";
+import { ensureDeclarations } from "../../kernel/api-declarations.js";
 import { Column, Filter } from "../../runtime/api/expr.js";
 import { Hush } from "../../runtime/api/hush.js";
 import { CostQuote } from "../../runtime/api/quote.js";
 import { SealedTable } from "../../runtime/api/table.js";
+
+/** The generated text the kernel injects (dist/, written by `npm run build`, made again if stale). */
+const HUSH_DECLARATIONS = ensureDeclarations();
 
 /** Type errors of a cell's code checked against the declaration (strict, ES2022, top-level await as in a module). */
 function diagnostics(cell: string): string[] {
@@ -60,9 +63,9 @@ describe("hush declarations", () => {
     expect(diagnostics(`const v = await hush.open("visits"); await v.histogram("age", { epsilon: 1 });`).join()).toMatch(/bins/);
   });
 
-  /** The text of `interface Name ... { ... }` in the declaration. */
+  /** The text of `interface Name ... { ... }` (or `class Name`) in the declaration. */
   function interfaceBody(name: string): string {
-    const start = HUSH_DECLARATIONS.search(new RegExp(`interface ${name}\\b[^{]*\\{`));
+    const start = HUSH_DECLARATIONS.search(new RegExp(`(?:interface|class) ${name}\\b[^{]*\\{`));
     expect(start, `interface ${name} is declared`).toBeGreaterThanOrEqual(0);
     let depth = 0;
     for (let i = HUSH_DECLARATIONS.indexOf("{", start); i < HUSH_DECLARATIONS.length; i++) {

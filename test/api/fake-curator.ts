@@ -64,7 +64,7 @@ export class FakeCurator implements CuratorPort {
   readonly previewed: QueryPlan[] = [];
   readonly calls: string[] = [];
   closed = false;
-  private readonly accounts = new Map<string, Account>([
+  private readonly accountsByName = new Map<string, Account>([
     ["clinic", { mode: "pure", cap: Rational.parse("1"), spent: Rational.ZERO, releases: 0 }],
     ["clinic_z", { mode: "zcdp", cap: Rational.parse("1/20"), spent: Rational.ZERO, releases: 0 }],
   ]);
@@ -74,7 +74,7 @@ export class FakeCurator implements CuratorPort {
   constructor(readonly analyst = "ada") {}
 
   private account(name: string): Account {
-    const a = this.accounts.get(name);
+    const a = this.accountsByName.get(name);
     if (!a) throw new UnknownDatasetError(`unknown dataset ${JSON.stringify(name)}`);
     return a;
   }
@@ -146,7 +146,7 @@ export class FakeCurator implements CuratorPort {
 
   async catalogue(): Promise<{ datasets: { name: string; description: string }[]; publicKey: string }> {
     this.calls.push("catalogue");
-    return { datasets: [...this.accounts.keys()].map((name) => ({ name, description: `invented ${name}` })), publicKey: "fake" };
+    return { datasets: [...this.accountsByName.keys()].map((name) => ({ name, description: `invented ${name}` })), publicKey: "fake" };
   }
 
   async open(dataset: string): Promise<DatasetInfo> {

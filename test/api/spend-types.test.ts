@@ -9,14 +9,14 @@
 import ts from "typescript";
 import { join, resolve } from "node:path";
 import { describe, expect, test } from "vitest";
-import { HUSH_DECLARATIONS } from "../../runtime/api/declarations.js";
+import { hushDeclarations } from "../../runtime/api/declarations.js";
 import { exactPositive, privacyAsk } from "../../runtime/api/privacy.js";
 
 const ROOT = resolve(import.meta.dirname, "../..");
 
 /** Type errors of a cell against the declaration given to the kernel's language service. */
 function cellErrors(cell: string): string[] {
-  const files: Record<string, string> = { "/hush.d.ts": HUSH_DECLARATIONS, "/cell.ts": `${cell}\nexport {};\n` };
+  const files: Record<string, string> = { "/hush.d.ts": hushDeclarations(), "/cell.ts": `${cell}\nexport {};\n` };
   const options: ts.CompilerOptions = { strict: true, target: ts.ScriptTarget.ES2022, module: ts.ModuleKind.ES2022, lib: ["lib.es2022.d.ts"], types: [], noEmit: true };
   const host = ts.createCompilerHost(options);
   const read = host.getSourceFile.bind(host);

@@ -1,3 +1,5 @@
+/// <reference lib="dom" />
+/// <reference lib="dom.iterable" />
 /**
  * Acceptance (issue 11, "checked in a real browser"): the demo notebook runs in the classic
  * notebook server (Debian `jupyter-notebook`, 6.x) on 127.0.0.1, a free port and a random token,

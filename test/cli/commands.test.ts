@@ -2,7 +2,7 @@
  * The `hush` command as a user runs it: the built dist/cli/main.js in a child process, real files,
  * a real curator. Exit codes are part of the contract (cli/main.ts).
  */
-import { spawn, spawnSync } from "node:child_process";
+import { spawn, spawnSync, type StdioOptions } from "node:child_process";
 import { existsSync, mkdtempSync, readFileSync, rmSync, statSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join, resolve } from "node:path";
@@ -13,13 +13,16 @@ import { CuratorClient } from "../../runtime/client/client.js";
 import { verifyToken } from "../../runtime/curator/tokens.js";
 import { loadPublicKey } from "../../runtime/protocol/receipts.js";
 
+/** Standard input closed, output captured (a mutable array: StdioOptions does not take a readonly tuple). */
+const NO_STDIN: StdioOptions = ["ignore", "pipe", "pipe"];
+
 const CLI = resolve(import.meta.dirname, "../../dist/cli/main.js");
 
 function cli(args: string[], input?: string) {
   const r = spawnSync(process.execPath, [CLI, ...args], {
     encoding: "utf8",
     timeout: 120_000,
-    ...(input === undefined ? { stdio: ["ignore", "pipe", "pipe"] as const } : { input }),
+    ...(input === undefined ? { stdio: NO_STDIN } : { input }),
   });
   return { code: r.status, stdout: r.stdout, stderr: r.stderr };
 }

@@ -71,3 +71,43 @@ it("answers interrupt_request when nothing runs, and keeps working", async () =>
   await k.interrupt();
   expect((await k.execute("21 * 2")).outputs[0]).toMatchObject({ data: { "text/plain": "42" } });
 });
+
+it("interrupts a busy loop that runs after an await, then answers the next cell", async () => {
+  const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
+  // After the await the loop runs as a promise continuation, outside tslab's vm call, so a SIGINT
+  // alone cannot stop it; the interrupt point in the loop body does.
+  const exec = k.execute(
+    `import { writeFileSync } from "fs";\nawait new Promise((r) => setTimeout(r, 5));\nwriteFileSync(${JSON.stringify(marker)}, "x");\nlet spins = 0;\nwhile (true) { spins++; }`,
+  );
+  await fileAppears(marker);
+  await k.interrupt();
+  const r = await exec;
+  expect(r.reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  const after = await k.execute("'answers after an interrupted async loop'");
+  expect(after.outputs[0]).toMatchObject({ data: { "text/plain": "'answers after an interrupted async loop'" } });
+});
+
+it("an interrupt point is not swallowed by a try inside the loop", async () => {
+  const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
+  const exec = k.execute(
+    `import { writeFileSync } from "fs";\nawait Promise.resolve();\nwriteFileSync(${JSON.stringify(marker)}, "x");\nfor (;;) { try { for (;;) {} } catch { /* swallowed */ } }`,
+  );
+  await fileAppears(marker);
+  await k.interrupt();
+  expect((await exec).reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  expect((await k.execute("1 + 1")).outputs[0]).toMatchObject({ data: { "text/plain": "2" } });
+});
+
+it("interrupts a loop with slow passes after an await without waiting for many passes", async () => {
+  const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
+  // Each pass blocks 200 ms in a library call (no cell loop inside it). The points read the flag
+  // on every 256th pass only; the interrupt also moves the pass counter to the next check, so
+  // this stops after about one pass rather than 256 (51 s, past this test's time limit).
+  const exec = k.execute(
+    `import { writeFileSync } from "fs";\nawait Promise.resolve();\nwriteFileSync(${JSON.stringify(marker)}, "x");\nconst cell = new Int32Array(new SharedArrayBuffer(4));\nfor (;;) Atomics.wait(cell, 0, 0, 200);`,
+  );
+  await fileAppears(marker);
+  await k.interrupt();
+  expect((await exec).reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  expect((await k.execute("'after slow passes'")).outputs[0]).toMatchObject({ data: { "text/plain": "'after slow passes'" } });
+}, 30_000);

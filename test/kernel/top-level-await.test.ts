@@ -55,7 +55,7 @@ describe("cells with top-level await", () => {
     expect((await ex.run("const tlaP = Promise.resolve({ q: async () => 3 }); const tlaX = await (await tlaP).q()")).status).toBe("ok");
     expect(value(await ex.run("tlaX * 2"))).toBe(6);
     // The language service typed it as number, so completion offers number methods.
-    expect(ex.complete("tlaX.toFi", 9).matches).toContain("toFixed");
+    expect((await ex.complete("tlaX.toFi", 9)).matches).toContain("toFixed");
   });
 
   it("runs for await, awaits in template literals and in call arguments", async () => {
