@@ -215,10 +215,14 @@ export function bundleDeclarations(files: ReadonlyMap<string, string>): string {
   return `${HEADER}declare namespace HushApi {\n${blocks.join("\n")}\n}\n\n${GLOBAL}`;
 }
 
-/** Private or protected class members: not part of what a cell can call. */
+/**
+ * Private or protected class members, and members under a computed key (`[INSPECT]()`: Node's
+ * inspect hook, which `console.log` calls, not a cell): not part of what a cell can call.
+ */
 function dropped(node: TS.Node): boolean {
   if (!ts.isClassElement(node) || ts.isConstructorDeclaration(node)) return false;
   if (node.name && ts.isPrivateIdentifier(node.name)) return false; // `#private;` keeps the class nominal
+  if (node.name && ts.isComputedPropertyName(node.name)) return true;
   const mods = ts.canHaveModifiers(node) ? (ts.getModifiers(node) ?? []) : [];
   return mods.some((m) => m.kind === ts.SyntaxKind.PrivateKeyword || m.kind === ts.SyntaxKind.ProtectedKeyword);
 }
