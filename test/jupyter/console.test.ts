@@ -48,7 +48,7 @@ it.skipIf(!python)("runs hush cells in jupyter console and prints their text vie
   expect(code, out).toBe(0);
   expect(out).toMatch(/privacy budget of rowan: your spend so far, from the curator's ledger/);
   expect(out).toMatch(/an error bar of ±25 \(95%\) costs ε 0\.939298; an accuracy-first ask needs an upper bound/);
-  expect(out).toMatch(/count = [\d,]+ ± \d+ \(95%\)/);
+  expect(out).toMatch(/count = [\d,]+ ± \d+ · cost ε=0\.05\n  at least 95% of such answers fall within ±\d+ of the true count/);
   // The bounded ask spends its price, 0.939298 on top of 0.05.
   expect(out).toMatch(/cost ε=0\.939298/);
   expect(out).toMatch(/Shutting down kernel/);
