@@ -92,7 +92,7 @@ export interface DataEngine {
    * are left out. Refuses (throws) without revealing any data value.
    */
   cells(req: CellsRequest): Promise<bigint[][]>;
-  /** Sorted [bucket, kept rows] pairs; rows with a missing value are left out. */
+  /** Sorted [bucket, kept rows] pairs; rows with a missing value are left out; a bucket with no kept rows may be 0 or absent. */
   buckets(req: BucketsRequest): Promise<[bigint, bigint][]>;
   close(): Promise<void>;
 }

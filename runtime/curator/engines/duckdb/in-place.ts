@@ -187,7 +187,7 @@ export async function openInPlace(
       );
       try {
         await conn.run(
-          `CREATE TEMP TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __r ` +
+          `CREATE TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __r ` +
             `FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k})) WHERE __r = ${k}`,
         );
       } catch (e) {

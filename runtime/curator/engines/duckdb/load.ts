@@ -204,8 +204,8 @@ export async function loadTable(
 
 /** The per-unit bounding of a loaded table (shapes.ts Bounding). */
 export const LOADED_BOUNDING = {
-  small: (k: string) => `__n <= ${k}`,
-  kept: (k: string) => `__rk <= ${k}`,
+  small: (k: () => string) => `__n <= ${k()}`,
+  kept: (k: () => string) => `__rk <= ${k()}`,
   order: "__rk",
   unit: "__u",
 };
