@@ -78,8 +78,6 @@ export interface LoadReport {
   /** Rows left out at load (0 in place: values that do not fit are missing at query time). */
   rejected: number;
   reasons: Record<string, number>;
-  /** How the data is reached, in words (e.g. "in memory", "Parquet in place, 12 files"). */
-  access: string;
 }
 
 export interface DataEngine {

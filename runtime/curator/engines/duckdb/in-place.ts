@@ -98,7 +98,7 @@ export async function openInPlace(
   index: number,
   where: string,
   bits: Bits,
-): Promise<{ relation: Relation; report: LoadReport; check: () => Promise<void> }> {
+): Promise<{ relation: Relation; report: LoadReport; access: string; check: () => Promise<void> }> {
   const schema = schemaOf(d);
   // The files, matched once (sorted, so the same files give the same positions).
   let files: string[];
@@ -164,13 +164,13 @@ export async function openInPlace(
   const big = quoteIdent(`big${index}`);
   const k = d.unit.maxRows;
   let report: LoadReport;
-  const access = `${o.format === "parquet" ? "Parquet" : "CSV"} in place, ${files.length} file${files.length === 1 ? "" : "s"}`;
+  let access = `${o.format === "parquet" ? "Parquet" : "CSV"} in place, ${files.length} file${files.length === 1 ? "" : "s"}`;
 
   if (unit === null) {
     await conn.run(
       `CREATE VIEW ${view} AS SELECT ${finals.join(", ")} FROM (SELECT ${lenient.join(", ")} FROM (SELECT ${staged.join(", ")} FROM ${source} AS src))`,
     );
-    report = { rows: null, rejected: 0, reasons: {}, access };
+    report = { rows: null, rejected: 0, reasons: {} };
   } else {
     const u = `src.${quoteIdent(srcName(unit))}`;
     for (let attempt = 0; ; attempt++) {
@@ -201,7 +201,8 @@ export async function openInPlace(
     const units = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${big}`)).getRows()[0][0]);
     const cols = [...d.columns.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`])), "__u", "__h"];
     await conn.run(`CREATE VIEW ${view} AS SELECT ${cols.map((c) => `s.${c}`).join(", ")}, b.__thr FROM ${srcView} AS s LEFT JOIN ${big} AS b USING (__u)`);
-    report = { rows: null, rejected: 0, reasons: {}, access: `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows` };
+    report = { rows: null, rejected: 0, reasons: {} };
+    access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows`;
   }
   if (o.format === "parquet") {
     // Row count from the files' metadata (no scan).
@@ -221,5 +222,5 @@ export async function openInPlace(
       throw new UnreachableError(`the data files of dataset ${d.name} changed after the curator started; nothing was spent (the steward must restart the curator)`);
     }
   };
-  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, check };
+  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check };
 }

@@ -199,7 +199,7 @@ export async function loadTable(
     await conn.run(`DROP TABLE ${quoteIdent(src.csv.rejects)}`);
     await conn.run(`DROP TABLE ${quoteIdent(src.csv.scans)}`);
   }
-  return { rows: Number(kept.getRows()[0][0]), rejected: total, reasons, access: "in memory" };
+  return { rows: Number(kept.getRows()[0][0]), rejected: total, reasons };
 }
 
 /** The per-unit bounding of a loaded table (shapes.ts Bounding). */

@@ -70,7 +70,7 @@ export async function attachPrepared(conn: DuckDBConnection, d: DatasetPolicy, o
   void index;
   return {
     from: `${alias}.hush.${quoteIdent(table ?? o.table)}`,
-    report: { rows: Number(nrows), rejected: Number(rejected), reasons: parsed, access: `prepared DuckDB file, read from disk` },
+    report: { rows: Number(nrows), rejected: Number(rejected), reasons: parsed },
   };
 }
 
@@ -112,7 +112,7 @@ export async function prepareDataset(policy: LoadedPolicy, d: DatasetPolicy, bit
         await stmt.run();
         stmt.destroySync();
         await conn.run("COMMIT");
-        return { ...report, access: "prepared DuckDB file" };
+        return report;
       } catch (e) {
         await conn.run("ROLLBACK").catch(() => undefined);
         throw e;
