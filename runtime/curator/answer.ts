@@ -3,7 +3,7 @@
  * the exact cost (prepare: reads no data), then run the SQL and add the noise (compute).
  *
  * The service (service.ts) calls prepare, checks the budget, calls compute, then debits and
- * replies. compute runs the SQL on this thread (DuckDB works on its own threads, so the message
+ * replies. compute asks the data engine (engines/types.ts; it works on its own threads or server, so the message
  * loop is free meanwhile) and the CPU part (noise, intervals, the quantile draw) on the worker pool
  * (workers/), under the policy's time limit, and holds the result until its reply slot
  * (workers/pacing.ts) so the time to answer does not follow the data. Nothing here refuses based
@@ -180,8 +180,8 @@ export class Answerer {
 
   /**
    * One release's data and noise on the pool, under the time limit, then held to its reply slot.
-   * The limit covers the SQL too: DuckDB cannot be stopped from here, so a late query is left to
-   * finish on DuckDB's threads and its result dropped; a late CPU part is stopped with its worker.
+   * The limit covers the engine's work too: a statement is not stopped from here, so a late one is
+   * left to finish in the engine and its result dropped; a late CPU part is stopped with its worker.
    */
   private async onPool(piece: Piece): Promise<ReleaseRow[]> {
     const { timeLimitMs, paceMs } = this.policy.answering;

@@ -12,19 +12,21 @@
  * fields are skipped. Every file of a CSV source must have the first file's header.
  *
  * The files are the ones matched at start (sorted); each one's size and modification time are
- * checked again before every statement, and a change refuses the release (nothing is spent) until
- * the curator is restarted: per-unit bounding below rests on the rows being the ones seen at start.
+ * checked again while and after every statement runs, and a change refuses the release (nothing is
+ * spent) until the curator is restarted: per-unit bounding below rests on the rows being the ones
+ * seen at start. (A file rewritten with the same size and modification time is not noticed: the
+ * steward must not change the files under a running curator.)
  *
  * Per-unit bounding without a copy. Each row's place in its unit's random order is a keyed hash
  * __h = hash(file name, row number in the file, seed) of its POSITION, never of its values, with a
- * 64-bit seed drawn from the CSPRNG at start. At start one pass finds the units with more than
+ * 64-bit seed drawn from the CSPRNG at start (computed only for rows of big units, after the join). At start one pass finds the units with more than
  * maxRows rows (the "big" units; a small table in memory) and, for each, the maxRows-th smallest
  * __h, its threshold. Without a filter a row is kept when its unit is not big or its __h is at or
  * below the threshold: exactly maxRows rows of each big unit, uniformly chosen under the seed. The
  * start pass also checks that no two rows of a big unit share an __h (else it draws a new seed),
  * so "at or below the threshold" can never keep more. With a filter the window of shapes.ts runs
- * over the big units' rows only. Hash collisions of unit ids can only merge units (fewer rows kept
- * per unit), as in memory. Per-unit bounding needs row positions, which DuckDB gives for Parquet
+ * over the big units' rows only. Units are told apart by their id values themselves (no hash), so
+ * in place no two units are ever merged. Per-unit bounding needs row positions, which DuckDB gives for Parquet
  * only: a CSV source in place with a unit column is refused at start (prepare it instead).
  */
 import { stat } from "node:fs/promises";
@@ -39,8 +41,8 @@ import { checkHeader, csvCall, csvLayoutOf, describeColumns } from "./load.js";
 
 type FilesSource = Extract<DatasetPolicy["origin"], { kind: "files" }>;
 
-/** Most files one source may match (each is stat-ed before every statement). */
-export const MAX_FILES = 100_000;
+/** Most files one source may match (each is stat-ed twice per statement). */
+export const MAX_FILES = 10_000;
 /** New seeds drawn when two rows of a big unit share a position hash (practically never). */
 const SEED_TRIES = 4;
 
@@ -181,7 +183,7 @@ export async function openInPlace(
       const h = (f: string, r: string) => `hash(${f}, ${r}, CAST(${seed} AS UBIGINT))`;
       await conn.run(
         `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
-          `(SELECT ${staged.join(", ")}, hash(${u}) AS __u, src.__hush_file AS __f, src.file_row_number AS __r ` +
+          `(SELECT ${staged.join(", ")}, ${u} AS __u, src.__hush_file AS __f, src.file_row_number AS __r ` +
           `FROM ${source} AS src WHERE ${u} IS NOT NULL)`,
       );
       try {
