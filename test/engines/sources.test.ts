@@ -14,6 +14,7 @@ import { prepareDataset } from "../../runtime/curator/engines/duckdb/prepare.js"
 import { loadPolicy, parsePolicy } from "../../runtime/curator/policy.js";
 import { PolicyError, UnreachableError } from "../../runtime/errors.js";
 import { policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
+import { runPrepare } from "../../cli/commands/prepare.js";
 
 const COLUMNS = `    accounting: { mode: pure, cap: { epsilon: "10" } }
     analysts: [ada]
@@ -163,5 +164,29 @@ describe("prepared DuckDB files", () => {
     }
     const changed = tempPolicy(policyWith(`    source: { duckdb: ${db}, table: visits }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
     await expect(DuckDBEngine.open(loadPolicy(changed), { quiet: true })).rejects.toThrow(/was prepared for another declaration/);
+  });
+});
+
+describe("hush prepare", () => {
+  it("prepares every DuckDB-file dataset of a policy and prints the steward's report; refuses other datasets by name", async () => {
+    const file = tempPolicy(policyWith(`    source: { duckdb: v.duckdb, table: main.visits }\n${COLUMNS}`));
+    const db = join(dirname(file), "v.duckdb");
+    await duck([`ATTACH '${db}' AS v`, "CREATE TABLE v.visits AS SELECT CASE WHEN range = 3 THEN NULL ELSE range END AS age, CASE WHEN range = 4 THEN 'zz' ELSE 'a' END AS town FROM range(10)"]);
+    const lines: string[] = [];
+    await runPrepare({ policy: file }, (s) => void lines.push(s));
+    // The category value outside the list is left out at preparation (counted, never shown).
+    expect(lines.join("")).toMatch(/^dataset d: prepared 9 rows, left out 1 \(town: value outside the declared list: 1\) in [0-9.]+ s\n$/);
+    expect(lines.join("")).not.toContain("zz");
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    try {
+      expect(await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }, { kind: "present", column: "age" }] })).toEqual([[9n, 8n]]);
+    } finally {
+      await e.close();
+    }
+    const other = tempPolicy(policyWith(`    source: data.csv\n${COLUMNS}`));
+    await expect(runPrepare({ policy: other, dataset: "d" }, () => undefined)).rejects.toThrow(/datasets\.d\.source is not a DuckDB file/);
+    const none: string[] = [];
+    await runPrepare({ policy: other }, (s) => void none.push(s));
+    expect(none.join("")).toMatch(/nothing to prepare/);
   });
 });

@@ -153,3 +153,12 @@ export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[]
       return [`${x} AS c${i}`];
   }
 }
+
+/**
+ * The first line of a DuckDB error for a steward-facing start error, with every quoted part
+ * (which could hold a value read from the data) replaced by "…".
+ */
+export function engineMessage(e: unknown): string {
+  if (!(e instanceof Error)) return "error";
+  return e.message.split("\n")[0].replace(/'[^']*'|"[^"]*"/g, "…").slice(0, 300);
+}

@@ -36,7 +36,7 @@ import type { Bits } from "../../../core/index.js";
 import type { ColumnPolicy, DatasetPolicy } from "../../policy.js";
 import type { Bounding, Relation } from "../shapes.js";
 import { type LoadReport, schemaOf } from "../types.js";
-import { inPlaceFinal, inPlaceTyped, quoteIdent, quoteString } from "./columns.js";
+import { engineMessage, inPlaceFinal, inPlaceTyped, quoteIdent, quoteString } from "./columns.js";
 import { checkHeader, csvCall, csvLayoutOf, describeColumns } from "./load.js";
 
 type FilesSource = Extract<DatasetPolicy["origin"], { kind: "files" }>;
@@ -110,7 +110,7 @@ export async function openInPlace(
     files = ((await stmt.runAndReadAll()).getRows() as unknown[][]).map((r) => String(r[0]));
     stmt.destroySync();
   } catch (e) {
-    throw new PolicyError(`${where}.source.files: cannot be listed (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+    throw new PolicyError(`${where}.source.files: cannot be listed (${engineMessage(e)})`);
   }
   if (files.length === 0) throw new PolicyError(`${where}.source.files: no file matches ${JSON.stringify(o.pattern)}`);
   if (files.length > MAX_FILES) throw new PolicyError(`${where}.source.files: matches ${files.length} files, more than ${MAX_FILES}; combine them into fewer, larger files`);
@@ -192,7 +192,7 @@ export async function openInPlace(
             `FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k}))) WHERE __pos = ${k}`,
         );
       } catch (e) {
-        throw new PolicyError(`${where}.source.files: cannot be read as parquet (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+        throw new PolicyError(`${where}.source.files: cannot be read as parquet (${engineMessage(e)})`);
       }
       const ties = await conn.runAndReadAll(
         `SELECT count(*) FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${big}) GROUP BY 1, 2 HAVING count(*) > 1)`,

@@ -27,7 +27,7 @@ import { PolicyError } from "../../../errors.js";
 import type { Bits } from "../../../core/index.js";
 import type { DatasetPolicy } from "../../policy.js";
 import type { LoadReport } from "../types.js";
-import { finalSelect, quoteIdent, quoteString, rejectArms, stagingSelect, storedNames } from "./columns.js";
+import { engineMessage, finalSelect, quoteIdent, quoteString, rejectArms, stagingSelect, storedNames } from "./columns.js";
 import { type CsvLayout, MAX_HEADER_BYTES, csvRejectReason, readCsvLayout } from "./csv-header.js";
 
 /** A source to load from: a CSV or Parquet file, or a table (a FROM item) already in DuckDB. */
@@ -76,7 +76,7 @@ export async function describeColumns(conn: DuckDBConnection, from: string, wher
     const r = await conn.runAndReadAll(`DESCRIBE SELECT * FROM ${from}`);
     return r.getRows().map((row) => ({ name: String(row[0]), type: String(row[1]) }));
   } catch (e) {
-    throw new PolicyError(`${where}: cannot be read as ${what} (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+    throw new PolicyError(`${where}: cannot be read as ${what} (${engineMessage(e)})`);
   }
 }
 

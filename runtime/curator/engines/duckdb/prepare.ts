@@ -18,7 +18,7 @@ import { PolicyError } from "../../../errors.js";
 import { Bits, cryptoBytes } from "../../../core/index.js";
 import type { DatasetPolicy, LoadedPolicy } from "../../policy.js";
 import type { LoadReport } from "../types.js";
-import { quoteIdent, quoteString, tableKey } from "./columns.js";
+import { engineMessage, quoteIdent, quoteString, tableKey } from "./columns.js";
 import { loadTable } from "./load.js";
 
 type DuckSource = Extract<DatasetPolicy["origin"], { kind: "duckdb" }>;
@@ -43,7 +43,7 @@ export async function attachPrepared(conn: DuckDBConnection, d: DatasetPolicy, o
   try {
     await conn.run(`ATTACH IF NOT EXISTS ${quoteString(o.path)} AS ${alias} (READ_ONLY)`);
   } catch (e) {
-    throw new PolicyError(`${where}.source.duckdb: cannot be opened as a DuckDB database (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
+    throw new PolicyError(`${where}.source.duckdb: cannot be opened as a DuckDB database (${engineMessage(e)})`);
   }
   const notPrepared = `${where}.source: table ${JSON.stringify(o.table)} has not been prepared for this declaration; run \`hush prepare --policy <file> --dataset ${d.name}\``;
   let rows: unknown[][];
