@@ -190,3 +190,28 @@ describe("hush prepare", () => {
     expect(none.join("")).toMatch(/nothing to prepare/);
   });
 });
+
+describe("in place: the per-unit order kept for the next start", () => {
+  it("a second start over the same files reuses it (same kept rows); changed files or declaration make a new one", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "p.parquet" }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    const pq = join(dirname(file), "p.parquet");
+    await duck([`COPY (SELECT range % 100 AS age, CASE WHEN range % 2 = 0 THEN 'a' ELSE 'b' END AS town, 'u' || (range % 11) AS pid FROM range(300)) TO '${pq}' (FORMAT parquet)`]);
+    const cacheDir = join(dirname(file), "state", "in-place");
+    const req = { dataset: "d", keys: [{ column: "town" }], terms: [{ kind: "sum" as const, column: "age" }] };
+    const first = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("one")), cacheDir });
+    const a = await first.cells(req);
+    expect(first.access("d")).not.toMatch(/start cache/);
+    await first.close();
+    // Other bits: only the cache can give the same kept rows.
+    const second = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("two")), cacheDir });
+    expect(second.access("d")).toMatch(/per-unit order from the start cache/);
+    expect(await second.cells(req)).toEqual(a);
+    await second.close();
+    // The files changed: a new order is drawn (and the counts still bounded: 11 units, 3 rows each).
+    utimesSync(pq, new Date(), new Date(Date.now() + 5000));
+    const third = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("three")), cacheDir });
+    expect(third.access("d")).not.toMatch(/start cache/);
+    expect(await third.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
+    await third.close();
+  });
+});

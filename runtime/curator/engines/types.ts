@@ -102,6 +102,11 @@ export interface OpenOptions {
   quiet?: boolean;
   /** Random bits for the per-unit order (tests); default: the CSPRNG. */
   bits?: import("../../core/index.js").Bits;
+  /**
+   * Where an engine may keep what it works out at start for the next start (DuckDB in place: the
+   * per-unit order); default: the folder `in-place` beside the ledger; null: nothing kept.
+   */
+  cacheDir?: string | null;
 }
 
 /** Opens one engine over the given datasets (all of one source kind family). */

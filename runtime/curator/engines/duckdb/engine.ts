@@ -6,7 +6,7 @@
  */
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
-import { join } from "node:path";
+import { dirname, join } from "node:path";
 import { DuckDBInstance } from "@duckdb/node-api";
 import { UnknownDatasetError } from "../../../errors.js";
 import { Bits, cryptoBytes } from "../../../core/index.js";
@@ -63,6 +63,7 @@ export class DuckDBEngine implements DataEngine {
     }
     const engine = new DuckDBEngine(instance, temp);
     const bits = opts.bits ?? new Bits(cryptoBytes);
+    const cacheDir = opts.cacheDir === undefined ? join(dirname(policy.ledgerPath), "in-place") : opts.cacheDir;
     try {
       const conn = await instance.connect();
       try {
@@ -74,7 +75,7 @@ export class DuckDBEngine implements DataEngine {
           if (same !== undefined) {
             opened = { ...same, relation: { ...same.relation, schema: schemaOf(d) } };
           } else {
-            opened = await engine.openOne(conn, d, i, where, bits);
+            opened = await engine.openOne(conn, d, i, where, bits, cacheDir);
           }
           engine.datasets.set(d.name, opened);
           if (!opts.quiet) {
@@ -97,7 +98,14 @@ export class DuckDBEngine implements DataEngine {
     return engine;
   }
 
-  private async openOne(conn: import("@duckdb/node-api").DuckDBConnection, d: DatasetPolicy, i: number, where: string, bits: Bits): Promise<Opened> {
+  private async openOne(
+    conn: import("@duckdb/node-api").DuckDBConnection,
+    d: DatasetPolicy,
+    i: number,
+    where: string,
+    bits: Bits,
+    cacheDir: string | null,
+  ): Promise<Opened> {
     const schema = schemaOf(d);
     const o = d.origin;
     switch (o.kind) {
@@ -107,7 +115,7 @@ export class DuckDBEngine implements DataEngine {
         return { relation: { schema, from: table, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "in memory" };
       }
       case "files":
-        return openInPlace(conn, d, o, i, where, bits);
+        return openInPlace(conn, d, o, i, where, bits, cacheDir);
       case "duckdb": {
         const { from, report } = await attachPrepared(conn, d, o, i, where);
         return { relation: { schema, from, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "prepared DuckDB file, read from disk" };

@@ -25,18 +25,24 @@
  * below the threshold: exactly maxRows rows of each big unit, uniformly chosen under the seed. The
  * start pass also checks that no two rows of a big unit share an __h (else it draws a new seed),
  * so "at or below the threshold" can never keep more. With a filter the window of shapes.ts runs
- * over the big units' rows only. Units are told apart by their id values themselves (no hash), so
+ * over the big units' rows only. The start pass reads the unit column of every file; its result
+ * (the thresholds and the seed) is kept in the steward's state folder (beside the ledger, mode
+ * 0600, like the signing key) and reused by the next start over the same files (sizes and times)
+ * and declaration, so only the first start pays for it. Units are told apart by their id values themselves (no hash), so
  * in place no two units are ever merged. Per-unit bounding needs row positions, which DuckDB gives for Parquet
  * only: a CSV source in place with a unit column is refused at start (prepare it instead).
  */
+import { createHash } from "node:crypto";
+import { chmodSync, existsSync, mkdirSync, renameSync, rmSync } from "node:fs";
 import { stat } from "node:fs/promises";
+import { join } from "node:path";
 import type { DuckDBConnection } from "@duckdb/node-api";
 import { PolicyError, UnreachableError } from "../../../errors.js";
 import type { Bits } from "../../../core/index.js";
 import type { ColumnPolicy, DatasetPolicy } from "../../policy.js";
 import type { Bounding, Relation } from "../shapes.js";
 import { type LoadReport, schemaOf } from "../types.js";
-import { engineMessage, inPlaceFinal, inPlaceTyped, quoteIdent, quoteString } from "./columns.js";
+import { engineMessage, inPlaceFinal, inPlaceTyped, quoteIdent, quoteString, tableKey } from "./columns.js";
 import { checkHeader, csvCall, csvLayoutOf, describeColumns } from "./load.js";
 
 type FilesSource = Extract<DatasetPolicy["origin"], { kind: "files" }>;
@@ -93,6 +99,65 @@ function typeFits(c: ColumnPolicy, type: string): boolean {
   }
 }
 
+/** What a cached per-unit order was built for: the declaration and every file's size and time. */
+function cacheKey(d: DatasetPolicy, start: readonly FileStamp[]): string {
+  return createHash("sha256").update(JSON.stringify(["in-place-v1", tableKey(d), start])).digest("hex");
+}
+
+function cacheFile(dir: string, d: DatasetPolicy): string {
+  return join(dir, `in-place-${createHash("sha256").update(tableKey(d)).digest("hex").slice(0, 24)}.duckdb`);
+}
+
+/**
+ * The per-unit order kept from an earlier start over the same files and declaration: the big
+ * units' thresholds are copied into `big` and the seed returned; null when there is none (or it
+ * was built for other files or another declaration, or cannot be read).
+ */
+async function readCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[], big: string): Promise<bigint | null> {
+  const file = cacheFile(dir, d);
+  if (!existsSync(file)) return null;
+  const alias = quoteIdent(`cache_${createHash("sha256").update(file).digest("hex").slice(0, 12)}`);
+  try {
+    await conn.run(`ATTACH ${quoteString(file)} AS ${alias} (READ_ONLY)`);
+  } catch {
+    return null;
+  }
+  try {
+    const meta = (await conn.runAndReadAll(`SELECT key, seed FROM ${alias}.meta`)).getRows();
+    if (meta.length !== 1 || meta[0][0] !== cacheKey(d, start)) return null;
+    await conn.run(`DROP TABLE IF EXISTS ${big}`);
+    await conn.run(`CREATE TABLE ${big} AS SELECT * FROM ${alias}.big`);
+    return BigInt(String(meta[0][1]));
+  } catch {
+    return null;
+  } finally {
+    await conn.run(`DETACH ${alias}`).catch(() => undefined);
+  }
+}
+
+/** Keeps the per-unit order for the next start (folder and file readable by the curator's user only). */
+async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[], big: string, seed: bigint): Promise<void> {
+  const file = cacheFile(dir, d);
+  const tmp = `${file}.${process.pid}.tmp`;
+  const alias = quoteIdent(`cachew_${process.pid}`);
+  try {
+    mkdirSync(dir, { recursive: true, mode: 0o700 });
+    rmSync(tmp, { force: true });
+    await conn.run(`ATTACH ${quoteString(tmp)} AS ${alias}`);
+    try {
+      await conn.run(`CREATE TABLE ${alias}.big AS SELECT * FROM ${big}`);
+      await conn.run(`CREATE TABLE ${alias}.meta AS SELECT ${quoteString(cacheKey(d, start))} AS key, CAST(${seed} AS UBIGINT) AS seed`);
+    } finally {
+      await conn.run(`DETACH ${alias}`);
+    }
+    chmodSync(tmp, 0o600);
+    renameSync(tmp, file);
+  } catch {
+    // A cache that cannot be written costs the next start the pass again, nothing else.
+    rmSync(tmp, { force: true });
+  }
+}
+
 export async function openInPlace(
   conn: DuckDBConnection,
   d: DatasetPolicy,
@@ -100,6 +165,7 @@ export async function openInPlace(
   index: number,
   where: string,
   bits: Bits,
+  cacheDir: string | null = null,
 ): Promise<{ relation: Relation; report: LoadReport; access: string; check: () => Promise<void> }> {
   const schema = schemaOf(d);
   // The files, matched once (sorted, so the same files give the same positions).
@@ -173,31 +239,42 @@ export async function openInPlace(
     report = { rows: null, rejected: 0, reasons: {} };
   } else {
     const u = `src.${quoteIdent(srcName(unit))}`;
+    const cached = cacheDir === null ? null : await readCache(conn, cacheDir, d, start, big);
+    let fromCache = false;
     for (let attempt = 0; ; attempt++) {
       if (attempt >= SEED_TRIES) throw new PolicyError(`${where}: could not draw a per-unit order without ties; check the files`);
-      // The seed is written into the view's text: it stays inside this DuckDB instance.
-      const seed = bits.uniformInt(1n << 63n);
+      // The seed is written into the view's text: it stays inside this DuckDB instance (and the
+      // steward's state folder, when cached).
+      const seed = cached ?? bits.uniformInt(1n << 63n);
       await conn.run(`DROP VIEW IF EXISTS ${view}`);
-      await conn.run(`DROP TABLE IF EXISTS ${big}`);
+      if (cached === null) await conn.run(`DROP TABLE IF EXISTS ${big}`);
       await conn.run(`DROP VIEW IF EXISTS ${srcView}`);
       const h = (f: string, r: string) => `hash(${f}, ${r}, CAST(${seed} AS UBIGINT))`;
       await conn.run(
         `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
-          `(SELECT ${staged.join(", ")}, ${u} AS __u, src.__hush_file AS __f, src.file_row_number AS __r ` +
+          `(SELECT ${staged.join(", ")}, ${u} AS __u, hash(src.__hush_file) AS __f, src.file_row_number AS __r ` +
           `FROM ${source} AS src WHERE ${u} IS NOT NULL)`,
       );
-      try {
-        await conn.run(
-          `CREATE TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __pos ` +
-            `FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k}))) WHERE __pos = ${k}`,
+      let ok = cached !== null;
+      if (cached === null) {
+        try {
+          await conn.run(
+            `CREATE TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __pos ` +
+              `FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k}))) WHERE __pos = ${k}`,
+          );
+        } catch (e) {
+          throw new PolicyError(`${where}.source.files: cannot be read as parquet (${engineMessage(e)})`);
+        }
+        // No two rows of a big unit may share an order hash (else "at or below the threshold" could keep more).
+        const ties = await conn.runAndReadAll(
+          `SELECT count(*) FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${big}) GROUP BY 1, 2 HAVING count(*) > 1)`,
         );
-      } catch (e) {
-        throw new PolicyError(`${where}.source.files: cannot be read as parquet (${engineMessage(e)})`);
+        ok = Number(ties.getRows()[0][0]) === 0;
+        if (ok && cacheDir !== null) await writeCache(conn, cacheDir, d, start, big, seed);
+      } else {
+        fromCache = true;
       }
-      const ties = await conn.runAndReadAll(
-        `SELECT count(*) FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${big}) GROUP BY 1, 2 HAVING count(*) > 1)`,
-      );
-      if (Number(ties.getRows()[0][0]) === 0) {
+      if (ok) {
         // The order hash is computed only for rows of big units (after the join), the rest need none.
         const cols = d.columns.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`]));
         await conn.run(
@@ -207,6 +284,7 @@ export async function openInPlace(
         break;
       }
     }
+    if (fromCache) access = `${access}; per-unit order from the start cache`;
     const units = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${big}`)).getRows()[0][0]);
     report = { rows: null, rejected: 0, reasons: {} };
     access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows`;
