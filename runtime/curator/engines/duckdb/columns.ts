@@ -116,8 +116,10 @@ export function inPlaceTyped(c: ColumnPolicy, i: number, src: string, type: stri
       if (INTEGER_TYPES.test(t) || t === "FLOAT" || t.startsWith("DECIMAL")) return `CAST(${src} AS DOUBLE) AS x${i}`;
       return `TRY_CAST(${src} AS DOUBLE) AS x${i}`;
     case "category": {
-      const arms = c.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
-      return `CAST(CASE ${t === "VARCHAR" ? src : `CAST(${src} AS VARCHAR)`} ${arms} END AS USMALLINT) AS x${i}`;
+      // The index in the declared list (exact text equality, NULL when absent or missing), as
+      // the CASE of a load computes it; list_position is several times faster over many rows.
+      const list = `[${c.values.map(quoteString).join(", ")}]`;
+      return `CAST(list_position(${list}, ${t === "VARCHAR" ? src : `CAST(${src} AS VARCHAR)`}) - 1 AS USMALLINT) AS x${i}`;
     }
     case "date":
       return t === "DATE" ? `${src} AS x${i}` : `TRY_CAST(${src} AS DATE) AS x${i}`;
