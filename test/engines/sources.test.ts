@@ -215,3 +215,59 @@ describe("in place: the per-unit order kept for the next start", () => {
     await third.close();
   });
 });
+
+describe("in place computes the load's stored values", () => {
+  it("row by row on awkward numbers: halves, bounds, huge, non-finite, negative zero, non-whole integers", async () => {
+    const values = [
+      "0.25", "0.75", "-0.25", "-0.75", "2.25", "-2.25", "10", "-10", "10.25", "-10.25", "1e300", "-1e300",
+      "'nan'", "'inf'", "'-inf'", "0.49999999999999994", "-0.0", "NULL", "9.75", "2.5",
+    ];
+    // Rows r0..r19 try each value in v (n = 0), rows r20..r39 in n (v = 0): a row the load leaves
+    // out is left out for its own value only.
+    const rows = [
+      ...values.map((v, j) => `SELECT 'r${j}' AS rid, CAST(${v} AS DOUBLE) AS v, 0.0 AS n`),
+      ...values.map((v, j) => `SELECT 'r${j + 20}' AS rid, 0.0 AS v, CAST(${v} AS DOUBLE) AS n`),
+    ].join(" UNION ALL ");
+    const cols = `    accounting: { mode: pure, cap: { epsilon: "10" } }
+    analysts: [ada]
+    columns:
+      rid: { type: category, values: [${[...values, ...values].map((_, j) => `r${j}`).join(", ")}] }
+      v: { type: number, range: [-10, 10], step: "0.5" }
+      n: { type: integer, range: [-10, 10] }
+`;
+    const file = tempPolicy(`${policyWith(`    source: a.parquet\n    population: one\n${cols}`)}  e:\n    source: { files: a.parquet }\n    population: one\n${cols}`);
+    await duck([`COPY (${rows}) TO '${join(dirname(file), "a.parquet")}' (FORMAT parquet)`]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
+    try {
+      for (const column of ["v", "n"]) {
+        const terms = [
+          { kind: "present" as const, column },
+          { kind: "sum" as const, column },
+          { kind: "sumSquares" as const, column },
+          { kind: "atLower" as const, column },
+          { kind: "atUpper" as const, column },
+        ];
+        // The rows that try values in this column (the other rows are whole-row rejections in
+        // memory when the other column's value does not fit, by design).
+        const part = (cells: bigint[][]) => (column === "v" ? cells.slice(0, 20) : cells.slice(20));
+        const mem = part(await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms }));
+        const inPlace = part(await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms }));
+        // Rows the load leaves out (a non-finite v or n, a non-whole n) are zeros in memory; in
+        // place the row is there but the value is missing: the same zeros for every term of it.
+        expect(inPlace, column).toEqual(mem);
+      }
+      // Spot checks against hand-worked grid units (step 0.5 for v): 0.25 -> 0.5 units, rounded
+      // half away from zero to 1; -0.25 -> -1; 2.25 -> 4.5 -> 5; 10.25 clamps to 20; -0.0 -> 0.
+      const sums = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "v" }] });
+      expect([sums[0][0], sums[2][0], sums[4][0], sums[8][0], sums[9][0], sums[16][0]]).toEqual([1n, -1n, 5n, 20n, -20n, 0n]);
+      // n is an integer column: of its 20 values, the whole finite ones are 10, -10, 1e300,
+      // -1e300 and -0.0 (5), plus the 20 zeros of rows r0..r19.
+      const n = await e.cells({ dataset: "e", keys: [], terms: [{ kind: "present", column: "n" }, { kind: "atUpper", column: "n" }] });
+      expect(n).toEqual([[25n, 1n]]);
+      // The memory load left out the rows with a non-finite v or n, or a non-whole n: 3 + 3 + 11 ... counted.
+      expect(e.loadReport("d").rejected).toBe(3 + 3 + 11);
+    } finally {
+      await e.close();
+    }
+  });
+});

@@ -141,9 +141,18 @@ export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[]
       const lo = c.grid.lowerUnits.toString();
       const hi = c.grid.upperUnits.toString();
       const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";
-      // isfinite(NULL) is NULL, so a missing value stays missing (no LEAST/GREATEST of a NULL).
+      // isfinite(NULL) is NULL, so a missing value stays missing.
       const fits = `isfinite(${x})${whole}`;
-      const value = `CASE WHEN ${fits} THEN CAST(round(LEAST(GREATEST(${x} / CAST(${quoteString(c.step)} AS DOUBLE), ${lo}), ${hi})) AS BIGINT) END AS c${i}`;
+      // The same value as a load's round(clamp(x / step)), as one CASE (cheaper than LEAST and
+      // GREATEST per row): at or beyond a bound, the bound (-inf and inf are missing; DuckDB
+      // orders NaN above every number, so NaN reaches the second arm and is missing too); inside,
+      // the rounded value. A non-whole number in an integer column is missing.
+      const u = `(${x} / CAST(${quoteString(c.step)} AS DOUBLE))`;
+      const inside = whole === "" ? `CAST(round(${u}) AS BIGINT)` : `CASE WHEN ${x} = round(${x}) THEN CAST(round(${u}) AS BIGINT) END`;
+      const value =
+        `CASE WHEN ${u} <= ${lo} THEN (CASE WHEN ${x} > CAST('-inf' AS DOUBLE)${whole} THEN ${lo} END) ` +
+        `WHEN ${u} >= ${hi} THEN (CASE WHEN ${x} < CAST('inf' AS DOUBLE)${whole} THEN ${hi} END) ` +
+        `ELSE ${inside} END AS c${i}`;
       const flag =
         `CAST(CASE WHEN NOT (${fits}) THEN NULL WHEN ${x} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
         `WHEN ${x} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;

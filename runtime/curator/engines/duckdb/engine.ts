@@ -69,8 +69,8 @@ export class DuckDBEngine implements DataEngine {
       try {
         for (const [i, d] of list.entries()) {
           const where = `policy ${policy.file}: datasets.${d.name}`;
-          // Datasets that differ only in caps or analysts (same source, schema and unit) share one table.
-          const same = [...engine.datasets.values()].find((o) => tableKey(o.relation.schema.dataset) === tableKey(d));
+          // Datasets that differ only in caps or analysts (same source and kind, schema and unit) share one table.
+          const same = [...engine.datasets.values()].find((o) => o.relation.schema.dataset.origin.kind === d.origin.kind && tableKey(o.relation.schema.dataset) === tableKey(d));
           let opened: Opened;
           if (same !== undefined) {
             opened = { ...same, relation: { ...same.relation, schema: schemaOf(d) } };
