@@ -271,3 +271,36 @@ describe("in place computes the load's stored values", () => {
     }
   });
 });
+
+describe("the per-unit order is a uniform choice", () => {
+  /**
+   * One unit of 8 rows, maxRows 4: over many seeds every pair of rows should be kept together
+   * with probability (4/8)(3/7) = 3/14 (a uniformly random 4-of-8 subset; elementary counting).
+   * The order form the engines use, hash(hash(position) XOR seed), against DuckDB's
+   * hash(position, seed), which fails this check badly (one pair kept together about 10,000 times
+   * in 20,000 seeds). 4,000 seeds here: each pair's count is Binomial(4000, 3/14), sd about 26;
+   * the bounds are 6 sd.
+   */
+  it("pairs of rows are kept together as often as a uniform 4-of-8 choice gives", async () => {
+    const i = await DuckDBInstance.create(":memory:", { threads: "1" });
+    const c = await i.connect();
+    try {
+      const pairs = async (order: string) => {
+        const q =
+          `WITH sel AS (SELECT s, r FROM (SELECT s, r, row_number() OVER (PARTITION BY s ORDER BY ${order}) AS k FROM ` +
+          `(SELECT (hash(i, 77) >> 1)::UBIGINT AS s FROM range(4000) t(i)), (SELECT r::BIGINT AS r FROM range(8) t2(r))) WHERE k <= 4) ` +
+          `SELECT count(*) FROM sel a JOIN sel b ON a.s = b.s AND a.r < b.r GROUP BY a.r, b.r`;
+        return (await c.runAndReadAll(q)).getRows().map((x) => Number(x[0]));
+      };
+      const expected = (4000 * 3) / 14;
+      const used = await pairs("hash(xor(hash(r), s))");
+      expect(used).toHaveLength(28);
+      for (const n of used) expect(Math.abs(n - expected)).toBeLessThan(6 * 26);
+      const plain = await pairs("hash(r, s)");
+      expect(Math.max(...plain.map((n) => Math.abs(n - expected)))).toBeGreaterThan(6 * 26);
+    } finally {
+      c.closeSync();
+      i.closeSync();
+    }
+  });
+});

@@ -18,7 +18,7 @@
  * steward must not change the files under a running curator.)
  *
  * Per-unit bounding without a copy. Each row's place in its unit's random order is a keyed hash
- * __h = hash(file name, row number in the file, seed) of its POSITION, never of its values, with a
+ * __h = hash(hash(file name, row number in the file) XOR seed) of its POSITION, never of its values, with a
  * 64-bit seed drawn from the CSPRNG at start (computed only for rows of big units, after the join). At start one pass finds the units with more than
  * maxRows rows (the "big" units; a small table in memory) and, for each, the maxRows-th smallest
  * __h, its threshold. Without a filter a row is kept when its unit is not big or its __h is at or
@@ -101,7 +101,7 @@ function typeFits(c: ColumnPolicy, type: string): boolean {
 
 /** What a cached per-unit order was built for: the declaration and every file's size and time. */
 function cacheKey(d: DatasetPolicy, start: readonly FileStamp[]): string {
-  return createHash("sha256").update(JSON.stringify(["in-place-v1", tableKey(d), start])).digest("hex");
+  return createHash("sha256").update(JSON.stringify(["in-place-v2", tableKey(d), start])).digest("hex");
 }
 
 function cacheFile(dir: string, d: DatasetPolicy): string {
@@ -249,7 +249,8 @@ export async function openInPlace(
       await conn.run(`DROP VIEW IF EXISTS ${view}`);
       if (cached === null) await conn.run(`DROP TABLE IF EXISTS ${big}`);
       await conn.run(`DROP VIEW IF EXISTS ${srcView}`);
-      const h = (f: string, r: string) => `hash(${f}, ${r}, CAST(${seed} AS UBIGINT))`;
+      // The seed goes through the mixer (see load.ts: hash(x, seed) alone is far from uniform).
+      const h = (f: string, r: string) => `hash(xor(hash(${f}, ${r}), CAST(${seed} AS UBIGINT)))`;
       await conn.run(
         `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
           `(SELECT ${staged.join(", ")}, ${u} AS __u, hash(src.__hush_file) AS __f, src.file_row_number AS __r ` +
