@@ -3,7 +3,7 @@
  * the exact cost (prepare: reads no data), then run the SQL and add the noise (compute).
  *
  * The service (service.ts) calls prepare, checks the budget, calls compute, then debits and
- * replies. compute runs the SQL on this thread (DuckDB works on its own threads, so the message
+ * replies. compute asks the data engine (engines/types.ts; it works on its own threads or server, so the message
  * loop is free meanwhile) and the CPU part (noise, intervals, the quantile draw) on the worker pool
  * (workers/), under the policy's time limit, and holds the result until its reply slot
  * (workers/pacing.ts) so the time to answer does not follow the data. Nothing here refuses based
@@ -26,9 +26,9 @@ import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
 import { ratioError, wholeRange } from "./aggregates/ratio-preview.js";
-import type { Engine, TableColumn, TableInfo } from "./engine.js";
+import { type DataEngine, type DatasetSchema, type SchemaColumn, schemaOf } from "./engines/types.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
-import { Params, compileWhere, resolveColumn } from "./sql.js";
+import { checkWhere, resolveColumn } from "./sql.js";
 import { firstSlot, holdUntilSlot } from "./workers/pacing.js";
 import { WorkerPool, timeLimitText } from "./workers/pool.js";
 
@@ -79,7 +79,7 @@ function normalize(plan: QueryPlan): QueryPlan {
   return out;
 }
 
-function numericColumn(t: TableInfo, name: string, path: string, what: string): TableColumn {
+function numericColumn(t: DatasetSchema, name: string, path: string, what: string): SchemaColumn {
   const col = resolveColumn(t, name, path);
   if (col.policy.type !== "integer" && col.policy.type !== "number") {
     throw new BadInputError(`${path}: ${what} needs a numeric column; ${shown(name)} is ${col.policy.type}`);
@@ -87,7 +87,7 @@ function numericColumn(t: TableInfo, name: string, path: string, what: string): 
   return col;
 }
 
-function keyedColumn(t: TableInfo, name: string, path: string): void {
+function keyedColumn(t: DatasetSchema, name: string, path: string): void {
   const col = resolveColumn(t, name, path);
   if (col.policy.type !== "category" && col.policy.type !== "boolean") {
     throw new BadInputError(`${path}: crosstab needs category or boolean columns; ${shown(name)} is ${col.policy.type}`);
@@ -95,7 +95,7 @@ function keyedColumn(t: TableInfo, name: string, path: string): void {
 }
 
 /** Declared values of a key from the policy alone (no label is built); 1 for a key that compileGroup will refuse. */
-function keySize(t: TableInfo, key: GroupKey): number {
+function keySize(t: DatasetSchema, key: GroupKey): number {
   const c = t.columns.get(key.column)?.policy;
   if (c === undefined) return 1;
   if (c.type === "category") return c.values.length;
@@ -109,7 +109,7 @@ function keySize(t: TableInfo, key: GroupKey): number {
  * before any label, cell array or SQL exists: every declared cell is released, so the product of
  * the key sizes is the work, the memory and the size of the reply.
  */
-function checkCells(plan: QueryPlan, t: TableInfo): void {
+function checkCells(plan: QueryPlan, t: DatasetSchema): void {
   const m = plan.measure;
   let cells: number;
   let path: string;
@@ -156,13 +156,14 @@ interface Settled {
 
 export class Answerer {
   private readonly memo = new Map<string, Settled>();
-  private readonly engine: Engine;
+  private readonly schemas = new Map<string, DatasetSchema>();
+  private readonly engine: DataEngine;
   private readonly policy: LoadedPolicy;
   /** Started on the first release; closed with close(). */
   private pool: WorkerPool | null = null;
   private closed = false;
 
-  constructor(engine: Engine, policy: LoadedPolicy) {
+  constructor(engine: DataEngine, policy: LoadedPolicy) {
     this.engine = engine;
     this.policy = policy;
   }
@@ -181,8 +182,8 @@ export class Answerer {
 
   /**
    * One release's data and noise on the pool, under the time limit, then held to its reply slot.
-   * The limit covers the SQL too: DuckDB cannot be stopped from here, so a late query is left to
-   * finish on DuckDB's threads and its result dropped; a late CPU part is stopped with its worker.
+   * The limit covers the engine's work too: a statement is not stopped from here, so a late one is
+   * left to finish in the engine and its result dropped; a late CPU part is stopped with its worker.
    */
   private async onPool(piece: Piece): Promise<ReleaseRow[]> {
     const { timeLimitMs, paceMs } = this.policy.answering;
@@ -210,6 +211,16 @@ export class Answerer {
     const d = this.policy.datasets.get(name);
     if (d === undefined || !this.engine.hasDataset(name)) throw new UnknownDatasetError(`no dataset named ${shown(name)}`);
     return d;
+  }
+
+  /** The public schema of an open dataset (built once per dataset). */
+  private schema(d: DatasetPolicy): DatasetSchema {
+    let s = this.schemas.get(d.name);
+    if (s === undefined) {
+      s = schemaOf(d);
+      this.schemas.set(d.name, s);
+    }
+    return s;
   }
 
   /** Public schema of a dataset, in declaration order; the unit column is not part of it. */
@@ -249,9 +260,9 @@ export class Answerer {
       return hit;
     }
     const d = this.dataset(plan.dataset);
-    const t = this.engine.table(d.name);
+    const t = this.schema(d);
     const src: Source = { t, where: plan.where };
-    compileWhere(plan.where, t, new Params()); // validates every literal against the schema
+    checkWhere(plan.where, t); // validates every literal against the schema
     const alloc = new Allocator(d, plan.privacy, plan.confidence ?? DEFAULT_CONFIDENCE);
     const { piece, groupColumns, columnsUsed } = this.build(plan, src, alloc);
     const notes = this.commonNotes(d, t, plan, columnsUsed, alloc, piece);
@@ -382,7 +393,7 @@ export class Answerer {
     }
   }
 
-  private commonNotes(d: DatasetPolicy, t: TableInfo, plan: QueryPlan, used: string[], alloc: Allocator, piece: Piece): string[] {
+  private commonNotes(d: DatasetPolicy, t: DatasetSchema, plan: QueryPlan, used: string[], alloc: Allocator, piece: Piece): string[] {
     const conf = plan.confidence ?? DEFAULT_CONFIDENCE;
     const notes = [
       `Error bars are noise-only at ${conf} confidence: they cover the privacy noise, not clamping, grid rounding, dropped rows or sampling error.`,

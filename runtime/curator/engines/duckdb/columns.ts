@@ -1,0 +1,175 @@
+/**
+ * Row-level steps as DuckDB SQL, shared by the load into memory (load.ts), the prepared file
+ * (prepare.ts) and the in-place view (in-place.ts): typing a raw value by its declared column,
+ * the reasons a value does not fit, and the stored form (grid units, clamping flag, category
+ * index). Only steward-trusted text (declared values, bounds we computed) is written into SQL.
+ */
+import type { ColumnPolicy } from "../../policy.js";
+
+/** SQL identifier quoting (double quotes, inner quotes doubled). */
+export function quoteIdent(name: string): string {
+  return `"${name.replace(/"/g, '""')}"`;
+}
+
+/** SQL string literal for steward-trusted text (paths, declared values); never for plan input. */
+export function quoteString(s: string): string {
+  return `'${s.replace(/'/g, "''")}'`;
+}
+
+/** Typed value x<i> and a "was something there" flag p<i> for one column. */
+export function stagingSelect(c: ColumnPolicy, i: number, src: string): string[] {
+  const present = `${src} IS NOT NULL AS p${i}`;
+  switch (c.type) {
+    case "integer":
+    case "number":
+      return [`TRY_CAST(${src} AS DOUBLE) AS x${i}`, present];
+    case "category": {
+      const arms = c.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
+      return [`CASE CAST(${src} AS VARCHAR) ${arms} END AS x${i}`, present];
+    }
+    case "date":
+      return [`TRY_CAST(${src} AS DATE) AS x${i}`, present];
+    case "boolean":
+      return [`TRY_CAST(${src} AS BOOLEAN) AS x${i}`, present];
+  }
+}
+
+/** Why a staged value does not fit (first reason wins), as CASE arms. Reasons name columns, never values. */
+export function rejectArms(c: ColumnPolicy, i: number): string[] {
+  const why = (s: string) => quoteString(`${c.name}: ${s}`);
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const arms = [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a number")}`,
+        `WHEN p${i} AND NOT isfinite(x${i}) THEN ${why("not a finite number")}`,
+      ];
+      if (c.type === "integer") arms.push(`WHEN p${i} AND x${i} <> round(x${i}) THEN ${why("not a whole number")}`);
+      return arms;
+    }
+    case "category":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("value outside the declared list")}`];
+    case "date":
+      return [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a date")}`,
+        `WHEN x${i} < DATE ${quoteString(c.lower)} OR x${i} > DATE ${quoteString(c.upper)} THEN ${why("date outside the declared range")}`,
+      ];
+    case "boolean":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("not a boolean")}`];
+  }
+}
+
+/**
+ * Stored form of a typed column: c<i>, and for numeric columns the clamping flag k<i> (-1 below
+ * the lower bound, 1 above the upper bound, 0 inside, NULL when missing). Grid bounds are integers
+ * we computed from the policy. `x` is the typed value expression (NULL when missing or unfit).
+ */
+export function finalSelect(c: ColumnPolicy, i: number, x = `x${i}`): string[] {
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const lo = c.grid.lowerUnits.toString();
+      const hi = c.grid.upperUnits.toString();
+      // Clamp in floating point first (so the cast cannot overflow), then round to the grid:
+      // the result is an integer in [lo, hi] whatever the rounding error of x / step.
+      // DuckDB's LEAST/GREATEST skip NULLs, so a missing value must be kept NULL explicitly.
+      const value = `CASE WHEN ${x} IS NULL THEN NULL ELSE CAST(round(LEAST(GREATEST(${x} / CAST(${quoteString(c.step)} AS DOUBLE), ${lo}), ${hi})) AS BIGINT) END AS c${i}`;
+      // The raw value against the declared bounds (as doubles: the bound's nearest double).
+      const flag =
+        `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
+        `WHEN ${x} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+      return [value, flag];
+    }
+    case "category":
+      return [`CAST(${x} AS USMALLINT) AS c${i}`];
+    default:
+      return [`${x} AS c${i}`];
+  }
+}
+
+/** The stored column names of a dataset, in order (c<i> and k<i>). */
+export function storedNames(cols: readonly ColumnPolicy[]): string[] {
+  return cols.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`]));
+}
+
+/** What determines a stored table: the source, the declared columns and the unit. */
+export function tableKey(d: { source: string; format: string; columns: readonly ColumnPolicy[]; unit: { column: string | null; maxRows: number } }): string {
+  const cols = d.columns.map((c) => {
+    const { grid: _grid, ...rest } = c as ColumnPolicy & { grid?: unknown };
+    return rest;
+  });
+  return JSON.stringify([d.source, d.format, cols, d.unit.column, d.unit.maxRows]);
+}
+
+const INTEGER_TYPES = /^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT)$/;
+
+/**
+ * In place (in-place.ts), the typed value x<i> of a source column of DuckDB type `type`, read as
+ * cheaply as the type allows (no cast when the column already has the declared type).
+ */
+export function inPlaceTyped(c: ColumnPolicy, i: number, src: string, type: string): string {
+  const t = type.toUpperCase();
+  switch (c.type) {
+    case "integer":
+    case "number":
+      if (t === "DOUBLE") return `${src} AS x${i}`;
+      if (INTEGER_TYPES.test(t) || t === "FLOAT" || t.startsWith("DECIMAL")) return `CAST(${src} AS DOUBLE) AS x${i}`;
+      return `TRY_CAST(${src} AS DOUBLE) AS x${i}`;
+    case "category": {
+      // The index in the declared list (exact text equality, NULL when absent or missing), as
+      // the CASE of a load computes it; list_position is several times faster over many rows.
+      const list = `[${c.values.map(quoteString).join(", ")}]`;
+      return `CAST(list_position(${list}, ${t === "VARCHAR" ? src : `CAST(${src} AS VARCHAR)`}) - 1 AS USMALLINT) AS x${i}`;
+    }
+    case "date":
+      return t === "DATE" ? `${src} AS x${i}` : `TRY_CAST(${src} AS DATE) AS x${i}`;
+    case "boolean":
+      return t === "BOOLEAN" ? `${src} AS x${i}` : `TRY_CAST(${src} AS BOOLEAN) AS x${i}`;
+  }
+}
+
+/**
+ * In place, the stored form of x<i>: the same values as a load into memory gives for every value
+ * that fits (finalSelect), and NULL (missing) for a value that does not fit (the in-place rule).
+ * Integer sources need no whole-number check; every check is one CASE.
+ */
+export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[] {
+  const x = `x${i}`;
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const lo = c.grid.lowerUnits.toString();
+      const hi = c.grid.upperUnits.toString();
+      const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";
+      // isfinite(NULL) is NULL, so a missing value stays missing.
+      const fits = `isfinite(${x})${whole}`;
+      // The same value as a load's round(clamp(x / step)), as one CASE (cheaper than LEAST and
+      // GREATEST per row): at or beyond a bound, the bound (-inf and inf are missing; DuckDB
+      // orders NaN above every number, so NaN reaches the second arm and is missing too); inside,
+      // the rounded value. A non-whole number in an integer column is missing.
+      const u = `(${x} / CAST(${quoteString(c.step)} AS DOUBLE))`;
+      const inside = whole === "" ? `CAST(round(${u}) AS BIGINT)` : `CASE WHEN ${x} = round(${x}) THEN CAST(round(${u}) AS BIGINT) END`;
+      const value =
+        `CASE WHEN ${u} <= ${lo} THEN (CASE WHEN ${x} > CAST('-inf' AS DOUBLE)${whole} THEN ${lo} END) ` +
+        `WHEN ${u} >= ${hi} THEN (CASE WHEN ${x} < CAST('inf' AS DOUBLE)${whole} THEN ${hi} END) ` +
+        `ELSE ${inside} END AS c${i}`;
+      const flag =
+        `CAST(CASE WHEN NOT (${fits}) THEN NULL WHEN ${x} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
+        `WHEN ${x} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+      return [value, flag];
+    }
+    case "date":
+      return [`CASE WHEN ${x} BETWEEN DATE ${quoteString(c.lower)} AND DATE ${quoteString(c.upper)} THEN ${x} END AS c${i}`];
+    default:
+      return [`${x} AS c${i}`];
+  }
+}
+
+/**
+ * The first line of a DuckDB error for a steward-facing start error, with every quoted part
+ * (which could hold a value read from the data) replaced by "…".
+ */
+export function engineMessage(e: unknown): string {
+  if (!(e instanceof Error)) return "error";
+  return e.message.split("\n")[0].replace(/'[^']*'|"[^"]*"/g, "…").slice(0, 300);
+}

@@ -1,0 +1,306 @@
+/**
+ * Policy `source` forms and the DuckDB engine's start checks for them: files in place (Parquet and
+ * CSV), prepared DuckDB files, PostgreSQL connection settings (parsed here; the engine is in
+ * engines/postgres/), and the engine limits. Every bad configuration is a clear error at start
+ * that names the dataset and the problem and shows no data value.
+ */
+import { mkdirSync, utimesSync, writeFileSync } from "node:fs";
+import { dirname, join } from "node:path";
+import { DuckDBInstance } from "@duckdb/node-api";
+import { describe, expect, it } from "vitest";
+import { Bits, seededBytes } from "../../runtime/core/index.js";
+import { DuckDBEngine } from "../../runtime/curator/engines/duckdb/engine.js";
+import { prepareDataset } from "../../runtime/curator/engines/duckdb/prepare.js";
+import { loadPolicy, parsePolicy } from "../../runtime/curator/policy.js";
+import { PolicyError, UnreachableError } from "../../runtime/errors.js";
+import { policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
+import { runPrepare } from "../../cli/commands/prepare.js";
+
+const COLUMNS = `    accounting: { mode: pure, cap: { epsilon: "10" } }
+    analysts: [ada]
+    columns:
+      age: { type: integer, range: [0, 100] }
+      town: { type: category, values: [a, b] }
+`;
+
+async function duck(sql: string[]): Promise<void> {
+  const i = await DuckDBInstance.create(":memory:");
+  const c = await i.connect();
+  for (const s of sql) await c.run(s);
+  c.closeSync();
+  i.closeSync();
+}
+
+describe("policy source forms", () => {
+  const parse = (source: string, extra = "") => parsePolicy(policyWith(`    source: ${source}\n${COLUMNS}`, extra), "/srv/p/policy.yaml").datasets.get("d")!;
+
+  it("a path is copied into memory; files, duckdb and postgres forms parse to their kinds", () => {
+    expect(parse("data.csv").origin).toEqual({ kind: "memory", path: "/srv/p/data.csv", format: "csv" });
+    expect(parse('{ files: "parts/*.parquet" }').origin).toEqual({ kind: "files", pattern: "/srv/p/parts/*.parquet", format: "parquet" });
+    expect(parse('{ files: "parts/*.txt", format: csv }').origin).toMatchObject({ kind: "files", format: "csv" });
+    const db = parse("{ duckdb: v.duckdb, table: visits }");
+    expect(db.origin).toEqual({ kind: "duckdb", path: "/srv/p/v.duckdb", table: "visits" });
+    expect(db.source).toBe("/srv/p/v.duckdb#visits");
+    const pg = parse("{ postgres: { host: 127.0.0.1, port: 5433, database: clinic, user: hush, table: care.visits, passwordEnv: HUSH_PG } }");
+    expect(pg.origin).toEqual({
+      kind: "postgres", host: "127.0.0.1", port: 5433, database: "clinic", user: "hush", schema: "care", table: "visits",
+      passwordFile: null, passwordEnv: "HUSH_PG", sslmode: null,
+    });
+    expect(pg.source).toBe("postgresql://hush@127.0.0.1:5433/clinic/care.visits");
+    expect(parse("{ postgres: { host: db, database: c, user: u, table: visits, passwordFile: pw.txt } }").origin).toMatchObject({ port: 5432, schema: "public", passwordFile: "/srv/p/pw.txt" });
+  });
+
+  it("refuses a password in the policy text, and other bad connection settings, naming the path", () => {
+    const bad = (src: string, path: RegExp, what: RegExp) => {
+      let err: unknown;
+      try {
+        parse(src);
+      } catch (e) {
+        err = e;
+      }
+      expect(err).toBeInstanceOf(PolicyError);
+      expect((err as Error).message).toMatch(path);
+      expect((err as Error).message).toMatch(what);
+      expect((err as Error).message).not.toContain("s3cret");
+    };
+    bad("{ postgres: { host: db, database: c, user: u, table: t, password: s3cret } }", /datasets\.d\.source\.postgres\.password/, /must not be written in the policy/);
+    bad("{ postgres: { host: db, database: c, user: u, table: t, passwordFile: a, passwordEnv: B } }", /source\.postgres/, /not both/);
+    bad("{ postgres: { host: db, database: c, user: u, table: a.b.c } }", /source\.postgres\.table/, /schema\.table/);
+    bad("{ postgres: { host: db, database: c, user: u, table: t, port: 70000 } }", /source\.postgres\.port/, /./);
+    bad("{ postgres: { host: db, database: c, user: u, table: t, sslmode: maybe } }", /source\.postgres\.sslmode/, /disable, prefer/);
+    bad("{ postgres: { host: db, database: c, table: t } }", /source\.postgres\.user/, /./);
+    bad('{ files: "x/*.xlsx" }', /datasets\.d\.source\.files/, /\.csv or \.parquet/);
+    bad("{ duckdb: v.duckdb }", /datasets\.d\.source/, /must be a file path/);
+  });
+
+  it("engine limits: DuckDB's memory_limit and threads, checked", () => {
+    const p = parsePolicy(policyWith(`    source: data.csv\n${COLUMNS}`, 'engine: { memoryLimit: "1.5GB", threads: 2 }\n'), "/srv/p/policy.yaml");
+    expect(p.engine).toEqual({ memoryLimit: "1.5GB", threads: 2 });
+    expect(parsePolicy(policyWith(`    source: data.csv\n${COLUMNS}`), "/srv/p/policy.yaml").engine).toEqual({ memoryLimit: null, threads: null });
+    expect(() => parsePolicy(policyWith(`    source: data.csv\n${COLUMNS}`, 'engine: { memoryLimit: "lots" }\n'), "/p.yaml")).toThrow(/engine\.memoryLimit: must be a size/);
+    expect(() => parsePolicy(policyWith(`    source: data.csv\n${COLUMNS}`, "engine: { threads: 0 }\n"), "/p.yaml")).toThrow(/engine\.threads/);
+    expect(() => parsePolicy(policyWith(`    source: data.csv\n${COLUMNS}`, "engine: { threads: 1.5 }\n"), "/p.yaml")).toThrow(/engine\.threads/);
+  });
+});
+
+describe("DuckDB files in place", () => {
+  const CSV = "age,town,pid\n3,a,x\n140,b,x\n-2,c,y\nold,a,y\n50,,z\n";
+
+  it("CSV in place: values that do not fit are missing (the same rule for every query), limits applied", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "parts/*.csv" }\n${COLUMNS}`, 'engine: { memoryLimit: "256MB", threads: 1 }\n'));
+    mkdirSync(join(dirname(file), "parts"));
+    writeFileSync(join(dirname(file), "parts", "one.csv"), CSV);
+    writeFileSync(join(dirname(file), "parts", "two.csv"), "age,town,pid\n7,b,q\n");
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    try {
+      const [[rows, ages, sum, lower, upper, towns]] = await e.cells({
+        dataset: "d",
+        keys: [],
+        terms: [
+          { kind: "count" }, { kind: "present", column: "age" }, { kind: "sum", column: "age" },
+          { kind: "atLower", column: "age" }, { kind: "atUpper", column: "age" }, { kind: "present", column: "town" },
+        ],
+      });
+      // 6 rows; "old" is not a number (missing); 140 clamps to 100, -2 to 0; "c" is not a declared town (missing).
+      expect([rows, ages, sum, lower, upper, towns]).toEqual([6n, 5n, 3n + 100n + 0n + 50n + 7n, 1n, 1n, 4n]);
+      expect(e.access("d")).toBe("CSV in place, 2 files");
+      const [[mem, threads]] = await e.query("SELECT current_setting('memory_limit'), current_setting('threads')", []);
+      expect(String(mem)).toMatch(/^24[0-9.]+ MiB$|^256\.0 MiB$|MB|MiB/);
+      expect(Number(threads)).toBe(1);
+    } finally {
+      await e.close();
+    }
+  });
+
+  it("refuses at start: CSV in place with a unit column, no matching file, a column of the wrong type", async () => {
+    const withUnit = tempPolicy(policyWith(`    source: { files: "*.csv" }\n    unit: { column: pid, maxRows: 2 }\n${COLUMNS}`), { "a.csv": CSV });
+    await expect(DuckDBEngine.open(loadPolicy(withUnit), { quiet: true })).rejects.toThrow(/datasets\.d\.unit\.column: CSV files queried in place give no row positions/);
+    const none = tempPolicy(policyWith(`    source: { files: "nothing/*.parquet" }\n${COLUMNS}`));
+    await expect(DuckDBEngine.open(loadPolicy(none), { quiet: true })).rejects.toThrow(/datasets\.d\.source\.files: no file matches/);
+    const typed = tempPolicy(policyWith(`    source: { files: "t.parquet" }\n${COLUMNS}`));
+    await duck([`COPY (SELECT DATE '2025-01-01' AS age, 'a' AS town) TO '${join(dirname(typed), "t.parquet")}' (FORMAT parquet)`]);
+    const err = await DuckDBEngine.open(loadPolicy(typed), { quiet: true }).then(() => null, (x: unknown) => x as Error);
+    expect(err).toBeInstanceOf(PolicyError);
+    expect(err!.message).toMatch(/datasets\.d\.columns\.age: the files' column "age" has type DATE, which cannot hold a integer column/);
+    expect(err!.message).not.toContain("2025-01-01");
+  });
+
+  it("a file changed after start refuses the next statement (nothing is read from the changed data)", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "p.parquet" }\n    unit: { column: pid, maxRows: 2 }\n${COLUMNS}`));
+    const pq = join(dirname(file), "p.parquet");
+    await duck([`COPY (SELECT range % 100 AS age, 'a' AS town, 'u' || (range % 7) AS pid FROM range(100)) TO '${pq}' (FORMAT parquet)`]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("change")) });
+    try {
+      const req = { dataset: "d", keys: [], terms: [{ kind: "count" as const }] };
+      expect(await e.cells(req)).toEqual([[14n]]); // 7 units, 2 rows each
+      utimesSync(pq, new Date(), new Date(Date.now() + 5000));
+      await expect(e.cells(req)).rejects.toThrow(UnreachableError);
+      await expect(e.cells(req)).rejects.toThrow(/data files of dataset d changed after the curator started; nothing was spent/);
+    } finally {
+      await e.close();
+    }
+  });
+});
+
+describe("prepared DuckDB files", () => {
+  it("refuses to start on a file not prepared, or prepared for another declaration; starts once prepared", async () => {
+    const file = tempPolicy(policyWith(`    source: { duckdb: v.duckdb, table: visits }\n    unit: { column: pid, maxRows: 2 }\n${COLUMNS}`));
+    const db = join(dirname(file), "v.duckdb");
+    const i = await DuckDBInstance.create(db);
+    const c = await i.connect();
+    await c.run("CREATE TABLE visits AS SELECT range % 100 AS age, CASE WHEN range % 3 = 0 THEN 'a' ELSE 'b' END AS town, 'u' || (range % 9) AS pid FROM range(90)");
+    c.closeSync();
+    i.closeSync();
+    const policy = loadPolicy(file);
+    await expect(DuckDBEngine.open(policy, { quiet: true })).rejects.toThrow(/datasets\.d\.source: table "visits" has not been prepared for this declaration; run `hush prepare/);
+    const report = await prepareDataset(policy, policy.datasets.get("d")!, new Bits(seededBytes("prep")));
+    expect(report).toEqual({ rows: 90, rejected: 0, reasons: {} });
+    const e = await DuckDBEngine.open(policy, { quiet: true });
+    try {
+      expect(await e.cells({ dataset: "d", keys: [{ column: "town" }], terms: [{ kind: "count" }] })).toEqual([[6n], [12n]]); // 9 units of 10 rows, 2 kept each; town is a for units 0, 3, 6
+      expect(e.loadReport("d")).toEqual(report);
+    } finally {
+      await e.close();
+    }
+    const changed = tempPolicy(policyWith(`    source: { duckdb: ${db}, table: visits }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    await expect(DuckDBEngine.open(loadPolicy(changed), { quiet: true })).rejects.toThrow(/was prepared for another declaration/);
+  });
+});
+
+describe("hush prepare", () => {
+  it("prepares every DuckDB-file dataset of a policy and prints the steward's report; refuses other datasets by name", async () => {
+    const file = tempPolicy(policyWith(`    source: { duckdb: v.duckdb, table: main.visits }\n${COLUMNS}`));
+    const db = join(dirname(file), "v.duckdb");
+    await duck([`ATTACH '${db}' AS v`, "CREATE TABLE v.visits AS SELECT CASE WHEN range = 3 THEN NULL ELSE range END AS age, CASE WHEN range = 4 THEN 'zz' ELSE 'a' END AS town FROM range(10)"]);
+    const lines: string[] = [];
+    await runPrepare({ policy: file }, (s) => void lines.push(s));
+    // The category value outside the list is left out at preparation (counted, never shown).
+    expect(lines.join("")).toMatch(/^dataset d: prepared 9 rows, left out 1 \(town: value outside the declared list: 1\) in [0-9.]+ s\n$/);
+    expect(lines.join("")).not.toContain("zz");
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    try {
+      expect(await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }, { kind: "present", column: "age" }] })).toEqual([[9n, 8n]]);
+    } finally {
+      await e.close();
+    }
+    const other = tempPolicy(policyWith(`    source: data.csv\n${COLUMNS}`));
+    await expect(runPrepare({ policy: other, dataset: "d" }, () => undefined)).rejects.toThrow(/datasets\.d\.source is not a DuckDB file/);
+    const none: string[] = [];
+    await runPrepare({ policy: other }, (s) => void none.push(s));
+    expect(none.join("")).toMatch(/nothing to prepare/);
+  });
+});
+
+describe("in place: the per-unit order kept for the next start", () => {
+  it("a second start over the same files reuses it (same kept rows); changed files or declaration make a new one", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "p.parquet" }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    const pq = join(dirname(file), "p.parquet");
+    await duck([`COPY (SELECT range % 100 AS age, CASE WHEN range % 2 = 0 THEN 'a' ELSE 'b' END AS town, 'u' || (range % 11) AS pid FROM range(300)) TO '${pq}' (FORMAT parquet)`]);
+    const cacheDir = join(dirname(file), "state", "in-place");
+    const req = { dataset: "d", keys: [{ column: "town" }], terms: [{ kind: "sum" as const, column: "age" }] };
+    const first = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("one")), cacheDir });
+    const a = await first.cells(req);
+    expect(first.access("d")).not.toMatch(/start cache/);
+    await first.close();
+    // Other bits: only the cache can give the same kept rows.
+    const second = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("two")), cacheDir });
+    expect(second.access("d")).toMatch(/per-unit order from the start cache/);
+    expect(await second.cells(req)).toEqual(a);
+    await second.close();
+    // The files changed: a new order is drawn (and the counts still bounded: 11 units, 3 rows each).
+    utimesSync(pq, new Date(), new Date(Date.now() + 5000));
+    const third = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("three")), cacheDir });
+    expect(third.access("d")).not.toMatch(/start cache/);
+    expect(await third.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
+    await third.close();
+  });
+});
+
+describe("in place computes the load's stored values", () => {
+  it("row by row on awkward numbers: halves, bounds, huge, non-finite, negative zero, non-whole integers", async () => {
+    const values = [
+      "0.25", "0.75", "-0.25", "-0.75", "2.25", "-2.25", "10", "-10", "10.25", "-10.25", "1e300", "-1e300",
+      "'nan'", "'inf'", "'-inf'", "0.49999999999999994", "-0.0", "NULL", "9.75", "2.5",
+    ];
+    // Rows r0..r19 try each value in v (n = 0), rows r20..r39 in n (v = 0): a row the load leaves
+    // out is left out for its own value only.
+    const rows = [
+      ...values.map((v, j) => `SELECT 'r${j}' AS rid, CAST(${v} AS DOUBLE) AS v, 0.0 AS n`),
+      ...values.map((v, j) => `SELECT 'r${j + 20}' AS rid, 0.0 AS v, CAST(${v} AS DOUBLE) AS n`),
+    ].join(" UNION ALL ");
+    const cols = `    accounting: { mode: pure, cap: { epsilon: "10" } }
+    analysts: [ada]
+    columns:
+      rid: { type: category, values: [${[...values, ...values].map((_, j) => `r${j}`).join(", ")}] }
+      v: { type: number, range: [-10, 10], step: "0.5" }
+      n: { type: integer, range: [-10, 10] }
+`;
+    const file = tempPolicy(`${policyWith(`    source: a.parquet\n    population: one\n${cols}`)}  e:\n    source: { files: a.parquet }\n    population: one\n${cols}`);
+    await duck([`COPY (${rows}) TO '${join(dirname(file), "a.parquet")}' (FORMAT parquet)`]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
+    try {
+      for (const column of ["v", "n"]) {
+        const terms = [
+          { kind: "present" as const, column },
+          { kind: "sum" as const, column },
+          { kind: "sumSquares" as const, column },
+          { kind: "atLower" as const, column },
+          { kind: "atUpper" as const, column },
+        ];
+        // The rows that try values in this column (the other rows are whole-row rejections in
+        // memory when the other column's value does not fit, by design).
+        const part = (cells: bigint[][]) => (column === "v" ? cells.slice(0, 20) : cells.slice(20));
+        const mem = part(await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms }));
+        const inPlace = part(await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms }));
+        // Rows the load leaves out (a non-finite v or n, a non-whole n) are zeros in memory; in
+        // place the row is there but the value is missing: the same zeros for every term of it.
+        expect(inPlace, column).toEqual(mem);
+      }
+      // Spot checks against hand-worked grid units (step 0.5 for v): 0.25 -> 0.5 units, rounded
+      // half away from zero to 1; -0.25 -> -1; 2.25 -> 4.5 -> 5; 10.25 clamps to 20; -0.0 -> 0.
+      const sums = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "v" }] });
+      expect([sums[0][0], sums[2][0], sums[4][0], sums[8][0], sums[9][0], sums[16][0]]).toEqual([1n, -1n, 5n, 20n, -20n, 0n]);
+      // n is an integer column: of its 20 values, the whole finite ones are 10, -10, 1e300,
+      // -1e300 and -0.0 (5), plus the 20 zeros of rows r0..r19.
+      const n = await e.cells({ dataset: "e", keys: [], terms: [{ kind: "present", column: "n" }, { kind: "atUpper", column: "n" }] });
+      expect(n).toEqual([[25n, 1n]]);
+      // The memory load left out the rows with a non-finite v or n, or a non-whole n: 3 + 3 + 11 ... counted.
+      expect(e.loadReport("d").rejected).toBe(3 + 3 + 11);
+    } finally {
+      await e.close();
+    }
+  });
+});
+
+describe("the per-unit order is a uniform choice", () => {
+  /**
+   * One unit of 8 rows, maxRows 4: over many seeds every pair of rows should be kept together
+   * with probability (4/8)(3/7) = 3/14 (a uniformly random 4-of-8 subset; elementary counting).
+   * The order form the engines use, hash(hash(position) XOR seed), against DuckDB's
+   * hash(position, seed), which fails this check badly (one pair kept together about 10,000 times
+   * in 20,000 seeds). 4,000 seeds here: each pair's count is Binomial(4000, 3/14), sd about 26;
+   * the bounds are 6 sd.
+   */
+  it("pairs of rows are kept together as often as a uniform 4-of-8 choice gives", async () => {
+    const i = await DuckDBInstance.create(":memory:", { threads: "1" });
+    const c = await i.connect();
+    try {
+      const pairs = async (order: string) => {
+        const q =
+          `WITH sel AS (SELECT s, r FROM (SELECT s, r, row_number() OVER (PARTITION BY s ORDER BY ${order}) AS k FROM ` +
+          `(SELECT (hash(i, 77) >> 1)::UBIGINT AS s FROM range(4000) t(i)), (SELECT r::BIGINT AS r FROM range(8) t2(r))) WHERE k <= 4) ` +
+          `SELECT count(*) FROM sel a JOIN sel b ON a.s = b.s AND a.r < b.r GROUP BY a.r, b.r`;
+        return (await c.runAndReadAll(q)).getRows().map((x) => Number(x[0]));
+      };
+      const expected = (4000 * 3) / 14;
+      const used = await pairs("hash(xor(hash(r), s))");
+      expect(used).toHaveLength(28);
+      for (const n of used) expect(Math.abs(n - expected)).toBeLessThan(6 * 26);
+      const plain = await pairs("hash(r, s)");
+      expect(Math.max(...plain.map((n) => Math.abs(n - expected)))).toBeGreaterThan(6 * 26);
+    } finally {
+      c.closeSync();
+      i.closeSync();
+    }
+  });
+});
