@@ -4,14 +4,14 @@
  * A mean's error bar depends on its noisy count, which is private, so a preview cannot state it
  * without an assumption. Here the assumption is explicit and public: a count of values per group,
  * stated by the analyst (`assumeCount`) or by the steward's policy (`sizeHint`). For that count, the
- * figures are the half-widths the release would compute (the same corner method, docs/methods.md
+ * figures are the half-widths the release would compute (the same pivot method, docs/methods.md
  * §8, with the same laws and confidence) if its noisy parts landed on the values the assumption
  * gives them: the noise-free count and sums of data with the stated mean and spread. They are
  * typical widths, not bounds: a release's own error bar uses its noisy parts and can differ. No
  * data is read; the inputs are the plan, the policy and the assumption.
  *
  * Points: the mean at the range's midpoint (typical) and at eight more points out to an end of the
- * range (the widest is reported; the corner interval widens as |mean - midpoint| grows until the
+ * range (the widest is reported; the interval widens as |mean - midpoint| grows until the
  * range clamps it). Variance and std: six points, the mean at the midpoint or half-way to an end
  * and the spread from nothing to the most the range allows; typical is the mean at the midpoint
  * with a standard deviation of half the half-range. The work is a fixed number of exact interval
