@@ -188,3 +188,74 @@ export async function startCluster(opts: ClusterOptions = {}): Promise<PgCluster
     throw e;
   }
 }
+
+/** A read-only role for the curator, with a scram password, that may read `tables` (schema public). */
+export async function createReader(c: PgCluster, user = "hush_reader"): Promise<{ user: string; password: string }> {
+  const password = `rd-${randomBytes(12).toString("hex")}`;
+  // Identifiers and the password are ours (hex), so plain interpolation is safe here.
+  await c.sql(`CREATE ROLE ${user} LOGIN PASSWORD '${password}'`);
+  await c.sql(`GRANT SELECT ON ALL TABLES IN SCHEMA public TO ${user}`);
+  await c.sql(`ALTER DEFAULT PRIVILEGES IN SCHEMA public GRANT SELECT ON TABLES TO ${user}`);
+  return { user, password };
+}
+
+export interface ShardedSet {
+  coordinator: PgCluster;
+  shards: PgCluster[];
+  reader: { user: string; password: string };
+  stop(): Promise<void>;
+}
+
+/**
+ * A coordinator and `n` shard clusters wired with postgres_fdw: one foreign server per shard
+ * (use_remote_estimate, fetch_size, batch_size, async_capable), and user mappings for the admin
+ * and for a reader role created on every cluster. `createSharded` then makes a hash-partitioned
+ * table whose partitions are foreign tables, one per shard.
+ */
+export async function startShardedSet(n: number): Promise<ShardedSet> {
+  const started: PgCluster[] = [];
+  try {
+    for (let i = 0; i <= n; i++) started.push(await startCluster());
+    const [coordinator, ...shards] = started;
+    const reader = await createReader(coordinator);
+    await coordinator.sql("CREATE EXTENSION postgres_fdw");
+    for (const [i, s] of shards.entries()) {
+      await s.sql(`CREATE ROLE ${reader.user} LOGIN PASSWORD '${reader.password}'`);
+      await s.sql(`ALTER DEFAULT PRIVILEGES IN SCHEMA public GRANT SELECT ON TABLES TO ${reader.user}`);
+      await coordinator.sql(
+        `CREATE SERVER shard${i} FOREIGN DATA WRAPPER postgres_fdw OPTIONS (host '127.0.0.1', port '${s.port}', dbname 'postgres', ` +
+          `use_remote_estimate 'true', fetch_size '50000', batch_size '1000', async_capable 'true')`,
+      );
+      await coordinator.sql(`CREATE USER MAPPING FOR ${coordinator.admin.user} SERVER shard${i} OPTIONS (user '${s.admin.user}', password '${s.admin.password}')`);
+      await coordinator.sql(`CREATE USER MAPPING FOR ${reader.user} SERVER shard${i} OPTIONS (user '${reader.user}', password '${reader.password}')`);
+      await coordinator.sql(`GRANT USAGE ON FOREIGN SERVER shard${i} TO ${reader.user}`);
+    }
+    return {
+      coordinator,
+      shards,
+      reader,
+      async stop() {
+        await Promise.all(started.map((c) => c.stop()));
+      },
+    };
+  } catch (e) {
+    await Promise.all(started.map((c) => c.stop()));
+    throw e;
+  }
+}
+
+/**
+ * On every shard, `CREATE TABLE <name>_p<i> (<columns>)`; on the coordinator, `<name>` partitioned
+ * by `partitionBy` (e.g. "HASH (patient)") with one foreign partition per shard.
+ */
+export async function createSharded(set: ShardedSet, name: string, columns: string, partitionBy: string): Promise<void> {
+  const n = set.shards.length;
+  await set.coordinator.sql(`CREATE TABLE ${name} (${columns}) PARTITION BY ${partitionBy}`);
+  for (const [i, s] of set.shards.entries()) {
+    await s.sql(`CREATE TABLE ${name}_p${i} (${columns})`);
+    const bound = partitionBy.startsWith("HASH") ? `FOR VALUES WITH (MODULUS ${n}, REMAINDER ${i})` : "DEFAULT";
+    if (bound === "DEFAULT" && i > 0) continue;
+    await set.coordinator.sql(`CREATE FOREIGN TABLE ${name}_p${i} PARTITION OF ${name} ${bound} SERVER shard${i} OPTIONS (table_name '${name}_p${i}')`);
+  }
+  await set.coordinator.sql(`GRANT SELECT ON ${name} TO ${set.reader.user}`);
+}

@@ -1,0 +1,203 @@
+/**
+ * PostgreSQL SQL for the answering code: the row-level steps as expressions over the steward's
+ * table, and the one aggregate shape every release uses. Nothing here reads data.
+ *
+ * The source relation (`sourceSelect`) exposes, for every row of the table:
+ *
+ *   c<i>  numeric column -> BIGINT grid units, clamp(round(x / step)) to the declared range
+ *         category column -> INTEGER index into the declared list (NULL for a missing value)
+ *         date / boolean  -> the value itself
+ *   k<i>  numeric column: -1 when the raw value lay below the declared lower bound, 1 above the
+ *         upper bound, 0 otherwise, NULL when missing (the clamping flag of engines/types.ts)
+ *   __u   the unit id as stored (only with a unit column)
+ *   __r   the row's place in a random order of the table (hashtextextended of the row's ctid under
+ *         a 64-bit seed drawn from the CSPRNG at start; a view, which has no ctid, hashes the whole
+ *         row under the seed). It never looks at a value of a table row
+ *   __ok  the row fits the declared schema (the same rules as the DuckDB loader: a number that is
+ *         NaN or infinite, a non-whole number in an integer column, a category value outside the
+ *         list, a date outside the range, or a missing unit id leave the whole row out)
+ *
+ * Rounding is exact: x * (den/num of the step) in PostgreSQL's numeric, rounded half away from
+ * zero (round(numeric)), the same rule DuckDB's round applies to its binary64 quotient; integer
+ * columns on an integer step stay in bigint arithmetic. Clamping happens before the cast to
+ * bigint, so no value, however large, can make the cast fail.
+ *
+ * Identifiers of the steward's table and columns come from the policy and are quoted; declared
+ * category values and grid bounds are steward-trusted literals written by us; everything from a
+ * plan (filter literals, bins, maxRows, the seed) is a bound parameter ($1, $2, ...).
+ */
+import type { Grid } from "../../../core/index.js";
+import type { ColumnPolicy, DatasetPolicy } from "../../policy.js";
+import type { Params } from "../../sql.js";
+
+/** SQL identifier quoting (double quotes, inner quotes doubled). */
+export function quoteIdent(name: string): string {
+  return `"${name.replace(/"/g, '""')}"`;
+}
+
+/** SQL string literal (standard_conforming_strings is forced on for every connection). */
+export function quoteString(s: string): string {
+  return `'${s.replace(/'/g, "''")}'`;
+}
+
+/** How PostgreSQL stores a declared column, as read from information_schema at start. */
+export type PgKind = "int" | "numeric" | "float" | "text" | "date" | "boolean" | "enum";
+
+export interface SourceColumn {
+  policy: ColumnPolicy;
+  kind: PgKind;
+}
+
+export interface SourceShape {
+  /** Quoted, schema-qualified relation. */
+  relation: string;
+  /** Tables (plain, partitioned, foreign) have a ctid; views do not. */
+  hasCtid: boolean;
+  dataset: DatasetPolicy;
+  columns: SourceColumn[];
+  /** Secret 64-bit seed of the rank order __r (drawn from the CSPRNG at start, never sent anywhere else). */
+  seed: bigint;
+}
+
+const INT_SAFE = 1n << 62n;
+
+function gridUnits(x: string, kind: PgKind, g: Grid): string {
+  const lo = g.lowerUnits.toString();
+  const hi = g.upperUnits.toString();
+  const s = g.step;
+  if (kind === "int" && s.den === 1n) {
+    // Integer column, integer step: clamp in value units, then round half away from zero with
+    // bigint arithmetic: sign(v) * ((2|v| + s) / (2s)).
+    if (s.num === 1n) return `LEAST(GREATEST(${x}::bigint, ${lo}), ${hi})`;
+    const vlo = g.lowerUnits * s.num;
+    const vhi = g.upperUnits * s.num;
+    if (vlo > -INT_SAFE && vhi < INT_SAFE && s.num < INT_SAFE / 4n) {
+      const v = `LEAST(GREATEST(${x}::bigint, ${vlo}), ${vhi})`;
+      return `(sign(${v}) * ((2 * abs(${v}) + ${s.num}) / ${2n * s.num}))::bigint`;
+    }
+  }
+  // x / step = x * den / num, exact in numeric when num is 1 (steps such as 0.1, 0.01, 1).
+  const scaled = s.num === 1n ? `${x}::numeric * ${s.den}` : `${x}::numeric * ${s.den} / ${s.num}`;
+  return `round(LEAST(GREATEST(${scaled}, ${lo}), ${hi}))::bigint`;
+}
+
+function nonFinite(x: string): string {
+  return `${x} IN ('NaN', 'Infinity', '-Infinity')`;
+}
+
+/** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
+function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string } {
+  const p = c.policy;
+  switch (p.type) {
+    case "integer":
+    case "number": {
+      const misfit: string[] = [];
+      if (c.kind !== "int") {
+        misfit.push(`${raw} IS NOT NULL AND ${nonFinite(raw)}`);
+        if (p.type === "integer") misfit.push(`${raw} IS NOT NULL AND NOT ${nonFinite(raw)} AND ${raw} <> trunc(${raw})`);
+      }
+      const lower = c.kind === "int" ? p.lower : `${quoteString(p.lower)}::numeric`;
+      const upper = c.kind === "int" ? p.upper : `${quoteString(p.upper)}::numeric`;
+      const asNum = c.kind === "float" ? `${raw}::numeric` : raw;
+      const safe = c.kind === "float" ? `NOT ${nonFinite(raw)} AND ` : "";
+      return {
+        value: `CASE WHEN ${raw} IS NULL THEN NULL ELSE ${gridUnits(raw, c.kind, p.grid)} END`,
+        misfit,
+        // A float's NaN/inf rows are left out anyway; the guard only keeps the cast from failing.
+        flag: `CASE WHEN ${raw} IS NULL THEN NULL WHEN ${safe}${asNum} < ${lower} THEN -1 WHEN ${safe}${asNum} > ${upper} THEN 1 ELSE 0 END`,
+      };
+    }
+    case "category": {
+      const text = c.kind === "text" ? raw : `${raw}::text`;
+      const arms = p.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
+      const value = `(CASE ${text} ${arms} END)`;
+      return { value, misfit: [`${raw} IS NOT NULL AND ${value} IS NULL`] };
+    }
+    case "date":
+      return {
+        value: raw,
+        misfit: [`${raw} < DATE ${quoteString(p.lower)} OR ${raw} > DATE ${quoteString(p.upper)}`],
+      };
+    case "boolean":
+      return { value: raw, misfit: [] };
+  }
+}
+
+/**
+ * The source relation (see the file header). `seed` is the placeholder of the 64-bit rank seed.
+ * Only the columns a query names are computed: PostgreSQL drops unused outputs of a subquery it
+ * flattens.
+ */
+export function sourceSelect(shape: SourceShape, seed: string): string {
+  const sel: string[] = [];
+  const misfits: string[] = [];
+  shape.columns.forEach((c, i) => {
+    const raw = `__s.${quoteIdent(c.policy.from)}`;
+    const sql = columnSql(c, raw);
+    sel.push(`${sql.value} AS c${i}`);
+    if (sql.flag !== undefined) sel.push(`${sql.flag} AS k${i}`);
+    for (const m of sql.misfit) misfits.push(`COALESCE(${m}, FALSE)`);
+  });
+  const unit = shape.dataset.unit.column;
+  if (unit !== null) {
+    const u = `__s.${quoteIdent(unit)}`;
+    sel.push(`${u} AS __u`);
+    misfits.push(`${u} IS NULL`);
+    const id = shape.hasCtid ? "__s.ctid::text" : "__s::text";
+    sel.push(`hashtextextended(${id}, ${seed}) AS __r`);
+  }
+  sel.push(misfits.length === 0 ? "TRUE AS __ok" : `NOT (${misfits.join(" OR ")}) AS __ok`);
+  return `SELECT ${sel.join(", ")} FROM ${shape.relation} AS __s`;
+}
+
+/**
+ * The kept rows, as a FROM item with a match flag __m: filtered rows, each unit bounded to at
+ * most maxRows rows. Every row of the table that fits the schema is scanned, windowed and handed
+ * to the aggregates whatever the filter matches (aggregates take FILTER (WHERE __m)), so the SQL's
+ * work does not follow the filter. In a unit with more than maxRows rows, the matching rows come
+ * first in the random order __r and the first maxRows of them are kept: a uniformly random subset
+ * of its matching rows, chosen from its own rows only (the stability argument of docs/methods.md §7).
+ *
+ * `cols` are the c<i>/k<i> names the aggregate reads; `where` is compiled over c<i>.
+ */
+export function flaggedFrom(shape: SourceShape, where: string, cols: readonly string[], ps: Params): string {
+  const uniq = [...new Set(cols)];
+  const list = uniq.length === 0 ? "" : `${uniq.join(", ")}, `;
+  const seedless = shape.dataset.unit.column === null;
+  const hit = where === "TRUE" ? "TRUE" : `COALESCE(${where}, FALSE)`;
+  if (seedless) {
+    // Each row is its own unit: no window, and the filter is a flag, not a WHERE.
+    return `(SELECT ${list}${hit} AS __m FROM (${sourceSelect(shape, "0")}) AS __v WHERE __ok) AS __kept`;
+  }
+  const seed = ps.add({ type: "bigint", value: shape.seed });
+  const k = ps.add({ type: "integer", value: shape.dataset.unit.maxRows });
+  return (
+    `(SELECT ${list}(__h AND row_number() OVER (PARTITION BY __u ORDER BY __h DESC, __r) <= ${k}) AS __m ` +
+    `FROM (SELECT ${list}${hit} AS __h, __u, __r FROM (${sourceSelect(shape, seed)}) AS __v WHERE __ok) AS __w) AS __kept`
+  );
+}
+
+/**
+ * Per unit, min(matching rows, maxRows) as __n, grouped by the unit column itself: the kept count
+ * of each unit, whichever rows the window of flaggedFrom would keep. The GROUP BY is on the raw
+ * unit column, so over a table hash-partitioned on it PostgreSQL aggregates each partition on its
+ * own (enable_partitionwise_aggregate) and postgres_fdw sends that aggregate to the shard.
+ */
+export function unitCounts(shape: SourceShape, where: string, ps: Params): string {
+  const hit = where === "TRUE" ? "TRUE" : `COALESCE(${where}, FALSE)`;
+  const k = ps.add({ type: "integer", value: shape.dataset.unit.maxRows });
+  return (
+    `(SELECT least(count(*) FILTER (WHERE __h), ${k}) AS __n FROM (SELECT ${hit} AS __h, __u FROM (${sourceSelect(shape, "0")}) AS __v WHERE __ok) AS __w ` +
+    `GROUP BY __u) AS __p`
+  );
+}
+
+/** Group key index expression over a numeric column's grid units: floor((u - lo) * bins / (hi - lo)), top edge in the last bin. */
+export function pgBinExpr(ident: string, grid: Grid, bins: number, ps: Params): string {
+  const lo = ps.big(grid.lowerUnits);
+  const span = ps.big(grid.upperUnits - grid.lowerUnits);
+  const b = ps.big(BigInt(bins));
+  const last = ps.big(BigInt(bins - 1));
+  // Units are >= lo, so bigint division (truncation) is floor here.
+  return `CASE WHEN ${ident} IS NULL THEN NULL ELSE LEAST((${ident} - ${lo}) * ${b} / ${span}, ${last}) END`;
+}
