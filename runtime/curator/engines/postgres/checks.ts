@@ -156,7 +156,7 @@ export async function checkSource(
     seed,
   };
   try {
-    await client.query(`SELECT count(*) FROM (${sourceSelect(shape, "$1::bigint")} LIMIT 0) AS __z`, [seed.toString()]);
+    await client.query(`SELECT count(*), min($1::bigint) FROM (${sourceSelect(shape, "$1::bigint")} LIMIT 0) AS __z`, [seed.toString()]);
   } catch (e) {
     const code = e instanceof Error && "code" in e ? String((e as { code: unknown }).code) : "";
     throw new PolicyError(`${where}: the declared schema cannot be applied to ${cfg.table}${code !== "" ? ` (SQLSTATE ${code})` : ""}`);

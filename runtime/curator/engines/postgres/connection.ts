@@ -18,7 +18,7 @@ export interface PgSourceConfig {
   table: string;
   passwordFile?: string;
   passwordEnv?: string;
-  sslmode?: "disable" | "require" | "verify-full";
+  sslmode?: "disable" | "prefer" | "require" | "verify-ca" | "verify-full";
 }
 
 /** Connections per dataset pool: a release runs one statement at a time, the pool bounds concurrency. */
@@ -63,7 +63,11 @@ export function readPassword(cfg: PgSourceConfig, where: string, baseDir: string
 
 /** node-postgres pool options for one dataset. statement_timeout follows the answering time limit. */
 export function poolConfig(cfg: PgSourceConfig, password: string | undefined, timeLimitMs: number): pg.PoolConfig {
-  const ssl = cfg.sslmode === undefined || cfg.sslmode === "disable" ? false : { rejectUnauthorized: cfg.sslmode === "verify-full" };
+  // node-postgres cannot fall back from TLS to plain text, so `prefer` asks for TLS like `require`
+  // (encrypted, certificate not checked); verify-ca and verify-full both check the certificate
+  // chain and the host name (node's TLS checks the name whenever it checks the chain).
+  const mode = cfg.sslmode ?? "disable";
+  const ssl = mode === "disable" ? false : { rejectUnauthorized: mode === "verify-ca" || mode === "verify-full" };
   return {
     host: cfg.host,
     port: cfg.port,

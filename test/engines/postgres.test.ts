@@ -1,0 +1,323 @@
+/**
+ * The PostgreSQL engine against a real throwaway PostgreSQL 15 cluster (test/helpers/pg-cluster.ts):
+ *
+ *  - true aggregates equal plain SQL written by hand and run directly in PostgreSQL over the same
+ *    table (pg-fixture.ts plainFits), and equal the DuckDB engine's over the same rows from a CSV;
+ *  - per-unit bounding keeps at most maxRows rows per unit (count = sum over units of
+ *    min(rows, maxRows), from plain SQL), the kept sum lies between the sums of each unit's
+ *    smallest and largest maxRows values, and the choice follows the seed, not the values;
+ *  - bad configuration fails at start with an error naming the dataset and the problem, never a
+ *    data value: unreachable server, wrong credentials, missing table, missing column, a column
+ *    type that does not fit the declared type, a password in the policy text, an unset passwordEnv.
+ */
+import { mkdtempSync, writeFileSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
+import { Bits, seededBytes } from "../../runtime/core/index.js";
+import { PostgresEngine } from "../../runtime/curator/engines/postgres/engine.js";
+import { type LoadedPolicy, loadPolicy } from "../../runtime/curator/policy.js";
+import { type PgCluster, createReader, havePostgres, startCluster } from "../helpers/pg-cluster.js";
+import { ADA_HASH } from "../fixtures/curator-helpers.js";
+import { COLUMNS_SQL, MARKER, POLICY_COLUMNS, REGIONS, generate, insertRows, plainFits, writeCsv } from "./pg-fixture.js";
+import type { CellsRequest } from "../../runtime/curator/engines/types.js";
+
+const ROWS = generate(3000, 6);
+
+let cluster: PgCluster;
+let reader: { user: string; password: string };
+let dir: string;
+
+function pgSource(table: string, over: Record<string, unknown> = {}): string {
+  const o = { host: "127.0.0.1", port: cluster.port, database: "postgres", user: reader.user, table, passwordFile: "pw.txt", ...over };
+  return `{ postgres: ${JSON.stringify(o)} }`;
+}
+
+function policy(datasets: string, name = "policy.yaml"): LoadedPolicy {
+  const file = join(dir, name);
+  writeFileSync(file, `analysts:\n  ada: { token: "${ADA_HASH}" }\ndatasets:\n${datasets}`);
+  return loadPolicy(file);
+}
+
+function dataset(name: string, source: string, unit: string | null): string {
+  return (
+    `  ${name}:\n    source: ${source}\n` +
+    (unit === null ? "" : `    unit: ${unit}\n`) +
+    `    accounting: { mode: pure, cap: { epsilon: "10" } }\n    analysts: [ada]\n${POLICY_COLUMNS}`
+  );
+}
+
+beforeAll(async () => {
+  if (!havePostgres()) return;
+  cluster = await startCluster();
+  dir = mkdtempSync(join(tmpdir(), "hush-pg-test-"));
+  const c = await cluster.connect();
+  try {
+    await c.query(`CREATE TABLE visits (${COLUMNS_SQL})`);
+    await insertRows(c, "visits", ROWS);
+    await c.query("CREATE VIEW visits_view AS SELECT * FROM visits");
+    await c.query("CREATE TABLE wrong_type (patient bigint, age text, income numeric, score float8, dose int, region text, visited date, insured boolean)");
+    await c.query("CREATE TABLE no_dose (patient bigint, age int, income numeric, score float8, region text, visited date, insured boolean)");
+    await c.query("CREATE SCHEMA hidden");
+    await c.query(`CREATE TABLE hidden.visits (${COLUMNS_SQL})`);
+    await c.query(`CREATE TABLE by_region (${COLUMNS_SQL}) PARTITION BY HASH (region)`);
+    await c.query(`CREATE TABLE by_region_0 PARTITION OF by_region FOR VALUES WITH (MODULUS 2, REMAINDER 0)`);
+    await c.query(`CREATE TABLE by_region_1 PARTITION OF by_region FOR VALUES WITH (MODULUS 2, REMAINDER 1)`);
+    await c.query(`CREATE TABLE by_range (${COLUMNS_SQL}) PARTITION BY RANGE (patient)`);
+    await c.query(`CREATE TABLE by_range_0 PARTITION OF by_range DEFAULT`);
+    await c.query(`CREATE TABLE local_parts (${COLUMNS_SQL}) PARTITION BY HASH (patient)`);
+    for (let i = 0; i < 3; i++) await c.query(`CREATE TABLE local_parts_${i} PARTITION OF local_parts FOR VALUES WITH (MODULUS 3, REMAINDER ${i})`);
+    await insertRows(c, "local_parts", ROWS);
+  } finally {
+    await c.end();
+  }
+  reader = await createReader(cluster);
+  await cluster.sql(`GRANT SELECT ON ALL TABLES IN SCHEMA public TO ${reader.user}`);
+  writeFileSync(join(dir, "pw.txt"), `${reader.password}\n`);
+  writeFileSync(join(dir, "wrong.txt"), "not-the-password\n");
+  writeCsv(join(dir, "visits.csv"), ROWS);
+});
+
+afterAll(async () => {
+  await cluster?.stop();
+});
+
+const run = havePostgres() ? describe : describe.skip;
+
+/** Plain SQL in PostgreSQL, first row as strings. */
+async function plain(sql: string): Promise<string[]> {
+  const c = await cluster.connect();
+  try {
+    const r = await c.query({ text: sql, rowMode: "array" });
+    return (r.rows[0] as unknown[]).map((v) => (v === null ? "0" : String(v)));
+  } finally {
+    await c.end();
+  }
+}
+
+const ungrouped = (dataset: string, terms: CellsRequest["terms"], where?: CellsRequest["where"]): CellsRequest => ({ dataset, keys: [], terms, where });
+
+run("PostgreSQL engine: true aggregates", () => {
+  let engine: PostgresEngine;
+  beforeAll(async () => {
+    const p = policy(
+      dataset("rows", pgSource("visits"), null) +
+        dataset("small", pgSource("visits"), "{ column: patient, maxRows: 10 }") +
+        dataset("bounded", pgSource("visits"), "{ column: patient, maxRows: 3 }") +
+        dataset("viewed", pgSource("visits_view"), "{ column: patient, maxRows: 3 }") +
+        dataset("parts", pgSource("local_parts"), "{ column: patient, maxRows: 3 }"),
+    );
+    engine = await PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true, bits: new Bits(seededBytes("pg-test")) });
+  });
+  afterAll(async () => {
+    await engine?.close();
+  });
+
+  const terms: CellsRequest["terms"] = [
+    { kind: "count" },
+    { kind: "present", column: "age" },
+    { kind: "sum", column: "age" },
+    { kind: "sum", column: "income" },
+    { kind: "sum", column: "score" },
+    { kind: "sum", column: "dose" },
+    { kind: "sumSquares", column: "score" },
+    { kind: "sumProduct", a: "age", b: "dose" },
+    { kind: "atLower", column: "age" },
+    { kind: "atUpper", column: "income" },
+  ];
+  const plainTerms =
+    "count(*), count(age), sum(age_u), sum(income_u), sum(score_u), sum(dose_u), sum(score_u * score_u), sum(age_u * dose_u), " +
+    "count(*) FILTER (WHERE age < 0), count(*) FILTER (WHERE income > 50000)";
+
+  for (const ds of ["rows", "small"]) {
+    it(`${ds}: ungrouped terms equal plain SQL`, async () => {
+      const got = await engine.cells(ungrouped(ds, terms));
+      const want = await plain(`SELECT ${plainTerms} FROM (${plainFits("visits", ds === "small")}) f`);
+      expect(got[0].map(String)).toEqual(want);
+      // Sanity of the fixture: some rows are left out, some clamped.
+      expect(Number(got[0][0])).toBeLessThan(ROWS.length);
+      expect(got[0][8]).toBeGreaterThan(0n);
+    });
+
+    it(`${ds}: a filter is a flag; the kept rows equal plain SQL's WHERE`, async () => {
+      const where: CellsRequest["where"] = { op: "and", of: [{ op: "ge", column: "age", value: 30 }, { op: "in", column: "region", values: ["north", "west"] }] };
+      const got = await engine.cells(ungrouped(ds, terms, where));
+      const want = await plain(`SELECT ${plainTerms} FROM (${plainFits("visits", ds === "small")}) f WHERE age_u >= 30 AND region IN ('north', 'west')`);
+      expect(got[0].map(String)).toEqual(want);
+    });
+
+    it(`${ds}: grouped by region x insured, every declared cell, equal to plain SQL`, async () => {
+      const got = await engine.cells({ dataset: ds, keys: [{ column: "region" }, { column: "insured" }], terms: [{ kind: "count" }, { kind: "sum", column: "income" }] });
+      expect(got.length).toBe(REGIONS.length * 2);
+      const rows = await cluster.sql(
+        `SELECT region, insured::int AS i, count(*)::text AS n, sum(income_u)::text AS s FROM (${plainFits("visits", ds === "small")}) f ` +
+          `WHERE region IS NOT NULL AND insured IS NOT NULL GROUP BY 1, 2`,
+      );
+      for (const r of rows) {
+        const cell = REGIONS.indexOf(String(r.region)) * 2 + Number(r.i);
+        expect(got[cell].map(String)).toEqual([String(r.n), String(r.s ?? "0")]);
+      }
+      expect(got.reduce((n, c) => n + c[0], 0n)).toBe(BigInt(rows.reduce((n, r) => n + Number(r.n), 0)));
+    });
+
+    it(`${ds}: histogram bins of age equal plain SQL`, async () => {
+      const got = await engine.cells({ dataset: ds, keys: [{ column: "age", bins: 4 }], terms: [{ kind: "count" }] });
+      // Bins of [0, 100]: [0,25) [25,50) [50,75) [75,100], the top edge in the last bin.
+      const rows = await cluster.sql(
+        `SELECT LEAST(floor(age_u / 25.0), 3)::int AS b, count(*)::text AS n FROM (${plainFits("visits", ds === "small")}) f WHERE age IS NOT NULL GROUP BY 1 ORDER BY 1`,
+      );
+      expect(got.map((c) => String(c[0]))).toEqual(rows.map((r) => String(r.n)));
+    });
+
+    it(`${ds}: quantile buckets of score equal plain SQL`, async () => {
+      // Candidates -50, -40, ..., 50 (stride 10 units of 0.1): 11 candidates.
+      const got = await engine.buckets({ dataset: ds, column: "score", lowerUnits: -50n, upperUnits: 50n, stride: 10n, count: 11n });
+      const rows = await cluster.sql(
+        `SELECT CASE WHEN score_u >= 50 THEN 11 ELSE LEAST(floor((score_u + 50) / 10) + 1, 10) END AS b, count(*)::text AS n ` +
+          `FROM (${plainFits("visits", ds === "small")}) f WHERE score IS NOT NULL GROUP BY 1 ORDER BY 1`,
+      );
+      expect(got.map(([b, n]) => [String(b), String(n)])).toEqual(rows.map((r) => [String(r.b), String(r.n)]));
+    });
+  }
+
+  for (const ds of ["bounded", "viewed", "parts"]) {
+    it(`${ds}: each unit keeps at most maxRows rows (count = sum of min(rows, 3), also filtered)`, async () => {
+      const per = `SELECT patient, count(*) AS n FROM (${plainFits("visits", true)}) f`;
+      const [want] = await plain(`SELECT sum(LEAST(n, 3)) FROM (${per} GROUP BY patient) u`);
+      expect(String((await engine.cells(ungrouped(ds, [{ kind: "count" }])))[0][0])).toBe(want);
+      const [wantF] = await plain(`SELECT sum(LEAST(n, 3)) FROM (${per} WHERE region = 'east' GROUP BY patient) u`);
+      const where: CellsRequest["where"] = { op: "eq", column: "region", value: "east" };
+      expect(String((await engine.cells(ungrouped(ds, [{ kind: "count" }], where)))[0][0])).toBe(wantF);
+      // The same count through the window (a grouped request takes the window shape).
+      const grouped = await engine.cells({ dataset: ds, keys: [{ column: "insured" }], terms: [{ kind: "count" }], where });
+      const [inGroups] = await plain(
+        `SELECT sum(LEAST(n, 3)) FROM (${per} WHERE region = 'east' AND insured IS NOT NULL GROUP BY patient) u`,
+      );
+      // Rows with a missing key are kept (and counted against the bound) but not reported.
+      expect(grouped[0][0] + grouped[1][0]).toBeLessThanOrEqual(BigInt(inGroups));
+    });
+
+    it(`${ds}: the kept sum lies between each unit's smallest and largest 3 values`, async () => {
+      const got = (await engine.cells(ungrouped(ds, [{ kind: "sum", column: "dose" }, { kind: "present", column: "dose" }])))[0];
+      const ranked = (dir: string) =>
+        `SELECT sum(dose_u) FILTER (WHERE k <= 3) FROM (SELECT dose_u, row_number() OVER (PARTITION BY patient ORDER BY dose_u ${dir} NULLS LAST) AS k FROM (${plainFits("visits", true)}) f) r`;
+      // Missing doses sort last, so these bracket every choice of 3 rows per unit.
+      const [lo] = await plain(ranked("ASC"));
+      const [hi] = await plain(ranked("DESC"));
+      expect(got[0]).toBeGreaterThanOrEqual(0n);
+      expect(BigInt(lo) <= got[0] && got[0] <= BigInt(hi)).toBe(true);
+      expect(BigInt(lo)).toBeLessThan(BigInt(hi));
+    });
+  }
+
+  it("the rows a unit keeps follow the seed, not the values: another seed keeps other rows", async () => {
+    const p = policy(dataset("bounded", pgSource("visits"), "{ column: patient, maxRows: 3 }"), "other.yaml");
+    const other = await PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true, bits: new Bits(seededBytes("another seed")) });
+    try {
+      const req = { dataset: "bounded", keys: [], terms: [{ kind: "sum", column: "dose" }] } as CellsRequest;
+      const a = await engine.cells(req);
+      const b = await other.cells(req);
+      const again = await engine.cells(req);
+      expect(again).toEqual(a); // fixed for the life of the engine
+      expect(b[0][0]).not.toBe(a[0][0]);
+    } finally {
+      await other.close();
+    }
+  });
+
+  it("plan values travel as parameters: a filter literal never appears in the SQL text", () => {
+    const st = engine.cellsStatement(ungrouped("rows", [{ kind: "count" }], { op: "eq", column: "age", value: 77 }));
+    expect(st.sql).not.toMatch(/77/);
+    expect(st.params).toContain("77");
+  });
+});
+
+let badCount = 0;
+
+run("PostgreSQL engine: bad configuration fails at start", () => {
+  async function startError(source: string, unit: string | null = null, env?: Record<string, string>): Promise<string> {
+    const saved = { ...process.env };
+    Object.assign(process.env, env ?? {});
+    try {
+      const p = policy(dataset("clinic", source, unit), `bad-${++badCount}.yaml`);
+      const e = await PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true });
+      await e.close();
+      return "opened";
+    } catch (err) {
+      return err instanceof Error ? err.message : String(err);
+    } finally {
+      process.env = saved;
+    }
+  }
+
+  function expectClean(msg: string): void {
+    expect(msg).toMatch(/datasets\.clinic/);
+    expect(msg).not.toContain(MARKER);
+    expect(msg).not.toContain(reader.password);
+  }
+
+  it("an unreachable server", async () => {
+    const msg = await startError(pgSource("visits", { port: 1 }));
+    expectClean(msg);
+    expect(msg).toMatch(/cannot reach the PostgreSQL server at 127\.0\.0\.1:1/);
+  });
+
+  it("wrong credentials", async () => {
+    const msg = await startError(pgSource("visits", { passwordFile: "wrong.txt" }));
+    expectClean(msg);
+    expect(msg).toMatch(/refused the credentials of user hush_reader/);
+    expect(msg).not.toContain("not-the-password");
+  });
+
+  it("a missing password file, an unset password variable", async () => {
+    expectClean(await startError(pgSource("visits", { passwordFile: "nowhere.txt" })));
+    expect(await startError(pgSource("visits", { passwordFile: "nowhere.txt" }))).toMatch(/passwordFile: cannot be read \(ENOENT\)/);
+    const msg = await startError(pgSource("visits", { passwordFile: undefined, passwordEnv: "HUSH_TEST_UNSET_PW" }));
+    expect(msg).toMatch(/environment variable HUSH_TEST_UNSET_PW is not set/);
+    // ... and the same source works once the variable holds the password.
+    expect(await startError(pgSource("visits", { passwordFile: undefined, passwordEnv: "HUSH_TEST_PW" }), null, { HUSH_TEST_PW: reader.password })).toBe("opened");
+  });
+
+  it("a password written in the policy is refused before any connection", async () => {
+    const msg = await startError(pgSource("visits", { password: reader.password }));
+    expect(msg).toMatch(/password must not be written in the policy/);
+    expect(msg).not.toContain(reader.password);
+  });
+
+  it("a missing table, a table the user may not read", async () => {
+    const msg = await startError(pgSource("nothere"));
+    expectClean(msg);
+    expect(msg).toMatch(/no table or view public\.nothere/);
+    const hidden = await startError(pgSource("hidden.visits"));
+    expectClean(hidden);
+    expect(hidden).toMatch(/hush_reader may not read hidden\.visits/);
+  });
+
+  it("a declared column the table lacks", async () => {
+    const msg = await startError(pgSource("no_dose"));
+    expectClean(msg);
+    expect(msg).toMatch(/has no column "dose"/);
+  });
+
+  it("a column whose type does not fit the declared type", async () => {
+    const msg = await startError(pgSource("wrong_type"));
+    expectClean(msg);
+    expect(msg).toMatch(/column "age" of public\.wrong_type has PostgreSQL type text, which does not fit declared type integer/);
+  });
+
+  it("a missing unit column", async () => {
+    const msg = await startError(pgSource("visits"), "{ column: person, maxRows: 2 }");
+    expectClean(msg);
+    expect(msg).toMatch(/has no column "person" \(the privacy unit column\)/);
+  });
+
+  it("a partitioned table whose key is not the unit column (hash on another column, range on the unit)", async () => {
+    const msg = await startError(pgSource("by_region"), "{ column: patient, maxRows: 2 }");
+    expectClean(msg);
+    expect(msg).toMatch(/partitioned by HASH \(region\).*HASH on exactly the privacy unit column patient/);
+    const range = await startError(pgSource("by_range"), "{ column: patient, maxRows: 2 }");
+    expect(range).toMatch(/partitioned by RANGE \(patient\)/);
+    // Without a unit column every row is its own unit: any partitioning will do.
+    expect(await startError(pgSource("by_region"))).toBe("opened");
+  });
+});
