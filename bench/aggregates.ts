@@ -7,7 +7,7 @@
  */
 import { Bits, cryptoBytes } from "../runtime/core/index.js";
 import { Answerer } from "../runtime/curator/answer.js";
-import { Engine } from "../runtime/curator/engine.js";
+import { DuckDBEngine } from "../runtime/curator/engines/duckdb/engine.js";
 import { loadPolicy } from "../runtime/curator/policy.js";
 import { BENCH_QUERIES } from "./baseline.js";
 import { BENCH_ANALYST, BENCH_DATASET, benchWorkspace, removeWorkspace } from "./bench-policy.js";
@@ -45,15 +45,15 @@ export async function benchAggregates(opts: {
     for (const unit of [false, true]) {
       const ws = benchWorkspace(parquet, { unit, prefix: "agg" });
       const policy = loadPolicy(ws.policyFile);
-      let engine: Engine | undefined;
+      let engine: DuckDBEngine | undefined;
       const loadMs = await timeOnce(async () => {
-        engine = await Engine.open(policy, { quiet: true });
+        engine = await DuckDBEngine.open(policy, { quiet: true });
       });
       loads.push({ rows: size, unit, ms: loadMs });
       const eng = engine!;
       try {
         const answerer = new Answerer(eng, policy);
-        const table = eng.table(BENCH_DATASET);
+        const table = eng.relation(BENCH_DATASET);
         for (const q of BENCH_QUERIES) {
           progress(`aggregates: ${rowsLabel(size)} ${unit ? "with unit" : "no unit"}: ${q.name}`);
           let k = 0;

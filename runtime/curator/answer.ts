@@ -25,9 +25,9 @@ import type { Piece, Source } from "./aggregates/common.js";
 import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
-import type { Engine, TableColumn, TableInfo } from "./engine.js";
+import { type DataEngine, type DatasetSchema, type SchemaColumn, schemaOf } from "./engines/types.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
-import { Params, compileWhere, resolveColumn } from "./sql.js";
+import { checkWhere, resolveColumn } from "./sql.js";
 import { firstSlot, holdUntilSlot } from "./workers/pacing.js";
 import { WorkerPool, timeLimitText } from "./workers/pool.js";
 
@@ -77,7 +77,7 @@ function normalize(plan: QueryPlan): QueryPlan {
   return out;
 }
 
-function numericColumn(t: TableInfo, name: string, path: string, what: string): TableColumn {
+function numericColumn(t: DatasetSchema, name: string, path: string, what: string): SchemaColumn {
   const col = resolveColumn(t, name, path);
   if (col.policy.type !== "integer" && col.policy.type !== "number") {
     throw new BadInputError(`${path}: ${what} needs a numeric column; ${shown(name)} is ${col.policy.type}`);
@@ -85,7 +85,7 @@ function numericColumn(t: TableInfo, name: string, path: string, what: string): 
   return col;
 }
 
-function keyedColumn(t: TableInfo, name: string, path: string): void {
+function keyedColumn(t: DatasetSchema, name: string, path: string): void {
   const col = resolveColumn(t, name, path);
   if (col.policy.type !== "category" && col.policy.type !== "boolean") {
     throw new BadInputError(`${path}: crosstab needs category or boolean columns; ${shown(name)} is ${col.policy.type}`);
@@ -93,7 +93,7 @@ function keyedColumn(t: TableInfo, name: string, path: string): void {
 }
 
 /** Declared values of a key from the policy alone (no label is built); 1 for a key that compileGroup will refuse. */
-function keySize(t: TableInfo, key: GroupKey): number {
+function keySize(t: DatasetSchema, key: GroupKey): number {
   const c = t.columns.get(key.column)?.policy;
   if (c === undefined) return 1;
   if (c.type === "category") return c.values.length;
@@ -107,7 +107,7 @@ function keySize(t: TableInfo, key: GroupKey): number {
  * before any label, cell array or SQL exists: every declared cell is released, so the product of
  * the key sizes is the work, the memory and the size of the reply.
  */
-function checkCells(plan: QueryPlan, t: TableInfo): void {
+function checkCells(plan: QueryPlan, t: DatasetSchema): void {
   const m = plan.measure;
   let cells: number;
   let path: string;
@@ -154,13 +154,14 @@ interface Settled {
 
 export class Answerer {
   private readonly memo = new Map<string, Settled>();
-  private readonly engine: Engine;
+  private readonly schemas = new Map<string, DatasetSchema>();
+  private readonly engine: DataEngine;
   private readonly policy: LoadedPolicy;
   /** Started on the first release; closed with close(). */
   private pool: WorkerPool | null = null;
   private closed = false;
 
-  constructor(engine: Engine, policy: LoadedPolicy) {
+  constructor(engine: DataEngine, policy: LoadedPolicy) {
     this.engine = engine;
     this.policy = policy;
   }
@@ -210,6 +211,16 @@ export class Answerer {
     return d;
   }
 
+  /** The public schema of an open dataset (built once per dataset). */
+  private schema(d: DatasetPolicy): DatasetSchema {
+    let s = this.schemas.get(d.name);
+    if (s === undefined) {
+      s = schemaOf(d);
+      this.schemas.set(d.name, s);
+    }
+    return s;
+  }
+
   /** Public schema of a dataset, in declaration order; the unit column is not part of it. */
   datasetColumns(dataset: string): ColumnInfo[] {
     return this.dataset(dataset).columns.map((c): ColumnInfo => {
@@ -247,9 +258,9 @@ export class Answerer {
       return hit;
     }
     const d = this.dataset(plan.dataset);
-    const t = this.engine.table(d.name);
+    const t = this.schema(d);
     const src: Source = { t, where: plan.where };
-    compileWhere(plan.where, t, new Params()); // validates every literal against the schema
+    checkWhere(plan.where, t); // validates every literal against the schema
     const alloc = new Allocator(d, plan.privacy, plan.confidence ?? DEFAULT_CONFIDENCE);
     const { piece, groupColumns, columnsUsed } = this.build(plan, src, alloc);
     const notes = this.commonNotes(d, t, plan, columnsUsed, alloc, piece);
@@ -351,7 +362,7 @@ export class Answerer {
     }
   }
 
-  private commonNotes(d: DatasetPolicy, t: TableInfo, plan: QueryPlan, used: string[], alloc: Allocator, piece: Piece): string[] {
+  private commonNotes(d: DatasetPolicy, t: DatasetSchema, plan: QueryPlan, used: string[], alloc: Allocator, piece: Piece): string[] {
     const conf = plan.confidence ?? DEFAULT_CONFIDENCE;
     const notes = [
       `Error bars are noise-only at ${conf} confidence: they cover the privacy noise, not clamping, grid rounding, dropped rows or sampling error.`,

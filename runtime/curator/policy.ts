@@ -5,7 +5,7 @@
  * Every error names the file, the path inside it (e.g. `datasets.visits.columns.age.range`) and
  * what is wrong. Relative paths are resolved against the policy file's directory.
  */
-import { readFileSync } from "node:fs";
+import { readFileSync, statSync } from "node:fs";
 import { dirname, extname, isAbsolute, resolve } from "node:path";
 import { parse as parseYaml } from "yaml";
 import { z } from "zod";
@@ -33,17 +33,58 @@ export type AccountingPolicy =
   | { mode: "pure"; capEpsilon: Rational }
   | { mode: "zcdp"; capEpsilon: Rational; delta: Rational; capRho: Rational };
 
+/**
+ * Where a dataset's rows live (the policy's `source`). Paths are absolute.
+ *   memory:   a CSV or Parquet file copied into DuckDB's memory at start (`source: data/x.csv`)
+ *   files:    Parquet (a file, folder or glob) or CSV queried in place by DuckDB
+ *   duckdb:   a table in a DuckDB database file, prepared once by `hush prepare`
+ *   postgres: a table or view in a PostgreSQL server (engines/postgres/); the password comes from
+ *             a file or an environment variable, never from the policy text
+ */
+export type SourcePolicy =
+  | { kind: "memory"; path: string; format: "csv" | "parquet" }
+  | { kind: "files"; pattern: string; format: "csv" | "parquet" }
+  | { kind: "duckdb"; path: string; table: string }
+  | {
+      kind: "postgres";
+      host: string;
+      port: number;
+      database: string;
+      user: string;
+      /** Schema and table (or view) name, unquoted. */
+      schema: string;
+      table: string;
+      passwordFile: string | null;
+      passwordEnv: string | null;
+      sslmode: "disable" | "prefer" | "require" | "verify-ca" | "verify-full" | null;
+    };
+
+/** DuckDB's own limits for the curator's DuckDB instance (policy `engine:`). */
+export interface EngineLimits {
+  /** DuckDB memory_limit, e.g. "2GB" (null: DuckDB's default, 80% of RAM). */
+  memoryLimit: string | null;
+  /** DuckDB threads (null: DuckDB's default, the number of cores). */
+  threads: number | null;
+}
+
 export interface DatasetPolicy {
   name: string;
   description: string;
-  /** Absolute path of the data file. */
+  /**
+   * What the dataset reads, as one string: the absolute path of the file, folder, glob or DuckDB
+   * file, or `postgresql://user@host:port/database/schema.table` (no password). Populations are
+   * keyed on it (populations.ts).
+   */
   source: string;
+  /** The source in full. */
+  origin: SourcePolicy;
   /**
    * The people the dataset is about, by name. Spend is accounted per (analyst, population): every
    * dataset of one population draws on one cap. See populations.ts for how the name is chosen.
    */
   population: string;
-  format: "csv" | "parquet";
+  /** Data format: the file format for memory/files sources, else the engine ("duckdb", "postgres"). */
+  format: "csv" | "parquet" | "duckdb" | "postgres";
   /** column null: each row is its own unit (then maxRows = maxGroups = 1). */
   unit: { column: string | null; maxRows: number; maxGroups: number };
   accounting: AccountingPolicy;
@@ -62,6 +103,8 @@ export interface LoadedPolicy {
   datasets: Map<string, DatasetPolicy>;
   /** Population name -> the datasets over it, in policy order. */
   populations: Map<string, string[]>;
+  /** DuckDB's memory and thread limits (policy `engine:`). */
+  engine: EngineLimits;
 }
 
 /** Largest grid: (upper - lower)/step. Keeps squares of centred grid units inside SQL BIGINT. */
@@ -111,9 +154,49 @@ const columnSchema = z.discriminatedUnion(
 
 const exact = z.union([z.string(), z.number()], { error: "must be an exact number, e.g. \"1\" or \"1e-6\"" });
 
+const pgName = z
+  .string({ error: "must be a string" })
+  .min(1, { message: "must not be empty" })
+  .max(255, { message: "must be at most 255 characters" })
+  .refine((s) => !/[\u0000-\u001f]/.test(s), { message: "must not contain control characters" });
+
+const sourceSchema = z.union(
+  [
+    z.string().min(1),
+    z.strictObject({
+      files: z.string({ error: "must be a path, folder or glob of .parquet or .csv files" }).min(1),
+      format: z.literal(["csv", "parquet"], { error: "must be csv or parquet" }).optional(),
+    }),
+    z.strictObject({
+      duckdb: z.string({ error: "must be the path of a DuckDB database file" }).min(1),
+      table: z.string({ error: "must name the table in the DuckDB file" }).min(1).max(255),
+    }),
+    z.object({ postgres: z.unknown() }),
+  ],
+  {
+    error:
+      "must be a file path (copied into memory), { files: <path, folder or glob> }, { duckdb: <file>, table: <name> } or { postgres: { host, port, database, user, table } }",
+  },
+);
+
+/** The PostgreSQL connection of a source; `password` is refused (see parsePostgres). */
+const postgresSchema = z.strictObject({
+  host: pgName,
+  port: z.number({ error: "must be a port number" }).int({ message: "must be a whole number" }).min(1).max(65535).default(5432),
+  database: pgName,
+  user: pgName,
+  table: z.string({ error: "must be schema.table (or a table name in schema public)" }).min(1).max(255),
+  passwordFile: z.string({ error: "must be the path of a file holding the password" }).min(1).optional(),
+  passwordEnv: z
+    .string({ error: "must name an environment variable" })
+    .regex(/^[A-Za-z_][A-Za-z0-9_]{0,127}$/, { message: "must name an environment variable (letters, digits, _)" })
+    .optional(),
+  sslmode: z.literal(["disable", "prefer", "require", "verify-ca", "verify-full"], { error: "must be disable, prefer, require, verify-ca or verify-full" }).optional(),
+});
+
 const datasetSchema = z.strictObject({
   description: z.string({ error: "must be a string" }).default(""),
-  source: z.string({ error: "must be a path to a .csv or .parquet file" }).min(1),
+  source: sourceSchema,
   format: z.literal(["csv", "parquet"], { error: "must be csv or parquet" }).optional(),
   population: z.string({ error: "must be a name such as clinic-patients" }).optional(),
   unit: z
@@ -135,7 +218,19 @@ const datasetSchema = z.strictObject({
   columns: z.record(z.string(), columnSchema, { error: "must map column names to column declarations" }),
 });
 
+/** DuckDB size text: a number and a unit, e.g. "512MB", "2GB", "1.5GiB". */
+const MEMORY_LIMIT = /^[0-9]{1,6}(\.[0-9]{1,3})?\s?(B|KB|MB|GB|TB|KiB|MiB|GiB|TiB)$/;
+
 const fileSchema = z.strictObject({
+  engine: z
+    .strictObject({
+      memoryLimit: z
+        .string({ error: "must be a size such as \"2GB\" or \"512MiB\"" })
+        .regex(MEMORY_LIMIT, { message: "must be a size such as \"2GB\" or \"512MiB\"" })
+        .optional(),
+      threads: z.number({ error: "must be a whole number of threads" }).int({ message: "must be a whole number" }).min(1).max(256).optional(),
+    })
+    .optional(),
   curator: z
     .strictObject({
       key: z.string().min(1).optional(),
@@ -238,6 +333,101 @@ function numericColumn(
   return { name, from: raw.from ?? name, type: raw.type, lower: ls, upper: us, step: ss, grid };
 }
 
+/** Format of a path from its extension (a glob's extension counts), or from `format:`. */
+function formatOf(file: string, path: string, p: string, given: "csv" | "parquet" | undefined, what: string): "csv" | "parquet" {
+  if (given !== undefined) return given;
+  const ext = extname(p).toLowerCase();
+  if (ext === ".csv") return "csv";
+  if (ext === ".parquet" || ext === ".pq") return "parquet";
+  return fail(file, path, `${what} must end in .csv or .parquet (or give format: csv|parquet)`);
+}
+
+/** Parses a dataset's `source` (the forms of SourcePolicy). `at` resolves relative paths. */
+function parseSource(
+  file: string,
+  path: string,
+  raw: z.infer<typeof sourceSchema>,
+  format: "csv" | "parquet" | undefined,
+  at: (p: string) => string,
+): SourcePolicy {
+  if (typeof raw === "string") {
+    const p = at(raw);
+    return { kind: "memory", path: p, format: formatOf(file, path, p, format, "the source") };
+  }
+  if ("files" in raw) {
+    if (format !== undefined && raw.format !== undefined && format !== raw.format) fail(file, `${path}.format`, "disagrees with the dataset's format");
+    let p = at(raw.files);
+    // A folder means every Parquet (or CSV) file in it, at any depth below.
+    const f = raw.format ?? format;
+    let isDir = false;
+    try {
+      isDir = !/[*?[]/.test(p) && statSync(p).isDirectory();
+    } catch {
+      // Missing paths are reported by the engine when it opens the source, naming the problem.
+    }
+    if (isDir) {
+      if (f === undefined) fail(file, `${path}.format`, "a folder needs format: parquet or format: csv");
+      p = `${p.replace(/\/+$/, "")}/**/*.${f}`;
+    }
+    return { kind: "files", pattern: p, format: formatOf(file, `${path}.files`, p, f, "files") };
+  }
+  if ("duckdb" in raw) {
+    if (format !== undefined) fail(file, `${path}`, "format does not apply to a DuckDB file source");
+    return { kind: "duckdb", path: at(raw.duckdb), table: raw.table };
+  }
+  if (format !== undefined) fail(file, `${path}`, "format does not apply to a PostgreSQL source");
+  return parsePostgres(file, `${path}.postgres`, raw.postgres, at);
+}
+
+function parsePostgres(file: string, path: string, raw: unknown, at: (p: string) => string): SourcePolicy {
+  if (raw === null || typeof raw !== "object" || Array.isArray(raw)) fail(file, path, "must be a mapping { host, port, database, user, table }");
+  if (Object.hasOwn(raw, "password")) {
+    fail(file, `${path}.password`, "a password must not be written in the policy; give passwordFile (a file readable by the curator only) or passwordEnv (an environment variable)");
+  }
+  const parsed = postgresSchema.safeParse(raw);
+  if (!parsed.success) {
+    const issue = parsed.error.issues[0];
+    const msg = issue.code === "unrecognized_keys" ? `unknown key ${issue.keys.map((k) => JSON.stringify(k)).join(", ")}` : issue.message;
+    fail(file, issue.path.length ? `${path}.${pathOf(issue.path)}` : path, msg);
+  }
+  const pg = parsed.data;
+  if (pg.passwordFile !== undefined && pg.passwordEnv !== undefined) fail(file, path, "give passwordFile or passwordEnv, not both");
+  const parts = pg.table.split(".");
+  if (parts.length > 2 || parts.some((x) => x.length === 0 || /[\u0000-\u001f"]/.test(x))) {
+    fail(file, `${path}.table`, "must be schema.table or table (names without dots, quotes or control characters)");
+  }
+  const [schema, table] = parts.length === 2 ? parts : ["public", parts[0]];
+  return {
+    kind: "postgres",
+    host: pg.host,
+    port: pg.port,
+    database: pg.database,
+    user: pg.user,
+    schema,
+    table,
+    passwordFile: pg.passwordFile === undefined ? null : at(pg.passwordFile),
+    passwordEnv: pg.passwordEnv ?? null,
+    sslmode: pg.sslmode ?? null,
+  };
+}
+
+/** The one-string identity of a source (DatasetPolicy.source) and its format. */
+function sourceIdentity(o: SourcePolicy): { source: string; format: DatasetPolicy["format"] } {
+  switch (o.kind) {
+    case "memory":
+      return { source: o.path, format: o.format };
+    case "files":
+      return { source: o.pattern, format: o.format };
+    case "duckdb":
+      return { source: o.path, format: "duckdb" };
+    case "postgres":
+      return {
+        source: `postgresql://${encodeURIComponent(o.user)}@${o.host}:${o.port}/${encodeURIComponent(o.database)}/${o.schema}.${o.table}`,
+        format: "postgres",
+      };
+  }
+}
+
 // ---- entry points ----------------------------------------------------------------------------
 
 export function loadPolicy(file: string): LoadedPolicy {
@@ -288,10 +478,8 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       fail(abs, `${dp}.population`, "population names use letters, digits, - and _ (at most 64, starting with a letter)");
     }
     named.set(dname, d.population);
-    const source = at(d.source);
-    const ext = extname(source).toLowerCase();
-    const format = d.format ?? (ext === ".csv" ? "csv" : ext === ".parquet" || ext === ".pq" ? "parquet" : undefined);
-    if (format === undefined) fail(abs, `${dp}.source`, "must end in .csv or .parquet (or give format: csv|parquet)");
+    const origin = parseSource(abs, `${dp}.source`, d.source, d.format, at);
+    const { source, format } = sourceIdentity(origin);
 
     const columns: ColumnPolicy[] = [];
     const sourceNames = new Set<string>();
@@ -367,6 +555,7 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
       name: dname,
       description: d.description,
       source,
+      origin,
       // Filled in below, once every dataset's source is known.
       population: "",
       format,
@@ -385,6 +574,7 @@ export function parsePolicy(text: string, file: string): LoadedPolicy {
   return {
     file: abs,
     dir,
+    engine: { memoryLimit: raw.engine?.memoryLimit ?? null, threads: raw.engine?.threads ?? null },
     answering: { timeLimitMs, paceMs },
     keyPath: at(raw.curator?.key ?? "keys/curator.key"),
     ledgerPath: at(raw.curator?.ledger ?? "state/ledger.sqlite"),

@@ -103,9 +103,9 @@ export class CuratorService {
     const ledger = Ledger.open(policy.ledgerPath);
     try {
       // Loaded here rather than at the top so the request path can be exercised without DuckDB.
-      const { Engine } = await import("./engine.js");
+      const { openEngines } = await import("./engines/open.js");
       const { Answerer } = await import("./answer.js");
-      const engine = await Engine.open(policy);
+      const engine = await openEngines(policy);
       const answerer = new Answerer(engine, policy);
       answerer.startWorkers();
       // Closing stops the worker pool first, so no release is left computing against a closed engine.

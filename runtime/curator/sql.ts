@@ -1,5 +1,8 @@
 /**
- * Query plan -> parameterized SQL over an engine table, with the schema checks that go with it.
+ * Query plan -> parameterized SQL over an engine's relation, with the schema checks that go with
+ * it. Dialect-neutral: the SQL here is the same in DuckDB and PostgreSQL apart from what the
+ * Dialect hook says (placeholder typing, integer division), so every SQL engine reuses it
+ * (engines/shapes.ts builds the statements around it).
  *
  * Nothing from a plan is ever spliced into SQL text: column names are looked up in the declared
  * schema and replaced by internal identifiers (c0, c1, ...), and every literal becomes a bound
@@ -15,16 +18,35 @@
 import { BadInputError } from "../errors.js";
 import { Rational } from "../core/index.js";
 import type { Condition, GroupKey, Literal } from "../protocol/messages.js";
-import type { SqlParam, TableColumn, TableInfo } from "./engine.js";
+import type { DatasetSchema, SchemaColumn, SqlParam } from "./engines/types.js";
 import type { ColumnPolicy } from "./policy.js";
+
+/** What differs between the SQL dialects the engines speak. */
+export interface Dialect {
+  /** The placeholder text for the n-th parameter (1-based) of this type, e.g. "$3" or "$3::bigint". */
+  placeholder(n: number, type: SqlParam["type"]): string;
+  /** Integer division of two non-negative BIGINT expressions (floor). */
+  intDiv(a: string, b: string): string;
+}
+
+/** DuckDB: `$n` placeholders (types come from the prepared statement), `//` integer division. */
+export const DUCKDB_DIALECT: Dialect = {
+  placeholder: (n) => `$${n}`,
+  intDiv: (a, b) => `(${a}) // (${b})`,
+};
 
 /** Collects bound parameters in order: add() returns the placeholder ("$3") for the value. */
 export class Params {
   private readonly list: SqlParam[] = [];
+  readonly dialect: Dialect;
+
+  constructor(dialect: Dialect = DUCKDB_DIALECT) {
+    this.dialect = dialect;
+  }
 
   add(p: SqlParam): string {
     this.list.push(p);
-    return `$${this.list.length}`;
+    return this.dialect.placeholder(this.list.length, p.type);
   }
   big(v: bigint): string {
     return this.add({ type: "bigint", value: v });
@@ -55,7 +77,7 @@ function shown(name: string): string {
 }
 
 /** The declared column behind a plan's column name; BadInputError naming the path otherwise. */
-export function resolveColumn(t: TableInfo, name: string, path: string): TableColumn {
+export function resolveColumn(t: DatasetSchema, name: string, path: string): SchemaColumn {
   const c = t.columns.get(name);
   if (c !== undefined) return c;
   if (t.dataset.unit.column !== null && name === t.dataset.unit.column) {
@@ -96,7 +118,7 @@ function booleanLiteral(v: Literal, path: string, col: ColumnPolicy): boolean {
   return v;
 }
 
-function compare(op: Cmp, col: TableColumn, v: Literal, path: string, params: Params): string {
+function compare(op: Cmp, col: SchemaColumn, v: Literal, path: string, params: Params): string {
   const c = col.policy;
   const id = col.ident;
   switch (c.type) {
@@ -133,7 +155,7 @@ function compare(op: Cmp, col: TableColumn, v: Literal, path: string, params: Pa
   throw new BadInputError(`${path}: unsupported comparison`);
 }
 
-function inList(col: TableColumn, values: Literal[], path: string, params: Params): string {
+function inList(col: SchemaColumn, values: Literal[], path: string, params: Params): string {
   const c = col.policy;
   const slots: string[] = [];
   values.forEach((v, i) => {
@@ -159,7 +181,7 @@ function inList(col: TableColumn, values: Literal[], path: string, params: Param
   return slots.length === 0 ? "FALSE" : `${col.ident} IN (${slots.join(", ")})`;
 }
 
-function between(col: TableColumn, low: Literal, high: Literal, path: string, params: Params): string {
+function between(col: SchemaColumn, low: Literal, high: Literal, path: string, params: Params): string {
   const c = col.policy;
   switch (c.type) {
     case "integer":
@@ -183,7 +205,7 @@ function between(col: TableColumn, low: Literal, high: Literal, path: string, pa
 }
 
 /** SQL boolean expression for a plan's `where` ("TRUE" when absent). */
-export function compileWhere(cond: Condition | undefined, t: TableInfo, params: Params, path = "plan.where"): string {
+export function compileWhere(cond: Condition | undefined, t: DatasetSchema, params: Params, path = "plan.where"): string {
   if (cond === undefined) return "TRUE";
   switch (cond.op) {
     case "and":
@@ -200,6 +222,11 @@ export function compileWhere(cond: Condition | undefined, t: TableInfo, params: 
     default:
       return compare(cond.op, resolveColumn(t, cond.column, `${path}.column`), cond.value, `${path}.value`, params);
   }
+}
+
+/** Checks a plan's filter against the schema (every literal's type and range); builds no statement. */
+export function checkWhere(cond: Condition | undefined, t: DatasetSchema): void {
+  compileWhere(cond, t, new Params());
 }
 
 /** A public grouping: the SQL expression gives the key index 0..labels.length-1 (NULL for a missing value). */
@@ -220,7 +247,7 @@ export function binLabels(lower: Rational, upper: Rational, bins: number): strin
 }
 
 /** Bin index expression over grid units: floor((u - lo) * bins / (hi - lo)), the top edge in the last bin. */
-export function binExpr(col: TableColumn, bins: number, params: Params): string {
+export function binExpr(col: SchemaColumn, bins: number, params: Params): string {
   const c = col.policy;
   if (c.type !== "integer" && c.type !== "number") throw new Error("binExpr on a non-numeric column");
   const lo = params.big(c.grid.lowerUnits);
@@ -228,10 +255,10 @@ export function binExpr(col: TableColumn, bins: number, params: Params): string 
   const b = params.big(BigInt(bins));
   const last = params.big(BigInt(bins - 1));
   // DuckDB's LEAST skips NULLs, so a missing value must stay NULL explicitly (it is then left out).
-  return `CASE WHEN ${col.ident} IS NULL THEN NULL ELSE LEAST((${col.ident} - ${lo}) * ${b} // ${span}, ${last}) END`;
+  return `CASE WHEN ${col.ident} IS NULL THEN NULL ELSE LEAST(${params.dialect.intDiv(`(${col.ident} - ${lo}) * ${b}`, span)}, ${last}) END`;
 }
 
-export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: string): GroupSpec {
+export function compileGroup(key: GroupKey, t: DatasetSchema, params: Params, path: string): GroupSpec {
   const col = resolveColumn(t, key.column, `${path}.column`);
   const c = col.policy;
   const bins = "bins" in key ? key.bins : undefined;
@@ -254,43 +281,4 @@ export function compileGroup(key: GroupKey, t: TableInfo, params: Params, path: 
     case "date":
       throw new BadInputError(`${path}: grouping by date column ${shown(c.name)} is not supported (filter by date ranges instead)`);
   }
-}
-
-/**
- * The rows an aggregate may see: the filtered rows, with each unit's contribution bounded to at
- * most maxRows rows chosen uniformly at random (docs/methods.md §7, "Enforcing the bounds").
- *
- * The engine stores __rk, each row's rank in a uniformly random order of its unit's rows (drawn
- * from the CSPRNG at load; 1 for units with at most maxRows rows). Without a filter the kept rows
- * are simply __rk <= maxRows. With a filter, rows are bounded after filtering: units with at most
- * maxRows rows keep every matching row, and for larger units a window keeps the maxRows matching
- * rows that come first in the random order, which is a uniformly random subset of the matching
- * rows. Either way the selection for a unit depends only on its own rows and the random order,
- * which is what the stability argument needs.
- */
-export function keptRelation(t: TableInfo, where: string, cols: readonly string[], params: Params): string {
-  const uniq = [...new Set(cols)];
-  const list = uniq.length === 0 ? "1 AS __one" : uniq.join(", ");
-  if (!t.hasUnit) return `SELECT ${list} FROM ${t.table} WHERE ${where}`;
-  const k = params.add({ type: "integer", value: t.dataset.unit.maxRows });
-  if (where === "TRUE") return `SELECT ${list} FROM ${t.table} WHERE __rk <= ${k}`;
-  // The outer select of the window branch names the inner select's outputs (aliases when given).
-  const outer = uniq.length === 0 ? "__one" : uniq.map((c) => c.split(" AS ").pop()).join(", ");
-  return (
-    `SELECT ${list} FROM ${t.table} WHERE __n <= ${k} AND (${where}) ` +
-    `UNION ALL SELECT ${outer} FROM (SELECT ${list}, row_number() OVER (PARTITION BY __u ORDER BY __rk) AS __k ` +
-    `FROM ${t.table} WHERE __n > ${k} AND (${where})) WHERE __k <= ${k}`
-  );
-}
-
-/**
- * The kept rows as a FROM fragment for an aggregate: `"d0" AS __kept [WHERE ...]` when no window is
- * needed (so DuckDB sees a plain filtered scan, as fast as the same query without privacy), else
- * the keptRelation subquery. Callers append only GROUP BY / ORDER BY.
- */
-export function keptFrom(t: TableInfo, where: string, cols: readonly string[], params: Params): string {
-  // No filter: no WHERE at all, the same statement shape as the plain aggregate.
-  if (!t.hasUnit) return where === "TRUE" ? `${t.table} AS __kept` : `${t.table} AS __kept WHERE ${where}`;
-  if (where === "TRUE") return `${t.table} AS __kept WHERE __rk <= ${params.add({ type: "integer", value: t.dataset.unit.maxRows })}`;
-  return `(${keptRelation(t, where, cols, params)}) AS __kept`;
 }

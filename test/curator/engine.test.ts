@@ -6,9 +6,10 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { DuckDBInstance } from "@duckdb/node-api";
 import { join } from "node:path";
 import { Bits, seededBytes } from "../../runtime/core/index.js";
-import { Engine } from "../../runtime/curator/engine.js";
+import { DuckDBEngine } from "../../runtime/curator/engines/duckdb/engine.js";
+import { keptRowsFrom } from "../../runtime/curator/engines/shapes.js";
 import { loadPolicy } from "../../runtime/curator/policy.js";
-import { Params, compileWhere, keptRelation } from "../../runtime/curator/sql.js";
+import { Params, compileWhere } from "../../runtime/curator/sql.js";
 import { PolicyError } from "../../runtime/errors.js";
 import { type Opened, open, policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
 
@@ -34,16 +35,17 @@ describe("loading", () => {
         "visit_date: date outside the declared range": 1,
         "wait_minutes: not a finite number": 1,
       },
+      access: "in memory",
     });
     // Without a unit column a missing patient id does not matter.
     expect(ctx.engine.loadReport("rows").rows).toBe(63);
   });
 
   it("stores numbers as clamped grid units and keeps empty cells missing", async () => {
-    const t = ctx.engine.table("visits");
-    const age = t.columns.get("age")!.ident;
-    const wait = t.columns.get("wait_minutes")!.ident;
-    const rows = await ctx.engine.query(`SELECT min(${age}), max(${age}), min(${wait}), max(${wait}), count(*) - count(${age}) FROM ${t.table}`, []);
+    const t = ctx.engine.relation("visits");
+    const age = t.schema.columns.get("age")!.ident;
+    const wait = t.schema.columns.get("wait_minutes")!.ident;
+    const rows = await ctx.engine.query(`SELECT min(${age}), max(${age}), min(${wait}), max(${wait}), count(*) - count(${age}) FROM ${t.from}`, []);
     // age 130 is clamped to 100; wait 500 to 240 = 480 half-minute units; one row has no age.
     const [minAge, maxAge, minWait, maxWait, missing] = rows[0] as bigint[];
     expect(minAge).toBeGreaterThanOrEqual(0n);
@@ -52,7 +54,7 @@ describe("loading", () => {
     expect(maxWait).toBe(480n);
     expect(missing).toBe(1n);
     // A value of 38.5 minutes is stored as 77 half-minute units (fixture rows of p01 and p09).
-    const w77 = await ctx.engine.query(`SELECT count(*) FROM ${t.table} WHERE ${wait} = 77`, []);
+    const w77 = await ctx.engine.query(`SELECT count(*) FROM ${t.from} WHERE ${wait} = 77`, []);
     expect(w77[0][0]).toBeGreaterThanOrEqual(1n);
   });
 
@@ -66,7 +68,7 @@ describe("loading", () => {
 `),
       { "data.csv": "age\n3\n" },
     );
-    await expect(Engine.open(loadPolicy(file), { quiet: true })).rejects.toThrow(/datasets\.d\.columns\.height: the data file has no column "height"/);
+    await expect(DuckDBEngine.open(loadPolicy(file), { quiet: true })).rejects.toThrow(/datasets\.d\.columns\.height: the data file has no column "height"/);
     const missing = tempPolicy(
       policyWith(`    source: nowhere.csv
     accounting: { mode: pure, cap: { epsilon: "1" } }
@@ -74,7 +76,7 @@ describe("loading", () => {
       age: { type: integer, range: [0, 300] }
 `),
     );
-    await expect(Engine.open(loadPolicy(missing), { quiet: true })).rejects.toThrow(PolicyError);
+    await expect(DuckDBEngine.open(loadPolicy(missing), { quiet: true })).rejects.toThrow(PolicyError);
   });
 
   it("counts ragged CSV lines as rows left out and reads the header from the first line", async () => {
@@ -90,11 +92,11 @@ describe("loading", () => {
     const file = tempPolicy(policyWith(body), {
       "data.csv": '\uFEFFage,"Place, town"\r\n3,c,SECRET-7,extra\r\n4\r\n5,"a, b"\r\n6,c\r\nx,c\r\n7,"c",1,2,3\r\n',
     });
-    const e = await Engine.open(loadPolicy(file), { quiet: true });
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
     // Lines 2, 3 and 7 have the wrong number of fields (each counted once); line 6 has text for age.
-    expect(e.loadReport("d")).toEqual({ rows: 2, rejected: 4, reasons: { "wrong number of fields": 3, "age: not a number": 1 } });
-    const t = e.table("d");
-    const rows = await e.query(`SELECT ${t.columns.get("age")!.ident}, ${t.columns.get("place")!.ident} FROM ${t.table} ORDER BY 1`, []);
+    expect(e.loadReport("d")).toEqual({ rows: 2, rejected: 4, reasons: { "wrong number of fields": 3, "age: not a number": 1 }, access: "in memory" });
+    const t = e.relation("d");
+    const rows = await e.query(`SELECT ${t.schema.columns.get("age")!.ident}, ${t.schema.columns.get("place")!.ident} FROM ${t.from} ORDER BY 1`, []);
     expect(rows).toEqual([
       [5n, 0],
       [6n, 1],
@@ -110,7 +112,7 @@ describe("loading", () => {
       age: { type: integer, range: [0, 100] }
 `;
     const open1 = tempPolicy(policyWith(body), { "data.csv": 'age,"SECRET-8\n' });
-    const err = await Engine.open(loadPolicy(open1), { quiet: true }).then(
+    const err = await DuckDBEngine.open(loadPolicy(open1), { quiet: true }).then(
       () => null,
       (x: unknown) => x,
     );
@@ -118,7 +120,7 @@ describe("loading", () => {
     expect((err as Error).message).toMatch(/datasets\.d\.source: line 1 is not a CSV header/);
     expect((err as Error).message).not.toContain("SECRET");
     const dup = tempPolicy(policyWith(body), { "data.csv": "age,age\n1,2\n" });
-    await expect(Engine.open(loadPolicy(dup), { quiet: true })).rejects.toThrow(/columns\.age: the data file has more than one column "age"/);
+    await expect(DuckDBEngine.open(loadPolicy(dup), { quiet: true })).rejects.toThrow(/columns\.age: the data file has more than one column "age"/);
   });
 
   it("shares one table among datasets that differ only in caps and analysts", async () => {
@@ -132,11 +134,11 @@ describe("loading", () => {
     const file = tempPolicy(`${policyWith(body("1", "[ada]"))}  e:\n${body("2")}  f:\n${body("3").replace("range: [0, 100]", "range: [0, 50]")}`, {
       "data.csv": "age\n3\n70\nx\n",
     });
-    const e = await Engine.open(loadPolicy(file), { quiet: true });
-    expect(e.table("e").table).toBe(e.table("d").table);
-    expect(e.table("e").dataset.accounting.capEpsilon.toString()).toBe("2");
-    expect(e.table("f").table).not.toBe(e.table("d").table); // another range: its own table
-    expect(e.loadReport("e")).toEqual({ rows: 2, rejected: 1, reasons: { "age: not a number": 1 } });
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    expect(e.relation("e").from).toBe(e.relation("d").from);
+    expect(e.relation("e").schema.dataset.accounting.capEpsilon.toString()).toBe("2");
+    expect(e.relation("f").from).not.toBe(e.relation("d").from); // another range: its own table
+    expect(e.loadReport("e")).toEqual({ rows: 2, rejected: 1, reasons: { "age: not a number": 1 }, access: "in memory" });
     await e.close();
   });
 
@@ -159,11 +161,12 @@ describe("loading", () => {
       district: { type: category, values: [Northgate, Riverside, Old Town] }
 `),
     );
-    const e = await Engine.open(loadPolicy(file), { quiet: true });
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
     expect(e.loadReport("d")).toEqual({
       rows: 64,
       rejected: 4,
       reasons: { "age: not a number": 1, "age: not a whole number": 1, "district: value outside the declared list": 1, "unit id missing": 1 },
+      access: "in memory",
     });
     await e.close();
   });
@@ -171,18 +174,22 @@ describe("loading", () => {
 
 describe("contribution bounding", () => {
   /** Kept rows per unit (unit hash -> sorted row numbers in the source file order) for a filter. */
-  async function keptPerUnit(e: Engine, where?: Parameters<typeof compileWhere>[0]) {
-    const t = e.table("visits");
+  async function keptPerUnit(e: DuckDBEngine, where?: Parameters<typeof compileWhere>[0]) {
+    const t = e.relation("visits");
     const ps = new Params();
-    const rel = keptRelation(t, compileWhere(where, t, ps), ["__u", t.columns.get("age")!.ident, t.columns.get("visit_date")!.ident], ps);
-    const rows = await e.query(`SELECT __u, count(*), list(CAST(c3 AS VARCHAR) || '/' || coalesce(CAST(c0 AS VARCHAR), '-') ORDER BY c3, c0) FROM (${rel}) GROUP BY __u`, ps.values());
+    const w = where === undefined ? null : compileWhere(where, t.schema, ps);
+    const from = keptRowsFrom(t, w, ["__u", t.schema.columns.get("age")!.ident, t.schema.columns.get("visit_date")!.ident], ps);
+    const rows = await e.query(
+      `SELECT __u, count(*), list(CAST(c3 AS VARCHAR) || '/' || coalesce(CAST(c0 AS VARCHAR), '-') ORDER BY c3, c0) FROM ${from}${w === null ? "" : " WHERE __m"} GROUP BY __u`,
+      ps.values(),
+    );
     return new Map(rows.map((r) => [String(r[0]), { n: Number(r[1]), rows: String(r[2]) }]));
   }
 
   it("keeps at most maxRows rows per unit and every row of smaller units", async () => {
-    const t = ctx.engine.table("visits");
-    const k = t.dataset.unit.maxRows;
-    const all = await ctx.engine.query(`SELECT __u, count(*) FROM ${t.table} GROUP BY __u`, []);
+    const t = ctx.engine.relation("visits");
+    const k = t.schema.dataset.unit.maxRows;
+    const all = await ctx.engine.query(`SELECT __u, count(*) FROM ${t.from} GROUP BY __u`, []);
     const full = new Map(all.map((r) => [String(r[0]), Number(r[1])]));
     const kept = await keptPerUnit(ctx.engine);
     expect(kept.size).toBe(full.size);
@@ -197,9 +204,9 @@ describe("contribution bounding", () => {
   it("chooses the kept rows at random (CSPRNG at load; seeded here), the same for every query of an engine", async () => {
     // The kept rows of the one unit with 12 rows (p01), asked twice of the same engine.
     const choice = async (seed: string) => {
-      const e = await Engine.open(ctx.policy, { quiet: true, datasets: ["visits"], bits: new Bits(seededBytes(seed)) });
-      const t = e.table("visits");
-      const big = String((await e.query(`SELECT DISTINCT __u FROM ${t.table} WHERE __n = 12`, []))[0][0]);
+      const e = await DuckDBEngine.open(ctx.policy, { quiet: true, datasets: [ctx.policy.datasets.get("visits")!], bits: new Bits(seededBytes(seed)) });
+      const t = e.relation("visits");
+      const big = String((await e.query(`SELECT DISTINCT __u FROM ${t.from} WHERE __n = 12`, []))[0][0]);
       const once = (await keptPerUnit(e)).get(big)!.rows;
       const twice = (await keptPerUnit(e)).get(big)!.rows;
       await e.close();
@@ -213,11 +220,11 @@ describe("contribution bounding", () => {
   });
 
   it("bounds after filtering: a unit keeps min(maxRows, matching rows)", async () => {
-    const t = ctx.engine.table("visits");
+    const t = ctx.engine.relation("visits");
     const cond = { op: "ge", column: "visit_date", value: "2025-04-01" } as const;
     const ps = new Params();
-    const w = compileWhere(cond, t, ps);
-    const matching = await ctx.engine.query(`SELECT __u, count(*) FROM ${t.table} WHERE ${w} GROUP BY __u`, ps.values());
+    const w = compileWhere(cond, t.schema, ps);
+    const matching = await ctx.engine.query(`SELECT __u, count(*) FROM ${t.from} WHERE ${w} GROUP BY __u`, ps.values());
     const kept = await keptPerUnit(ctx.engine, cond);
     expect(kept.size).toBe(matching.length);
     for (const [u, n] of matching) expect(kept.get(String(u))!.n).toBe(Math.min(4, Number(n)));
@@ -301,11 +308,11 @@ describe("SQL parameterization", () => {
 
 describe("prepared statements kept per connection", () => {
   it("re-binds a kept statement on every call and survives evicting old ones", async () => {
-    const t = ctx.engine.table("visits");
-    const age = t.columns.get("age")!.ident;
-    const sql = `SELECT count(*) FROM ${t.table} WHERE ${age} <= $1`;
+    const t = ctx.engine.relation("visits");
+    const age = t.schema.columns.get("age")!.ident;
+    const sql = `SELECT count(*) FROM ${t.from} WHERE ${age} <= $1`;
     // Reference counts with the bound value spelled into fresh SQL (one statement per call).
-    const direct = async (v: bigint) => (await ctx.engine.query(`SELECT count(*) FROM ${t.table} WHERE ${age} <= ${v} AND ${v - 1n} = ${v - 1n}`, []))[0][0];
+    const direct = async (v: bigint) => (await ctx.engine.query(`SELECT count(*) FROM ${t.from} WHERE ${age} <= ${v} AND ${v - 1n} = ${v - 1n}`, []))[0][0];
     for (const v of [30n, 60n, 30n, 100n, 0n]) {
       expect((await ctx.engine.query(sql, [{ type: "bigint", value: v }]))[0][0]).toBe(await direct(v));
     }

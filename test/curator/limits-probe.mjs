@@ -3,13 +3,13 @@
 // a plan that never returns fails the test by its timeout instead of freezing the test runner.
 import { readFileSync } from "node:fs";
 import { Answerer } from "../../dist/runtime/curator/answer.js";
-import { Engine } from "../../dist/runtime/curator/engine.js";
+import { DuckDBEngine } from "../../dist/runtime/curator/engines/duckdb/engine.js";
 import { loadPolicy } from "../../dist/runtime/curator/policy.js";
 import { Bits, cryptoBytes } from "../../dist/runtime/core/index.js";
 
 const { policy: file, plans, ask } = JSON.parse(readFileSync(0, "utf8"));
 const policy = loadPolicy(file);
-const engine = await Engine.open(policy, { quiet: true });
+const engine = await DuckDBEngine.open(policy, { quiet: true });
 const answerer = new Answerer(engine, policy);
 for (const plan of plans) {
   const t0 = performance.now();

@@ -15,7 +15,7 @@
  */
 import { Rational, sumSensitivity } from "../../core/index.js";
 import type { GroupKey, Preview, ReleaseRow } from "../../protocol/messages.js";
-import type { Engine, TableColumn } from "../engine.js";
+import type { DataEngine, SchemaColumn } from "../engines/types.js";
 import type { ColumnPolicy } from "../policy.js";
 import { type Allocator, type NoisySpec, exactDecimal, halfWidthValue, mechanismRecord, sqrtRational } from "./budget.js";
 import { type Cpu, type Piece, type Source, fetchCells, groupLabels, rowsPerUnit } from "./common.js";
@@ -58,15 +58,15 @@ export function countPiece(alloc: Allocator, src: Source, keys: readonly GroupKe
     methods: [`count: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     steps: 1,
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, keys, [], () => ["count(*)"]);
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [{ kind: "count" }]);
       return cpu.finish("cells", recipe, data);
     },
   };
 }
 
 /** Noisy clamped sum per declared cell. */
-export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
+export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: SchemaColumn, fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const { columns, labels, cells } = groupLabels(src, keys);
   // L1 = L2 = k * max(|L|,|U|)/g in grid units (docs/methods.md §7 table, [C7.1]).
@@ -83,15 +83,15 @@ export function sumPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[
     methods: [`sum: released value ± the smallest half-width h with P(|${laws([spec])} noise| > h) <= ${round(1 - conf)} (exact tail)`],
     size: cells,
     steps: 1,
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, keys, [col.ident], () => [`sum(${col.ident})`]);
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [{ kind: "sum", column: c.name }]);
       return cpu.finish("cells", recipe, data);
     },
   };
 }
 
 /** Mean per cell: noisy count of values and noisy centred sum, half the budget each (docs/methods.md §8). */
-export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: TableColumn, fraction: Rational): Piece {
+export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey[], col: SchemaColumn, fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const { columns, labels, cells } = groupLabels(src, keys);
   const k = BigInt(rowsPerUnit(src));
@@ -125,8 +125,11 @@ export function meanPiece(alloc: Allocator, src: Source, keys: readonly GroupKey
     methods: [`mean: corner interval of the noisy sum over the noisy count within the declared range (docs/methods.md §8)`],
     size: cells,
     steps: 1,
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
-      const data = await fetchCells(engine, src, keys, [col.ident], () => [`count(${col.ident})`, `sum(${col.ident})`]);
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [
+        { kind: "present", column: c.name },
+        { kind: "sum", column: c.name },
+      ]);
       return cpu.finish("mean", recipe, data);
     },
   };
@@ -137,7 +140,7 @@ export function spreadPiece(
   alloc: Allocator,
   src: Source,
   keys: readonly GroupKey[],
-  col: TableColumn,
+  col: SchemaColumn,
   fraction: Rational,
   stat: "variance" | "std",
 ): Piece {
@@ -178,12 +181,11 @@ export function spreadPiece(
     methods: [`${stat}: extremes of Q/N - (S/N)^2 over the box of the three noisy parts' half-widths (docs/methods.md §8)${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
     steps: 1,
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
-      // |units| <= 2^31 (policy limit), so a square fits BIGINT and DuckDB sums it as HUGEINT.
-      const data = await fetchCells(engine, src, keys, [col.ident], () => [
-        `count(${col.ident})`,
-        `sum(${col.ident})`,
-        `sum(${col.ident} * ${col.ident})`,
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
+      const data = await fetchCells(engine, src, keys, [
+        { kind: "present", column: c.name },
+        { kind: "sum", column: c.name },
+        { kind: "sumSquares", column: c.name },
       ]);
       return cpu.finish("spread", recipe, data);
     },

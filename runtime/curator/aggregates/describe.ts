@@ -9,7 +9,7 @@
  */
 import { Rational } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
-import type { Engine } from "../engine.js";
+import type { DataEngine } from "../engines/types.js";
 import { countPiece, meanPiece, spreadPiece } from "./additive.js";
 import type { Allocator } from "./budget.js";
 import type { Cpu, Piece, Source } from "./common.js";
@@ -49,7 +49,7 @@ export function describePiece(alloc: Allocator, src: Source): Piece {
     methods: [...new Set(list.flatMap((p) => p.piece.methods))],
     size: list.reduce((n, p) => n + p.piece.size, 0),
     steps: list.reduce((n, p) => n + p.piece.steps, 0),
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
       const out: ReleaseRow[] = [];
       for (const p of list) {
         const rows = await p.piece.run(engine, cpu);

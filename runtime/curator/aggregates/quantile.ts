@@ -12,7 +12,7 @@
  */
 import { Rational } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
-import type { Engine, TableColumn } from "../engine.js";
+import type { DataEngine, SchemaColumn } from "../engines/types.js";
 import type { ColumnPolicy } from "../policy.js";
 import { decimalOf } from "../sql.js";
 import { type Allocator, type ExponentialSpec, exactDecimal, exponentialRecord } from "./budget.js";
@@ -42,7 +42,7 @@ export function candidates(c: NumericPolicy): bigint[] {
   return out;
 }
 
-export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, ps: readonly number[], fraction: Rational): Piece {
+export function quantilePiece(alloc: Allocator, src: Source, col: SchemaColumn, ps: readonly number[], fraction: Rational): Piece {
   const c = col.policy as NumericPolicy;
   const k = rowsPerUnit(src);
   const cand = candidates(c);
@@ -80,15 +80,12 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     methods: ["quantiles: no value interval (rank guarantee of the exponential mechanism, McSherry & Talwar 2007)"],
     size: ps.length,
     steps: 1,
-    async run(engine: Engine, cpu: Cpu): Promise<ReleaseRow[]> {
+    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
       // Bucket b(x) = number of candidates <= x, so r(y_j) = #{x < y_j} = #{b(x) <= j}. With
-      // candidates lo + j s (j < m - 1) and hi last: b = min((x - lo) // s + 1, m - 1), and m at hi.
+      // candidates lo + j s (j < m - 1) and hi last: the engine computes b (engines/types.ts).
       const stride = cand.length > 1 ? cand[1] - cand[0] : 1n;
       const m = BigInt(cand.length);
-      const counts = await fetchBuckets(engine, src, col, (id, ps) => {
-        const hi = ps.big(c.grid.upperUnits);
-        return `CASE WHEN ${id} IS NULL THEN NULL WHEN ${id} >= ${hi} THEN ${ps.big(m)} ELSE LEAST((${id} - ${ps.big(c.grid.lowerUnits)}) // ${ps.big(stride)} + 1, ${ps.big(m - 1n)}) END`;
-      });
+      const counts = await fetchBuckets(engine, src, col, { lowerUnits: c.grid.lowerUnits, upperUnits: c.grid.upperUnits, stride, count: m });
       return cpu.finish("quantile", recipe, counts);
     },
   };

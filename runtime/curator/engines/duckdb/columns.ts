@@ -1,0 +1,119 @@
+/**
+ * Row-level steps as DuckDB SQL, shared by the load into memory (load.ts), the prepared file
+ * (prepare.ts) and the in-place view (in-place.ts): typing a raw value by its declared column,
+ * the reasons a value does not fit, and the stored form (grid units, clamping flag, category
+ * index). Only steward-trusted text (declared values, bounds we computed) is written into SQL.
+ */
+import type { ColumnPolicy } from "../../policy.js";
+
+/** SQL identifier quoting (double quotes, inner quotes doubled). */
+export function quoteIdent(name: string): string {
+  return `"${name.replace(/"/g, '""')}"`;
+}
+
+/** SQL string literal for steward-trusted text (paths, declared values); never for plan input. */
+export function quoteString(s: string): string {
+  return `'${s.replace(/'/g, "''")}'`;
+}
+
+/** Typed value x<i> and a "was something there" flag p<i> for one column. */
+export function stagingSelect(c: ColumnPolicy, i: number, src: string): string[] {
+  const present = `${src} IS NOT NULL AS p${i}`;
+  switch (c.type) {
+    case "integer":
+    case "number":
+      return [`TRY_CAST(${src} AS DOUBLE) AS x${i}`, present];
+    case "category": {
+      const arms = c.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
+      return [`CASE CAST(${src} AS VARCHAR) ${arms} END AS x${i}`, present];
+    }
+    case "date":
+      return [`TRY_CAST(${src} AS DATE) AS x${i}`, present];
+    case "boolean":
+      return [`TRY_CAST(${src} AS BOOLEAN) AS x${i}`, present];
+  }
+}
+
+/** Why a staged value does not fit (first reason wins), as CASE arms. Reasons name columns, never values. */
+export function rejectArms(c: ColumnPolicy, i: number): string[] {
+  const why = (s: string) => quoteString(`${c.name}: ${s}`);
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const arms = [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a number")}`,
+        `WHEN p${i} AND NOT isfinite(x${i}) THEN ${why("not a finite number")}`,
+      ];
+      if (c.type === "integer") arms.push(`WHEN p${i} AND x${i} <> round(x${i}) THEN ${why("not a whole number")}`);
+      return arms;
+    }
+    case "category":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("value outside the declared list")}`];
+    case "date":
+      return [
+        `WHEN p${i} AND x${i} IS NULL THEN ${why("not a date")}`,
+        `WHEN x${i} < DATE ${quoteString(c.lower)} OR x${i} > DATE ${quoteString(c.upper)} THEN ${why("date outside the declared range")}`,
+      ];
+    case "boolean":
+      return [`WHEN p${i} AND x${i} IS NULL THEN ${why("not a boolean")}`];
+  }
+}
+
+/**
+ * A typed value that does not fit its column, as a condition (the in-place rule: such a value is
+ * missing). Same conditions as rejectArms, without the reasons.
+ */
+export function unfit(c: ColumnPolicy, i: number): string | null {
+  switch (c.type) {
+    case "integer":
+      return `NOT isfinite(x${i}) OR x${i} <> round(x${i})`;
+    case "number":
+      return `NOT isfinite(x${i})`;
+    case "date":
+      return `x${i} < DATE ${quoteString(c.lower)} OR x${i} > DATE ${quoteString(c.upper)}`;
+    default:
+      return null;
+  }
+}
+
+/**
+ * Stored form of a typed column: c<i>, and for numeric columns the clamping flag k<i> (-1 below
+ * the lower bound, 1 above the upper bound, 0 inside, NULL when missing). Grid bounds are integers
+ * we computed from the policy. `x` is the typed value expression (NULL when missing or unfit).
+ */
+export function finalSelect(c: ColumnPolicy, i: number, x = `x${i}`): string[] {
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const lo = c.grid.lowerUnits.toString();
+      const hi = c.grid.upperUnits.toString();
+      // Clamp in floating point first (so the cast cannot overflow), then round to the grid:
+      // the result is an integer in [lo, hi] whatever the rounding error of x / step.
+      // DuckDB's LEAST/GREATEST skip NULLs, so a missing value must be kept NULL explicitly.
+      const value = `CASE WHEN ${x} IS NULL THEN NULL ELSE CAST(round(LEAST(GREATEST(${x} / CAST(${quoteString(c.step)} AS DOUBLE), ${lo}), ${hi})) AS BIGINT) END AS c${i}`;
+      // The raw value against the declared bounds (as doubles: the bound's nearest double).
+      const flag =
+        `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
+        `WHEN ${x} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+      return [value, flag];
+    }
+    case "category":
+      return [`CAST(${x} AS USMALLINT) AS c${i}`];
+    default:
+      return [`${x} AS c${i}`];
+  }
+}
+
+/** The stored column names of a dataset, in order (c<i> and k<i>). */
+export function storedNames(cols: readonly ColumnPolicy[]): string[] {
+  return cols.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`]));
+}
+
+/** What determines a stored table: the source, the declared columns and the unit. */
+export function tableKey(d: { source: string; format: string; columns: readonly ColumnPolicy[]; unit: { column: string | null; maxRows: number } }): string {
+  const cols = d.columns.map((c) => {
+    const { grid: _grid, ...rest } = c as ColumnPolicy & { grid?: unknown };
+    return rest;
+  });
+  return JSON.stringify([d.source, d.format, cols, d.unit.column, d.unit.maxRows]);
+}

@@ -1,0 +1,173 @@
+/**
+ * The DuckDB engine: one DuckDB instance for every dataset whose source is a file copied into
+ * memory (load.ts), files queried in place (in-place.ts) or a prepared DuckDB database file
+ * (prepare.ts). Memory and threads are DuckDB's own limits, set from the policy's `engine:`;
+ * DuckDB spills to a private temporary folder beyond the memory limit.
+ */
+import { mkdtempSync, rmSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { DuckDBInstance } from "@duckdb/node-api";
+import { UnknownDatasetError } from "../../../errors.js";
+import { Bits, cryptoBytes } from "../../../core/index.js";
+import type { DatasetPolicy, LoadedPolicy } from "../../policy.js";
+import { DUCKDB_DIALECT } from "../../sql.js";
+import { type Relation, bucketsStatement, cellsFromRows, cellsStatement, toBigInt } from "../shapes.js";
+import { type BucketsRequest, type CellsRequest, type DataEngine, type LoadReport, type OpenOptions, type SqlParam, schemaOf } from "../types.js";
+import { quoteIdent, tableKey } from "./columns.js";
+import { openInPlace } from "./in-place.js";
+import { LOADED_BOUNDING, loadTable } from "./load.js";
+import { ConnectionPool } from "./pool.js";
+import { attachPrepared } from "./prepare.js";
+
+/** What the engine keeps per dataset: its relation and the steward's report. */
+interface Opened {
+  relation: Relation;
+  report: LoadReport;
+  /** Checked before every statement (in place: the files have not changed since start). */
+  check?: () => Promise<void>;
+}
+
+/** DuckDB configuration from the policy's engine limits. */
+export function duckdbConfig(policy: LoadedPolicy, temp: string): Record<string, string> {
+  const config: Record<string, string> = { temp_directory: temp };
+  if (policy.engine.memoryLimit !== null) config.memory_limit = policy.engine.memoryLimit;
+  if (policy.engine.threads !== null) config.threads = String(policy.engine.threads);
+  return config;
+}
+
+export class DuckDBEngine implements DataEngine {
+  private readonly datasets = new Map<string, Opened>();
+  private readonly pool: ConnectionPool;
+  private closed = false;
+
+  private constructor(
+    private readonly instance: DuckDBInstance,
+    private readonly temp: string,
+  ) {
+    this.pool = new ConnectionPool(instance);
+  }
+
+  /** Opens the given datasets (default: every dataset of the policy that DuckDB serves). */
+  static async open(policy: LoadedPolicy, opts: OpenOptions = {}): Promise<DuckDBEngine> {
+    const list = opts.datasets ?? [...policy.datasets.values()].filter((d) => d.origin.kind !== "postgres");
+    const temp = mkdtempSync(join(tmpdir(), "hush-duckdb-"));
+    let instance: DuckDBInstance;
+    try {
+      instance = await DuckDBInstance.create(":memory:", duckdbConfig(policy, temp));
+    } catch (e) {
+      rmSync(temp, { recursive: true, force: true });
+      throw e;
+    }
+    const engine = new DuckDBEngine(instance, temp);
+    const bits = opts.bits ?? new Bits(cryptoBytes);
+    try {
+      const conn = await instance.connect();
+      try {
+        for (const [i, d] of list.entries()) {
+          const where = `policy ${policy.file}: datasets.${d.name}`;
+          // Datasets that differ only in caps or analysts (same source, schema and unit) share one table.
+          const same = [...engine.datasets.values()].find((o) => tableKey(o.relation.schema.dataset) === tableKey(d));
+          let opened: Opened;
+          if (same !== undefined) {
+            opened = { ...same, relation: { ...same.relation, schema: schemaOf(d) } };
+          } else {
+            opened = await engine.openOne(conn, d, i, where, bits);
+          }
+          engine.datasets.set(d.name, opened);
+          if (!opts.quiet) {
+            const r = opened.report;
+            const why = Object.entries(r.reasons)
+              .map(([k, v]) => `${k}: ${v}`)
+              .join("; ");
+            process.stderr.write(
+              `hush curator: dataset ${d.name}: ${same !== undefined ? `shares the data of ${same.relation.schema.dataset.name}: ` : ""}${r.access}` +
+                `${r.rows === null ? "" : `, ${r.rows} rows`}${r.rejected > 0 ? `, left out ${r.rejected} (${why})` : ""}\n`,
+            );
+          }
+        }
+      } finally {
+        conn.closeSync();
+      }
+    } catch (e) {
+      await engine.close();
+      throw e;
+    }
+    return engine;
+  }
+
+  private async openOne(conn: import("@duckdb/node-api").DuckDBConnection, d: DatasetPolicy, i: number, where: string, bits: Bits): Promise<Opened> {
+    const schema = schemaOf(d);
+    const o = d.origin;
+    switch (o.kind) {
+      case "memory": {
+        const table = quoteIdent(`d${i}`);
+        const report = await loadTable(conn, d, { kind: "file", path: o.path, format: o.format }, table, i, where, bits);
+        return { relation: { schema, from: table, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report };
+      }
+      case "files":
+        return openInPlace(conn, d, o, i, where, bits);
+      case "duckdb": {
+        const { from, report } = await attachPrepared(conn, d, o, i, where);
+        return { relation: { schema, from, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report };
+      }
+      case "postgres":
+        throw new Error("internal: a PostgreSQL source given to the DuckDB engine");
+    }
+  }
+
+  private get(dataset: string): Opened {
+    const o = this.datasets.get(dataset);
+    if (o === undefined) throw new UnknownDatasetError(`dataset ${JSON.stringify(dataset.slice(0, 64))} is not open`);
+    return o;
+  }
+
+  hasDataset(dataset: string): boolean {
+    return this.datasets.has(dataset);
+  }
+
+  /** Steward-only: how the data is reached, rows kept and why others were left out. */
+  loadReport(dataset: string): LoadReport {
+    const r = this.get(dataset).report;
+    return { ...r, reasons: { ...r.reasons } };
+  }
+
+  /** The relation behind a dataset (tests and the bench compare with plain SQL over it). */
+  relation(dataset: string): Relation {
+    return this.get(dataset).relation;
+  }
+
+  async cells(req: CellsRequest): Promise<bigint[][]> {
+    const o = this.get(req.dataset);
+    const st = cellsStatement(o.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT);
+    await o.check?.();
+    const rows = await this.query(st.sql, st.params);
+    return cellsFromRows(rows, st.sizes, req.terms.length, toBigInt);
+  }
+
+  async buckets(req: BucketsRequest): Promise<[bigint, bigint][]> {
+    const o = this.get(req.dataset);
+    const st = bucketsStatement(o.relation, req, DUCKDB_DIALECT);
+    await o.check?.();
+    const rows = await this.query(st.sql, st.params);
+    // The bucket of a missing value is NULL: left out.
+    return rows.filter((r) => r[0] !== null).map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
+  }
+
+  /**
+   * Runs one parameterized statement (bound to $1, $2, ...; `sql` is built only from internal
+   * identifiers and placeholders). Public for tests and the bench's plain-SQL baselines.
+   */
+  async query(sql: string, params: readonly SqlParam[]): Promise<unknown[][]> {
+    if (this.closed) throw new Error("engine is closed");
+    return this.pool.query(sql, params);
+  }
+
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    this.pool.close();
+    this.instance.closeSync();
+    rmSync(this.temp, { recursive: true, force: true });
+  }
+}
