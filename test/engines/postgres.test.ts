@@ -20,7 +20,10 @@ import { type LoadedPolicy, loadPolicy } from "../../runtime/curator/policy.js";
 import { type PgCluster, createReader, havePostgres, startCluster } from "../helpers/pg-cluster.js";
 import { ADA_HASH } from "../fixtures/curator-helpers.js";
 import { COLUMNS_SQL, MARKER, POLICY_COLUMNS, REGIONS, generate, insertRows, plainFits, writeCsv } from "./pg-fixture.js";
-import type { CellsRequest } from "../../runtime/curator/engines/types.js";
+import type { CellsRequest, DataEngine } from "../../runtime/curator/engines/types.js";
+import { openEngines } from "../../runtime/curator/engines/open.js";
+import { Answerer } from "../../runtime/curator/answer.js";
+import type { QueryPlan } from "../../runtime/protocol/messages.js";
 
 const ROWS = generate(3000, 6);
 
@@ -319,5 +322,94 @@ run("PostgreSQL engine: bad configuration fails at start", () => {
     expect(range).toMatch(/partitioned by RANGE \(patient\)/);
     // Without a unit column every row is its own unit: any partitioning will do.
     expect(await startError(pgSource("by_region"))).toBe("opened");
+  });
+});
+
+/**
+ * The same rows in DuckDB (from a CSV, copied into memory) and in PostgreSQL: identical true
+ * aggregates, and through the Answerer identical releases with the same random bits (so identical
+ * sensitivities, costs, mechanisms, notes and digests), and identical refusals.
+ */
+run("PostgreSQL engine: the same answers as the DuckDB engine", () => {
+  let pgEngine: DataEngine;
+  let duck: DataEngine;
+  let pgAnswers: Answerer;
+  let duckAnswers: Answerer;
+  beforeAll(async () => {
+    const p = policy(
+      dataset("rows", pgSource("visits"), null) + dataset("small", pgSource("visits"), "{ column: patient, maxRows: 10 }"),
+      "pg-side.yaml",
+    );
+    const d = policy(dataset("rows", "visits.csv", null) + dataset("small", "visits.csv", "{ column: patient, maxRows: 10 }"), "duck-side.yaml");
+    pgEngine = await openEngines(p, { quiet: true });
+    duck = await openEngines(d, { quiet: true });
+    pgAnswers = new Answerer(pgEngine, p);
+    duckAnswers = new Answerer(duck, d);
+  });
+  afterAll(async () => {
+    await pgEngine?.close();
+    await duck?.close();
+  });
+
+  const requests = (ds: string): CellsRequest[] => [
+    { dataset: ds, keys: [], terms: [{ kind: "count" }, { kind: "sum", column: "income" }, { kind: "sumSquares", column: "score" }, { kind: "sumProduct", a: "age", b: "dose" }] },
+    { dataset: ds, keys: [{ column: "region" }], terms: [{ kind: "present", column: "score" }, { kind: "sum", column: "score" }, { kind: "atLower", column: "score" }, { kind: "atUpper", column: "dose" }] },
+    { dataset: ds, keys: [{ column: "dose", bins: 7 }, { column: "insured" }], terms: [{ kind: "count" }], where: { op: "between", column: "visited", low: "2021-03-01", high: "2023-10-31" } },
+    { dataset: ds, keys: [], terms: [{ kind: "count" }], where: { op: "or", of: [{ op: "lt", column: "score", value: -1.25 }, { op: "isNull", column: "age" }] } },
+  ];
+
+  for (const ds of ["rows", "small"]) {
+    it(`${ds}: identical cells and buckets`, async () => {
+      for (const req of requests(ds)) expect(await pgEngine.cells(req)).toEqual(await duck.cells(req));
+      const b = { dataset: ds, column: "income", lowerUnits: 0n, upperUnits: 100000n, stride: 1000n, count: 101n };
+      expect(await pgEngine.buckets(b)).toEqual(await duck.buckets(b));
+      const f = { ...b, where: { op: "eq", column: "region", value: "south" } as const };
+      expect(await pgEngine.buckets(f)).toEqual(await duck.buckets(f));
+    });
+
+    it(`${ds}: identical releases with the same random bits (count, sum, grouped mean, std, median, describe)`, async () => {
+      const plans: QueryPlan[] = [
+        { v: 1, dataset: ds, privacy: { epsilon: "1" }, measure: { kind: "count" } },
+        { v: 1, dataset: ds, privacy: { epsilon: "1" }, measure: { kind: "sum", column: "income" }, where: { op: "ge", column: "age", value: 40 } },
+        { v: 1, dataset: ds, privacy: { epsilon: "1" }, measure: { kind: "mean", column: "score" }, groupBy: [{ column: "region" }] },
+        { v: 1, dataset: ds, privacy: { epsilon: "1" }, measure: { kind: "std", column: "dose" } },
+        { v: 1, dataset: ds, privacy: { epsilon: "1" }, measure: { kind: "quantile", column: "income", p: [0.5] } },
+        { v: 1, dataset: ds, privacy: { epsilon: "2" }, measure: { kind: "describe" } },
+      ];
+      for (const [i, plan] of plans.entries()) {
+        const a = pgAnswers.prepare("ada", plan);
+        const b = duckAnswers.prepare("ada", plan);
+        expect(a.digest).toBe(b.digest);
+        expect(a.cost.toString()).toBe(b.cost.toString());
+        expect(a.notes).toEqual(b.notes);
+        const ra = await a.compute(new Bits(seededBytes(`release-${i}`)));
+        const rb = await b.compute(new Bits(seededBytes(`release-${i}`)));
+        expect(ra).toEqual(rb);
+      }
+    });
+  }
+
+  it("identical refusals, spending nothing", () => {
+    const bad: unknown[] = [
+      { v: 1, dataset: "small", privacy: { epsilon: "1" }, measure: { kind: "sum", column: "patient" } },
+      { v: 1, dataset: "small", privacy: { epsilon: "1" }, measure: { kind: "sum", column: "region" } },
+      { v: 1, dataset: "small", privacy: { epsilon: "1" }, measure: { kind: "count" }, where: { op: "eq", column: "region", value: MARKER } },
+      { v: 1, dataset: "small", privacy: { epsilon: "1" }, measure: { kind: "count" }, where: { op: "lt", column: "age", value: Number.NaN } },
+      { v: 1, dataset: "nowhere", privacy: { epsilon: "1" }, measure: { kind: "count" } },
+    ];
+    for (const plan of bad) {
+      const refusal = (ans: Answerer) => {
+        try {
+          ans.prepare("ada", plan);
+          return "accepted";
+        } catch (e) {
+          return `${(e as Error).constructor.name}: ${(e as Error).message}`;
+        }
+      };
+      const a = refusal(pgAnswers);
+      expect(a).not.toBe("accepted");
+      expect(a).toBe(refusal(duckAnswers));
+      expect(a).not.toContain(MARKER);
+    }
   });
 });
