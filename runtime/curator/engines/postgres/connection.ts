@@ -81,8 +81,12 @@ export function poolConfig(cfg: PgSourceConfig, password: string | undefined, ti
     // A statement running past the release's time limit is cancelled by the server itself.
     statement_timeout: Math.max(1, Math.ceil(timeLimitMs)),
     application_name: "hush-curator",
-    // Literals we write use standard quoting; the session is read-only.
-    options: "-c standard_conforming_strings=on -c default_transaction_read_only=on",
+    // Literals we write use standard quoting; the session is read-only; over a partitioned table
+    // aggregates and joins are planned per partition, which is what lets postgres_fdw send an
+    // aggregate grouped by the partition key to the shard that holds the partition.
+    options:
+      "-c standard_conforming_strings=on -c default_transaction_read_only=on " +
+      "-c enable_partitionwise_aggregate=on -c enable_partitionwise_join=on",
   };
 }
 

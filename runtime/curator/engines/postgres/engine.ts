@@ -37,6 +37,15 @@ import { type PgSourceConfig, connectError, poolConfig, readPassword } from "./c
 import { type SourceShape, flaggedFrom, unitCounts } from "./relation.js";
 import { BadInputError } from "../../../errors.js";
 
+/**
+ * Date literals: sql.ts writes CAST($n AS DATE) over a text placeholder; PostgreSQL takes the
+ * parameter as a date directly, which postgres_fdw can send to a shard (a text-to-date cast it
+ * does not send). Only our own placeholders match, never a value (values are parameters).
+ */
+function dateParams(sql: string): string {
+  return sql.replace(/CAST\((\$\d+)::text AS DATE\)/g, "$1::date");
+}
+
 /** PostgreSQL: typed placeholders (node-postgres sends text), `/` is integer division on bigint. */
 export const PG_DIALECT: Dialect = {
   placeholder: (n, type) => `$${n}::${type === "bigint" ? "bigint" : type === "integer" ? "integer" : type === "varchar" ? "text" : "boolean"}`,
@@ -197,7 +206,7 @@ export class PostgresEngine implements DataEngine {
       // window would keep. Grouped by the unit (the partition key of a sharded table), so
       // PostgreSQL aggregates per partition and postgres_fdw runs that aggregate on the shards.
       const per = unitCounts(o.shape, where, ps);
-      return { sql: `SELECT ${parts.map(() => "sum(__n)").join(", ")} FROM ${per}`, params: ps.values().map((p) => String(p.value)), sizes: [] };
+      return { sql: dateParams(`SELECT ${parts.map(() => "sum(__n)").join(", ")} FROM ${per}`), params: ps.values().map((p) => String(p.value)), sizes: [] };
     }
     const from = flaggedFrom(o.shape, where, cols, ps);
     const flagged = where !== "TRUE" || o.shape.dataset.unit.column !== null;
@@ -208,7 +217,7 @@ export class PostgresEngine implements DataEngine {
       const keySel = groups.map((g, i) => `${g.expr} AS __g${i}`).join(", ");
       sql = `SELECT ${keySel}, ${aggs.join(", ")} FROM ${from} GROUP BY ${groups.map((_, i) => String(i + 1)).join(", ")}`;
     }
-    return { sql, params: ps.values().map((p) => String(p.value)), sizes: groups.map((g) => g.labels.length) };
+    return { sql: dateParams(sql), params: ps.values().map((p) => String(p.value)), sizes: groups.map((g) => g.labels.length) };
   }
 
   async cells(req: CellsRequest): Promise<bigint[][]> {
@@ -231,7 +240,7 @@ export class PostgresEngine implements DataEngine {
       `CASE WHEN ${id} IS NULL THEN NULL WHEN ${id} >= ${hi} THEN ${ps.big(req.count)} ` +
       `ELSE LEAST(${PG_DIALECT.intDiv(`${id} - ${ps.big(req.lowerUnits)}`, ps.big(req.stride))} + 1, ${ps.big(req.count - 1n)}) END`;
     const sql = `SELECT ${b} AS __b, count(*)${flagged ? " FILTER (WHERE __m)" : ""} FROM ${from} GROUP BY 1 ORDER BY 1`;
-    return { sql, params: ps.values().map((p) => String(p.value)) };
+    return { sql: dateParams(sql), params: ps.values().map((p) => String(p.value)) };
   }
 
   async buckets(req: BucketsRequest): Promise<[bigint, bigint][]> {

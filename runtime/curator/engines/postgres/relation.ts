@@ -61,28 +61,48 @@ export interface SourceShape {
 
 const INT_SAFE = 1n << 62n;
 
+/**
+ * clamp(x, lo, hi) as a searched CASE. Not LEAST/GREATEST: postgres_fdw does not send those to a
+ * shard, and CASE it does, so a sharded table's row-level steps can run on the shards. A NULL
+ * falls through to the ELSE and stays NULL.
+ */
+function clamp(x: string, lo: string, hi: string): string {
+  return `CASE WHEN ${x} < ${lo} THEN ${lo} WHEN ${x} > ${hi} THEN ${hi} ELSE ${x} END`;
+}
+
 function gridUnits(x: string, kind: PgKind, g: Grid): string {
-  const lo = g.lowerUnits.toString();
-  const hi = g.upperUnits.toString();
   const s = g.step;
   if (kind === "int" && s.den === 1n) {
     // Integer column, integer step: clamp in value units, then round half away from zero with
     // bigint arithmetic: sign(v) * ((2|v| + s) / (2s)).
-    if (s.num === 1n) return `LEAST(GREATEST(${x}::bigint, ${lo}), ${hi})`;
+    if (s.num === 1n) return `(${clamp(`${x}::bigint`, `${g.lowerUnits}::bigint`, `${g.upperUnits}::bigint`)})`;
     const vlo = g.lowerUnits * s.num;
     const vhi = g.upperUnits * s.num;
     if (vlo > -INT_SAFE && vhi < INT_SAFE && s.num < INT_SAFE / 4n) {
-      const v = `LEAST(GREATEST(${x}::bigint, ${vlo}), ${vhi})`;
+      const v = `(${clamp(`${x}::bigint`, `${vlo}::bigint`, `${vhi}::bigint`)})`;
       return `(sign(${v}) * ((2 * abs(${v}) + ${s.num}) / ${2n * s.num}))::bigint`;
     }
   }
-  // x / step = x * den / num, exact in numeric when num is 1 (steps such as 0.1, 0.01, 1).
-  const scaled = s.num === 1n ? `${x}::numeric * ${s.den}` : `${x}::numeric * ${s.den} / ${s.num}`;
-  return `round(LEAST(GREATEST(${scaled}, ${lo}), ${hi}))::bigint`;
+  // Clamp in value units to the grid's end points lo*step and hi*step (exact numeric constants,
+  // folded when the statement is planned), then x / step = x * den / num in numeric, rounded half
+  // away from zero. The clamp keeps the result inside [lo, hi] and the bigint cast from failing.
+  const lo = `(${g.lowerUnits * s.num}::numeric / ${s.den})`;
+  const hi = `(${g.upperUnits * s.num}::numeric / ${s.den})`;
+  const scaled = `(${clamp(x, lo, hi)})::numeric * ${s.den}${s.num === 1n ? "" : ` / ${s.num}`}`;
+  return `round(${scaled})::bigint`;
 }
 
+/**
+ * TRUE when `e` is true, FALSE when it is false or NULL (a missing value does not match, as in
+ * WHERE). Written as CASE rather than COALESCE: postgres_fdw ships CASE to a shard, not COALESCE.
+ */
+export function isTrue(e: string): string {
+  return `CASE WHEN ${e} THEN TRUE ELSE FALSE END`;
+}
+
+/** NaN or an infinity (numeric and double precision hold both). Plain comparisons, which postgres_fdw ships. */
 function nonFinite(x: string): string {
-  return `${x} IN ('NaN', 'Infinity', '-Infinity')`;
+  return `(${x} = 'NaN' OR ${x} = 'Infinity' OR ${x} = '-Infinity')`;
 }
 
 /** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
@@ -109,8 +129,9 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
     }
     case "category": {
       const text = c.kind === "text" ? raw : `${raw}::text`;
-      const arms = p.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
-      const value = `(CASE ${text} ${arms} END)`;
+      // A searched CASE (postgres_fdw ships it; the simple form CASE x WHEN ... it may not).
+      const arms = p.values.map((v, j) => `WHEN ${text} = ${quoteString(v)} THEN ${j}`).join(" ");
+      const value = `(CASE ${arms} END)`;
       return { value, misfit: [`${raw} IS NOT NULL AND ${value} IS NULL`] };
     }
     case "date":
@@ -136,7 +157,7 @@ export function sourceSelect(shape: SourceShape, seed: string): string {
     const sql = columnSql(c, raw);
     sel.push(`${sql.value} AS c${i}`);
     if (sql.flag !== undefined) sel.push(`${sql.flag} AS k${i}`);
-    for (const m of sql.misfit) misfits.push(`COALESCE(${m}, FALSE)`);
+    for (const m of sql.misfit) misfits.push(isTrue(m));
   });
   const unit = shape.dataset.unit.column;
   if (unit !== null) {
@@ -164,7 +185,7 @@ export function flaggedFrom(shape: SourceShape, where: string, cols: readonly st
   const uniq = [...new Set(cols)];
   const list = uniq.length === 0 ? "" : `${uniq.join(", ")}, `;
   const seedless = shape.dataset.unit.column === null;
-  const hit = where === "TRUE" ? "TRUE" : `COALESCE(${where}, FALSE)`;
+  const hit = where === "TRUE" ? "TRUE" : isTrue(where);
   if (seedless) {
     // Each row is its own unit: no window, and the filter is a flag, not a WHERE.
     return `(SELECT ${list}${hit} AS __m FROM (${sourceSelect(shape, "0")}) AS __v WHERE __ok) AS __kept`;
@@ -184,20 +205,10 @@ export function flaggedFrom(shape: SourceShape, where: string, cols: readonly st
  * own (enable_partitionwise_aggregate) and postgres_fdw sends that aggregate to the shard.
  */
 export function unitCounts(shape: SourceShape, where: string, ps: Params): string {
-  const hit = where === "TRUE" ? "TRUE" : `COALESCE(${where}, FALSE)`;
+  const hit = where === "TRUE" ? "TRUE" : isTrue(where);
   const k = ps.add({ type: "integer", value: shape.dataset.unit.maxRows });
   return (
     `(SELECT least(count(*) FILTER (WHERE __h), ${k}) AS __n FROM (SELECT ${hit} AS __h, __u FROM (${sourceSelect(shape, "0")}) AS __v WHERE __ok) AS __w ` +
     `GROUP BY __u) AS __p`
   );
-}
-
-/** Group key index expression over a numeric column's grid units: floor((u - lo) * bins / (hi - lo)), top edge in the last bin. */
-export function pgBinExpr(ident: string, grid: Grid, bins: number, ps: Params): string {
-  const lo = ps.big(grid.lowerUnits);
-  const span = ps.big(grid.upperUnits - grid.lowerUnits);
-  const b = ps.big(BigInt(bins));
-  const last = ps.big(BigInt(bins - 1));
-  // Units are >= lo, so bigint division (truncation) is floor here.
-  return `CASE WHEN ${ident} IS NULL THEN NULL ELSE LEAST((${ident} - ${lo}) * ${b} / ${span}, ${last}) END`;
 }
