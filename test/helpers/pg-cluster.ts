@@ -212,10 +212,10 @@ export interface ShardedSet {
  * and for a reader role created on every cluster. `createSharded` then makes a hash-partitioned
  * table whose partitions are foreign tables, one per shard.
  */
-export async function startShardedSet(n: number): Promise<ShardedSet> {
+export async function startShardedSet(n: number, opts: ClusterOptions = {}): Promise<ShardedSet> {
   const started: PgCluster[] = [];
   try {
-    for (let i = 0; i <= n; i++) started.push(await startCluster());
+    for (let i = 0; i <= n; i++) started.push(await startCluster(opts));
     const [coordinator, ...shards] = started;
     const reader = await createReader(coordinator);
     await coordinator.sql("CREATE EXTENSION postgres_fdw");
