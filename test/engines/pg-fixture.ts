@@ -6,11 +6,12 @@
  * Rows are crafted to exercise every row-level rule: values past the declared ranges (clamped),
  * off-grid values (rounded; never an exact tie after binary64 division, so DuckDB's binary64 and
  * PostgreSQL's exact rounding agree), NULLs in every column, and rows that do not fit the schema
- * (a NaN score, a region outside the list, a date outside the range, a missing unit id), which
- * both engines leave out.
+ * (a NaN score, a region outside the list, a date outside the range: each such value is missing;
+ * a missing unit id: the row is left out where there is a unit).
  */
 import { writeFileSync } from "node:fs";
 import type pg from "pg";
+import { DuckDBInstance } from "@duckdb/node-api";
 
 export const COLUMNS_SQL =
   "patient bigint, age integer, income numeric(12,2), score double precision, dose integer, region text, visited date, insured boolean";
@@ -110,16 +111,38 @@ export const POLICY_COLUMNS = `    columns:
 `;
 
 /**
- * Plain SQL (written here by hand, not by the engine) for the rows that fit the schema and the
- * clamped grid units of each numeric column, as the policy above declares them.
+ * Plain SQL (written here by hand, not by the engine) for the rows and the clamped grid units of
+ * each numeric column, as the policy above declares them. A value that does not fit its declared
+ * type is missing (NULL): a NaN score, a region outside the list, a date outside the range; with a
+ * unit column, rows without a unit id are left out.
  */
 export function plainFits(table: string, withUnit: boolean): string {
   // PostgreSQL's LEAST/GREATEST skip NULLs, so a missing value is kept missing explicitly.
   const units = (x: string, e: string) => `CASE WHEN ${x} IS NULL THEN NULL ELSE ${e} END`;
   return (
-    `SELECT *, ${units("age", "LEAST(GREATEST(age, 0), 100)")} AS age_u, ${units("income", "round(LEAST(GREATEST(income, 0), 50000) * 2)")} AS income_u, ` +
-    `${units("score", "round(LEAST(GREATEST(score::numeric, -5), 5) * 10)")} AS score_u, ${units("dose", "round(LEAST(GREATEST(dose, 0), 1000) / 10.0)")} AS dose_u ` +
-    `FROM ${table} WHERE (score IS NULL OR score <> 'NaN') AND (region IS NULL OR region IN ('north', 'south', 'east', 'west')) ` +
-    `AND (visited IS NULL OR visited BETWEEN '2020-01-01' AND '2024-12-31')${withUnit ? " AND patient IS NOT NULL" : ""}`
+    `SELECT patient, age, income, dose, ` +
+    `CASE WHEN score <> 'NaN' THEN score END AS score, ` +
+    `CASE WHEN region IN ('north', 'south', 'east', 'west') THEN region END AS region, ` +
+    `CASE WHEN visited BETWEEN '2020-01-01' AND '2024-12-31' THEN visited END AS visited, insured, ` +
+    `${units("age", "LEAST(GREATEST(age, 0), 100)")} AS age_u, ${units("income", "round(LEAST(GREATEST(income, 0), 50000) * 2)")} AS income_u, ` +
+    `CASE WHEN score IS NULL OR score = 'NaN' THEN NULL ELSE round(LEAST(GREATEST(score::numeric, -5), 5) * 10) END AS score_u, ` +
+    `${units("dose", "round(LEAST(GREATEST(dose, 0), 1000) / 10.0)")} AS dose_u ` +
+    `FROM ${table}${withUnit ? " WHERE patient IS NOT NULL" : ""}`
   );
+}
+
+/** The CSV as a Parquet file (DuckDB's own CSV reader and types), for DuckDB's in-place engine. */
+export async function csvToParquet(csv: string, parquet: string): Promise<void> {
+  const db = await DuckDBInstance.create(":memory:");
+  const c = await db.connect();
+  try {
+    const q = (s: string) => `'${s.replace(/'/g, "''")}'`;
+    await c.run(
+      `COPY (SELECT * FROM read_csv(${q(csv)}, header = true, columns = {'patient': 'BIGINT', 'age': 'BIGINT', 'income': 'DOUBLE', ` +
+        `'score': 'DOUBLE', 'dose': 'BIGINT', 'region': 'VARCHAR', 'visited': 'DATE', 'insured': 'BOOLEAN'})) TO ${q(parquet)} (FORMAT parquet)`,
+    );
+  } finally {
+    c.closeSync();
+    db.closeSync();
+  }
 }

@@ -2,7 +2,8 @@
  * The PostgreSQL engine against a real throwaway PostgreSQL 15 cluster (test/helpers/pg-cluster.ts):
  *
  *  - true aggregates equal plain SQL written by hand and run directly in PostgreSQL over the same
- *    table (pg-fixture.ts plainFits), and equal the DuckDB engine's over the same rows from a CSV;
+ *    table (pg-fixture.ts plainFits), and equal the DuckDB engine's over the same rows (Parquet in
+ *    place, which has the same rule for values that do not fit: missing);
  *  - per-unit bounding keeps at most maxRows rows per unit (count = sum over units of
  *    min(rows, maxRows), from plain SQL), the kept sum lies between the sums of each unit's
  *    smallest and largest maxRows values, and the choice follows the seed, not the values;
@@ -19,7 +20,7 @@ import { PostgresEngine } from "../../runtime/curator/engines/postgres/engine.js
 import { type LoadedPolicy, loadPolicy } from "../../runtime/curator/policy.js";
 import { type PgCluster, createReader, havePostgres, startCluster } from "../helpers/pg-cluster.js";
 import { ADA_HASH } from "../fixtures/curator-helpers.js";
-import { COLUMNS_SQL, MARKER, POLICY_COLUMNS, REGIONS, generate, insertRows, plainFits, writeCsv } from "./pg-fixture.js";
+import { COLUMNS_SQL, MARKER, POLICY_COLUMNS, REGIONS, csvToParquet, generate, insertRows, plainFits, writeCsv } from "./pg-fixture.js";
 import type { CellsRequest, DataEngine } from "../../runtime/curator/engines/types.js";
 import { openEngines } from "../../runtime/curator/engines/open.js";
 import { Answerer } from "../../runtime/curator/answer.js";
@@ -79,6 +80,7 @@ beforeAll(async () => {
   writeFileSync(join(dir, "pw.txt"), `${reader.password}\n`);
   writeFileSync(join(dir, "wrong.txt"), "not-the-password\n");
   writeCsv(join(dir, "visits.csv"), ROWS);
+  await csvToParquet(join(dir, "visits.csv"), join(dir, "visits.parquet"));
 });
 
 afterAll(async () => {
@@ -137,8 +139,10 @@ run("PostgreSQL engine: true aggregates", () => {
       const got = await engine.cells(ungrouped(ds, terms));
       const want = await plain(`SELECT ${plainTerms} FROM (${plainFits("visits", ds === "small")}) f`);
       expect(got[0].map(String)).toEqual(want);
-      // Sanity of the fixture: some rows are left out, some clamped.
-      expect(Number(got[0][0])).toBeLessThan(ROWS.length);
+      // Sanity of the fixture: rows without a unit id are left out where there is a unit; some
+      // values are missing, some clamped.
+      expect(Number(got[0][0]) === ROWS.length).toBe(ds === "rows");
+      expect(got[0][1]).toBeLessThan(got[0][0]);
       expect(got[0][8]).toBeGreaterThan(0n);
     });
 
@@ -326,11 +330,11 @@ run("PostgreSQL engine: bad configuration fails at start", () => {
 });
 
 /**
- * The same rows in DuckDB (from a CSV, copied into memory) and in PostgreSQL: identical true
+ * The same rows in DuckDB (Parquet queried in place) and in PostgreSQL: identical true
  * aggregates, and through the Answerer identical releases with the same random bits (so identical
  * sensitivities, costs, mechanisms, notes and digests), and identical refusals.
  */
-run("PostgreSQL engine: the same answers as the DuckDB engine", () => {
+run("PostgreSQL engine: the same answers as the DuckDB engine (Parquet in place)", () => {
   let pgEngine: DataEngine;
   let duck: DataEngine;
   let pgAnswers: Answerer;
@@ -340,7 +344,10 @@ run("PostgreSQL engine: the same answers as the DuckDB engine", () => {
       dataset("rows", pgSource("visits"), null) + dataset("small", pgSource("visits"), "{ column: patient, maxRows: 10 }"),
       "pg-side.yaml",
     );
-    const d = policy(dataset("rows", "visits.csv", null) + dataset("small", "visits.csv", "{ column: patient, maxRows: 10 }"), "duck-side.yaml");
+    // DuckDB over the same rows as Parquet in place: the same rule for values that do not fit
+    // (missing) as the PostgreSQL engine.
+    const files = "{ files: visits.parquet }";
+    const d = policy(dataset("rows", files, null) + dataset("small", files, "{ column: patient, maxRows: 10 }"), "duck-side.yaml");
     pgEngine = await openEngines(p, { quiet: true });
     duck = await openEngines(d, { quiet: true });
     pgAnswers = new Answerer(pgEngine, p);

@@ -13,9 +13,12 @@
  *   __r   the row's place in a random order of the table (hashtextextended of the row's ctid under
  *         a 64-bit seed drawn from the CSPRNG at start; a view, which has no ctid, hashes the whole
  *         row under the seed). It never looks at a value of a table row
- *   __ok  the row fits the declared schema (the same rules as the DuckDB loader: a number that is
- *         NaN or infinite, a non-whole number in an integer column, a category value outside the
- *         list, a date outside the range, or a missing unit id leave the whole row out)
+ *   __ok  the row has a unit id (always true without a unit column); rows without one are left out
+ *
+ * A value that does not fit its declared type is MISSING (NULL), the same for every query, as in
+ * DuckDB's files-in-place engine (engines/duckdb/in-place.ts): NaN or an infinity, a non-whole
+ * number in an integer column, a category value outside the declared list, a date outside the
+ * declared range. Only the columns a statement reads are checked, so a count reads no value at all.
  *
  * Rounding is exact: x * (den/num of the step) in PostgreSQL's numeric, rounded half away from
  * zero (round(numeric)), the same rule DuckDB's round applies to its binary64 quotient; integer
@@ -123,7 +126,7 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
       return {
         value: `CASE WHEN ${raw} IS NULL THEN NULL ELSE ${gridUnits(raw, c.kind, p.grid)} END`,
         misfit,
-        // A float's NaN/inf rows are left out anyway; the guard only keeps the cast from failing.
+        // A NaN or infinite value is missing (sourceSelect); the guard keeps the comparison exact.
         flag: `CASE WHEN ${raw} IS NULL THEN NULL WHEN ${safe}${asNum} < ${lower} THEN -1 WHEN ${safe}${asNum} > ${upper} THEN 1 ELSE 0 END`,
       };
     }
@@ -132,7 +135,8 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
       // A searched CASE (postgres_fdw ships it; the simple form CASE x WHEN ... it may not).
       const arms = p.values.map((v, j) => `WHEN ${text} = ${quoteString(v)} THEN ${j}`).join(" ");
       const value = `(CASE ${arms} END)`;
-      return { value, misfit: [`${raw} IS NOT NULL AND ${value} IS NULL`] };
+      // A value outside the list matches no arm: NULL, missing.
+      return { value, misfit: [] };
     }
     case "date":
       return {
@@ -151,23 +155,24 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
  */
 export function sourceSelect(shape: SourceShape, seed: string): string {
   const sel: string[] = [];
-  const misfits: string[] = [];
   shape.columns.forEach((c, i) => {
     const raw = `__s.${quoteIdent(c.policy.from)}`;
     const sql = columnSql(c, raw);
-    sel.push(`${sql.value} AS c${i}`);
-    if (sql.flag !== undefined) sel.push(`${sql.flag} AS k${i}`);
-    for (const m of sql.misfit) misfits.push(isTrue(m));
+    // A value that does not fit its declared type is missing (NULL), in this query and every other.
+    const unfit = sql.misfit.length === 0 ? null : sql.misfit.map((m) => `(${m})`).join(" OR ");
+    const missing = (e: string) => (unfit === null ? e : `CASE WHEN ${unfit} THEN NULL ELSE ${e} END`);
+    sel.push(`${missing(sql.value)} AS c${i}`);
+    if (sql.flag !== undefined) sel.push(`${missing(sql.flag)} AS k${i}`);
   });
   const unit = shape.dataset.unit.column;
   if (unit !== null) {
     const u = `__s.${quoteIdent(unit)}`;
     sel.push(`${u} AS __u`);
-    misfits.push(`${u} IS NULL`);
     const id = shape.hasCtid ? "__s.ctid::text" : "__s::text";
     sel.push(`hashtextextended(${id}, ${seed}) AS __r`);
   }
-  sel.push(misfits.length === 0 ? "TRUE AS __ok" : `NOT (${misfits.join(" OR ")}) AS __ok`);
+  // Only a missing unit id leaves a whole row out (it cannot be bounded).
+  sel.push(unit === null ? "TRUE AS __ok" : `__s.${quoteIdent(unit)} IS NOT NULL AS __ok`);
   return `SELECT ${sel.join(", ")} FROM ${shape.relation} AS __s`;
 }
 
