@@ -55,6 +55,15 @@ function program(): Command {
       await runServe(o, out);
     });
 
+  p.command("prepare")
+    .description("prepare the datasets whose source is a DuckDB database file (once, before the curator starts)")
+    .requiredOption("--policy <file>", "the steward's policy (YAML)")
+    .option("--dataset <name>", "only this dataset")
+    .action(async (o: { policy: string; dataset?: string }) => {
+      const { runPrepare } = await import("./commands/prepare.js");
+      await runPrepare(o, out);
+    });
+
   p.command("keygen")
     .description("create a curator signing key (Ed25519); the public key goes to reviewers")
     .requiredOption("--out <file>", "where to write the private key (PEM, mode 0600); the public key goes to FILE.pub")

@@ -71,8 +71,8 @@ export interface DatasetPolicy {
   name: string;
   description: string;
   /**
-   * What the dataset reads, as one string: the absolute path of the file, folder, glob or DuckDB
-   * file, or `postgresql://user@host:port/database/schema.table` (no password). Populations are
+   * What the dataset reads, as one string: the absolute path of the file or glob, `<file>#<table>`
+   * for a table of a DuckDB file, or `postgresql://user@host:port/database/schema.table` (no password). Populations are
    * keyed on it (populations.ts).
    */
   source: string;
@@ -419,7 +419,8 @@ function sourceIdentity(o: SourcePolicy): { source: string; format: DatasetPolic
     case "files":
       return { source: o.pattern, format: o.format };
     case "duckdb":
-      return { source: o.path, format: "duckdb" };
+      // One table of a database file: its own people, as one file is (populations.ts).
+      return { source: `${o.path}#${o.table}`, format: "duckdb" };
     case "postgres":
       return {
         source: `postgresql://${encodeURIComponent(o.user)}@${o.host}:${o.port}/${encodeURIComponent(o.database)}/${o.schema}.${o.table}`,

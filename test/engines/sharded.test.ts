@@ -103,7 +103,7 @@ run("sharded PostgreSQL (3 shards)", () => {
     const counts = await Promise.all(set.shards.map(async (s, i) => Number((await s.sql(`SELECT count(*)::int AS n FROM visits_p${i}`))[0].n)));
     expect(counts.reduce((a, b) => a + b, 0)).toBe(ROWS.length);
     for (const n of counts) expect(n).toBeGreaterThan(ROWS.length / 6);
-    expect(engine.loadReport("small").access).toMatch(/hash-partitioned in 3 partitions \(3 foreign\)/);
+    expect(engine.access("small")).toMatch(/hash-partitioned in 3 partitions \(3 foreign\)/);
   });
 
   it("true aggregates equal plain SQL over the partitioned table and the DuckDB engine over the same rows", async () => {

@@ -24,8 +24,9 @@ import type { Dialect } from "../sql.js";
 import type { BucketsRequest, CellTerm, CellsRequest, DatasetSchema, SchemaColumn, SqlParam } from "./types.js";
 
 export interface Bounding {
-  small(k: string): string;
-  kept(k: string): string;
+  /** `k()` gives the placeholder of maxRows (bound on first use). */
+  small(k: () => string): string;
+  kept(k: () => string): string;
   order: string;
   unit: string;
 }
@@ -53,18 +54,18 @@ export function keptRowsFrom(r: Relation, where: string | null, cols: readonly s
   const list = uniq.length === 0 ? "1 AS __one" : uniq.join(", ");
   const names = uniq.length === 0 ? "__one" : uniq.map((c) => c.split(" AS ").pop()).join(", ");
   const b = r.bounding;
+  let kp: string | null = null;
+  const k = () => (kp ??= ps.add({ type: "integer", value: r.schema.dataset.unit.maxRows }));
   if (where === null) {
     if (b === null) return `${r.from} AS __kept`;
-    const k = ps.add({ type: "integer", value: r.schema.dataset.unit.maxRows });
     return `(SELECT ${list} FROM ${r.from} WHERE ${b.kept(k)}) AS __kept`;
   }
   // A NULL filter result (a missing value) does not match, as in WHERE.
   const hit = `COALESCE(${where}, FALSE)`;
   if (b === null) return `(SELECT ${list}, ${hit} AS __m FROM ${r.from}) AS __kept`;
-  const k = ps.add({ type: "integer", value: r.schema.dataset.unit.maxRows });
   return (
     `(SELECT ${list}, ${hit} AS __m FROM ${r.from} WHERE ${b.small(k)} ` +
-    `UNION ALL SELECT ${names}, __hit AND __k <= ${k} AS __m FROM (SELECT ${list}, ${hit} AS __hit, ` +
+    `UNION ALL SELECT ${names}, __hit AND __k <= ${k()} AS __m FROM (SELECT ${list}, ${hit} AS __hit, ` +
     `row_number() OVER (PARTITION BY ${b.unit} ORDER BY ${hit} DESC, ${b.order}) AS __k FROM ${r.from} WHERE NOT (${b.small(k)})) AS __big) AS __kept`
   );
 }

@@ -78,8 +78,6 @@ export interface LoadReport {
   /** Rows left out at load (0 in place: values that do not fit are missing at query time). */
   rejected: number;
   reasons: Record<string, number>;
-  /** How the data is reached, in words (e.g. "in memory", "Parquet in place, 12 files"). */
-  access: string;
 }
 
 export interface DataEngine {
@@ -92,7 +90,7 @@ export interface DataEngine {
    * are left out. Refuses (throws) without revealing any data value.
    */
   cells(req: CellsRequest): Promise<bigint[][]>;
-  /** Sorted [bucket, kept rows] pairs; rows with a missing value are left out. */
+  /** Sorted [bucket, kept rows] pairs; rows with a missing value are left out; a bucket with no kept rows may be 0 or absent. */
   buckets(req: BucketsRequest): Promise<[bigint, bigint][]>;
   close(): Promise<void>;
 }

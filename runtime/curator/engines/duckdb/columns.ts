@@ -60,23 +60,6 @@ export function rejectArms(c: ColumnPolicy, i: number): string[] {
 }
 
 /**
- * A typed value that does not fit its column, as a condition (the in-place rule: such a value is
- * missing). Same conditions as rejectArms, without the reasons.
- */
-export function unfit(c: ColumnPolicy, i: number): string | null {
-  switch (c.type) {
-    case "integer":
-      return `NOT isfinite(x${i}) OR x${i} <> round(x${i})`;
-    case "number":
-      return `NOT isfinite(x${i})`;
-    case "date":
-      return `x${i} < DATE ${quoteString(c.lower)} OR x${i} > DATE ${quoteString(c.upper)}`;
-    default:
-      return null;
-  }
-}
-
-/**
  * Stored form of a typed column: c<i>, and for numeric columns the clamping flag k<i> (-1 below
  * the lower bound, 1 above the upper bound, 0 inside, NULL when missing). Grid bounds are integers
  * we computed from the policy. `x` is the typed value expression (NULL when missing or unfit).
@@ -116,4 +99,57 @@ export function tableKey(d: { source: string; format: string; columns: readonly 
     return rest;
   });
   return JSON.stringify([d.source, d.format, cols, d.unit.column, d.unit.maxRows]);
+}
+
+const INTEGER_TYPES = /^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT)$/;
+
+/**
+ * In place (in-place.ts), the typed value x<i> of a source column of DuckDB type `type`, read as
+ * cheaply as the type allows (no cast when the column already has the declared type).
+ */
+export function inPlaceTyped(c: ColumnPolicy, i: number, src: string, type: string): string {
+  const t = type.toUpperCase();
+  switch (c.type) {
+    case "integer":
+    case "number":
+      if (t === "DOUBLE") return `${src} AS x${i}`;
+      if (INTEGER_TYPES.test(t) || t === "FLOAT" || t.startsWith("DECIMAL")) return `CAST(${src} AS DOUBLE) AS x${i}`;
+      return `TRY_CAST(${src} AS DOUBLE) AS x${i}`;
+    case "category": {
+      const arms = c.values.map((v, j) => `WHEN ${quoteString(v)} THEN ${j}`).join(" ");
+      return `CAST(CASE ${t === "VARCHAR" ? src : `CAST(${src} AS VARCHAR)`} ${arms} END AS USMALLINT) AS x${i}`;
+    }
+    case "date":
+      return t === "DATE" ? `${src} AS x${i}` : `TRY_CAST(${src} AS DATE) AS x${i}`;
+    case "boolean":
+      return t === "BOOLEAN" ? `${src} AS x${i}` : `TRY_CAST(${src} AS BOOLEAN) AS x${i}`;
+  }
+}
+
+/**
+ * In place, the stored form of x<i>: the same values as a load into memory gives for every value
+ * that fits (finalSelect), and NULL (missing) for a value that does not fit (the in-place rule).
+ * Integer sources need no whole-number check; every check is one CASE.
+ */
+export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[] {
+  const x = `x${i}`;
+  switch (c.type) {
+    case "integer":
+    case "number": {
+      const lo = c.grid.lowerUnits.toString();
+      const hi = c.grid.upperUnits.toString();
+      const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";
+      // isfinite(NULL) is NULL, so a missing value stays missing (no LEAST/GREATEST of a NULL).
+      const fits = `isfinite(${x})${whole}`;
+      const value = `CASE WHEN ${fits} THEN CAST(round(LEAST(GREATEST(${x} / CAST(${quoteString(c.step)} AS DOUBLE), ${lo}), ${hi})) AS BIGINT) END AS c${i}`;
+      const flag =
+        `CAST(CASE WHEN NOT (${fits}) THEN NULL WHEN ${x} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
+        `WHEN ${x} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+      return [value, flag];
+    }
+    case "date":
+      return [`CASE WHEN ${x} BETWEEN DATE ${quoteString(c.lower)} AND DATE ${quoteString(c.upper)} THEN ${x} END AS c${i}`];
+    default:
+      return [`${x} AS c${i}`];
+  }
 }

@@ -24,6 +24,8 @@ import { attachPrepared } from "./prepare.js";
 interface Opened {
   relation: Relation;
   report: LoadReport;
+  /** How the data is reached, in words (steward's start line). */
+  access: string;
   /** Checked before every statement (in place: the files have not changed since start). */
   check?: () => Promise<void>;
 }
@@ -80,10 +82,9 @@ export class DuckDBEngine implements DataEngine {
             const why = Object.entries(r.reasons)
               .map(([k, v]) => `${k}: ${v}`)
               .join("; ");
-            process.stderr.write(
-              `hush curator: dataset ${d.name}: ${same !== undefined ? `shares the data of ${same.relation.schema.dataset.name}: ` : ""}${r.access}` +
-                `${r.rows === null ? "" : `, ${r.rows} rows`}${r.rejected > 0 ? `, left out ${r.rejected} (${why})` : ""}\n`,
-            );
+            const shares = same !== undefined ? `shares the table of ${same.relation.schema.dataset.name}: ` : "";
+            const what = d.origin.kind === "files" ? `${opened.access}${r.rows === null ? "" : `, ${r.rows} rows in the files`}` : `loaded ${r.rows} rows, left out ${r.rejected}${r.rejected > 0 ? ` (${why})` : ""}${d.origin.kind === "duckdb" ? ` (${opened.access})` : ""}`;
+            process.stderr.write(`hush curator: dataset ${d.name}: ${shares}${what}\n`);
           }
         }
       } finally {
@@ -103,13 +104,13 @@ export class DuckDBEngine implements DataEngine {
       case "memory": {
         const table = quoteIdent(`d${i}`);
         const report = await loadTable(conn, d, { kind: "file", path: o.path, format: o.format }, table, i, where, bits);
-        return { relation: { schema, from: table, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report };
+        return { relation: { schema, from: table, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "in memory" };
       }
       case "files":
         return openInPlace(conn, d, o, i, where, bits);
       case "duckdb": {
         const { from, report } = await attachPrepared(conn, d, o, i, where);
-        return { relation: { schema, from, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report };
+        return { relation: { schema, from, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "prepared DuckDB file, read from disk" };
       }
       case "postgres":
         throw new Error("internal: a PostgreSQL source given to the DuckDB engine");
@@ -126,7 +127,12 @@ export class DuckDBEngine implements DataEngine {
     return this.datasets.has(dataset);
   }
 
-  /** Steward-only: how the data is reached, rows kept and why others were left out. */
+  /** Steward-only: rows kept and why others were left out. */
+  /** Steward-only: how the data is reached, in words. */
+  access(dataset: string): string {
+    return this.get(dataset).access;
+  }
+
   loadReport(dataset: string): LoadReport {
     const r = this.get(dataset).report;
     return { ...r, reasons: { ...r.reasons } };

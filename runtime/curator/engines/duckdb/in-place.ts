@@ -34,7 +34,7 @@ import type { Bits } from "../../../core/index.js";
 import type { ColumnPolicy, DatasetPolicy } from "../../policy.js";
 import type { Bounding, Relation } from "../shapes.js";
 import { type LoadReport, schemaOf } from "../types.js";
-import { finalSelect, quoteIdent, quoteString, stagingSelect, unfit } from "./columns.js";
+import { inPlaceFinal, inPlaceTyped, quoteIdent, quoteString } from "./columns.js";
 import { checkHeader, csvCall, csvLayoutOf, describeColumns } from "./load.js";
 
 type FilesSource = Extract<DatasetPolicy["origin"], { kind: "files" }>;
@@ -98,7 +98,7 @@ export async function openInPlace(
   index: number,
   where: string,
   bits: Bits,
-): Promise<{ relation: Relation; report: LoadReport; check: () => Promise<void> }> {
+): Promise<{ relation: Relation; report: LoadReport; access: string; check: () => Promise<void> }> {
   const schema = schemaOf(d);
   // The files, matched once (sorted, so the same files give the same positions).
   let files: string[];
@@ -123,12 +123,15 @@ export async function openInPlace(
   let source: string;
   let header: string[];
   let srcName: (n: string) => string;
+  /** DuckDB type of each source column (CSV: all text). */
+  let typeOf: (n: string) => string = () => "VARCHAR";
   if (o.format === "parquet") {
     if (unit !== null) source = `read_parquet(${list}, filename = '__hush_file', file_row_number = true, union_by_name = true)`;
     else source = `read_parquet(${list}, union_by_name = true)`;
     const described = await describeColumns(conn, `read_parquet(${list}, union_by_name = true)`, `${where}.source.files`, "parquet");
     header = described.map((c) => c.name);
     srcName = (n) => n;
+    typeOf = (n) => described.find((x) => x.name === n)?.type ?? "VARCHAR";
     for (const c of d.columns) {
       const found = described.find((x) => x.name === c.from);
       if (found !== undefined && !typeFits(c, found.type)) {
@@ -151,26 +154,21 @@ export async function openInPlace(
   }
   checkHeader(d, header, where, "the files");
 
-  // Level 1: typed values x<i> and presence p<i>; level 2: unfit values missing (y<i>); level 3: stored form.
-  const staged: string[] = [];
-  d.columns.forEach((c, i) => staged.push(...stagingSelect(c, i, `src.${quoteIdent(srcName(c.from))}`)));
-  const lenient = d.columns.map((c, i) => {
-    const bad = unfit(c, i);
-    return bad === null ? `x${i} AS y${i}` : `CASE WHEN ${bad} THEN NULL ELSE x${i} END AS y${i}`;
-  });
-  const finals = d.columns.flatMap((c, i) => finalSelect(c, i, `y${i}`));
+  // Level 1: typed values x<i> (unfit text is NULL); level 2: the stored form (unfit values missing).
+  const staged = d.columns.map((c, i) => inPlaceTyped(c, i, `src.${quoteIdent(srcName(c.from))}`, typeOf(c.from)));
+  const finals = d.columns.flatMap((c, i) => inPlaceFinal(c, i, typeOf(c.from)));
   const srcView = quoteIdent(`src${index}`);
   const view = quoteIdent(`v${index}`);
   const big = quoteIdent(`big${index}`);
   const k = d.unit.maxRows;
   let report: LoadReport;
-  const access = `${o.format === "parquet" ? "Parquet" : "CSV"} in place, ${files.length} file${files.length === 1 ? "" : "s"}`;
+  let access = `${o.format === "parquet" ? "Parquet" : "CSV"} in place, ${files.length} file${files.length === 1 ? "" : "s"}`;
 
   if (unit === null) {
     await conn.run(
-      `CREATE VIEW ${view} AS SELECT ${finals.join(", ")} FROM (SELECT ${lenient.join(", ")} FROM (SELECT ${staged.join(", ")} FROM ${source} AS src))`,
+      `CREATE VIEW ${view} AS SELECT ${finals.join(", ")} FROM (SELECT ${staged.join(", ")} FROM ${source} AS src)`,
     );
-    report = { rows: null, rejected: 0, reasons: {}, access };
+    report = { rows: null, rejected: 0, reasons: {} };
   } else {
     const u = `src.${quoteIdent(srcName(unit))}`;
     for (let attempt = 0; ; attempt++) {
@@ -180,28 +178,36 @@ export async function openInPlace(
       await conn.run(`DROP VIEW IF EXISTS ${view}`);
       await conn.run(`DROP TABLE IF EXISTS ${big}`);
       await conn.run(`DROP VIEW IF EXISTS ${srcView}`);
+      const h = (f: string, r: string) => `hash(${f}, ${r}, CAST(${seed} AS UBIGINT))`;
       await conn.run(
-        `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __h FROM (SELECT ${lenient.join(", ")}, __u, __h FROM ` +
-          `(SELECT ${staged.join(", ")}, hash(${u}) AS __u, hash(src.__hush_file, src.file_row_number, CAST(${seed} AS UBIGINT)) AS __h ` +
-          `FROM ${source} AS src WHERE ${u} IS NOT NULL))`,
+        `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
+          `(SELECT ${staged.join(", ")}, hash(${u}) AS __u, src.__hush_file AS __f, src.file_row_number AS __r ` +
+          `FROM ${source} AS src WHERE ${u} IS NOT NULL)`,
       );
       try {
         await conn.run(
-          `CREATE TEMP TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __r ` +
-            `FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k})) WHERE __r = ${k}`,
+          `CREATE TABLE ${big} AS SELECT __u, __h AS __thr FROM (SELECT __u, __h, row_number() OVER (PARTITION BY __u ORDER BY __h) AS __pos ` +
+            `FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k}))) WHERE __pos = ${k}`,
         );
       } catch (e) {
         throw new PolicyError(`${where}.source.files: cannot be read as parquet (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
       }
       const ties = await conn.runAndReadAll(
-        `SELECT count(*) FROM (SELECT __u, __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${big}) GROUP BY __u, __h HAVING count(*) > 1)`,
+        `SELECT count(*) FROM (SELECT __u, ${h("__f", "__r")} AS __h FROM ${srcView} WHERE __u IN (SELECT __u FROM ${big}) GROUP BY 1, 2 HAVING count(*) > 1)`,
       );
-      if (Number(ties.getRows()[0][0]) === 0) break;
+      if (Number(ties.getRows()[0][0]) === 0) {
+        // The order hash is computed only for rows of big units (after the join), the rest need none.
+        const cols = d.columns.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`]));
+        await conn.run(
+          `CREATE VIEW ${view} AS SELECT ${cols.map((c) => `s.${c}`).join(", ")}, s.__u, b.__thr, ` +
+            `CASE WHEN b.__thr IS NULL THEN NULL ELSE ${h("s.__f", "s.__r")} END AS __h FROM ${srcView} AS s LEFT JOIN ${big} AS b USING (__u)`,
+        );
+        break;
+      }
     }
     const units = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${big}`)).getRows()[0][0]);
-    const cols = [...d.columns.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`])), "__u", "__h"];
-    await conn.run(`CREATE VIEW ${view} AS SELECT ${cols.map((c) => `s.${c}`).join(", ")}, b.__thr FROM ${srcView} AS s LEFT JOIN ${big} AS b USING (__u)`);
-    report = { rows: null, rejected: 0, reasons: {}, access: `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows` };
+    report = { rows: null, rejected: 0, reasons: {} };
+    access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows`;
   }
   if (o.format === "parquet") {
     // Row count from the files' metadata (no scan).
@@ -221,5 +227,5 @@ export async function openInPlace(
       throw new UnreachableError(`the data files of dataset ${d.name} changed after the curator started; nothing was spent (the steward must restart the curator)`);
     }
   };
-  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, check };
+  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check };
 }

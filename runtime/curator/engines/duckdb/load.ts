@@ -199,13 +199,13 @@ export async function loadTable(
     await conn.run(`DROP TABLE ${quoteIdent(src.csv.rejects)}`);
     await conn.run(`DROP TABLE ${quoteIdent(src.csv.scans)}`);
   }
-  return { rows: Number(kept.getRows()[0][0]), rejected: total, reasons, access: "in memory" };
+  return { rows: Number(kept.getRows()[0][0]), rejected: total, reasons };
 }
 
 /** The per-unit bounding of a loaded table (shapes.ts Bounding). */
 export const LOADED_BOUNDING = {
-  small: (k: string) => `__n <= ${k}`,
-  kept: (k: string) => `__rk <= ${k}`,
+  small: (k: () => string) => `__n <= ${k()}`,
+  kept: (k: () => string) => `__rk <= ${k()}`,
   order: "__rk",
   unit: "__u",
 };

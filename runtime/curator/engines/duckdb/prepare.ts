@@ -45,7 +45,7 @@ export async function attachPrepared(conn: DuckDBConnection, d: DatasetPolicy, o
   } catch (e) {
     throw new PolicyError(`${where}.source.duckdb: cannot be opened as a DuckDB database (${e instanceof Error ? e.message.split("\n")[0] : "error"})`);
   }
-  const notPrepared = `${where}.source: table ${JSON.stringify(o.table)} has not been prepared for this declaration; run \`hush prepare <policy> --dataset ${d.name}\``;
+  const notPrepared = `${where}.source: table ${JSON.stringify(o.table)} has not been prepared for this declaration; run \`hush prepare --policy <file> --dataset ${d.name}\``;
   let rows: unknown[][];
   try {
     const stmt = await conn.prepare(`SELECT key, nrows, rejected, reasons FROM ${alias}.hush.prepared WHERE tbl = $1`);
@@ -58,7 +58,7 @@ export async function attachPrepared(conn: DuckDBConnection, d: DatasetPolicy, o
   if (rows.length !== 1) throw new PolicyError(notPrepared);
   const [key, nrows, rejected, reasons] = rows[0];
   if (key !== preparedKey(d, o)) {
-    throw new PolicyError(`${where}.source: table ${JSON.stringify(o.table)} was prepared for another declaration (columns, ranges or unit changed); run \`hush prepare <policy> --dataset ${d.name}\` again`);
+    throw new PolicyError(`${where}.source: table ${JSON.stringify(o.table)} was prepared for another declaration (columns, ranges or unit changed); run \`hush prepare --policy <file> --dataset ${d.name}\` again`);
   }
   let parsed: Record<string, number> = {};
   try {
@@ -70,7 +70,7 @@ export async function attachPrepared(conn: DuckDBConnection, d: DatasetPolicy, o
   void index;
   return {
     from: `${alias}.hush.${quoteIdent(table ?? o.table)}`,
-    report: { rows: Number(nrows), rejected: Number(rejected), reasons: parsed, access: `prepared DuckDB file, read from disk` },
+    report: { rows: Number(nrows), rejected: Number(rejected), reasons: parsed },
   };
 }
 
@@ -112,7 +112,7 @@ export async function prepareDataset(policy: LoadedPolicy, d: DatasetPolicy, bit
         await stmt.run();
         stmt.destroySync();
         await conn.run("COMMIT");
-        return { ...report, access: "prepared DuckDB file" };
+        return report;
       } catch (e) {
         await conn.run("ROLLBACK").catch(() => undefined);
         throw e;

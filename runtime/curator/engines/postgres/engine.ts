@@ -57,6 +57,8 @@ interface Opened {
   shape: SourceShape;
   pool: pg.Pool;
   report: LoadReport;
+  /** How the data is reached, in words (steward-only). */
+  access: string;
 }
 
 /** The PostgreSQL source of a dataset policy, or null when the dataset lives elsewhere. */
@@ -172,7 +174,7 @@ export class PostgresEngine implements DataEngine {
       checked.partitions > 0
         ? `PostgreSQL ${cfg.host}:${cfg.port}/${cfg.database} ${cfg.table}, hash-partitioned in ${checked.partitions} partitions (${checked.foreign} foreign)`
         : `PostgreSQL ${cfg.host}:${cfg.port}/${cfg.database} ${cfg.table}`;
-    this.opened.set(d.name, { schema: schemaOf(d), shape: checked.shape, pool, report: { rows: null, rejected: 0, reasons: {}, access } });
+    this.opened.set(d.name, { schema: schemaOf(d), shape: checked.shape, pool, report: { rows: null, rejected: 0, reasons: {} }, access });
     if (!quiet) process.stderr.write(`hush curator: dataset ${d.name}: ${access}; rows that do not fit the schema are left out at query time\n`);
   }
 
@@ -185,6 +187,11 @@ export class PostgresEngine implements DataEngine {
 
   hasDataset(dataset: string): boolean {
     return this.opened.has(dataset);
+  }
+
+  /** Steward-only: how a dataset's data is reached (server, table, partitions). */
+  access(dataset: string): string {
+    return this.get(dataset).access;
   }
 
   loadReport(dataset: string): LoadReport {
