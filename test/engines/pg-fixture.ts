@@ -146,3 +146,24 @@ export async function csvToParquet(csv: string, parquet: string): Promise<void> 
     db.closeSync();
   }
 }
+
+/** PostgreSQL types of the shared suite's columns (answer-suite.ts SUITE_COLUMNS). */
+const SUITE_PG: Record<string, string> = { BIGINT: "bigint", DOUBLE: "double precision", VARCHAR: "text", DATE: "date", BOOLEAN: "boolean" };
+
+export function suiteColumnsSql(cols: readonly { name: string; type: string }[]): string {
+  return cols.map((c) => `${c.name} ${SUITE_PG[c.type]}`).join(", ");
+}
+
+/** Inserts the suite's raw rows (arrays in SUITE_COLUMNS order) into `table`. */
+export async function insertSuiteRows(client: pg.Client, table: string, cols: readonly { name: string; type: string }[], rows: readonly unknown[][]): Promise<void> {
+  const batch = 400;
+  for (let at = 0; at < rows.length; at += batch) {
+    const part = rows.slice(at, at + batch);
+    const values: unknown[] = [];
+    const tuples = part.map((r, i) => {
+      values.push(...r);
+      return `(${cols.map((c, j) => `$${i * cols.length + j + 1}::${SUITE_PG[c.type]}`).join(", ")})`;
+    });
+    await client.query(`INSERT INTO ${table} VALUES ${tuples.join(", ")}`, values);
+  }
+}

@@ -20,7 +20,20 @@ import { PostgresEngine } from "../../runtime/curator/engines/postgres/engine.js
 import { type LoadedPolicy, loadPolicy } from "../../runtime/curator/policy.js";
 import { type PgCluster, createReader, havePostgres, startCluster } from "../helpers/pg-cluster.js";
 import { ADA_HASH } from "../fixtures/curator-helpers.js";
-import { COLUMNS_SQL, MARKER, POLICY_COLUMNS, REGIONS, csvToParquet, generate, insertRows, plainFits, writeCsv } from "./pg-fixture.js";
+import { SUITE_COLUMNS, engineSuite } from "./answer-suite.js";
+import {
+  COLUMNS_SQL,
+  MARKER,
+  POLICY_COLUMNS,
+  REGIONS,
+  csvToParquet,
+  generate,
+  insertRows,
+  insertSuiteRows,
+  plainFits,
+  suiteColumnsSql,
+  writeCsv,
+} from "./pg-fixture.js";
 import type { CellsRequest, DataEngine } from "../../runtime/curator/engines/types.js";
 import { openEngines } from "../../runtime/curator/engines/open.js";
 import { Answerer } from "../../runtime/curator/answer.js";
@@ -420,3 +433,37 @@ run("PostgreSQL engine: the same answers as the DuckDB engine (Parquet in place)
     }
   });
 });
+
+// The shared answer-level suite (answer-suite.ts) on one PostgreSQL server: each suite table is a
+// plain table in the file's cluster, read by the reader role with a password file.
+if (havePostgres()) {
+  engineSuite([
+    {
+      name: "PostgreSQL (one server)",
+      async store(suiteDir, table) {
+        const c = await cluster.connect();
+        try {
+          await c.query(`CREATE TABLE suite_${table.name} (${suiteColumnsSql(SUITE_COLUMNS)})`);
+          await insertSuiteRows(c, `suite_${table.name}`, SUITE_COLUMNS, table.rows);
+          await c.query(`GRANT SELECT ON suite_${table.name} TO ${reader.user}`);
+        } finally {
+          await c.end();
+        }
+        writeFileSync(join(suiteDir, "pw.txt"), `${reader.password}\n`);
+        const o = { host: "127.0.0.1", port: cluster.port, database: "postgres", user: reader.user, table: `suite_${table.name}`, passwordFile: "pw.txt" };
+        return `{ postgres: ${JSON.stringify(o)} }`;
+      },
+      open: (p) => PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true, bits: new Bits(seededBytes("suite-pg")) }),
+      async plain(sql) {
+        const c = await cluster.connect();
+        try {
+          return (await c.query({ text: sql, rowMode: "array" })).rows as unknown[][];
+        } finally {
+          await c.end();
+        }
+      },
+      plainTable: (n) => `suite_${n}`,
+      async close() {},
+    },
+  ]);
+}
