@@ -46,6 +46,9 @@ function dateParams(sql: string): string {
   return sql.replace(/CAST\((\$\d+)::text AS DATE\)/g, "$1::date");
 }
 
+/** Most quantile candidates a buckets request may list (quantile.ts asks at most 2001). */
+const MAX_BUCKETS = 100_000;
+
 /** PostgreSQL: typed placeholders (node-postgres sends text), `/` is integer division on bigint. */
 export const PG_DIALECT: Dialect = {
   placeholder: (n, type) => `$${n}::${type === "bigint" ? "bigint" : type === "integer" ? "integer" : type === "varchar" ? "text" : "boolean"}`,
@@ -242,10 +245,14 @@ export class PostgresEngine implements DataEngine {
     const id = numericColumn(t, req.column, "column").ident;
     const from = flaggedFrom(o.shape, where, [id], ps);
     const flagged = where !== "TRUE" || o.shape.dataset.unit.column !== null;
-    const hi = ps.big(req.upperUnits);
-    const b =
-      `CASE WHEN ${id} IS NULL THEN NULL WHEN ${id} >= ${hi} THEN ${ps.big(req.count)} ` +
-      `ELSE LEAST(${PG_DIALECT.intDiv(`${id} - ${ps.big(req.lowerUnits)}`, ps.big(req.stride))} + 1, ${ps.big(req.count - 1n)}) END`;
+    // b(x) = number of candidates <= x: width_bucket over the sorted candidate list (a binary
+    // search; NULL for a missing value), reading the column once per row.
+    if (req.count < 1n || req.count > BigInt(MAX_BUCKETS)) throw new BadInputError(`column: ${req.count} quantile candidates, above the engine's limit of ${MAX_BUCKETS}`);
+    const cand: bigint[] = [];
+    for (let j = 0n; j < req.count - 1n; j++) cand.push(req.lowerUnits + j * req.stride);
+    cand.push(req.upperUnits);
+    const list = ps.add({ type: "varchar", value: `{${cand.join(",")}}` }).replace(/::text$/, "::bigint[]");
+    const b = `width_bucket(${id}, ${list})`;
     const sql = `SELECT ${b} AS __b, count(*)${flagged ? " FILTER (WHERE __m)" : ""} FROM ${from} GROUP BY 1 ORDER BY 1`;
     return { sql: dateParams(sql), params: ps.values().map((p) => String(p.value)) };
   }

@@ -64,35 +64,51 @@ export interface SourceShape {
 
 const INT_SAFE = 1n << 62n;
 
-/**
- * clamp(x, lo, hi) as a searched CASE. Not LEAST/GREATEST: postgres_fdw does not send those to a
- * shard, and CASE it does, so a sharded table's row-level steps can run on the shards. A NULL
- * falls through to the ELSE and stays NULL.
- */
-function clamp(x: string, lo: string, hi: string): string {
-  return `CASE WHEN ${x} < ${lo} THEN ${lo} WHEN ${x} > ${hi} THEN ${hi} ELSE ${x} END`;
+/** A bound as an SQL constant: a plain integer as is, anything else as an exact numeric. */
+function constant(v: string): string {
+  return /^-?[0-9]{1,18}$/.test(v) ? v : `${quoteString(v)}::numeric`;
 }
 
-function gridUnits(x: string, kind: PgKind, g: Grid): string {
+/**
+ * Grid units of a numeric column, and its clamping flag (-1 below the declared lower bound, 1 above
+ * the upper, 0 inside, NULL when missing). A value that does not fit is NULL (missing): NaN or an
+ * infinity, or a non-whole number in an integer column. NaN and +Infinity compare above every
+ * number in PostgreSQL and -Infinity below, so they are looked for only in the out-of-range arms:
+ * a value inside the range costs two comparisons before its rounding.
+ */
+function numericSql(x: string, kind: PgKind, p: Extract<ColumnPolicy, { grid: unknown }>): { value: string; flag: string } {
+  const g = p.grid;
   const s = g.step;
+  const whole = p.type === "integer" && kind !== "int" ? `WHEN ${x} <> trunc(${x}) THEN NULL ` : "";
+  const flag = (below: string, above: string) =>
+    `CASE ${whole}WHEN ${x} < ${below} THEN ${kind === "int" ? "-1" : `CASE WHEN ${x} = '-Infinity' THEN NULL ELSE -1 END`} ` +
+    `WHEN ${x} > ${above} THEN ${kind === "int" ? "1" : `CASE WHEN ${x} = 'NaN' OR ${x} = 'Infinity' THEN NULL ELSE 1 END`} ` +
+    `WHEN ${x} IS NULL THEN NULL ELSE 0 END`;
+  const flagSql = flag(constant(p.lower), constant(p.upper));
   if (kind === "int" && s.den === 1n) {
     // Integer column, integer step: clamp in value units, then round half away from zero with
-    // bigint arithmetic: sign(v) * ((2|v| + s) / (2s)).
-    if (s.num === 1n) return `(${clamp(`${x}::bigint`, `${g.lowerUnits}::bigint`, `${g.upperUnits}::bigint`)})`;
+    // bigint arithmetic: sign(v) * ((2|v| + s) / (2s)). A NULL falls through and stays NULL.
     const vlo = g.lowerUnits * s.num;
     const vhi = g.upperUnits * s.num;
+    if (s.num === 1n) {
+      return { value: `CASE WHEN ${x} < ${vlo} THEN ${vlo}::bigint WHEN ${x} > ${vhi} THEN ${vhi}::bigint ELSE ${x}::bigint END`, flag: flagSql };
+    }
     if (vlo > -INT_SAFE && vhi < INT_SAFE && s.num < INT_SAFE / 4n) {
-      const v = `(${clamp(`${x}::bigint`, `${vlo}::bigint`, `${vhi}::bigint`)})`;
-      return `(sign(${v}) * ((2 * abs(${v}) + ${s.num}) / ${2n * s.num}))::bigint`;
+      const v = `(CASE WHEN ${x} < ${vlo} THEN ${vlo}::bigint WHEN ${x} > ${vhi} THEN ${vhi}::bigint ELSE ${x}::bigint END)`;
+      return { value: `(sign(${v}) * ((2 * abs(${v}) + ${s.num}) / ${2n * s.num}))::bigint`, flag: flagSql };
     }
   }
-  // Clamp in value units to the grid's end points lo*step and hi*step (exact numeric constants,
-  // folded when the statement is planned), then x / step = x * den / num in numeric, rounded half
-  // away from zero. The clamp keeps the result inside [lo, hi] and the bigint cast from failing.
+  // Inside [lo*step, hi*step] (exact numeric constants, folded when the statement is planned):
+  // x / step = x * den / num in numeric, rounded half away from zero; outside, the end units.
+  const xn = kind === "float" ? `${x}::numeric` : x;
   const lo = `(${g.lowerUnits * s.num}::numeric / ${s.den})`;
   const hi = `(${g.upperUnits * s.num}::numeric / ${s.den})`;
-  const scaled = `(${clamp(x, lo, hi)})::numeric * ${s.den}${s.num === 1n ? "" : ` / ${s.num}`}`;
-  return `round(${scaled})::bigint`;
+  const scaled = `${xn}${kind === "int" ? "::numeric" : ""} * ${s.den}${s.num === 1n ? "" : ` / ${s.num}`}`;
+  const value =
+    `CASE ${whole}WHEN ${xn} < ${lo} THEN ${kind === "int" ? `${g.lowerUnits}::bigint` : `CASE WHEN ${xn} = '-Infinity' THEN NULL ELSE ${g.lowerUnits}::bigint END`} ` +
+    `WHEN ${xn} > ${hi} THEN ${kind === "int" ? `${g.upperUnits}::bigint` : `CASE WHEN ${xn} = 'NaN' OR ${xn} = 'Infinity' THEN NULL ELSE ${g.upperUnits}::bigint END`} ` +
+    `ELSE round(${scaled})::bigint END`;
+  return { value, flag: flagSql };
 }
 
 /**
@@ -103,32 +119,14 @@ export function isTrue(e: string): string {
   return `CASE WHEN ${e} THEN TRUE ELSE FALSE END`;
 }
 
-/** NaN or an infinity (numeric and double precision hold both). Plain comparisons, which postgres_fdw ships. */
-function nonFinite(x: string): string {
-  return `(${x} = 'NaN' OR ${x} = 'Infinity' OR ${x} = '-Infinity')`;
-}
-
 /** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
 function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string } {
   const p = c.policy;
   switch (p.type) {
     case "integer":
     case "number": {
-      const misfit: string[] = [];
-      if (c.kind !== "int") {
-        misfit.push(`${raw} IS NOT NULL AND ${nonFinite(raw)}`);
-        if (p.type === "integer") misfit.push(`${raw} IS NOT NULL AND NOT ${nonFinite(raw)} AND ${raw} <> trunc(${raw})`);
-      }
-      const lower = c.kind === "int" ? p.lower : `${quoteString(p.lower)}::numeric`;
-      const upper = c.kind === "int" ? p.upper : `${quoteString(p.upper)}::numeric`;
-      const asNum = c.kind === "float" ? `${raw}::numeric` : raw;
-      const safe = c.kind === "float" ? `NOT ${nonFinite(raw)} AND ` : "";
-      return {
-        value: `CASE WHEN ${raw} IS NULL THEN NULL ELSE ${gridUnits(raw, c.kind, p.grid)} END`,
-        misfit,
-        // A NaN or infinite value is missing (sourceSelect); the guard keeps the comparison exact.
-        flag: `CASE WHEN ${raw} IS NULL THEN NULL WHEN ${safe}${asNum} < ${lower} THEN -1 WHEN ${safe}${asNum} > ${upper} THEN 1 ELSE 0 END`,
-      };
+      const { value, flag } = numericSql(raw, c.kind, p);
+      return { value, misfit: [], flag };
     }
     case "category": {
       const text = c.kind === "text" ? raw : `${raw}::text`;
@@ -197,6 +195,12 @@ export function flaggedFrom(shape: SourceShape, where: string, cols: readonly st
   }
   const seed = ps.add({ type: "bigint", value: shape.seed });
   const k = ps.add({ type: "integer", value: shape.dataset.unit.maxRows });
+  if (hit === "TRUE") {
+    return (
+      `(SELECT ${list}row_number() OVER (PARTITION BY __u ORDER BY __r) <= ${k} AS __m ` +
+      `FROM (SELECT ${list}__u, __r FROM (${sourceSelect(shape, seed)}) AS __v WHERE __ok) AS __w) AS __kept`
+    );
+  }
   return (
     `(SELECT ${list}(__h AND row_number() OVER (PARTITION BY __u ORDER BY __h DESC, __r) <= ${k}) AS __m ` +
     `FROM (SELECT ${list}${hit} AS __h, __u, __r FROM (${sourceSelect(shape, seed)}) AS __v WHERE __ok) AS __w) AS __kept`
