@@ -11,7 +11,8 @@
  *    data value: unreachable server, wrong credentials, missing table, missing column, a column
  *    type that does not fit the declared type, a password in the policy text, an unset passwordEnv.
  */
-import { mkdtempSync, writeFileSync } from "node:fs";
+import { randomBytes } from "node:crypto";
+import { mkdirSync, mkdtempSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
@@ -38,6 +39,12 @@ import type { CellsRequest, DataEngine } from "../../runtime/curator/engines/typ
 import { openEngines } from "../../runtime/curator/engines/open.js";
 import { Answerer } from "../../runtime/curator/answer.js";
 import type { QueryPlan } from "../../runtime/protocol/messages.js";
+import { stringify } from "yaml";
+import { CuratorClient } from "../../runtime/client/client.js";
+import { generateCuratorKey } from "../../runtime/curator/keys.js";
+import { hashToken } from "../../runtime/curator/tokens.js";
+import { loadPublicKey, verifyReceipt } from "../../runtime/protocol/receipts.js";
+import { CANARY, type CuratorChild, requireBuild, startCuratorChild } from "../integration/helpers.js";
 
 const ROWS = generate(3000, 6);
 
@@ -467,3 +474,91 @@ if (havePostgres()) {
     },
   ]);
 }
+
+/**
+ * The real curator process (dist/runtime/curator/main.js) over a PostgreSQL dataset, on an ipc
+ * socket: signed receipts that verify, spend that adds up, a refusal that spends nothing, and no
+ * unit id or marker value in any reply. Unit ids here start with a canary text.
+ */
+run("a real curator process answering from PostgreSQL", () => {
+  let ws: { dir: string; policyFile: string; publicKeyB64: string; token: string };
+  let cur: CuratorChild;
+  let ada: CuratorClient;
+  beforeAll(async () => {
+    requireBuild();
+    const c = await cluster.connect();
+    try {
+      await c.query("CREATE TABLE clinic (patient_id text, age integer, wait_minutes numeric, district text)");
+      await c.query(
+        `INSERT INTO clinic SELECT '${CANARY}' || (g % 40), (g * 7) % 110, ((g * 13) % 500) / 2.0, ` +
+          `(ARRAY['Northgate', 'Riverside', 'Eastfield', '${MARKER}'])[1 + g % 4] FROM generate_series(1, 200) g`,
+      );
+      await c.query(`GRANT SELECT ON clinic TO ${reader.user}`);
+    } finally {
+      await c.end();
+    }
+    const d = mkdtempSync(join(tmpdir(), "hs-pg-"));
+    mkdirSync(join(d, "keys"));
+    const { publicKeyB64 } = generateCuratorKey(join(d, "keys", "curator.key"));
+    const token = randomBytes(18).toString("base64url");
+    const policy = {
+      curator: { key: "keys/curator.key", ledger: "state/ledger.sqlite" },
+      analysts: { ada: { token: hashToken(token) } },
+      datasets: {
+        clinic: {
+          description: "Invented clinic visits in PostgreSQL",
+          source: { postgres: { host: "127.0.0.1", port: cluster.port, database: "postgres", user: reader.user, table: "clinic", passwordEnv: "HUSH_TEST_PG_PASSWORD" } },
+          unit: { column: "patient_id", maxRows: 3, maxGroups: 2 },
+          accounting: { mode: "pure", cap: { epsilon: "1" } },
+          analysts: ["ada"],
+          columns: {
+            age: { type: "integer", range: [0, 100] },
+            wait_minutes: { type: "number", range: [0, 240], step: "0.5" },
+            district: { type: "category", values: ["Northgate", "Riverside", "Eastfield"] },
+          },
+        },
+      },
+    };
+    writeFileSync(join(d, "policy.yaml"), stringify(policy));
+    ws = { dir: d, policyFile: join(d, "policy.yaml"), publicKeyB64, token };
+    process.env.HUSH_TEST_PG_PASSWORD = reader.password;
+    try {
+      cur = await startCuratorChild(["--policy", ws.policyFile, "--listen", `ipc://${join(d, "c.sock")}`]);
+    } finally {
+      delete process.env.HUSH_TEST_PG_PASSWORD;
+    }
+    ada = await CuratorClient.connect({ address: cur.ready.address, analyst: "ada", token, timeoutMs: 30_000 });
+  }, 120_000);
+  afterAll(async () => {
+    await ada?.close();
+    await cur?.stop();
+  });
+
+  it("releases with receipts that verify; the ledger adds up; nothing leaks", async () => {
+    const key = loadPublicKey(cur.ready.publicKey);
+    expect(cur.ready.publicKey).toBe(ws.publicKeyB64);
+    const plans: QueryPlan[] = [
+      { v: 1, dataset: "clinic", measure: { kind: "count" }, privacy: { epsilon: "1/10" } },
+      { v: 1, dataset: "clinic", measure: { kind: "mean", column: "wait_minutes" }, groupBy: [{ column: "district" }], privacy: { epsilon: "1/10" } },
+      { v: 1, dataset: "clinic", measure: { kind: "quantile", column: "age", p: [0.5] }, where: { op: "ne", column: "district", value: "Riverside" }, privacy: { epsilon: "1/10" } },
+    ];
+    const texts: string[] = [];
+    for (const p of plans) {
+      const r = await ada.ask(p);
+      expect(verifyReceipt(r.receipt, key)).toEqual({ ok: true });
+      texts.push(JSON.stringify(r));
+    }
+    const refused = await ada.ask({ v: 1, dataset: "clinic", measure: { kind: "sum", column: "patient_id" }, privacy: { epsilon: "1/10" } }).then(
+      () => "answered",
+      (e: Error) => `${e.name}: ${e.message}`,
+    );
+    expect(refused).toMatch(/privacy unit column/);
+    texts.push(refused);
+    expect((await ada.spend("clinic")).spentEpsilon).toBe("3/10");
+    for (const t of texts) {
+      expect(t).not.toContain(CANARY);
+      expect(t).not.toContain(MARKER);
+    }
+    expect(cur.stderr()).not.toContain(reader.password);
+  });
+});

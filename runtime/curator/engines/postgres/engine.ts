@@ -178,7 +178,7 @@ export class PostgresEngine implements DataEngine {
         ? `PostgreSQL ${cfg.host}:${cfg.port}/${cfg.database} ${cfg.table}, hash-partitioned in ${checked.partitions} partitions (${checked.foreign} foreign)`
         : `PostgreSQL ${cfg.host}:${cfg.port}/${cfg.database} ${cfg.table}`;
     this.opened.set(d.name, { schema: schemaOf(d), shape: checked.shape, pool, report: { rows: null, rejected: 0, reasons: {} }, access });
-    if (!quiet) process.stderr.write(`hush curator: dataset ${d.name}: ${access}; rows that do not fit the schema are left out at query time\n`);
+    if (!quiet) process.stderr.write(`hush curator: dataset ${d.name}: ${access}; values that do not fit the schema are missing at query time\n`);
   }
 
   private get(dataset: string): Opened {
