@@ -149,10 +149,12 @@ run("PostgreSQL engine: true aggregates", () => {
     { kind: "sumProduct", a: "age", b: "dose" },
     { kind: "atLower", column: "age" },
     { kind: "atUpper", column: "income" },
+    { kind: "present", column: "score" },
+    { kind: "atLower", column: "score" },
   ];
   const plainTerms =
     "count(*), count(age), sum(age_u), sum(income_u), sum(score_u), sum(dose_u), sum(score_u * score_u), sum(age_u * dose_u), " +
-    "count(*) FILTER (WHERE age < 0), count(*) FILTER (WHERE income > 50000)";
+    "count(*) FILTER (WHERE age < 0), count(*) FILTER (WHERE income > 50000), count(score_u), count(*) FILTER (WHERE score < -5)";
 
   for (const ds of ["rows", "small"]) {
     it(`${ds}: ungrouped terms equal plain SQL`, async () => {

@@ -102,7 +102,9 @@ function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; co
       return { agg: "count(*)", cols: [] };
     case "present": {
       const c = anyColumn(t, term.column, `${path}.column`);
-      return { agg: `count(${c.ident})`, cols: [c.ident] };
+      // Numeric columns: count p<i> (relation.ts), which is present exactly when c<i> is, without rounding.
+      const id = c.policy.type === "integer" || c.policy.type === "number" ? `"p${c.index}"` : c.ident;
+      return { agg: `count(${id})`, cols: [id] };
     }
     case "sum": {
       const c = numericColumn(t, term.column, `${path}.column`);

@@ -7,6 +7,7 @@
  *   c<i>  numeric column -> BIGINT grid units, clamp(round(x / step)) to the declared range
  *         category column -> INTEGER index into the declared list (NULL for a missing value)
  *         date / boolean  -> the value itself
+ *   p<i>  numeric column: non-NULL exactly when c<i> is (what a count of values reads)
  *   k<i>  numeric column: -1 when the raw value lay below the declared lower bound, 1 above the
  *         upper bound, 0 otherwise, NULL when missing (the clamping flag of engines/types.ts)
  *   __u   the unit id as stored (only with a unit column)
@@ -99,7 +100,8 @@ function numericSql(x: string, kind: PgKind, p: Extract<ColumnPolicy, { grid: un
     }
   }
   // Inside [lo*step, hi*step] (exact numeric constants, folded when the statement is planned):
-  // x / step = x * den / num in numeric, rounded half away from zero; outside, the end units.
+  // x / step = x * den / num in numeric, rounded half away from zero by the cast to bigint (as
+  // round() would: numeric to integer casts round ties away from zero); outside, the end units.
   const xn = kind === "float" ? `${x}::numeric` : x;
   const lo = `(${g.lowerUnits * s.num}::numeric / ${s.den})`;
   const hi = `(${g.upperUnits * s.num}::numeric / ${s.den})`;
@@ -107,7 +109,7 @@ function numericSql(x: string, kind: PgKind, p: Extract<ColumnPolicy, { grid: un
   const value =
     `CASE ${whole}WHEN ${xn} < ${lo} THEN ${kind === "int" ? `${g.lowerUnits}::bigint` : `CASE WHEN ${xn} = '-Infinity' THEN NULL ELSE ${g.lowerUnits}::bigint END`} ` +
     `WHEN ${xn} > ${hi} THEN ${kind === "int" ? `${g.upperUnits}::bigint` : `CASE WHEN ${xn} = 'NaN' OR ${xn} = 'Infinity' THEN NULL ELSE ${g.upperUnits}::bigint END`} ` +
-    `ELSE round(${scaled})::bigint END`;
+    `ELSE (${scaled})::bigint END`;
   return { value, flag: flagSql };
 }
 
@@ -120,13 +122,17 @@ export function isTrue(e: string): string {
 }
 
 /** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
-function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string } {
+function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string; present?: string } {
   const p = c.policy;
   switch (p.type) {
     case "integer":
     case "number": {
       const { value, flag } = numericSql(raw, c.kind, p);
-      return { value, misfit: [], flag };
+      // Non-NULL exactly when c<i> is (a count of values need not round them): NaN compares
+      // above 'Infinity', so the two comparisons leave out NaN and both infinities.
+      const whole = p.type === "integer" && c.kind !== "int" ? ` AND ${raw} = trunc(${raw})` : "";
+      const present = c.kind === "int" ? raw : `CASE WHEN ${raw} < 'Infinity' AND ${raw} > '-Infinity'${whole} THEN 1 END`;
+      return { value, misfit: [], flag, present };
     }
     case "category": {
       const text = c.kind === "text" ? raw : `${raw}::text`;
@@ -161,6 +167,7 @@ export function sourceSelect(shape: SourceShape, seed: string): string {
     const missing = (e: string) => (unfit === null ? e : `CASE WHEN ${unfit} THEN NULL ELSE ${e} END`);
     sel.push(`${missing(sql.value)} AS c${i}`);
     if (sql.flag !== undefined) sel.push(`${missing(sql.flag)} AS k${i}`);
+    if (sql.present !== undefined) sel.push(`${sql.present} AS p${i}`);
   });
   const unit = shape.dataset.unit.column;
   if (unit !== null) {
