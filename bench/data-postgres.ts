@@ -10,7 +10,9 @@
  * Each with each row its own unit and with a privacy unit (patient, maxRows 2: every unit of ~3
  * rows is bounded, so the per-unit window always runs). The DP path is Answerer.prepare + compute
  * (validation, planning, the engine's SQL, exact noise, intervals); the plain twin is the same
- * aggregate written directly (LEAST/GREATEST clamp, percentile_disc for the median).
+ * aggregate written directly (LEAST/GREATEST clamp, percentile_disc for the median). With a unit, a
+ * second plain twin bounds by hand the way the engine does (a window over each patient's rows in a
+ * hash order of their row ids), to separate what bounding itself costs from what hush adds.
  *
  * Clusters are throwaway (initdb/pg_ctl on free 127.0.0.1 ports, test/helpers/pg-cluster.ts) and
  * removed at the end. Target: DP/plain <= 1.3x. Results print as Markdown for bench/RESULTS.md.
@@ -46,24 +48,37 @@ interface Query {
   name: string;
   plan: (dataset: string, eps: string) => QueryPlan;
   plain: string;
+  /** The same aggregate with per-unit bounding written by hand (at most 2 rows per patient). */
+  bounded: string;
 }
 
+/** Each patient's rows in a random order of their row ids; m: among the first 2. */
+const KEPT = "(SELECT *, row_number() OVER (PARTITION BY patient ORDER BY hashtextextended(ctid::text, 7)) <= 2 AS m FROM visits WHERE patient IS NOT NULL) w";
+
 const QUERIES: Query[] = [
-  { name: "count", plan: (d, e) => ({ v: 1, dataset: d, measure: { kind: "count" }, privacy: { epsilon: e } }), plain: "SELECT count(*) FROM visits" },
+    {
+    name: "count",
+    plan: (d, e) => ({ v: 1, dataset: d, measure: { kind: "count" }, privacy: { epsilon: e } }),
+    plain: "SELECT count(*) FROM visits",
+    bounded: "SELECT sum(LEAST(n, 2)) FROM (SELECT count(*) AS n FROM visits WHERE patient IS NOT NULL GROUP BY patient) u",
+  },
   {
     name: "clamped sum",
     plan: (d, e) => ({ v: 1, dataset: d, measure: { kind: "sum", column: "income" }, privacy: { epsilon: e } }),
     plain: "SELECT sum(LEAST(GREATEST(income, 0), 50000)) FROM visits",
+    bounded: `SELECT sum(LEAST(GREATEST(income, 0), 50000)) FILTER (WHERE m) FROM ${KEPT}`,
   },
   {
     name: "grouped mean (8 regions)",
     plan: (d, e) => ({ v: 1, dataset: d, groupBy: [{ column: "region" }], measure: { kind: "mean", column: "income" }, privacy: { epsilon: e } }),
     plain: "SELECT region, sum(LEAST(GREATEST(income, 0), 50000)), count(income) FROM visits GROUP BY 1",
+    bounded: `SELECT region, sum(LEAST(GREATEST(income, 0), 50000)) FILTER (WHERE m), count(income) FILTER (WHERE m) FROM ${KEPT} GROUP BY 1`,
   },
   {
     name: "median",
     plan: (d, e) => ({ v: 1, dataset: d, measure: { kind: "quantile", column: "income", p: [0.5] }, privacy: { epsilon: e } }),
     plain: "SELECT percentile_disc(0.5) WITHIN GROUP (ORDER BY income) FROM visits",
+    bounded: `SELECT percentile_disc(0.5) WITHIN GROUP (ORDER BY income) FROM ${KEPT} WHERE m`,
   },
 ];
 
@@ -74,6 +89,9 @@ interface Row {
   dp: Summary;
   plain: Summary;
   ratio: number;
+  /** With a unit: plain SQL with the same per-unit bounding written by hand, and DP's ratio to it. */
+  bounded: Summary | null;
+  boundedRatio: number | null;
 }
 
 function policyText(port: number, user: string): string {
@@ -115,9 +133,18 @@ async function measure(where: string, coordinator: PgCluster, reader: { user: st
         const t = await timePair(dp, plain, { warmup: 1, runs: RUNS });
         const dpS = summarize(t.measured);
         const plainS = summarize(t.baseline);
-        out.push({ where, unit: dataset === "units", query: q.name, dp: dpS, plain: plainS, ratio: dpS.median / plainS.median });
+        let bounded: Summary | null = null;
+        if (dataset === "units") {
+          const b: number[] = [];
+          for (let i = 0; i < RUNS; i++) b.push(await timeOnce(() => plainClient.query(q.bounded)));
+          bounded = summarize(b);
+        }
+        out.push({
+          where, unit: dataset === "units", query: q.name, dp: dpS, plain: plainS, ratio: dpS.median / plainS.median,
+          bounded, boundedRatio: bounded === null ? null : dpS.median / bounded.median,
+        });
         const last = out[out.length - 1];
-        progress(`  DP ${fmtTiming(last.dp)}  plain ${fmtTiming(last.plain)}  ${fmtRatio(last.ratio)}`);
+        progress(`  DP ${fmtTiming(last.dp)}  plain ${fmtTiming(last.plain)}  ${fmtRatio(last.ratio)}${bounded ? `  plain bounded ${fmtTiming(bounded)} ${fmtRatio(last.boundedRatio!)}` : ""}`);
       }
     }
   } finally {
@@ -176,7 +203,7 @@ async function main(): Promise<void> {
   }
 
   const table = markdownTable(
-    ["where", "rows", "privacy unit", "query", "runs", "DP median (min–max)", "plain SQL median (min–max)", "ratio of medians", "target", "met"],
+    ["where", "rows", "privacy unit", "query", "runs", "DP median (min–max)", "plain SQL median (min–max)", "ratio of medians", "target", "met", "plain SQL with the same bounding", "DP / bounded plain"],
     out.map((r) => [
       r.where,
       label,
@@ -188,6 +215,8 @@ async function main(): Promise<void> {
       fmtRatio(r.ratio),
       `≤ ${fmtRatio(TARGET)}`,
       r.ratio <= TARGET ? "yes" : "**no**",
+      r.bounded === null ? "–" : fmtTiming(r.bounded),
+      r.boundedRatio === null ? "–" : fmtRatio(r.boundedRatio),
     ]),
   );
   const loadTable = markdownTable(["where", "rows", "generate + VACUUM ANALYZE (once)"], loads);

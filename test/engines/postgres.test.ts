@@ -12,7 +12,7 @@
  *    type that does not fit the declared type, a password in the policy text, an unset passwordEnv.
  */
 import { randomBytes } from "node:crypto";
-import { mkdirSync, mkdtempSync, writeFileSync } from "node:fs";
+import { mkdirSync, mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
@@ -105,6 +105,7 @@ beforeAll(async () => {
 
 afterAll(async () => {
   await cluster?.stop();
+  if (dir) rmSync(dir, { recursive: true, force: true });
 });
 
 const run = havePostgres() ? describe : describe.skip;
@@ -534,6 +535,7 @@ run("a real curator process answering from PostgreSQL", () => {
   afterAll(async () => {
     await ada?.close();
     await cur?.stop();
+    if (ws) rmSync(ws.dir, { recursive: true, force: true });
   });
 
   it("releases with receipts that verify; the ledger adds up; nothing leaks", async () => {

@@ -11,7 +11,7 @@
  *    per-unit window runs on the coordinator: postgres_fdw does not send window functions);
  *  - the start check refuses a table partitioned on anything but exactly the unit column.
  */
-import { mkdtempSync, writeFileSync } from "node:fs";
+import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import pg from "pg";
@@ -72,6 +72,7 @@ beforeAll(async () => {
 
 afterAll(async () => {
   await set?.stop();
+  if (dir) rmSync(dir, { recursive: true, force: true });
 });
 
 async function plain(sql: string): Promise<string[]> {
