@@ -80,6 +80,9 @@ beforeAll(async () => {
     await c.query(`CREATE TABLE visits (${COLUMNS_SQL})`);
     await insertRows(c, "visits", ROWS);
     await c.query("CREATE VIEW visits_view AS SELECT * FROM visits");
+    // Every row costs 5 ms to read: a statement over it runs for about 15 s.
+    await c.query("CREATE FUNCTION slow_true() RETURNS boolean LANGUAGE plpgsql VOLATILE AS $$ BEGIN PERFORM pg_sleep(0.005); RETURN true; END $$");
+    await c.query("CREATE VIEW visits_slow AS SELECT * FROM visits WHERE slow_true()");
     await c.query("CREATE TABLE wrong_type (patient bigint, age text, income numeric, score float8, dose int, region text, visited date, insured boolean)");
     await c.query("CREATE TABLE no_dose (patient bigint, age int, income numeric, score float8, region text, visited date, insured boolean)");
     await c.query("CREATE SCHEMA hidden");
@@ -259,6 +262,34 @@ run("PostgreSQL engine: true aggregates", () => {
     const st = engine.cellsStatement(ungrouped("rows", [{ kind: "count" }], { op: "eq", column: "age", value: 77 }));
     expect(st.sql).not.toMatch(/77/);
     expect(st.params).toContain("77");
+  });
+});
+
+run("PostgreSQL engine: the answering time limit", () => {
+  it("a statement past the policy's time limit is cancelled by the server (statement_timeout), not left running", async () => {
+    const file = join(dir, "slow.yaml");
+    writeFileSync(
+      file,
+      `curator:\n  answering: { timeLimit: 0.5 }\nanalysts:\n  ada: { token: "${ADA_HASH}" }\ndatasets:\n${dataset("slow", pgSource("visits_slow"), null)}`,
+    );
+    const p = loadPolicy(file);
+    const engine = await PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true });
+    try {
+      const t0 = performance.now();
+      const err = await engine.cells({ dataset: "slow", keys: [], terms: [{ kind: "count" }] }).then(
+        () => "answered",
+        (e: Error) => e.message,
+      );
+      const ms = performance.now() - t0;
+      expect(err).toMatch(/dataset slow: PostgreSQL cancelled the statement at the answering time limit/);
+      // Cancelled near 0.5 s, far from the ~15 s the statement would take (generous for a loaded machine).
+      expect(ms).toBeLessThan(8000);
+      // Nothing of ours is still running on the server.
+      const active = await cluster.sql("SELECT count(*)::int AS n FROM pg_stat_activity WHERE application_name = 'hush-curator' AND state = 'active'");
+      expect(active[0].n).toBe(0);
+    } finally {
+      await engine.close();
+    }
   });
 });
 

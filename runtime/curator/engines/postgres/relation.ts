@@ -22,7 +22,8 @@
  * declared range. Only the columns a statement reads are checked, so a count reads no value at all.
  *
  * Rounding is exact: x * (den/num of the step) in PostgreSQL's numeric, rounded half away from
- * zero (round(numeric)), the same rule DuckDB's round applies to its binary64 quotient; integer
+ * zero by the cast to bigint (the rule of round(numeric), and the rule DuckDB's round applies to
+ * its binary64 quotient; a double precision value enters numeric with 15 significant digits); integer
  * columns on an integer step stay in bigint arithmetic. Clamping happens before the cast to
  * bigint, so no value, however large, can make the cast fail.
  *
