@@ -330,6 +330,15 @@ run("PostgreSQL engine: bad configuration fails at start", () => {
     expect(msg).not.toContain("not-the-password");
   });
 
+  it("a database that does not exist, TLS required of a server without it", async () => {
+    const db = await startError(pgSource("visits", { database: "nowhere" }));
+    expectClean(db);
+    expect(db).toMatch(/has no database nowhere/);
+    const tls = await startError(pgSource("visits", { sslmode: "require" }));
+    expectClean(tls);
+    expect(tls).toMatch(/TLS with the PostgreSQL server at 127\.0\.0\.1:\d+ failed \(sslmode require\)/);
+  });
+
   it("a missing password file, an unset password variable", async () => {
     expectClean(await startError(pgSource("visits", { passwordFile: "nowhere.txt" })));
     expect(await startError(pgSource("visits", { passwordFile: "nowhere.txt" }))).toMatch(/passwordFile: cannot be read \(ENOENT\)/);
