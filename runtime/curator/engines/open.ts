@@ -6,7 +6,7 @@
  * To add an engine: give its source kind an opener in OPENERS (a dynamic import, so a curator
  * without such datasets never loads the client library).
  */
-import { PolicyError, UnknownDatasetError } from "../../errors.js";
+import { UnknownDatasetError } from "../../errors.js";
 import type { DatasetPolicy, LoadedPolicy, SourcePolicy } from "../policy.js";
 import type { BucketsRequest, CellsRequest, DataEngine, EngineOpener, LoadReport, OpenOptions } from "./types.js";
 
@@ -20,11 +20,8 @@ const OPENERS: Record<Family, () => Promise<EngineOpener>> = {
     return (policy, opts) => DuckDBEngine.open(policy, opts);
   },
   postgres: async () => {
-    // engines/postgres/ registers here.
-    return async (policy, opts) => {
-      const d = opts.datasets[0];
-      throw new PolicyError(`policy ${policy.file}: datasets.${d.name}.source: PostgreSQL sources are not available in this build`);
-    };
+    const { openPostgres } = await import("./postgres/engine.js");
+    return openPostgres;
   },
 };
 
