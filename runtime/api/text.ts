@@ -43,6 +43,10 @@ export function measureText(m: Measure): string {
       return `histogram of ${m.column} (${m.bins} bins)`;
     case "crosstab":
       return `crosstab ${m.rows} × ${m.cols}`;
+    case "regression":
+      return `regression of ${m.response} on ${m.predictors.join(", ")}`;
+    case "correlation":
+      return `correlation of ${m.columns.join(", ")}`;
   }
 }
 

@@ -63,4 +63,12 @@ export const PLAN_LIMITS = {
    * cell is released, so this bounds the work, the memory and the reply of one ask.
    */
   maxCells: 10000,
+  /**
+   * Design columns of a regression: the intercept, one per numeric predictor and one per
+   * non-reference level of a category predictor. The released sums grow as the square (12 design
+   * columns and the response: 91 noisy sums), and so do the simulation's work and each sum's noise.
+   */
+  maxDesignColumns: 12,
+  /** Columns of one correlation matrix (the same released sums as a regression of that width). */
+  maxCorrelationColumns: 12,
 } as const;
