@@ -31,6 +31,18 @@ export type Moments = bigint[][];
  * division is exact, and the pivot M[k][k] is the leading principal minor of order k + 1.
  */
 export function solveNormal(g: Moments, design: readonly number[], response: number): Rational[] | null {
+  const x = solveNormalInt(g, design, response);
+  if (x === null) return null;
+  return x.num.map((v) => Rational.of(v, x.det));
+}
+
+/**
+ * The same solve in integers only: beta_i = num[i]/det with det = det(A) > 0 (the last Bareiss
+ * pivot). Back substitution stays fraction-free: with N_i = det beta_i,
+ * N_i = (det M[i][n] - sum_{j > i} M[i][j] N_j) / M[i][i], an exact division (Cramer's rule makes
+ * every N_i an integer). Null when A is not positive definite.
+ */
+export function solveNormalInt(g: Moments, design: readonly number[], response: number): { num: bigint[]; det: bigint } | null {
   const n = design.length;
   if (n === 0) throw new BadInputError("regression needs at least one design column");
   const m: bigint[][] = design.map((i) => [...design.map((j) => g[i][j]), g[i][response]]);
@@ -46,14 +58,14 @@ export function solveNormal(g: Moments, design: readonly number[], response: num
     }
     prev = p;
   }
-  // Back substitution in rationals (n <= the plan limit on design columns).
-  const x: Rational[] = new Array(n);
+  const det = m[n - 1][n - 1];
+  const num: bigint[] = new Array(n);
   for (let i = n - 1; i >= 0; i--) {
-    let s = Rational.of(m[i][n]);
-    for (let j = i + 1; j < n; j++) if (m[i][j] !== 0n) s = s.sub(x[j].mul(m[i][j]));
-    x[i] = s.div(m[i][i]);
+    let s = det * m[i][n];
+    for (let j = i + 1; j < n; j++) s -= m[i][j] * num[j];
+    num[i] = s / m[i][i];
   }
-  return x;
+  return { num, det };
 }
 
 /**
@@ -96,12 +108,12 @@ export function correlationSquare(g: Moments, i: number, j: number): Rational | 
 
 /**
  * Draws of the simulation for a confidence: enough that each tail holds at least 50 expected draws
- * (B a/2 >= 50), and at least 2000. `confidence` must leave a = 1 - confidence >= 0.01, so B <= 10000.
+ * (B a/2 >= 50), and at least 1000 (2000 at 95%). The curator offers confidences up to 0.99, so B <= 10000.
  */
 export function simulationDraws(miss: Rational): number {
   if (miss.sign() <= 0 || miss.gt(Rational.ONE)) throw new BadInputError("the miss probability must lie in (0, 1]");
   const need = Rational.of(100n).div(miss).ceil();
-  return Number(need < 2000n ? 2000n : need);
+  return Number(need < 1000n ? 1000n : need);
 }
 
 /** Rank (1-based) of the lower order statistic used for a tail of a/2 among B draws: max(1, floor(B a/2)). */
@@ -110,16 +122,34 @@ export function tailRank(draws: number, miss: Rational): number {
   return Number(k < 1n ? 1n : k);
 }
 
+/** Fraction bits of the fixed-point values the simulation orders (2^-128 is far below any figure shown). */
+export const FIXED_BITS = 128n;
+
+/** floor(x 2^FIXED_BITS) for a rational x. */
+export function toFixed(x: Rational): bigint {
+  const t = x.num << FIXED_BITS;
+  const q = t / x.den;
+  return q * x.den > t ? q - 1n : q;
+}
+
+/** floor(a/b) for bigints, b > 0. */
+export function floorDivInt(a: bigint, b: bigint): bigint {
+  const q = a / b;
+  return q * b > a ? q - 1n : q;
+}
+
 export interface SimulationArgs {
   /** The released noisy statistics, in the order of `laws`. */
   released: readonly bigint[];
   /** The noise law each statistic was released with. */
   laws: readonly NoiseLaw[];
+  /** The estimates from the released statistics, exact (null: unavailable). */
+  centre: readonly (Rational | null)[];
   /**
-   * The estimates from one vector of statistics (same order as `released`); null where an estimate
-   * is unavailable (e.g. the matrix is not positive definite). Must be a deterministic function.
+   * The same estimates from one vector of statistics, as floor(estimate 2^FIXED_BITS) (null where
+   * unavailable, e.g. the matrix is not positive definite). Must be deterministic.
    */
-  estimate: (stats: readonly bigint[]) => (Rational | null)[];
+  estimate: (stats: readonly bigint[]) => (bigint | null)[];
   draws: number;
   /** a = 1 - confidence, exact. */
   miss: Rational;
@@ -140,15 +170,15 @@ export interface SimulatedInterval {
  * the k-th smallest and k-th largest of the B recomputed values (k = floor(B a/2)), report the
  * basic interval [2 v - q_hi, 2 v - q_lo], where v is the released estimate. A draw whose estimate
  * is unavailable counts as beyond both ends, so such draws can only widen the interval (or leave a
- * side unbounded). The noise draws are exact (CSPRNG); every estimate is an exact rational.
+ * side unbounded). The noise draws are exact (CSPRNG); the recomputed values are ordered as
+ * fixed-point integers at 2^-128, and each end is moved outward by one such unit.
  */
 export function simulateIntervals(args: SimulationArgs): SimulatedInterval[] {
-  const { released, laws, estimate, draws, miss, bits } = args;
+  const { released, laws, centre, estimate, draws, miss, bits } = args;
   if (released.length !== laws.length) throw new BadInputError("one noise law per released statistic");
   if (!Number.isSafeInteger(draws) || draws < 1 || draws > 100000) throw new BadInputError("draws must be a whole number from 1 to 100000");
-  const centre = estimate(released);
   const k = tailRank(draws, miss);
-  const samples: Rational[][] = centre.map(() => []);
+  const samples: bigint[][] = centre.map(() => []);
   const failed: number[] = centre.map(() => 0);
   const stats = released.slice();
   for (let b = 0; b < draws; b++) {
@@ -160,15 +190,21 @@ export function simulateIntervals(args: SimulationArgs): SimulatedInterval[] {
       else samples[s].push(e);
     }
   }
+  const unit = Rational.of(1n, 1n << FIXED_BITS);
   return centre.map((v, s) => {
     if (v === null) return { value: null, low: null, high: null };
     const f = failed[s];
-    const sorted = samples[s].sort((x, y) => x.cmp(y));
+    const sorted = samples[s].sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
     // Unavailable draws sit below the smallest (for q_lo) and above the largest (for q_hi).
     const qLo = k <= f ? null : sorted[k - f - 1];
     const qHi = k <= f ? null : sorted[sorted.length - 1 - (k - f - 1)];
     const two = v.mul(2n);
-    return { value: v, low: qHi === null ? null : two.sub(qHi), high: qLo === null ? null : two.sub(qLo) };
+    // q_hi is at most (floor + 1) units and q_lo at least its floor: ends move outward.
+    return {
+      value: v,
+      low: qHi === null ? null : two.sub(unit.mul(qHi + 2n)),
+      high: qLo === null ? null : two.sub(unit.mul(qLo - 1n)),
+    };
   });
 }
 

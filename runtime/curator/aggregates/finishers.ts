@@ -15,8 +15,12 @@ import {
   exponentialQuantile,
   rSquared,
   ratioInterval,
+  FIXED_BITS,
+  floorDivInt,
+  isqrt,
   simulateIntervals,
   solveNormal,
+  solveNormalInt,
   toColumnUnits,
   varianceInterval,
 } from "../../core/index.js";
@@ -214,6 +218,92 @@ function momentMatrix(r: MomentsRecipe, stats: readonly bigint[]): bigint[][] {
   return g;
 }
 
+function gcd(a: bigint, b: bigint): bigint {
+  a = a < 0n ? -a : a;
+  b = b < 0n ? -b : b;
+  while (b !== 0n) [a, b] = [b, a % b];
+  return a;
+}
+
+/** Integers P_i and one D > 0 with x_i = P_i / D. */
+function commonDenominator(xs: readonly Rational[]): { nums: bigint[]; den: bigint } {
+  const den = xs.reduce((d, x) => (d / gcd(d, x.den)) * x.den, 1n);
+  return { nums: xs.map((x) => x.num * (den / x.den)), den };
+}
+
+/**
+ * The regression's estimates from one vector of statistics, as floor(x 2^FIXED_BITS), in integers
+ * only (the simulation's inner loop). With beta_f = N_f/det (solveNormalInt), constants
+ * c_f = sy/scale_f, e_f = sy shift_f/scale_f over one denominator D:
+ *   b_f = N_f c_f / det,  b_0 = (N_0 sy + oy det - sum_f N_f e_f) / det,
+ *   R^2 = 1 - (SSE det) n / (det (SST n)),  SSE det = yy det - sum_f N_f G[f][y],  SST n = yy n - G[0][y]^2.
+ */
+function regressionFixed(r: MomentsRecipe, design: number[], y: number): (stats: readonly bigint[]) => (bigint | null)[] {
+  const terms = r.terms.slice(1);
+  const consts = commonDenominator([
+    r.responseScale,
+    r.responseShift,
+    ...terms.map((t) => r.responseScale.div(t.scale)),
+    ...terms.map((t) => r.responseScale.mul(t.shift).div(t.scale)),
+  ]);
+  const D = consts.den;
+  const SY = consts.nums[0];
+  const OY = consts.nums[1];
+  const C = consts.nums.slice(2, 2 + terms.length);
+  const E = consts.nums.slice(2 + terms.length);
+  const none = [...design.map(() => null), null];
+  return (stats) => {
+    const g = momentMatrix(r, stats);
+    const x = solveNormalInt(g, design, y);
+    if (x === null) return none;
+    const { num: N, det } = x;
+    const den = D * det;
+    const out: (bigint | null)[] = [];
+    let b0 = N[0] * SY + OY * det;
+    for (let f = 1; f < N.length; f++) b0 -= N[f] * E[f - 1];
+    out.push(floorDivInt(b0 << FIXED_BITS, den));
+    for (let f = 1; f < N.length; f++) out.push(floorDivInt((N[f] * C[f - 1]) << FIXED_BITS, den));
+    const n = g[0][0];
+    const yy = g[y][y];
+    const sstN = yy * n - g[0][y] * g[0][y];
+    if (n <= 0n || sstN <= 0n) {
+      out.push(null);
+      return out;
+    }
+    let sseDet = yy * det;
+    design.forEach((f, i) => {
+      sseDet -= N[i] * g[f][y];
+    });
+    const whole = det * sstN;
+    const one = 1n << FIXED_BITS;
+    const r2 = floorDivInt((whole - sseDet * n) << FIXED_BITS, whole);
+    out.push(r2 < 0n ? 0n : r2 > one ? one : r2);
+    return out;
+  };
+}
+
+/**
+ * Correlations from one vector of statistics as floor-ish(r 2^FIXED_BITS) (isqrt of the exact
+ * c^2 4^P/(v_i v_j); within one unit of the floor), null where a variance or the count is not positive.
+ */
+function correlationFixed(r: MomentsRecipe): (stats: readonly bigint[]) => (bigint | null)[] {
+  const one = 1n << FIXED_BITS;
+  return (stats) => {
+    const g = momentMatrix(r, stats);
+    const n = g[0][0];
+    return r.pairs.map(({ i, j }) => {
+      if (n <= 0n) return null;
+      const vi = n * g[i][i] - g[0][i] * g[0][i];
+      const vj = n * g[j][j] - g[0][j] * g[0][j];
+      if (vi <= 0n || vj <= 0n) return null;
+      const c = n * g[i][j] - g[0][i] * g[0][j];
+      let mag = isqrt(((c * c) << (2n * FIXED_BITS)) / (vi * vj));
+      if (mag > one) mag = one;
+      return c < 0n ? -mag - 1n : mag;
+    });
+  };
+}
+
 /** Significant digits of regression and correlation figures; low ends are rounded down, high ends up. */
 const FIGURE_DIGITS = 12;
 
@@ -241,12 +331,21 @@ function figure(x: Rational, dir: "down" | "up" | "near"): string {
 }
 
 /**
+ * The mechanism of a regression or correlation: each released entry plus one exact draw of its own
+ * noise law (the privacy-relevant step; everything after it is post-processing). data: one row.
+ */
+export function noisyMoments(r: MomentsRecipe, data: bigint[][], bits: Bits): bigint[] {
+  if (data.length !== 1 || data[0].length !== r.entries.length) throw new Error("internal: one SQL integer per released entry");
+  return r.entries.map((e, i) => addNoise(data[0][i], e.law, bits));
+}
+
+/**
  * Regression or correlation (regression.ts): add each entry's noise, compute the estimates exactly
  * from the noisy moment matrix, and their error bars by simulation (core/regression.ts).
  * data: one row, the released entries' true integers.
  */
 function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
-  const released = r.entries.map((e, i) => addNoise(data[0][i], e.law, bits));
+  const released = noisyMoments(r, data, bits);
   const laws = r.entries.map((e) => e.law);
   const n = released[0];
   const countRow = (key: (string | null)[]): ReleaseRow => ({
@@ -257,10 +356,11 @@ function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
     low: exactDecimal(Rational.of(n).sub(r.countH)),
     high: exactDecimal(Rational.of(n).add(r.countH)),
   });
+  const sim = { released, laws, draws: r.draws, miss: r.miss, bits };
   if (r.kind === "regression") {
     const design = r.terms.map((_, i) => i);
     const y = r.terms.length;
-    const estimate = (stats: readonly bigint[]): (Rational | null)[] => {
+    const exact = (stats: readonly bigint[]): (Rational | null)[] => {
       const g = momentMatrix(r, stats);
       const beta = solveNormal(g, design, y);
       if (beta === null) return [...design.map(() => null), null];
@@ -273,7 +373,7 @@ function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
       );
       return [...coef, rSquared(g, design, y, beta)];
     };
-    const out = simulateIntervals({ released, laws, estimate, draws: r.draws, miss: r.miss, bits });
+    const out = simulateIntervals({ ...sim, centre: exact(released), estimate: regressionFixed(r, design, y) });
     const rows: ReleaseRow[] = r.terms.map((t, i) => ({
       key: [t.label],
       stat: "coefficient",
@@ -295,18 +395,14 @@ function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
     rows.push(countRow(["(rows)"]));
     return rows;
   }
-  // r = sign(s) sqrt(|s|) from the exact signed square s, to 15 fraction digits (toward 0): the
-  // simulation orders these, and 1e-15 is far below any figure shown.
+  // r = sign(s) sqrt(|s|) from the exact signed square s, to 15 fraction digits (toward 0).
   const corr = (s: Rational | null): Rational | null => {
     if (s === null) return null;
     const mag = sqrtRational(s.abs(), 15, "down");
     return s.sign() < 0 ? mag.neg() : mag;
   };
-  const estimate = (stats: readonly bigint[]): (Rational | null)[] => {
-    const g = momentMatrix(r, stats);
-    return r.pairs.map((p) => corr(correlationSquare(g, p.i, p.j)));
-  };
-  const out = simulateIntervals({ released, laws, estimate, draws: r.draws, miss: r.miss, bits });
+  const g0 = momentMatrix(r, released);
+  const out = simulateIntervals({ ...sim, centre: r.pairs.map((p) => corr(correlationSquare(g0, p.i, p.j))), estimate: correlationFixed(r) });
   const within = (x: Rational) => x.max(Rational.ONE.neg()).min(Rational.ONE);
   const rows: ReleaseRow[] = r.pairs.map((p, i) => {
     const o = out[i];
