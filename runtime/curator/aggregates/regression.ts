@@ -21,7 +21,7 @@
  * The SQL part is the one function `fetchMoments` (an engine call that returns the entries as
  * exact integers); the CPU part (noise, exact solve, simulation) is the finisher in finishers.ts.
  */
-import { Rational, simulationDraws, missOf } from "../../core/index.js";
+import { Rational, simulationDraws } from "../../core/index.js";
 import { BadInputError } from "../../errors.js";
 import { PLAN_LIMITS } from "../../protocol/limits.js";
 import type { Preview, ReleaseRow } from "../../protocol/messages.js";
@@ -190,7 +190,8 @@ function planMoments(alloc: Allocator, src: Source, factors: Factor[], what: str
     const target = a === 0 && b === 0 ? `count of complete rows (for the ${what})` : a === 0 ? `sum of ${fb.label} (for the ${what})` : `sum of ${fa.label} x ${fb.label} (for the ${what})`;
     return alloc.additive(target, k * fa.bound * fb.bound, share, fa.scale.mul(fb.scale));
   });
-  const miss = missOf(conf);
+  // The confidence as written (0.9, not the binary64 below it): it sets the draws and the tail rank.
+  const miss = Rational.ONE.sub(Rational.parse(String(conf)));
   const draws = simulationDraws(miss);
   const entries: MomentEntry[] = released.map(([a, b], i) => ({ a, b, law: specs[i].law }));
   const used = [...new Map(factors.filter((f) => f.col !== null).map((f) => [f.col!.ident, f.col!])).values()];
@@ -308,7 +309,7 @@ export function regressionPiece(
       `Values of ${yc.name} are clamped to [${yc.lower}, ${yc.upper}].`,
     ],
     methods: [
-      `regression: coefficients solve the noisy normal equations exactly; error bars by parametric simulation (${plan.recipe.draws} redraws of the known noise laws around the released sums, exact re-solve, basic interval from order statistics; docs/methods.md §18)`,
+      `regression: coefficients solve the noisy normal equations exactly; error bars by parametric simulation (${plan.recipe.draws} redraws of the known noise laws around the released sums, exact re-solve, percentile interval from order statistics; docs/methods.md §18)`,
     ],
     size: design.length + 2,
     steps: plan.steps,
@@ -351,7 +352,7 @@ export function correlationPiece(alloc: Allocator, src: Source, columns: readonl
       ...caution("correlation"),
     ],
     methods: [
-      `correlation: from the noisy sums; error bars by parametric simulation (${plan.recipe.draws} redraws of the known noise laws around the released sums, basic interval from order statistics, clamped to [-1, 1]; docs/methods.md §19)`,
+      `correlation: from the noisy sums; error bars by parametric simulation (${plan.recipe.draws} redraws of the known noise laws around the released sums, percentile interval from order statistics, clamped to [-1, 1]; docs/methods.md §19)`,
     ],
     size: pairs.length + 1,
     steps: plan.steps,
