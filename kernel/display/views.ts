@@ -12,6 +12,7 @@ import { costText, percent, planText, q, rowLabel, shownValue, spendAmounts, spe
 import { formatDecimal } from "../../runtime/protocol/format.js";
 import type { SpendSummary } from "../../runtime/protocol/messages.js";
 import { MUTED, badge, box, budgetBar, esc, notesList, table } from "./html.js";
+import { modelBody } from "./regression.js";
 
 const NOISE_ONLY =
   "noise-only interval: it covers the privacy noise, not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
@@ -25,7 +26,10 @@ export function answerHtml(a: Answer, chartImg: string | null): string {
   const r = a.release;
   const head = `<div><b>${esc(a.what)}</b> <span style="${MUTED}">on ${esc(r.dataset)}</span>${r.replay ? badge("replayed — no new cost", "#2e7d32") : ""}</div>`;
   let body: string;
-  if (a.isScalar) {
+  const model = modelBody(a); // regression and correlation (regression.ts)
+  if (model !== null) {
+    body = model;
+  } else if (a.isScalar) {
     const row = r.rows[0];
     body =
       `<div style="font-size:18px;margin:2px 0">${esc(shownValue(row))}</div>` +

@@ -33,6 +33,8 @@ declare namespace HushApi {
   type SpendOptions = EpsilonSpend | RhoSpend | AccuracySpend;
   /** A histogram's bins (1 to 1000, equal width over the declared range) and spend. */
   type HistogramOptions = SpendOptions & { bins: number };
+  /** A regression's spend, and optionally the reference level of category/boolean predictors: { reference: { district: "Riverside" } }. */
+  type RegressionOptions = SpendOptions & { reference?: Record<string, string | boolean> };
 
   type Condition =
     | { op: "eq" | "ne" | "lt" | "le" | "gt" | "ge"; column: string; value: Literal }
@@ -213,6 +215,10 @@ declare namespace HushApi {
     crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R>;
     /** Summary of every column, budget split evenly. */
     describe(spend: SpendOptions): Promise<R>;
+    /** Linear regression with an intercept: regress("wait_minutes", ["age", "district"], { epsilon: 0.3 }). Coefficients, R² and rows used, with simulated error bars. */
+    regress(response: string, predictors: string | string[], opts: RegressionOptions): Promise<R>;
+    /** Pearson correlations of every pair of 2 to 12 numeric columns: correlate(["age", "cost"], { epsilon: 0.2 }). */
+    correlate(columns: string[], spend: SpendOptions): Promise<R>;
   }
 
   /** A sealed dataset: public schema, your spend, and noisy aggregates only. No method returns rows. */
