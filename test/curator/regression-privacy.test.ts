@@ -21,7 +21,8 @@ import { Allocator } from "../../runtime/curator/aggregates/budget.js";
 import type { Cpu, Piece, Source } from "../../runtime/curator/aggregates/common.js";
 import { type MomentsRecipe, noisyMoments } from "../../runtime/curator/aggregates/finishers.js";
 import { correlationPiece, regressionPiece } from "../../runtime/curator/aggregates/regression.js";
-import type { Condition, MechanismRecord } from "../../runtime/protocol/messages.js";
+import type { Condition, MechanismRecord, PrivacyAsk } from "../../runtime/protocol/messages.js";
+import { epsilonFromRho } from "../../runtime/core/accounting.js";
 import { dingPValue } from "../core/stats.js";
 import { type Opened, open, policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
 
@@ -53,11 +54,11 @@ function heavyRows(atUpper: boolean): string[] {
   return out;
 }
 
-function policyFor(csv: string): string {
+function policyFor(csv: string, accounting = `{ mode: pure, cap: { epsilon: "1000000000000" } }`): string {
   return tempPolicy(
     policyWith(`    source: data.csv
     unit: { column: u, maxRows: ${K} }
-    accounting: { mode: pure, cap: { epsilon: "1000000000000" } }
+    accounting: ${accounting}
     analysts: [ada]
     columns:
       cat:  { type: category, values: [A, B, C] }
@@ -72,13 +73,18 @@ function policyFor(csv: string): string {
 let heavy: Opened;
 let upper: Opened;
 let without: Opened;
+let upperZ: Opened;
+let withoutZ: Opened;
+const ZCDP = `{ mode: zcdp, cap: { epsilon: "1000000000", delta: "1e-6" } }`;
 beforeAll(async () => {
+  upperZ = await open(policyFor([HEADER, ...baseRows(), ...heavyRows(true)].join("\n") + "\n", ZCDP));
+  withoutZ = await open(policyFor([HEADER, ...baseRows()].join("\n") + "\n", ZCDP));
   heavy = await open(policyFor([HEADER, ...baseRows(), ...heavyRows(false)].join("\n") + "\n"));
   upper = await open(policyFor([HEADER, ...baseRows(), ...heavyRows(true)].join("\n") + "\n"));
   without = await open(policyFor([HEADER, ...baseRows()].join("\n") + "\n"));
 });
 afterAll(async () => {
-  for (const o of [heavy, upper, without]) await o.engine.close();
+  for (const o of [heavy, upper, without, upperZ, withoutZ]) await o.engine.close();
 });
 
 type Build = (alloc: Allocator, src: Source) => Piece;
@@ -91,8 +97,8 @@ const PLANS: { name: string; build: Build; where?: Condition }[] = [
   { name: "correlation of w and v, filtered", build: (a, s) => correlationPiece(a, s, ["w", "v"]), where: FILTER },
 ];
 
-async function capture(o: Opened, build: Build, where: Condition | undefined, epsilon = "1"): Promise<{ recipe: MomentsRecipe; data: bigint[][]; mechanisms: MechanismRecord[] }> {
-  const alloc = new Allocator(o.policy.datasets.get("d")!, { epsilon }, 0.95);
+async function capture(o: Opened, build: Build, where: Condition | undefined, privacy: PrivacyAsk = { epsilon: "1" }): Promise<{ recipe: MomentsRecipe; data: bigint[][]; mechanisms: MechanismRecord[] }> {
+  const alloc = new Allocator(o.policy.datasets.get("d")!, privacy, 0.95);
   const piece = build(alloc, { t: o.engine.table("d"), where });
   let got: { recipe: MomentsRecipe; data: bigint[][] } | undefined;
   const cpu = { finish: async (_: string, recipe: unknown, data: unknown) => ((got = { recipe: recipe as MomentsRecipe, data: data as bigint[][] }), []) } as unknown as Cpu;
@@ -132,14 +138,15 @@ const LEVEL = 1e-3;
 const SELECT_RUNS = 20_000;
 const TEST_RUNS = 50_000;
 
-/** ln P(y | mean a) - ln P(y | mean b) for discrete Laplace laws, summed over coordinates. */
+/** ln P(y | mean a) - ln P(y | mean b), summed over coordinates (discrete Laplace or Gaussian laws). */
 function privacyLoss(y: bigint[], a: bigint[], b: bigint[], laws: NoiseLaw[]): number {
   let s = 0;
   for (let i = 0; i < y.length; i++) {
     const law = laws[i];
-    if (law.family !== "discrete-laplace") throw new Error("expected Laplace");
-    const t = law.scale.toNumber();
-    s += (Math.abs(Number(y[i] - b[i])) - Math.abs(Number(y[i] - a[i]))) / t;
+    const da = Number(y[i] - a[i]);
+    const db = Number(y[i] - b[i]);
+    if (law.family === "discrete-laplace") s += (Math.abs(db) - Math.abs(da)) / law.scale.toNumber();
+    else s += (db * db - da * da) / (2 * law.sigma2.toNumber());
   }
   return s;
 }
@@ -175,36 +182,52 @@ function dingTest(runD: () => number, runD2: () => number, epsilon: number): { p
   return { p: dingPValue(c1, TEST_RUNS, c2, TEST_RUNS, epsilon), event: `${best.swap ? "D'" : "D"} loss ${best.up ? ">=" : "<="} ${best.c}` };
 }
 
-describe("Ding et al. (2018) test on the regression's released sums, epsilon 1", () => {
-  async function mechanisms(halve: boolean): Promise<{ runD: () => number; runD2: () => number }> {
+describe("Ding et al. (2018) test on the regression's released sums", () => {
+  /** The mechanism on D (the unit at the upper bounds) and D' (without it), honest or with every sensitivity halved. */
+  async function mechanisms(halve: boolean, zcdp = false, factor = 2n): Promise<{ runD: () => number; runD2: () => number }> {
     // v on w: 6 released sums, every one moved by its full sensitivity by the unit at the upper
     // bounds, so the privacy loss can reach the whole epsilon (the test's power comes from there;
     // indicators, aliases and filters are covered by the neighbour checks above).
     const build = PLANS[0].build;
-    const a = await capture(upper, build, undefined);
-    const b = await capture(without, build, undefined);
-    const recipe: MomentsRecipe = halve
-      ? {
-          ...a.recipe,
-          // The broken variant: every sensitivity taken as half, so each scale k B_a B_b m/epsilon is halved.
-          entries: a.recipe.entries.map((e) => ({ ...e, law: e.law.family === "discrete-laplace" ? { family: "discrete-laplace", scale: e.law.scale.div(Rational.of(2n)) } : e.law })),
-        }
-      : a.recipe;
+    const privacy: PrivacyAsk = zcdp ? { rho: "0.05" } : { epsilon: "1" };
+    const a = await capture(zcdp ? upperZ : upper, build, undefined, privacy);
+    const b = await capture(zcdp ? withoutZ : without, build, undefined, privacy);
+    // The broken variant: every sensitivity divided by `factor`, so each Laplace scale k B_a B_b m/epsilon
+    // is divided by it (each Gaussian sigma^2 by its square) for the same claimed cost.
+    const broken = (law: NoiseLaw): NoiseLaw =>
+      law.family === "discrete-laplace"
+        ? { family: "discrete-laplace", scale: law.scale.div(Rational.of(factor)) }
+        : { family: "discrete-gaussian", sigma2: law.sigma2.div(Rational.of(factor * factor)) };
+    const recipe: MomentsRecipe = halve ? { ...a.recipe, entries: a.recipe.entries.map((e) => ({ ...e, law: broken(e.law) })) } : a.recipe;
     const laws = recipe.entries.map((e) => e.law);
-    const bits = new Bits(seededBytes(`ding-regression-${halve}`));
+    const bits = new Bits(seededBytes(`ding-regression-${halve}-${zcdp}`));
     const run = (data: bigint[][]) => () => Math.round(20 * privacyLoss(noisyMoments(recipe, data, bits), a.data[0], b.data[0], laws));
     return { runD: run(a.data), runD2: run(b.data) };
   }
 
-  it("the released sums: no violation (D with a unit at the upper bounds, D' without it)", async () => {
+  it("pure epsilon 1, the released sums: no violation (D with a unit at the upper bounds, D' without it)", async () => {
     const m = await mechanisms(false);
     const r = dingTest(m.runD, m.runD2, 1);
     expect(r.p, r.event).toBeGreaterThan(LEVEL);
   }, 300_000);
 
-  it("a broken variant (sensitivities halved, same claimed epsilon) IS detected", async () => {
+  it("pure epsilon 1, a broken variant (sensitivities halved, same claimed epsilon) IS detected", async () => {
     const m = await mechanisms(true);
     const r = dingTest(m.runD, m.runD2, 1);
     expect(r.p, r.event).toBeLessThan(LEVEL);
+  }, 300_000);
+
+  it("zCDP rho 0.05 (discrete Gaussian): no violation of its epsilon at delta 1e-6; a broken variant (sensitivities quartered) IS detected", async () => {
+    // rho-zCDP gives (epsilon, 1e-6)-DP (docs/methods.md §2); 5*10^4 runs cannot see the delta slack.
+    const eps = epsilonFromRho(Rational.parse("0.05"), Rational.parse("1e-6")).toNumber();
+    const honest = await mechanisms(false, true);
+    const r = dingTest(honest.runD, honest.runD2, eps);
+    expect(r.p, r.event).toBeGreaterThan(LEVEL);
+    // The epsilon at delta 1e-6 is loose for a Gaussian, so halving (true rho 0.2) was not caught
+    // with this many runs (p = 0.026); quartering every sensitivity (true rho 0.8 while claiming
+    // 0.05) makes the loss of a single output exceed the claimed epsilon often enough.
+    const bad = await mechanisms(true, true, 4n);
+    const rb = dingTest(bad.runD, bad.runD2, eps);
+    expect(rb.p, rb.event).toBeLessThan(LEVEL);
   }, 300_000);
 });
