@@ -288,7 +288,6 @@ export function regressionPiece(
     responseShift: yf.shift,
     pairs: [],
   };
-  const yc = y.policy as NumericPolicy;
   const refNotes = cols
     .filter((c) => c.type === "category" || c.type === "boolean")
     .map((c) => {
@@ -308,7 +307,6 @@ export function regressionPiece(
       `Linear regression of ${response} on ${predictors.join(", ")} with an intercept, from ${m} noisy sums of products (the sufficient statistics), each given 1/${m} of the budget.`,
       ...refNotes,
       ...caution("regression"),
-      `Values of ${yc.name} are clamped to [${yc.lower}, ${yc.upper}].`,
     ],
     methods: [
       `regression: coefficients solve the noisy normal equations exactly; error bars by parametric simulation (${plan.recipe.draws} redraws of the known noise laws around the released sums, exact re-solve, percentile interval from order statistics; docs/methods.md §18)`,
