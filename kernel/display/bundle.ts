@@ -14,6 +14,7 @@ import { SealedTable } from "../../runtime/api/table.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata } from "../../runtime/protocol/messages.js";
 import { VEGALITE_MIME, chartable, renderSvg, vegaLiteSpec } from "./chart.js";
 import { esc } from "./html.js";
+import { modelTextNote } from "./regression.js";
 import { type LossLine, answerHtml, budgetHtml, ledgerHtml, lossHtml, lossText, preHtml, quoteHtml, tableHtml } from "./views.js";
 
 export interface MimeBundle {
@@ -23,7 +24,8 @@ export interface MimeBundle {
 
 /** The bundle of a release, with chart and receipt metadata. */
 export async function answerBundle(a: Answer): Promise<MimeBundle> {
-  const data: Record<string, unknown> = { "text/plain": a.toString() };
+  const note = modelTextNote(a); // regression.ts: estimates left unavailable by the noise
+  const data: Record<string, unknown> = { "text/plain": note === null ? a.toString() : `${a.toString()}\n${note}` };
   let img: string | null = null;
   if (chartable(a)) {
     const spec = vegaLiteSpec(a);

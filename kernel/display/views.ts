@@ -13,6 +13,7 @@ import { formatHalfWidth } from "../../runtime/protocol/format.js";
 import type { ReleaseRow, SpendSummary } from "../../runtime/protocol/messages.js";
 import { Rational } from "../../runtime/core/index.js";
 import { type BoxKind, MUTED, badge, box, budgetBar, capParts, esc, leftText, notesList, table, textBar } from "./html.js";
+import { modelBody } from "./regression.js";
 
 const NOISE_ONLY =
   "The error bars cover the privacy noise only: not clamping to the declared range, grid rounding, rows dropped by the per-unit bound, or sampling error.";
@@ -52,7 +53,10 @@ export function answerHtml(a: Answer, chartImg: string | null): string {
   const r = a.release;
   const head = `<div><b>${esc(a.what)}</b> <span style="${MUTED}">on ${esc(r.dataset)}</span>${r.replay ? badge("replayed, no new cost", "#2e7d32") : ""}</div>`;
   let body: string;
-  if (a.isScalar) {
+  const model = modelBody(a); // regression and correlation (regression.ts)
+  if (model !== null) {
+    body = model;
+  } else if (a.isScalar) {
     body = `<div style="font-size:18px;margin:2px 0">${figureHtml(r.rows[0])}</div>`;
   } else {
     const uniform = uniformStat(r.rows);

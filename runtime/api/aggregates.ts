@@ -14,6 +14,38 @@ export type HistogramOptions = SpendOptions & {
   bins: number;
 };
 
+/**
+ * Options of a regression: the spend, and optionally the reference level of category or boolean
+ * predictors (`{ reference: { district: "Riverside" } }`); the default is each column's first
+ * declared value, or false.
+ */
+/** What a regression adds to its spend: the reference level of category and boolean predictors. */
+export type RegressionChoices = {
+  reference?: Record<string, string | boolean>;
+};
+export type RegressionOptions = SpendOptions & RegressionChoices;
+
+function columnList(v: unknown, what: string, min: number, max: number): string[] {
+  const list = typeof v === "string" ? [v] : v;
+  if (!Array.isArray(list) || list.length < min || list.length > max) {
+    throw new BadInputError(`${what}: name ${min === max ? min : `${min} to ${max}`} columns (a list of column names)`);
+  }
+  return list.map((c) => columnArg(c, what));
+}
+
+function references(v: unknown): { column: string; value: string }[] | undefined {
+  if (v === undefined) return undefined;
+  if (v === null || typeof v !== "object" || Array.isArray(v)) {
+    throw new BadInputError(`regress: reference must be an object such as { district: "Riverside" }`);
+  }
+  return Object.entries(v as Record<string, unknown>).map(([column, value]) => {
+    if (typeof value !== "string" && typeof value !== "boolean") {
+      throw new BadInputError(`regress: the reference level of ${JSON.stringify(column.slice(0, 40))} must be one of its declared values (a string, or true/false)`);
+    }
+    return { column, value: String(value) };
+  });
+}
+
 function columnArg(v: unknown, what: string): string {
   if (typeof v !== "string" || v.trim() === "") throw new BadInputError(`${what}: name a column (a non-empty string)`);
   return v;
@@ -107,6 +139,34 @@ export abstract class Aggregates<R, O extends SpendOptions = SpendOptions> {
   /** Counts for every pair of declared values of two category (or boolean) columns. */
   crosstab(rows: string, cols: string, spend: O): Promise<R> {
     return this.measure(() => ({ kind: "crosstab", rows: columnArg(rows, "crosstab(rows)"), cols: columnArg(cols, "crosstab(cols)") }), spend, "crosstab");
+  }
+
+  /**
+   * Linear regression of a numeric column on numeric, category and boolean columns, with an
+   * intercept: `regress("wait_minutes", ["age", "district"], { epsilon: 1 })`. Coefficients (in the
+   * columns' units per unit of each predictor; for a category level, the difference from the
+   * reference level), R² and the rows used, each with an error bar from a simulation of the noise
+   * (docs/methods.md §18). The budget is split evenly over the noisy sums of products.
+   */
+  regress(response: string, predictors: string | string[], opts: O & RegressionChoices): Promise<R> {
+    return this.measure(
+      () => {
+        const reference = references((opts as { reference?: unknown } | undefined)?.reference);
+        return {
+          kind: "regression",
+          response: columnArg(response, "regress(response)"),
+          predictors: columnList(predictors, "regress(predictors)", 1, PLAN_LIMITS.maxDesignColumns - 1),
+          ...(reference && reference.length ? { reference } : {}),
+        };
+      },
+      opts,
+      "regress",
+    );
+  }
+
+  /** Pearson correlations of every pair of 2 to 12 numeric columns, each with an error bar (docs/methods.md §19). */
+  correlate(columns: string[], spend: O): Promise<R> {
+    return this.measure(() => ({ kind: "correlation", columns: columnList(columns, "correlate(columns)", 2, PLAN_LIMITS.maxCorrelationColumns) }), spend, "correlate");
   }
 
   /** A summary of every column (count; mean, std and median of numbers; counts of categories), budget split evenly. */

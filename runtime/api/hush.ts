@@ -17,6 +17,7 @@ export const HUSH_HELP = [
   '  await visits.count({ epsilon: 0.1 })              a noisy count with its error bar',
   '  await visits.where(hush.col("age").ge(65)).by("district").mean("wait_minutes", { epsilon: 0.2 })',
   '  await visits.histogram("age", { bins: 10, epsilon: 0.2 })',
+  '  await visits.regress("wait_minutes", ["age", "district"], { epsilon: 0.3 })   linear regression; correlate(["age", "cost"], ...)',
   '  await visits.preview.mean("wait_minutes", { epsilon: 0.1, assumeCount: 5000 })   cost and expected error, nothing spent',
   "  await hush.budget()    your spend and what remains under the cap (before hush.open: every dataset you may use)",
   "  await hush.ledger()    every release recorded for you, with its signed receipt",

@@ -74,6 +74,16 @@ function makePlan(s: TableState, m: Measure, spend: SpendOptions, what: string):
       keyed(info, m.cols, what);
       if (m.rows === m.cols) throw new BadInputError(`${what}: rows and cols must be two different columns`);
       break;
+    case "regression":
+      numeric(info, m.response, what);
+      for (const p of m.predictors) {
+        const c = findColumn(info, p, what);
+        if (c.type === "date") throw new BadInputError(`${what}: ${p} is a date column; predictors are numeric, category or boolean columns`);
+      }
+      break;
+    case "correlation":
+      for (const c of m.columns) numeric(info, c, what);
+      break;
     default:
       break;
   }

@@ -53,6 +53,10 @@ function statNoun(m: Measure): string {
       return m.p.length === 1 ? quantileName(m.p[0]) : "quantile";
     case "describe":
       return "statistic";
+    case "regression":
+      return "coefficient";
+    case "correlation":
+      return "correlation";
   }
 }
 
@@ -112,6 +116,10 @@ export function measureText(m: Measure): string {
       return `histogram of ${m.column} (${m.bins} bins)`;
     case "crosstab":
       return `crosstab ${m.rows} × ${m.cols}`;
+    case "regression":
+      return `regression of ${m.response} on ${m.predictors.join(", ")}`;
+    case "correlation":
+      return `correlation of ${m.columns.join(", ")}`;
   }
 }
 

@@ -72,3 +72,19 @@ export { shortAt, shortIndexDown, shortIndexUp, shortSqrtDown } from "./shortdec
 export { firstPassing } from "./search.js";
 export { laplaceHalfWidth, gaussianHalfWidth, missOf } from "./tailbounds.js";
 export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";
+export {
+  type Moments,
+  type SimulationArgs,
+  type SimulatedInterval,
+  solveNormal,
+  solveNormalInt,
+  toFixed,
+  floorDivInt,
+  FIXED_BITS,
+  rSquared,
+  correlationSquare,
+  simulationDraws,
+  tailRank,
+  simulateIntervals,
+  toColumnUnits,
+} from "./regression.js";

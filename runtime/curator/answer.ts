@@ -25,6 +25,7 @@ import type { Piece, Source } from "./aggregates/common.js";
 import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
+import { correlationPiece, regressionPiece } from "./aggregates/regression.js";
 import { ratioError, wholeRange } from "./aggregates/ratio-preview.js";
 import { type DataEngine, type DatasetSchema, type SchemaColumn, schemaOf } from "./engines/types.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
@@ -390,6 +391,12 @@ export class Answerer {
       }
       case "describe":
         return { piece: describePiece(alloc, src), groupColumns: ["value"], columnsUsed: [...t.columns.keys()] };
+      case "regression": {
+        const piece = regressionPiece(alloc, src, m.response, m.predictors, m.reference ?? []);
+        return { piece, groupColumns: ["term"], columnsUsed: [m.response, ...m.predictors] };
+      }
+      case "correlation":
+        return { piece: correlationPiece(alloc, src, m.columns), groupColumns: ["column", "with"], columnsUsed: [...m.columns] };
     }
   }
 

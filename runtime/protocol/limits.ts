@@ -63,4 +63,15 @@ export const PLAN_LIMITS = {
    * cell is released, so this bounds the work, the memory and the reply of one ask.
    */
   maxCells: 10000,
+  /**
+   * Design columns of a regression: the intercept, one per numeric predictor and one per
+   * non-reference level of a category predictor. The released sums grow as the square (12 design
+   * columns and the response: 91 noisy sums), and so do the simulation's work and each sum's noise.
+   * Measured at the limit (12 numeric columns of 2^30 grid points, 5,000 rows, epsilon 1e-9 to
+   * 1e9; 2 shared cores): 1.4-2.8 s at confidence 0.95 (2000 draws), 5-8.6 s at 0.99 (10,000
+   * draws), under the default time limit of 30 s; correlation of 12 columns alike.
+   */
+  maxDesignColumns: 12,
+  /** Columns of one correlation matrix (the same released sums as a regression of that width). */
+  maxCorrelationColumns: 12,
 } as const;

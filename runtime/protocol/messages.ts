@@ -42,7 +42,15 @@ export type Measure =
   /** Counts for every pair of declared values of two category columns. */
   | { kind: "crosstab"; rows: string; cols: string }
   /** A summary of every column; the budget is split evenly across the parts (stated in the release). */
-  | { kind: "describe" };
+  | { kind: "describe" }
+  /**
+   * Linear regression of a numeric `response` on `predictors` (numeric columns; category and boolean
+   * columns as indicators, one per declared value other than the reference level: the first declared
+   * value, or false, unless `reference` names another). docs/methods.md §18.
+   */
+  | { kind: "regression"; response: string; predictors: string[]; reference?: { column: string; value: string }[] }
+  /** Pearson correlations of every pair of two or more numeric columns. docs/methods.md §19. */
+  | { kind: "correlation"; columns: string[] };
 
 /** How much privacy to spend: a direct parameter, or a target half-width (accuracy first). */
 export type PrivacyAsk =

@@ -108,8 +108,29 @@ const measure = z.discriminatedUnion(
     z.strictObject({ kind: z.literal("histogram"), column: name, bins }),
     z.strictObject({ kind: z.literal("crosstab"), rows: name, cols: name }),
     z.strictObject({ kind: z.literal("describe") }),
+    z.strictObject({
+      kind: z.literal("regression"),
+      response: name,
+      // The intercept takes one design column; the rest of the limit is checked against the policy
+      // (category levels) at prepare time, before any work or spend.
+      predictors: z
+        .array(name, { error: "must be a list of column names" })
+        .min(1, { message: "must list at least one predictor" })
+        .max(PLAN_LIMITS.maxDesignColumns - 1, { message: `must list at most ${PLAN_LIMITS.maxDesignColumns - 1} predictors (maxDesignColumns ${PLAN_LIMITS.maxDesignColumns} includes the intercept)` }),
+      reference: z
+        .array(z.strictObject({ column: name, value: z.string({ error: "must be a string" }).max(PLAN_LIMITS.maxStringLength) }), { error: "must be a list of { column, value }" })
+        .max(PLAN_LIMITS.maxDesignColumns - 1, { message: `must list at most ${PLAN_LIMITS.maxDesignColumns - 1} reference levels` })
+        .optional(),
+    }),
+    z.strictObject({
+      kind: z.literal("correlation"),
+      columns: z
+        .array(name, { error: "must be a list of column names" })
+        .min(2, { message: "must list at least two columns" })
+        .max(PLAN_LIMITS.maxCorrelationColumns, { message: `must list at most ${PLAN_LIMITS.maxCorrelationColumns} columns (maxCorrelationColumns)` }),
+    }),
   ],
-  { error: "must have kind one of count, sum, mean, variance, std, quantile, histogram, crosstab, describe" },
+  { error: "must have kind one of count, sum, mean, variance, std, quantile, histogram, crosstab, describe, regression, correlation" },
 );
 
 const privacy = z.union(

@@ -48,6 +48,7 @@ describe("sealed handle", () => {
       "where", "by",
       // differentially private aggregates and their previews, budget
       "count", "sum", "mean", "variance", "std", "quantile", "quantiles", "median", "histogram", "crosstab", "describe",
+      "regress", "correlate",
       "preview", "budget",
       // internal dispatch to the curator (protected), shared by aggregates
       "measure",

@@ -118,6 +118,10 @@ const MEASURES: [string, Measure, GroupKey[] | undefined][] = [
   ["histogram age 10 bins by region", { kind: "histogram", column: "age", bins: 10 }, GROUPED_BY_REGION],
   ["crosstab region x code by member", { kind: "crosstab", rows: "region", cols: "code" }, [{ column: "member" }]],
   ["describe by region", { kind: "describe" }, GROUPED_BY_REGION],
+  ["regression amount on age, wide and region", { kind: "regression", response: "amount", predictors: ["age", "wide", "region"] }, undefined],
+  ["regression wide on code (1000 levels: past the limit of 12 design columns)", { kind: "regression", response: "wide", predictors: ["code"] }, undefined],
+  ["correlation age, wide, amount", { kind: "correlation", columns: ["age", "wide", "amount"] }, undefined],
+  ["correlation by region (not groupable)", { kind: "correlation", columns: ["age", "amount"] }, GROUPED_BY_REGION],
 ];
 
 const THIRTY_NINES = "999999999999999999999999999999";

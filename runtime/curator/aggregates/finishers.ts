@@ -8,7 +8,23 @@
  * Recipes and data cross the thread boundary by structured clone (workers/wire.ts keeps Rationals
  * exact); the formulas are the ones the pieces in additive.ts and quantile.ts document.
  */
-import { Rational, SEARCH_CELLS, addNoise, exponentialQuantile, ratioInterval, varianceInterval } from "../../core/index.js";
+import {
+  Rational,
+  SEARCH_CELLS,
+  addNoise,
+  correlationSquare,
+  exponentialQuantile,
+  rSquared,
+  ratioInterval,
+  FIXED_BITS,
+  floorDivInt,
+  isqrt,
+  simulateIntervals,
+  solveNormal,
+  solveNormalInt,
+  toColumnUnits,
+  varianceInterval,
+} from "../../core/index.js";
 import type { Bits, NoiseLaw } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import { exactDecimal, sqrtRational } from "./budget.js";
@@ -60,12 +76,46 @@ export interface QuantileRecipe {
   parts: { p: Rational; stat: string; epsilon: Rational }[];
 }
 
+/** One released entry G[a][b] of a moment matrix (regression.ts) and its noise law. */
+export interface MomentEntry {
+  a: number;
+  b: number;
+  law: NoiseLaw;
+}
+
+/** Regression or correlation from a noisy moment matrix (regression.ts, docs/methods.md §18, §19). */
+export interface MomentsRecipe {
+  kind: "regression" | "correlation";
+  /** Number of factors (factor 0 the constant). */
+  factors: number;
+  /** The released entries, in the order of the SQL's integers. */
+  entries: MomentEntry[];
+  /** Entries equal to a released one (an indicator squared is the indicator's sum); the rest are 0. */
+  alias: { a: number; b: number; from: number }[];
+  confidence: number;
+  /** 1 - confidence, exact. */
+  miss: Rational;
+  draws: number;
+  /** Half-width of the noisy row count, in rows. */
+  countH: Rational;
+  /** Regression: the response column, its factor index, and the design terms (factor 0 first). */
+  column: string | null;
+  response: number;
+  terms: { label: string; scale: Rational; shift: Rational }[];
+  /** The response's code: y = responseScale z + responseShift. */
+  responseScale: Rational;
+  responseShift: Rational;
+  /** Correlation: the pairs of factors. */
+  pairs: { i: number; j: number; a: string; b: string }[];
+}
+
 /** The finishers by name: what a worker may be asked to run. */
 export interface Finishers {
   cells: (r: CellsRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   mean: (r: MeanRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   spread: (r: SpreadRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   quantile: (r: QuantileRecipe, data: [bigint, bigint][], bits: Bits) => ReleaseRow[];
+  moments: (r: MomentsRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
 }
 export type FinisherName = keyof Finishers;
 
@@ -157,7 +207,223 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
   });
 }
 
-export const FINISHERS: Finishers = { cells, mean, spread, quantile };
+/** The full symmetric moment matrix from the released entries (structural zeros and aliases filled in). */
+function momentMatrix(r: MomentsRecipe, stats: readonly bigint[]): bigint[][] {
+  const g: bigint[][] = Array.from({ length: r.factors }, () => new Array<bigint>(r.factors).fill(0n));
+  r.entries.forEach((e, i) => {
+    g[e.a][e.b] = stats[i];
+    g[e.b][e.a] = stats[i];
+  });
+  for (const x of r.alias) {
+    g[x.a][x.b] = stats[x.from];
+    g[x.b][x.a] = stats[x.from];
+  }
+  return g;
+}
+
+function gcd(a: bigint, b: bigint): bigint {
+  a = a < 0n ? -a : a;
+  b = b < 0n ? -b : b;
+  while (b !== 0n) [a, b] = [b, a % b];
+  return a;
+}
+
+/** Integers P_i and one D > 0 with x_i = P_i / D. */
+function commonDenominator(xs: readonly Rational[]): { nums: bigint[]; den: bigint } {
+  const den = xs.reduce((d, x) => (d / gcd(d, x.den)) * x.den, 1n);
+  return { nums: xs.map((x) => x.num * (den / x.den)), den };
+}
+
+/**
+ * The regression's estimates from one vector of statistics, as floor(x 2^FIXED_BITS), in integers
+ * only (the simulation's inner loop). With beta_f = N_f/det (solveNormalInt), constants
+ * c_f = sy/scale_f, e_f = sy shift_f/scale_f over one denominator D:
+ *   b_f = N_f c_f / det,  b_0 = (N_0 sy + oy det - sum_f N_f e_f) / det,
+ *   R^2 = 1 - (SSE det) n / (det (SST n)),  SSE det = yy det - sum_f N_f G[f][y],  SST n = yy n - G[0][y]^2.
+ */
+function regressionFixed(r: MomentsRecipe, design: number[], y: number): (stats: readonly bigint[]) => (bigint | null)[] {
+  const terms = r.terms.slice(1);
+  const consts = commonDenominator([
+    r.responseScale,
+    r.responseShift,
+    ...terms.map((t) => r.responseScale.div(t.scale)),
+    ...terms.map((t) => r.responseScale.mul(t.shift).div(t.scale)),
+  ]);
+  const D = consts.den;
+  const SY = consts.nums[0];
+  const OY = consts.nums[1];
+  const C = consts.nums.slice(2, 2 + terms.length);
+  const E = consts.nums.slice(2 + terms.length);
+  const none = [...design.map(() => null), null];
+  return (stats) => {
+    const g = momentMatrix(r, stats);
+    const x = solveNormalInt(g, design, y);
+    if (x === null) return none;
+    const { num: N, det } = x;
+    const den = D * det;
+    const out: (bigint | null)[] = [];
+    let b0 = N[0] * SY + OY * det;
+    for (let f = 1; f < N.length; f++) b0 -= N[f] * E[f - 1];
+    out.push(floorDivInt(b0 << FIXED_BITS, den));
+    for (let f = 1; f < N.length; f++) out.push(floorDivInt((N[f] * C[f - 1]) << FIXED_BITS, den));
+    const n = g[0][0];
+    const yy = g[y][y];
+    const sstN = yy * n - g[0][y] * g[0][y];
+    if (n <= 0n || sstN <= 0n) {
+      out.push(null);
+      return out;
+    }
+    let sseDet = yy * det;
+    design.forEach((f, i) => {
+      sseDet -= N[i] * g[f][y];
+    });
+    const whole = det * sstN;
+    const one = 1n << FIXED_BITS;
+    const r2 = floorDivInt((whole - sseDet * n) << FIXED_BITS, whole);
+    out.push(r2 < 0n ? 0n : r2 > one ? one : r2);
+    return out;
+  };
+}
+
+/**
+ * Correlations from one vector of statistics as floor-ish(r 2^FIXED_BITS) (isqrt of the exact
+ * c^2 4^P/(v_i v_j); within one unit of the floor), null where a variance or the count is not positive.
+ */
+function correlationFixed(r: MomentsRecipe): (stats: readonly bigint[]) => (bigint | null)[] {
+  const one = 1n << FIXED_BITS;
+  return (stats) => {
+    const g = momentMatrix(r, stats);
+    const n = g[0][0];
+    return r.pairs.map(({ i, j }) => {
+      if (n <= 0n) return null;
+      const vi = n * g[i][i] - g[0][i] * g[0][i];
+      const vj = n * g[j][j] - g[0][j] * g[0][j];
+      if (vi <= 0n || vj <= 0n) return null;
+      const c = n * g[i][j] - g[0][i] * g[0][j];
+      let mag = isqrt(((c * c) << (2n * FIXED_BITS)) / (vi * vj));
+      if (mag > one) mag = one;
+      return c < 0n ? -mag - 1n : mag;
+    });
+  };
+}
+
+/** Significant digits of regression and correlation figures; low ends are rounded down, high ends up. */
+const FIGURE_DIGITS = 12;
+
+/** A decimal with FIGURE_DIGITS significant digits (at most 40 fraction digits), rounded in direction dir. */
+function figure(x: Rational, dir: "down" | "up" | "near"): string {
+  const a = x.abs();
+  if (a.isZero()) return "0";
+  // digits of the integer part of |x| (0 when |x| < 1), then fraction digits to reach 12 significant.
+  const whole = a.floor();
+  let frac = whole > 0n ? FIGURE_DIGITS - whole.toString().length : FIGURE_DIGITS;
+  if (whole === 0n) {
+    let lead = 0;
+    let t = a;
+    while (t.lt(Rational.of(1n, 10n)) && lead < 40) {
+      t = t.mul(10n);
+      lead++;
+    }
+    frac += lead;
+  }
+  frac = Math.max(0, Math.min(40, frac));
+  const scale = 10n ** BigInt(frac);
+  const scaled = x.mul(scale);
+  const n = dir === "down" ? scaled.floor() : dir === "up" ? scaled.ceil() : scaled.add(Rational.of(1n, 2n)).floor();
+  return exactDecimal(Rational.of(n, scale));
+}
+
+/**
+ * The mechanism of a regression or correlation: each released entry plus one exact draw of its own
+ * noise law (the privacy-relevant step; everything after it is post-processing). data: one row.
+ */
+export function noisyMoments(r: MomentsRecipe, data: bigint[][], bits: Bits): bigint[] {
+  if (data.length !== 1 || data[0].length !== r.entries.length) throw new Error("internal: one SQL integer per released entry");
+  return r.entries.map((e, i) => addNoise(data[0][i], e.law, bits));
+}
+
+/**
+ * Regression or correlation (regression.ts): add each entry's noise, compute the estimates exactly
+ * from the noisy moment matrix, and their error bars by simulation (core/regression.ts).
+ * data: one row, the released entries' true integers.
+ */
+function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
+  const released = noisyMoments(r, data, bits);
+  const laws = r.entries.map((e) => e.law);
+  const n = released[0];
+  const countRow = (key: (string | null)[]): ReleaseRow => ({
+    key,
+    stat: "count",
+    column: null,
+    value: String(n),
+    low: exactDecimal(Rational.of(n).sub(r.countH)),
+    high: exactDecimal(Rational.of(n).add(r.countH)),
+  });
+  const sim = { released, laws, draws: r.draws, miss: r.miss, bits };
+  if (r.kind === "regression") {
+    const design = r.terms.map((_, i) => i);
+    const y = r.terms.length;
+    const exact = (stats: readonly bigint[]): (Rational | null)[] => {
+      const g = momentMatrix(r, stats);
+      const beta = solveNormal(g, design, y);
+      if (beta === null) return [...design.map(() => null), null];
+      const coef = toColumnUnits(
+        beta,
+        r.terms.slice(1).map((t) => t.scale),
+        r.terms.slice(1).map((t) => t.shift),
+        r.responseScale,
+        r.responseShift,
+      );
+      return [...coef, rSquared(g, design, y, beta)];
+    };
+    const out = simulateIntervals({ ...sim, centre: exact(released), estimate: regressionFixed(r, design, y) });
+    const rows: ReleaseRow[] = r.terms.map((t, i) => ({
+      key: [t.label],
+      stat: "coefficient",
+      column: r.column,
+      value: out[i].value === null ? null : figure(out[i].value!, "near"),
+      low: out[i].low === null ? null : figure(out[i].low!, "down"),
+      high: out[i].high === null ? null : figure(out[i].high!, "up"),
+    }));
+    const r2 = out[r.terms.length];
+    const clamp = (x: Rational | null) => (x === null ? null : x.max(Rational.ZERO).min(Rational.ONE));
+    rows.push({
+      key: ["(fit)"],
+      stat: "r2",
+      column: r.column,
+      value: r2.value === null ? null : figure(r2.value, "near"),
+      low: r2.low === null ? null : figure(clamp(r2.low)!, "down"),
+      high: r2.high === null ? null : figure(clamp(r2.high)!, "up"),
+    });
+    rows.push(countRow(["(rows)"]));
+    return rows;
+  }
+  // r = sign(s) sqrt(|s|) from the exact signed square s, to 15 fraction digits (toward 0).
+  const corr = (s: Rational | null): Rational | null => {
+    if (s === null) return null;
+    const mag = sqrtRational(s.abs(), 15, "down");
+    return s.sign() < 0 ? mag.neg() : mag;
+  };
+  const g0 = momentMatrix(r, released);
+  const out = simulateIntervals({ ...sim, centre: r.pairs.map((p) => corr(correlationSquare(g0, p.i, p.j))), estimate: correlationFixed(r) });
+  const within = (x: Rational) => x.max(Rational.ONE.neg()).min(Rational.ONE);
+  const rows: ReleaseRow[] = r.pairs.map((p, i) => {
+    const o = out[i];
+    return {
+      key: [p.a, p.b],
+      stat: "correlation",
+      column: null,
+      value: o.value === null ? null : figure(o.value, "near"),
+      // A side left unbounded by unavailable draws is the end of the range [-1, 1].
+      low: o.value === null ? null : o.low === null ? "-1" : figure(within(o.low), "down"),
+      high: o.value === null ? null : o.high === null ? "1" : figure(within(o.high), "up"),
+    };
+  });
+  rows.push(countRow(["(rows)", "(rows)"]));
+  return rows;
+}
+
+export const FINISHERS: Finishers = { cells, mean, spread, quantile, moments };
 
 /** A Cpu that runs the finishers on this thread with the given bits (tests that need reproducible noise). */
 export function onThisThread(bits: Bits): Cpu {

@@ -21,7 +21,7 @@ import { BadInputError } from "../../errors.js";
 import type { GroupKey } from "../../protocol/messages.js";
 import { type GroupSpec, Params, compileGroup, compileWhere, resolveColumn } from "../sql.js";
 import type { Dialect } from "../sql.js";
-import type { BucketsRequest, CellTerm, CellsRequest, DatasetSchema, SchemaColumn, SqlParam } from "./types.js";
+import type { BucketsRequest, CellTerm, CellsRequest, DatasetSchema, MomentCode, SchemaColumn, SqlParam } from "./types.js";
 
 export interface Bounding {
   /** `k()` gives the placeholder of maxRows (bound on first use). */
@@ -76,6 +76,43 @@ function numeric(t: DatasetSchema, name: string, path: string): SchemaColumn {
   return c;
 }
 
+/**
+ * The aggregate of a `moment` term in a dialect whose exact wide integer type is `wide` (DuckDB
+ * HUGEINT, PostgreSQL numeric): a centred code is at most the grid width (< 2^33) in size, so the
+ * product of two needs more than 64 bits. Only CASE and arithmetic, which postgres_fdw ships too.
+ * Constants are integers computed by the curator (bigint/number, written as digits), never plan text.
+ */
+export function momentSql(t: DatasetSchema, term: Extract<CellTerm, { kind: "moment" }>, path: string, wide: string): { agg: string; cols: string[] } {
+  const code = (m: MomentCode, at: string): { sql: string; col: SchemaColumn | null } => {
+    switch (m.kind) {
+      case "one":
+        return { sql: `CAST(1 AS ${wide})`, col: null };
+      case "centred": {
+        const c = numeric(t, m.column, `${at}.column`);
+        return { sql: `(CAST(${c.ident} AS ${wide}) * 2 - ${BigInt(m.twiceCentre).toString()})`, col: c };
+      }
+      case "level": {
+        const c = resolveColumn(t, m.column, `${at}.column`);
+        if (c.policy.type !== "category" || !Number.isSafeInteger(m.index) || m.index < 0 || m.index >= c.policy.values.length) {
+          throw new BadInputError(`${at}: not a declared level of a category column`);
+        }
+        return { sql: `CAST(CASE WHEN ${c.ident} = ${m.index} THEN 1 ELSE 0 END AS ${wide})`, col: c };
+      }
+      case "truth": {
+        const c = resolveColumn(t, m.column, `${at}.column`);
+        if (c.policy.type !== "boolean") throw new BadInputError(`${at}: not a boolean column`);
+        return { sql: `CAST(CASE WHEN ${c.ident} = ${m.value ? "TRUE" : "FALSE"} THEN 1 ELSE 0 END AS ${wide})`, col: c };
+      }
+    }
+  };
+  const a = code(term.a, `${path}.a`);
+  const b = code(term.b, `${path}.b`);
+  const complete = term.complete.map((name, j) => resolveColumn(t, name, `${path}.complete[${j}]`));
+  const cols = [...new Set([...complete.map((c) => c.ident), ...[a.col, b.col].filter((c): c is SchemaColumn => c !== null).map((c) => c.ident)])];
+  const when = complete.length === 0 ? "TRUE" : complete.map((c) => `${c.ident} IS NOT NULL`).join(" AND ");
+  return { agg: `sum(CASE WHEN ${when} THEN ${a.sql} * ${b.sql} END)`, cols };
+}
+
 /** The aggregate expression of one term, and the relation columns it reads. */
 function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; cols: string[] } {
   const path = `terms[${i}]`;
@@ -105,6 +142,8 @@ function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; co
       const c = numeric(t, term.column, `${path}.column`);
       return { agg: `count(CASE WHEN ${c.flag} ${term.kind === "atLower" ? "< 0" : "> 0"} THEN 1 END)`, cols: [c.flag] };
     }
+    case "moment":
+      return momentSql(t, term, path, "HUGEINT");
   }
 }
 

@@ -45,7 +45,25 @@ export type CellTerm =
    * Kept rows whose raw value was clamped at the declared bound: below the lower bound (atLower)
    * or above the upper bound (atUpper). A value exactly at a bound is not clamped.
    */
-  | { kind: "atLower" | "atUpper"; column: string };
+  | { kind: "atLower" | "atUpper"; column: string }
+  /**
+   * Sum of the product of two integer codes over kept rows on which every column of `complete` is
+   * present: the moments of a regression or correlation (docs/methods.md §18, §19).
+   */
+  | { kind: "moment"; a: MomentCode; b: MomentCode; complete: readonly string[] };
+
+/**
+ * An integer code of a row, for `moment` terms. `one`: 1. `centred`: 2u - twiceCentre, u the
+ * numeric column's grid units (so the code is centred on the middle of the declared range when
+ * twiceCentre = lowerUnits + upperUnits). `level`: 1 when the category column holds its declared
+ * value number `index` (0-based), else 0. `truth`: 1 when the boolean column equals `value`, else 0.
+ * Every constant here is an integer the curator computed from the policy, never text from a plan.
+ */
+export type MomentCode =
+  | { kind: "one" }
+  | { kind: "centred"; column: string; twiceCentre: bigint }
+  | { kind: "level"; column: string; index: number }
+  | { kind: "truth"; column: string; value: boolean };
 
 export interface CellsRequest {
   dataset: string;

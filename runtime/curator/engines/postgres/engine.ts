@@ -20,7 +20,7 @@ import { Bits, cryptoBytes } from "../../../core/index.js";
 import { PolicyError, UnknownDatasetError } from "../../../errors.js";
 import type { DatasetPolicy, LoadedPolicy } from "../../policy.js";
 import { compileGroup, compileWhere, type Dialect, Params } from "../../sql.js";
-import { cellsFromRows, toBigInt } from "../shapes.js";
+import { cellsFromRows, momentSql, toBigInt } from "../shapes.js";
 import {
   type BucketsRequest,
   type CellTerm,
@@ -125,6 +125,8 @@ function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; co
       const c = numericColumn(t, term.column, `${path}.column`);
       return { agg: `count(CASE WHEN ${c.flag} ${term.kind === "atLower" ? "< 0" : "> 0"} THEN 1 END)`, cols: [c.flag] };
     }
+    case "moment":
+      return momentSql(t, term, path, "numeric");
   }
 }
 
