@@ -65,4 +65,15 @@ export {
 export { shortAt, shortIndexDown, shortIndexUp, shortSqrtDown } from "./shortdecimal.js";
 export { firstPassing } from "./search.js";
 export { laplaceHalfWidth, gaussianHalfWidth, missOf } from "./tailbounds.js";
-export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";
+export {
+  type QuantileArgs,
+  type QuantileResult,
+  type QuantileInterval,
+  type QuantileIntervalArgs,
+  exponentialQuantile,
+  quantileCosts,
+  treeDepth,
+  treeSensitivity,
+  noisyTree,
+  quantileInterval,
+} from "./quantile.js";

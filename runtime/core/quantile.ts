@@ -6,8 +6,10 @@
  * rejection with exact Bernoulli(x/2^y) trials: no floating point touches the selection.
  */
 import { BadInputError } from "../errors.js";
-import { expNeg } from "./bounds.js";
-import { Rational } from "./rational.js";
+import { expNeg, ln } from "./bounds.js";
+import { type NoiseLaw, drawNoise } from "./mechanisms.js";
+import { Rational, bitLength, floorDiv, isqrt } from "./rational.js";
+import { gaussianHalfWidth, laplaceHalfWidth } from "./tailbounds.js";
 import type { Bits } from "./random.js";
 
 export interface QuantileArgs {
@@ -183,4 +185,214 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
       return j;
     }
   }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Quantile value intervals from a noisy dyadic tree of bucket counts (docs/methods.md §20).
+// ---------------------------------------------------------------------------------------------
+
+/**
+ * Levels below the root of the dyadic tree over m buckets: the least L with 2^L >= m. The tree has
+ * L + 1 levels in all (root included) and 2^(L+1) - 1 nodes, a number fixed by m alone.
+ */
+export function treeDepth(m: number): number {
+  if (!Number.isInteger(m) || m < 1) throw new BadInputError(`a tree needs at least one bucket, got ${m}`);
+  let L = 0;
+  while (2 ** L < m) L++;
+  return L;
+}
+
+/**
+ * Sensitivity of the whole tree for a unit of up to k rows: every level partitions the rows, so one
+ * unit moves each level by at most k in L1 (all its rows in one node, or spread), and the L + 1
+ * levels together by k (L + 1) in L1. In L2 a level moves by at most k, so the tree by
+ * k sqrt(L + 1); the discrete Gaussian is calibrated to an integer, k ceil(sqrt(L + 1)), which is
+ * never smaller (docs/methods.md §20).
+ */
+export function treeSensitivity(m: number, k: number, family: NoiseLaw["family"]): bigint {
+  if (!Number.isInteger(k) || k < 1) throw new BadInputError(`rows per unit must be a positive integer, got ${k}`);
+  const levels = BigInt(treeDepth(m) + 1);
+  if (family === "discrete-laplace") return BigInt(k) * levels;
+  let r = isqrt(levels);
+  if (r * r < levels) r += 1n;
+  return BigInt(k) * r;
+}
+
+/**
+ * The noisy tree: nodes[l][i] is the count of buckets [i 2^(L-l), (i+1) 2^(L-l)) (0-based) plus
+ * one independent draw of `law`. `counts` has one entry per bucket (length m); buckets past m are
+ * empty. Every node is drawn whatever the counts, so the number of draws depends on m only.
+ */
+export function noisyTree(counts: bigint[], law: NoiseLaw, bits: Bits): bigint[][] {
+  const L = treeDepth(counts.length);
+  const leaves: bigint[] = [];
+  for (let i = 0; i < 2 ** L; i++) {
+    const c = i < counts.length ? counts[i] : 0n;
+    if (typeof c !== "bigint" || c < 0n) throw new BadInputError("bucket counts must be non-negative integers");
+    leaves.push(c);
+  }
+  const exact: bigint[][] = [leaves];
+  for (let l = L - 1; l >= 0; l--) {
+    const below = exact[0];
+    const level: bigint[] = [];
+    for (let i = 0; i < below.length / 2; i++) level.push(below[2 * i] + below[2 * i + 1]);
+    exact.unshift(level);
+  }
+  return exact.map((level) => level.map((c) => c + drawNoise(law, bits)));
+}
+
+/** The tree nodes whose buckets make up the prefix [0, i): one per set bit of i (the root for i = 2^L). */
+function prefixNodes(i: number, L: number): [number, number][] {
+  if (i === 2 ** L) return [[0, 0]];
+  const out: [number, number][] = [];
+  let pos = 0;
+  for (let bit = L - 1; bit >= 0; bit--) {
+    if (i & (2 ** bit)) {
+      out.push([L - bit, pos >> bit]);
+      pos += 2 ** bit;
+    }
+  }
+  return out;
+}
+
+export interface QuantileIntervalArgs {
+  /** noisyTree's output over the m buckets */
+  tree: bigint[][];
+  /** number of buckets m (the candidates) */
+  m: number;
+  /** target quantile a/b in (0, 1) */
+  p: Rational;
+  /** the law every node was drawn from */
+  law: NoiseLaw;
+  /** miss probability in (0, 1), exact */
+  miss: Rational;
+}
+
+export interface QuantileInterval {
+  /** 1-based buckets: the true quantile's bucket i* lies in [lowBucket, highBucket] on the event of §20 */
+  lowBucket: number;
+  highBucket: number;
+  /** half-width (rows) of the noisy total and of a prefix of 2^(L-1) buckets, for the notes */
+  totalHalfWidth: bigint;
+}
+
+/**
+ * Bucket range that holds the true p-quantile's bucket with probability >= 1 - miss
+ * (docs/methods.md §20). G_i = rows in buckets 1..i, n = G_m; the quantile's bucket is the least
+ * i* with G_i* >= p n, so G_(i*-1) < p n <= G_i*. With noisy prefixes G~_i (sums of tree nodes)
+ * and proven half-widths h_i, and the root n~ with h_n:
+ *   low  = least i with b (G~_i + h_i) >= a (n~ - h_n),
+ *   high = greatest i with b (G~_(i-1) - h_(i-1)) < a (n~ + h_n) (at least 1).
+ * When the three noises of G_i*, G_(i*-1) and n are within their half-widths, low <= i* <= high;
+ * i* is fixed by the data, so that event has probability >= 1 - miss by a union bound over the
+ * three, each given miss/3 (a prefix of l nodes takes sumHalfWidth at l). Both scans visit every
+ * bucket, whatever the counts. Only integers and rationals.
+ */
+export function quantileInterval(args: QuantileIntervalArgs): QuantileInterval {
+  const { tree, m, p, law, miss } = args;
+  if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
+  if (!(miss instanceof Rational) || miss.sign() <= 0 || miss.ge(Rational.ONE)) throw new BadInputError("miss probability must lie strictly between 0 and 1");
+  const L = treeDepth(m);
+  if (!Array.isArray(tree) || tree.length !== L + 1 || tree.some((lv, l) => !Array.isArray(lv) || lv.length !== 2 ** l)) {
+    throw new BadInputError("tree does not match the number of buckets");
+  }
+  const third = miss.div(Rational.of(3n));
+  const byNodes = new Map<number, bigint>();
+  const h = (nodes: number): bigint => {
+    let w = byNodes.get(nodes);
+    if (w === undefined) {
+      w = sumHalfWidth(law, nodes, third);
+      byNodes.set(nodes, w);
+    }
+    return w;
+  };
+  const prefix: bigint[] = [0n];
+  const width: bigint[] = [0n];
+  for (let i = 1; i <= m; i++) {
+    const nodes = prefixNodes(i, L);
+    let s = 0n;
+    for (const [l, j] of nodes) s += tree[l][j];
+    prefix.push(s);
+    width.push(h(nodes.length));
+  }
+  const a = p.num;
+  const b = p.den;
+  const hn = h(1);
+  const nLow = a * (tree[0][0] - hn);
+  const nHigh = a * (tree[0][0] + hn);
+  let low = 0;
+  let high = 1;
+  for (let i = 1; i <= m; i++) {
+    const lowOk = b * (prefix[i] + width[i]) >= nLow;
+    if (lowOk && low === 0) low = i;
+    if (b * (prefix[i - 1] - width[i - 1]) < nHigh) high = i;
+  }
+  // Off the event of §20 the scans can disagree; the whole range is then returned (never narrower).
+  if (low === 0 || low > high) {
+    low = 1;
+    high = m;
+  }
+  return { lowBucket: low, highBucket: high, totalHalfWidth: hn };
+}
+
+/** Fractions theta of 1/t at which the Laplace Chernoff bound is tried (public; any theta is valid). */
+const CHERNOFF_THETAS = [Rational.of(1n, 3n), Rational.of(1n, 2n), Rational.of(2n, 3n), Rational.of(4n, 5n)];
+const sumCache = new Map<string, bigint>();
+
+/**
+ * An integer h with P(|Y_1 + ... + Y_l| > h) <= a for l independent draws of `law`, proven in
+ * integers (bounds.ts rounds every step outward), docs/methods.md §20. l = 1: the exact least h
+ * (tailbounds.ts). l >= 2: the least of three valid bounds,
+ *   - union: l h_1(a / l), since |S| > l h_1 needs some |Y_i| > h_1;
+ *   - discrete Laplace, Chernoff: E e^(lambda Y) = (1 - q)^2 / ((1 - q e^lambda)(1 - q e^-lambda))
+ *     for q = e^(-1/t), |lambda| < 1/t; with lambda = theta/t, P(S >= s) <= M^l e^(-theta s/t), so
+ *     h + 1 >= t (l ln M + ln(2/a)) / theta suffices (theta from a fixed public list);
+ *   - discrete Gaussian, sub-Gaussian: E e^(lambda X) <= e^(lambda^2 sigma^2/2) (Canonne, Kamath,
+ *     Steinke 2020), so P(|S| >= s) <= 2 e^(-s^2/(2 l sigma^2)) and (h + 1)^2 >= 2 l sigma^2 ln(2/a)
+ *     suffices.
+ */
+export function sumHalfWidth(law: NoiseLaw, l: number, a: Rational): bigint {
+  if (!Number.isInteger(l) || l < 1) throw new BadInputError(`number of draws must be a positive integer, got ${l}`);
+  if (!(a instanceof Rational) || a.sign() <= 0) throw new BadInputError("miss probability must be positive");
+  if (a.ge(Rational.ONE)) return 0n;
+  const one = (x: Rational): bigint => (law.family === "discrete-laplace" ? laplaceHalfWidth(law.scale, x) : gaussianHalfWidth(law.sigma2, x));
+  if (l === 1) return one(a);
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${l}:${a}`;
+  const hit = sumCache.get(key);
+  if (hit !== undefined) return hit;
+  const L = BigInt(l);
+  let best = L * one(a.div(Rational.of(L)));
+  const P = 128;
+  const scaleP = 1n << BigInt(P);
+  const ln2a = ln(Rational.of(2n).div(a), P).hi; // >= 2^P ln(2/a)
+  if (law.family === "discrete-laplace") {
+    const t = law.scale;
+    const Pt = P + bitLength(t.ceil());
+    const oneP = 1n << BigInt(Pt);
+    const q = expNeg(Rational.ONE.div(t), Pt);
+    for (const theta of CHERNOFF_THETAS) {
+      const eA = expNeg(Rational.ONE.sub(theta).div(t), Pt).hi; // >= q e^lambda
+      const eB = expNeg(Rational.ONE.add(theta).div(t), Pt).hi; // >= q e^-lambda
+      const den = (oneP - eA) * (oneP - eB);
+      if (den <= 0n || oneP - q.lo <= 0n) continue;
+      const mHi = Rational.of((oneP - q.lo) * (oneP - q.lo), den); // >= M
+      const lnM = ln(mHi, P).hi; // >= 2^P ln M
+      // h + 1 = ceil(t (l lnM + ln2a) / (theta 2^P))
+      const num = t.num * (L * lnM + ln2a) * theta.den;
+      const dd = t.den * scaleP * theta.num;
+      const s = -floorDiv(-num, dd);
+      if (s - 1n < best) best = s - 1n < 0n ? 0n : s - 1n;
+    }
+  } else {
+    const s2 = law.sigma2;
+    // (h + 1)^2 >= v = ceil(2 l sigma^2 ln(2/a))
+    const v = -floorDiv(-(2n * L * s2.num * ln2a), s2.den * scaleP);
+    let r = isqrt(v);
+    if (r * r < v) r += 1n;
+    const h = r - 1n < 0n ? 0n : r - 1n;
+    if (h < best) best = h;
+  }
+  if (sumCache.size >= 256) sumCache.delete(sumCache.keys().next().value as string);
+  sumCache.set(key, best);
+  return best;
 }

@@ -8,7 +8,7 @@
  * Recipes and data cross the thread boundary by structured clone (workers/wire.ts keeps Rationals
  * exact); the formulas are the ones the pieces in additive.ts and quantile.ts document.
  */
-import { Rational, addNoise, exponentialQuantile, ratioInterval, varianceInterval } from "../../core/index.js";
+import { Rational, addNoise, exponentialQuantile, missOf, noisyTree, quantileInterval, ratioInterval, varianceInterval } from "../../core/index.js";
 import type { Bits, NoiseLaw } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import { exactDecimal, sqrtRational } from "./budget.js";
@@ -58,6 +58,9 @@ export interface QuantileRecipe {
   candidates: bigint[];
   step: Rational;
   parts: { p: Rational; stat: string; epsilon: Rational }[];
+  /** Law of every node of the value-interval tree (docs/methods.md §20). */
+  treeLaw: NoiseLaw;
+  confidence: number;
 }
 
 /** The finishers by name: what a worker may be asked to run. */
@@ -148,10 +151,28 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
   }
   let n = acc;
   while (i < data.length) n += data[i++][1];
+  // Counts per bucket 1..m (index 0 = bucket 1), for the value-interval tree.
+  const perBucket: bigint[] = Array.from({ length: r.candidates.length }, () => 0n);
+  for (const [bucket, rows] of data) if (bucket >= 1n && bucket <= m) perBucket[Number(bucket) - 1] += rows;
+  const tree = noisyTree(perBucket, r.treeLaw, bits);
+  const miss = missOf(r.confidence);
+  const last = r.candidates.length - 1;
   return r.parts.map((x) => {
     const drawn = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.epsilon, bits });
     const v = r.step.mul(r.candidates[drawn.index]);
-    return { key: [], stat: x.stat, column: r.column, value: exactDecimal(v), low: null, high: null };
+    // Bucket i holds values in [candidates[i-1], candidates[i]); the last bucket holds the upper
+    // bound only. Values are whole grid units, so the interval ends one unit below candidates[high].
+    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss });
+    const lowUnits = r.candidates[iv.lowBucket - 1];
+    const highUnits = iv.highBucket <= last ? r.candidates[iv.highBucket] - 1n : r.candidates[last];
+    return {
+      key: [],
+      stat: x.stat,
+      column: r.column,
+      value: exactDecimal(v),
+      low: exactDecimal(r.step.mul(lowUnits)),
+      high: exactDecimal(r.step.mul(highUnits)),
+    };
   });
 }
 
