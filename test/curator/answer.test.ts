@@ -135,13 +135,22 @@ describe("costs and sensitivities", () => {
     ]);
   });
 
-  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9)", async () => {
+  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9), and the value-interval tree (§20)", async () => {
     const q = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5, 0.9] }, privacy: { epsilon: "2" } }));
+    // Half the budget to the two draws (1/2 each), half to one tree over the 101 candidates of
+    // age [0, 100]: 7 levels below the root, 8 in all, so sensitivity k (L + 1) = 4 * 8 = 32 and
+    // discrete Laplace scale 32 / 1.
     expect(q.mechanisms).toEqual([
-      { target: "p50 of age", family: "exponential", scale: "1", sensitivity: "4", step: "1", cost: "1" },
-      { target: "p90 of age", family: "exponential", scale: "1", sensitivity: "36", step: "1", cost: "1" },
+      { target: "p50 of age", family: "exponential", scale: "1/2", sensitivity: "4", step: "1", cost: "1/2" },
+      { target: "p90 of age", family: "exponential", scale: "1/2", sensitivity: "36", step: "1", cost: "1/2" },
+      { target: "value intervals of age", family: "discrete-laplace", scale: "32", sensitivity: "32", step: "1", cost: "1" },
     ]);
-    for (const r of q.rows) expect([r.low, r.high]).toEqual([null, null]);
+    for (const r of q.rows) {
+      expect(Number(r.low)).toBeLessThanOrEqual(Number(r.high));
+      expect(Number(r.low)).toBeGreaterThanOrEqual(0);
+      expect(Number(r.high)).toBeLessThanOrEqual(100);
+    }
+    expect(q.notes.join(" ")).toMatch(/Budget split: the exponential mechanism gets 1 epsilon \(shared evenly by the 2 quantiles\), the tree for the value intervals 1 epsilon/);
   });
 
   it("quantiles on a fine grid use at most 2001 evenly spaced public candidates", () => {
