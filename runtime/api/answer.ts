@@ -140,7 +140,7 @@ export class Answer {
     const cost = costText({ cost: r.cost, replay: r.replay, sessionSpent: this.sessionSpent, spend: r.spend });
     if (this.isScalar) {
       const row = r.rows[0];
-      // A quantile from the exponential mechanism has a rank guarantee, not a value interval (notes).
+      // Quantiles carry a value interval (docs/methods.md §20); a row without one (an older receipt) says so.
       const bar = row.value !== null && (row.low === null || row.high === null) ? "no value interval, see notes" : percent(r.confidence);
       return `${this.what} = ${shownValue(row)} (${bar}) · ${cost}`;
     }
