@@ -41,6 +41,8 @@ export interface TableColumn {
   policy: ColumnPolicy;
   /** Quoted internal identifier, e.g. "c3". */
   ident: string;
+  /** Numeric columns: quoted clamping-flag identifier, e.g. "k3" (see clampFlagSelect). */
+  flag?: string;
 }
 
 export interface TableInfo {
@@ -265,6 +267,23 @@ function finalSelect(c: ColumnPolicy, i: number): string {
   }
 }
 
+// ---- [clamping flags, issue 13] ------------------------------------------------------------
+// One small column k<i> per numeric column: -1 when the raw value was below the declared lower
+// bound, 1 above the upper bound, 0 inside (a value exactly at a bound is not clamped), NULL when
+// missing. The clamped-share release (aggregates/clamped.ts) counts them; nothing else reads them.
+// Same rule as the engine interface's atLower/atUpper terms (engines/types.ts on the engine split).
+function clampFlagSelect(c: ColumnPolicy, i: number): string[] {
+  if (c.type !== "integer" && c.type !== "number") return [];
+  return [
+    `CAST(CASE WHEN x${i} IS NULL THEN NULL WHEN x${i} < CAST(${quoteString(c.lower)} AS DOUBLE) THEN -1 ` +
+      `WHEN x${i} > CAST(${quoteString(c.upper)} AS DOUBLE) THEN 1 ELSE 0 END AS TINYINT) AS k${i}`,
+  ];
+}
+function clampFlagNames(cols: readonly ColumnPolicy[]): string[] {
+  return cols.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`k${i}`] : []));
+}
+// ---- [end clamping flags] ------------------------------------------------------------------
+
 /** What determines a loaded table: the file, its format, the declared columns and the unit. */
 function tableKey(d: DatasetPolicy): string {
   const cols = d.columns.map((c) => {
@@ -388,7 +407,12 @@ export class Engine {
       d.columns.forEach((c, i) => all.push(...rejectArms(c, i)));
       return all.length === 0 ? "CAST(NULL AS VARCHAR)" : `CASE ${all.join(" ")} END`;
     })();
-    const stagedFinals = [...(unit !== null ? ["__u"] : []), ...d.columns.map((c, i) => finalSelect(c, i)), "__why"].join(", ");
+    const stagedFinals = [
+      ...(unit !== null ? ["__u"] : []),
+      ...d.columns.map((c, i) => finalSelect(c, i)),
+      ...d.columns.flatMap((c, i) => clampFlagSelect(c, i)), // [clamping flags, issue 13]
+      "__why",
+    ].join(", ");
     try {
       await conn.run(
         `CREATE TEMP TABLE ${stage} AS SELECT ${stagedFinals} FROM (SELECT *, ${reasonSql} AS __why FROM (SELECT ${staged.join(", ")} FROM ${source} AS src))`,
@@ -398,7 +422,7 @@ export class Engine {
       const line = e instanceof Error ? /line:?\s*(\d+)/i.exec(e.message)?.[1] : undefined;
       throw new PolicyError(`${where}.source: cannot be read as ${d.format}${line !== undefined ? ` (problem at line ${line})` : ""}`);
     }
-    const finals = d.columns.map((_, i) => `c${i}`).join(", ");
+    const finals = [...d.columns.map((_, i) => `c${i}`), ...clampFlagNames(d.columns)].join(", "); // [clamping flags, issue 13]
     if (unit === null) {
       await conn.run(`CREATE TABLE ${table} AS SELECT ${finals} FROM ${stage} WHERE __why IS NULL`);
     } else {
@@ -451,7 +475,9 @@ export class Engine {
     }
     this.reports.set(d.name, { rows: Number(kept.getRows()[0][0]), rejected: total, reasons });
     const columns = new Map<string, TableColumn>();
-    d.columns.forEach((c, i) => columns.set(c.name, { policy: c, ident: quoteIdent(`c${i}`) }));
+    d.columns.forEach((c, i) =>
+      columns.set(c.name, { policy: c, ident: quoteIdent(`c${i}`), ...(c.type === "integer" || c.type === "number" ? { flag: quoteIdent(`k${i}`) } : {}) }),
+    ); // flag: [clamping flags, issue 13]
     this.tables.set(d.name, { dataset: d, table, columns, hasUnit: unit !== null });
   }
 

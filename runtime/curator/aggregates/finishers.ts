@@ -63,12 +63,19 @@ export interface QuantileRecipe {
   confidence: number;
 }
 
+/** Clamped shares (clamped.ts, docs/methods.md §21): per column a (below, above) pair law and a total law. */
+export interface ClampedRecipe {
+  columns: { column: string; pairLaw: NoiseLaw; totalLaw: NoiseLaw; hPair: Rational; hTotal: Rational }[];
+  confidence: number;
+}
+
 /** The finishers by name: what a worker may be asked to run. */
 export interface Finishers {
   cells: (r: CellsRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   mean: (r: MeanRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   spread: (r: SpreadRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   quantile: (r: QuantileRecipe, data: [bigint, bigint][], bits: Bits) => ReleaseRow[];
+  clamped: (r: ClampedRecipe, data: bigint[], bits: Bits) => ReleaseRow[];
 }
 export type FinisherName = keyof Finishers;
 
@@ -176,7 +183,28 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
   });
 }
 
-export const FINISHERS: Finishers = { cells, mean, spread, quantile };
+/** data: per column [rows below lower, rows above upper, rows with a value], flattened. */
+function clamped(r: ClampedRecipe, data: bigint[], bits: Bits): ReleaseRow[] {
+  const out: ReleaseRow[] = [];
+  r.columns.forEach((c, i) => {
+    const below = addNoise(data[3 * i], c.pairLaw, bits);
+    const above = addNoise(data[3 * i + 1], c.pairLaw, bits);
+    const total = addNoise(data[3 * i + 2], c.totalLaw, bits);
+    const count = (stat: string, v: bigint, h: Rational): ReleaseRow => {
+      const x = Rational.of(v);
+      return { key: [], stat, column: c.column, value: exactDecimal(x), low: exactDecimal(x.sub(h)), high: exactDecimal(x.add(h)) };
+    };
+    const share = (stat: string, v: bigint): ReleaseRow => {
+      const x = ratioInterval({ sum: { noisy: v, law: c.pairLaw }, count: { noisy: total, law: c.totalLaw }, sumStep: Rational.ONE, lower: Rational.ZERO, upper: Rational.ONE, confidence: r.confidence });
+      return { key: [], stat, column: c.column, value: x.estimate === null ? null : exactDecimal(x.estimate), low: exactDecimal(x.low), high: exactDecimal(x.high) };
+    };
+    out.push(count("below lower", below, c.hPair), count("above upper", above, c.hPair), count("values", total, c.hTotal));
+    out.push(share("share below lower", below), share("share above upper", above));
+  });
+  return out;
+}
+
+export const FINISHERS: Finishers = { cells, mean, spread, quantile, clamped };
 
 /** A Cpu that runs the finishers on this thread with the given bits (tests that need reproducible noise). */
 export function onThisThread(bits: Bits): Cpu {
