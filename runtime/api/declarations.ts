@@ -202,7 +202,7 @@ declare namespace HushApi {
     mean(column: string, spend: SpendOptions): Promise<R>;
     variance(column: string, spend: SpendOptions): Promise<R>;
     std(column: string, spend: SpendOptions): Promise<R>;
-    /** One quantile, p in (0, 1). */
+    /** One quantile, p in (0, 1), with a value interval at the spend's confidence. */
     quantile(column: string, p: number, spend: SpendOptions): Promise<R>;
     /** Several quantiles; the budget is split evenly. */
     quantiles(column: string, ps: number[], spend: SpendOptions): Promise<R>;
@@ -211,8 +211,10 @@ declare namespace HushApi {
     histogram(column: string, opts: HistogramOptions): Promise<R>;
     /** Counts for every pair of declared values of two category columns. */
     crosstab(rows: string, cols: string, spend: SpendOptions): Promise<R>;
-    /** Summary of every column, budget split evenly. */
-    describe(spend: SpendOptions): Promise<R>;
+    /** Summary of every column, budget split evenly; { clampedShares: true } adds the clamped shares. */
+    describe(spend: SpendOptions & { clampedShares?: boolean }): Promise<R>;
+    /** How many values of numeric columns lay beyond their declared bounds (a release of its own). */
+    clampedShares(columns: string | string[], spend: SpendOptions): Promise<R>;
   }
 
   /** A sealed dataset: public schema, your spend, and noisy aggregates only. No method returns rows. */
