@@ -2,7 +2,8 @@
  * describe: a summary of every public column in one release. Parts: the row count; for each
  * numeric column its mean, std and median; for each category or boolean column the count of every
  * declared value. The budget is split evenly across the parts (sequential composition, docs/methods.md
- * §1) and the split is stated in the notes. Date columns are not summarised.
+ * §1) and the split is stated in the notes. Date columns are not summarised. With `withClamped`,
+ * the clamped shares of every numeric column (clamped.ts, docs/methods.md §21) are one more part.
  *
  * Rows use groupColumns ["value"]: key [null] for whole-dataset statistics, [declared value] for
  * the per-value counts of a category or boolean column (named in `column`).
