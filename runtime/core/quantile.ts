@@ -241,20 +241,6 @@ export function noisyTree(counts: bigint[], law: NoiseLaw, bits: Bits): bigint[]
   return exact.map((level) => level.map((c) => c + drawNoise(law, bits)));
 }
 
-/** The tree nodes whose buckets make up the prefix [0, i): one per set bit of i (the root for i = 2^L). */
-function prefixNodes(i: number, L: number): [number, number][] {
-  if (i === 2 ** L) return [[0, 0]];
-  const out: [number, number][] = [];
-  let pos = 0;
-  for (let bit = L - 1; bit >= 0; bit--) {
-    if (i & (2 ** bit)) {
-      out.push([L - bit, pos >> bit]);
-      pos += 2 ** bit;
-    }
-  }
-  return out;
-}
-
 export interface QuantileIntervalArgs {
   /** noisyTree's output over the m buckets */
   tree: bigint[][];
@@ -306,14 +292,19 @@ export function quantileInterval(args: QuantileIntervalArgs): QuantileInterval {
     }
     return w;
   };
+  // The prefix [0, i) is the prefix [0, i - low) plus the one node [i - low, i), low = 2^z the
+  // lowest set bit of i: that node is at level L - z, index i/low - 1 (the root for i = 2^L). So a
+  // prefix is a sum of popcount(i) nodes, built here in one pass.
   const prefix: bigint[] = [0n];
+  const nodes: number[] = [0];
   const width: bigint[] = [0n];
   for (let i = 1; i <= m; i++) {
-    const nodes = prefixNodes(i, L);
-    let s = 0n;
-    for (const [l, j] of nodes) s += tree[l][j];
-    prefix.push(s);
-    width.push(h(nodes.length));
+    let z = 0;
+    while (((i >>> z) & 1) === 0) z++;
+    const rest = i & (i - 1);
+    prefix.push(prefix[rest] + tree[L - z][(i >>> z) - 1]);
+    nodes.push(nodes[rest] + 1);
+    width.push(h(nodes[i]));
   }
   const a = p.num;
   const b = p.den;
@@ -356,12 +347,15 @@ export function sumHalfWidth(law: NoiseLaw, l: number, a: Rational): bigint {
   if (!(a instanceof Rational) || a.sign() <= 0) throw new BadInputError("miss probability must be positive");
   if (a.ge(Rational.ONE)) return 0n;
   const one = (x: Rational): bigint => (law.family === "discrete-laplace" ? laplaceHalfWidth(law.scale, x) : gaussianHalfWidth(law.sigma2, x));
-  if (l === 1) return one(a);
   const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${l}:${a}`;
   const hit = sumCache.get(key);
   if (hit !== undefined) return hit;
   const L = BigInt(l);
   let best = L * one(a.div(Rational.of(L)));
+  if (l === 1) {
+    sumCache.set(key, best);
+    return best;
+  }
   const P = 128;
   const scaleP = 1n << BigInt(P);
   const ln2a = ln(Rational.of(2n).div(a), P).hi; // >= 2^P ln(2/a)
