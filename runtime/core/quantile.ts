@@ -329,11 +329,38 @@ export function quantileInterval(args: QuantileIntervalArgs): QuantileInterval {
 /** Fractions theta of 1/t at which the Laplace Chernoff bound is tried (public; any theta is valid). */
 const CHERNOFF_THETAS = [Rational.of(1n, 3n), Rational.of(1n, 2n), Rational.of(2n, 3n), Rational.of(4n, 5n)];
 const sumCache = new Map<string, bigint>();
+const logCache = new Map<string, (bigint | null)[]>();
+
+/**
+ * For each theta of CHERNOFF_THETAS, an upper bound on 2^128 ln M(theta/t) (M the moment
+ * generating function of the discrete Laplace at scale t, sumHalfWidth), or null when the bound
+ * cannot be formed at this precision. Depends on t only, so it is kept for the recent scales.
+ */
+function chernoffLogs(t: Rational): (bigint | null)[] {
+  const key = t.toString();
+  const hit = logCache.get(key);
+  if (hit !== undefined) return hit;
+  const P = 128;
+  const Pt = P + bitLength(t.ceil());
+  const oneP = 1n << BigInt(Pt);
+  const q = expNeg(Rational.ONE.div(t), Pt);
+  const out = CHERNOFF_THETAS.map((theta) => {
+    const eA = expNeg(Rational.ONE.sub(theta).div(t), Pt).hi; // >= q e^lambda
+    const eB = expNeg(Rational.ONE.add(theta).div(t), Pt).hi; // >= q e^-lambda
+    const den = (oneP - eA) * (oneP - eB);
+    if (den <= 0n || oneP - q.lo <= 0n) return null;
+    return ln(Rational.of((oneP - q.lo) * (oneP - q.lo), den), P).hi; // >= 2^P ln M
+  });
+  if (logCache.size >= 64) logCache.delete(logCache.keys().next().value as string);
+  logCache.set(key, out);
+  return out;
+}
 
 /**
  * An integer h with P(|Y_1 + ... + Y_l| > h) <= a for l independent draws of `law`, proven in
  * integers (bounds.ts rounds every step outward), docs/methods.md §20. l = 1: the exact least h
- * (tailbounds.ts). l >= 2: the least of three valid bounds,
+ * (tailbounds.ts). l >= 2: the least of these valid bounds (the union bound only for tiny noise,
+ * scale or sigma^2 below 1, the only case where it can win),
  *   - union: l h_1(a / l), since |S| > l h_1 needs some |Y_i| > h_1;
  *   - discrete Laplace, Chernoff: E e^(lambda Y) = (1 - q)^2 / ((1 - q e^lambda)(1 - q e^-lambda))
  *     for q = e^(-1/t), |lambda| < 1/t; with lambda = theta/t, P(S >= s) <= M^l e^(-theta s/t), so
@@ -351,7 +378,11 @@ export function sumHalfWidth(law: NoiseLaw, l: number, a: Rational): bigint {
   const hit = sumCache.get(key);
   if (hit !== undefined) return hit;
   const L = BigInt(l);
-  let best = L * one(a.div(Rational.of(L)));
+  // The union bound needs one exact half-width per l; it only wins over the moment bounds when
+  // the noise is tiny (scale or sigma^2 below 1, where h is 0 or 1), so it is formed only there.
+  const tiny = law.family === "discrete-laplace" ? law.scale.lt(Rational.ONE) : law.sigma2.lt(Rational.ONE);
+  let best = -1n;
+  if (tiny || l === 1) best = L * one(a.div(Rational.of(L)));
   if (l === 1) {
     sumCache.set(key, best);
     return best;
@@ -359,32 +390,28 @@ export function sumHalfWidth(law: NoiseLaw, l: number, a: Rational): bigint {
   const P = 128;
   const scaleP = 1n << BigInt(P);
   const ln2a = ln(Rational.of(2n).div(a), P).hi; // >= 2^P ln(2/a)
+  const keep = (h: bigint): void => {
+    const x = h < 0n ? 0n : h;
+    if (best < 0n || x < best) best = x;
+  };
   if (law.family === "discrete-laplace") {
     const t = law.scale;
-    const Pt = P + bitLength(t.ceil());
-    const oneP = 1n << BigInt(Pt);
-    const q = expNeg(Rational.ONE.div(t), Pt);
-    for (const theta of CHERNOFF_THETAS) {
-      const eA = expNeg(Rational.ONE.sub(theta).div(t), Pt).hi; // >= q e^lambda
-      const eB = expNeg(Rational.ONE.add(theta).div(t), Pt).hi; // >= q e^-lambda
-      const den = (oneP - eA) * (oneP - eB);
-      if (den <= 0n || oneP - q.lo <= 0n) continue;
-      const mHi = Rational.of((oneP - q.lo) * (oneP - q.lo), den); // >= M
-      const lnM = ln(mHi, P).hi; // >= 2^P ln M
+    for (const [i, lnM] of chernoffLogs(t).entries()) {
+      if (lnM === null) continue;
+      const theta = CHERNOFF_THETAS[i];
       // h + 1 = ceil(t (l lnM + ln2a) / (theta 2^P))
       const num = t.num * (L * lnM + ln2a) * theta.den;
       const dd = t.den * scaleP * theta.num;
-      const s = -floorDiv(-num, dd);
-      if (s - 1n < best) best = s - 1n < 0n ? 0n : s - 1n;
+      keep(-floorDiv(-num, dd) - 1n);
     }
+    if (best < 0n) best = L * one(a.div(Rational.of(L)));
   } else {
     const s2 = law.sigma2;
     // (h + 1)^2 >= v = ceil(2 l sigma^2 ln(2/a))
     const v = -floorDiv(-(2n * L * s2.num * ln2a), s2.den * scaleP);
     let r = isqrt(v);
     if (r * r < v) r += 1n;
-    const h = r - 1n < 0n ? 0n : r - 1n;
-    if (h < best) best = h;
+    keep(r - 1n);
   }
   if (sumCache.size >= 256) sumCache.delete(sumCache.keys().next().value as string);
   sumCache.set(key, best);

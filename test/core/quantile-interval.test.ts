@@ -77,11 +77,13 @@ print(json.dumps({'tails': [tail(h) for h in d['hs']], 'least': least}))
 }
 
 describe("half-width of a sum of noise draws (sumHalfWidth)", () => {
-  it("holds against numpy's exact convolution, and is within 1.6x of the least half-width, for l = 2..9", () => {
+  it("holds against numpy's exact convolution, and is within 1.6x (or 2 steps) of the least half-width, for l = 2..9", () => {
     const a = R("1/60");
     for (const [family, law, param] of [
       ["laplace", { family: "discrete-laplace", scale: R("20") }, 20],
       ["laplace", { family: "discrete-laplace", scale: R("3") }, 3],
+      ["laplace", { family: "discrete-laplace", scale: R("1/2") }, 0.5], // tiny noise: the union bound's case
+      ["gauss", { family: "discrete-gaussian", sigma2: R("1/2") }, 0.5],
       ["gauss", { family: "discrete-gaussian", sigma2: R("100") }, 100],
     ] as const) {
       const ls = [2, 3, 5, 9];
@@ -89,7 +91,7 @@ describe("half-width of a sum of noise draws (sumHalfWidth)", () => {
       for (let i = 0; i < ls.length; i++) {
         const ref = numpySumTail(family, param, ls[i], 1 / 60, [hs[i]]);
         expect(ref.tails[0], `${family} ${param} l=${ls[i]} h=${hs[i]}`).toBeLessThanOrEqual(1 / 60);
-        expect(hs[i], `${family} ${param} l=${ls[i]} least ${ref.least}`).toBeLessThanOrEqual(1.6 * ref.least);
+        expect(hs[i], `${family} ${param} l=${ls[i]} least ${ref.least}`).toBeLessThanOrEqual(Math.max(1.6 * ref.least, ref.least + 2));
       }
     }
   });
