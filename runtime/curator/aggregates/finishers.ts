@@ -166,17 +166,21 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
   const last = r.candidates.length - 1;
   return r.parts.map((x) => {
     const drawn = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.epsilon, bits });
-    const v = r.step.mul(r.candidates[drawn.index]);
     // Bucket i holds values in [candidates[i-1], candidates[i]); the last bucket holds the upper
     // bound only. Values are whole grid units, so the interval ends one unit below candidates[high].
     const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss });
     const lowUnits = r.candidates[iv.lowBucket - 1];
     const highUnits = iv.highBucket <= last ? r.candidates[iv.highBucket] - 1n : r.candidates[last];
+    // The draw is moved into the interval when it falls outside (post-processing of two private
+    // outputs): when the interval holds the quantile, this never moves the value away from it.
+    // It matters where the rank utility is flat across a gap (all candidates in the gap tie).
+    const drawnUnits = r.candidates[drawn.index];
+    const shown = drawnUnits < lowUnits ? lowUnits : drawnUnits > highUnits ? highUnits : drawnUnits;
     return {
       key: [],
       stat: x.stat,
       column: r.column,
-      value: exactDecimal(v),
+      value: exactDecimal(r.step.mul(shown)),
       low: exactDecimal(r.step.mul(lowUnits)),
       high: exactDecimal(r.step.mul(highUnits)),
     };
