@@ -105,7 +105,7 @@ describe("half-width of a sum of noise draws (sumHalfWidth)", () => {
 });
 
 describe("the dyadic tree", () => {
-  it("depth and sensitivity: L + 1 levels, k (L + 1) in L1, k ceil(sqrt(L + 1)) for the Gaussian", () => {
+  it("[C20.1] depth and sensitivity: L + 1 levels, k (L + 1) in L1, k ceil(sqrt(L + 1)) for the Gaussian", () => {
     expect(treeDepth(1)).toBe(0);
     expect(treeDepth(2)).toBe(1);
     expect(treeDepth(8)).toBe(3);
@@ -164,6 +164,20 @@ describe("the dyadic tree", () => {
     }
   });
 
+  it("a draw that is uniform across a gap is moved into the interval (p99.9 with the top rows at the bound)", () => {
+    // 300 rows below 40 and 30 rows at the upper bound 240: every candidate in (39, 240] has the same
+    // rank cost for p = 0.999, so the exponential draw is uniform there; the interval is [240, 240].
+    const xs = [...Array.from({ length: 300 }, (_, i) => i % 40), ...Array.from({ length: 30 }, () => 240)];
+    expect(numpyQuantile(xs, 0.999)).toBe(240);
+    const law: NoiseLaw = { family: "discrete-laplace", scale: R("1/1000") };
+    const r = recipe(0, 240, "999/1000", "1000", law);
+    const bits = new Bits(seededBytes("gap"));
+    for (let i = 0; i < 20; i++) {
+      const [row] = FINISHERS.quantile(r, buckets(xs, 0), bits);
+      expect([row.value, row.low, row.high]).toEqual(["240", "240", "240"]);
+    }
+  });
+
   it("refuses malformed input", () => {
     const law = calibrate(4n, { epsilon: R("1") });
     const tree = noisyTree([1n, 2n, 3n], law, new Bits(seededBytes("t3")));
@@ -194,6 +208,7 @@ function coverage(name: string, xs: number[], lo: number, hi: number, p: string,
     const a = Number(row.low);
     const b = Number(row.high);
     if (a <= truth && truth <= b) hits++;
+    expect(Number(row.value) >= a && Number(row.value) <= b).toBe(true); // the draw is moved into its interval
     width += b - a;
   }
   console.log(`${name}: p ${p}, truth ${truth}, coverage ${hits}/${RUNS}, mean width ${(width / RUNS).toFixed(1)} on [${lo}, ${hi}]`);

@@ -135,7 +135,7 @@ describe("costs and sensitivities", () => {
     ]);
   });
 
-  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9), and the value-interval tree (§20)", async () => {
+  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9), and the value-interval tree (§20, [C20.2])", async () => {
     const q = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5, 0.9] }, privacy: { epsilon: "2" } }));
     // Half the budget to the two draws (1/2 each), half to one tree over the 101 candidates of
     // age [0, 100]: 7 levels below the root, 8 in all, so sensitivity k (L + 1) = 4 * 8 = 32 and

@@ -107,7 +107,7 @@ describe("clamped shares", () => {
     expect(p.notes.join(" ")).toMatch(/The 2 columns share the budget evenly/);
   });
 
-  it("every part: sensitivity k = 2, a quarter of epsilon each for two columns", async () => {
+  it("[C21.1] every part: sensitivity k = 2, a quarter of epsilon each for two columns", async () => {
     const r = await o.answerer.prepare("ada", plan({ kind: "clamped", columns: ["a", "b"] }, { epsilon: "1" })).compute(new Bits(seededBytes(3)));
     expect(r.mechanisms.map((m) => [m.sensitivity, m.cost, m.scale])).toEqual([
       ["2", "1/4", "8"],
