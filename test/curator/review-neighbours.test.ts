@@ -129,8 +129,11 @@ describe("review: clamped shares and quantile value intervals (docs/methods.md Â
         expect(pairL1.le(Rational.of(K))).toBe(true);
         expect(total.le(Rational.of(K))).toBe(true);
         if (where === undefined) {
-          // and the bound is reached: the unit's K kept rows all have a value beyond a bound
-          expect(pairL1.toString()).toBe(String(K));
+          // Every value of the heavy unit lies beyond a bound (50 or -50), so each of its kept rows
+          // with a value is flagged: the pair moves exactly as much as the total. (Which K of its
+          // 24 rows are kept is random per load, and some have no value, so the move is not always K.)
+          expect(pairL1.eq(total)).toBe(true);
+          expect(pairL1.sign()).toBeGreaterThan(-1);
         }
       }
     }
