@@ -76,4 +76,8 @@ export {
   treeSensitivity,
   noisyTree,
   quantileInterval,
+  rankCuts,
+  unionCuts,
+  type RankCuts,
+  CALIBRATION_DRAWS,
 } from "./quantile.js";

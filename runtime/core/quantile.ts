@@ -252,78 +252,161 @@ export interface QuantileIntervalArgs {
   law: NoiseLaw;
   /** miss probability in (0, 1), exact */
   miss: Rational;
+  /**
+   * Random bits for the calibration draws (rankCuts). Without them, or when the miss is too small
+   * for CALIBRATION_DRAWS, the cuts come from the union bound of proven half-widths (unionCuts).
+   */
+  bits?: Bits;
 }
 
 export interface QuantileInterval {
   /** 1-based buckets: the true quantile's bucket i* lies in [lowBucket, highBucket] on the event of §20 */
   lowBucket: number;
   highBucket: number;
-  /** half-width (rows) of the noisy total and of a prefix of 2^(L-1) buckets, for the notes */
-  totalHalfWidth: bigint;
+  /** how the cuts were set: "calibrated" (rankCuts) or "union bound" (unionCuts) */
+  method: "calibrated" | "union bound";
+}
+
+/**
+ * Cuts for the two scans, one pair per kind of prefix (docs/methods.md §20): kind 0 is the empty
+ * prefix G_0 = 0, kind l = 1..L a prefix made of l nodes below the root, kind L + 1 the root itself
+ * (the prefix of all 2^L leaves). With D = b' G~ - a' n~ for p = a'/b':
+ *   the low scan passes bucket i when D_i >= low[kind(i)],
+ *   the high scan passes bucket i when D_(i-1) < high[kind(i-1)].
+ */
+export interface RankCuts {
+  low: bigint[];
+  high: bigint[];
+  method: "calibrated" | "union bound";
+}
+
+/** Draws per kind of prefix in the calibration (rankCuts); public and fixed. */
+export const CALIBRATION_DRAWS = 20_000;
+
+const cutCache = new Map<string, RankCuts>();
+
+/**
+ * Calibrated cuts (docs/methods.md §20). The noise of D at a prefix of kind l is U = b' S - a' E,
+ * S the sum of the prefix's nodes' noises (l independent draws; kind L + 1: S = E) and E the root's,
+ * independent of S below the root. Its law is fixed by (law, l, p) alone, never by the data. N =
+ * CALIBRATION_DRAWS independent samples of U are drawn for every kind (the kinds share the draws
+ * as partial sums of one sequence, which leaves each kind's N samples independent of each other);
+ * with k = floor((N + 1) miss / 2), high = the k-th largest sample and low = the k-th smallest.
+ * For a fresh U independent of the samples, P(U > k-th largest) <= k / (N + 1) <= miss / 2
+ * (order statistics: the k-th largest of N continuous samples leaves a tail of law Beta(k, N+1-k),
+ * mean k/(N+1); ties of a discrete law only shrink it), and likewise below. The coverage argument
+ * then needs U at two prefixes: a union bound over two one-sided events, each <= miss/2 on
+ * average over the calibration. Returns null when k would be 0 (miss below 2/(N+1)).
+ * Time: N (L + 1) draws and L + 2 sorts, fixed by m, the law, p and miss.
+ */
+export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, bits: Bits): RankCuts | null {
+  const N = CALIBRATION_DRAWS;
+  const k = (BigInt(N + 1) * miss.num) / (2n * miss.den);
+  if (k < 1n) return null;
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}:${p}:${miss}`;
+  const hit = cutCache.get(key);
+  if (hit !== undefined) return hit;
+  const a = p.num;
+  const b = p.den;
+  const kinds = L + 2;
+  const samples: bigint[][] = Array.from({ length: kinds }, () => new Array<bigint>(N));
+  for (let s = 0; s < N; s++) {
+    const e = drawNoise(law, bits);
+    const ae = a * e;
+    samples[0][s] = -ae;
+    let sum = 0n;
+    for (let l = 1; l <= L; l++) {
+      sum += drawNoise(law, bits);
+      samples[l][s] = b * sum - ae;
+    }
+    samples[L + 1][s] = (b - a) * e;
+  }
+  const kn = Number(k);
+  const low: bigint[] = [];
+  const high: bigint[] = [];
+  for (const xs of samples) {
+    xs.sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
+    low.push(xs[kn - 1]);
+    high.push(xs[N - kn]);
+  }
+  const out: RankCuts = { low, high, method: "calibrated" };
+  if (cutCache.size >= 32) cutCache.delete(cutCache.keys().next().value as string);
+  cutCache.set(key, out);
+  return out;
+}
+
+/**
+ * Cuts from proven half-widths (the method before calibration; kept for misses too small to
+ * calibrate and for callers without random bits): h_l = sumHalfWidth(law, l, miss/3) for a prefix
+ * of l nodes (the root counts as one), h_n the root's, and the cuts -(b' h_l + a' h_n) and
+ * b' h_l + a' h_n: the union bound over the noises of the two prefixes and the total, miss/3 each.
+ */
+export function unionCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational): RankCuts {
+  const third = miss.div(Rational.of(3n));
+  const a = p.num;
+  const b = p.den;
+  const hn = sumHalfWidth(law, 1, third);
+  const low: bigint[] = [];
+  const high: bigint[] = [];
+  for (let l = 0; l <= L + 1; l++) {
+    const hl = l === 0 ? 0n : sumHalfWidth(law, l === L + 1 ? 1 : l, third);
+    low.push(-(b * hl + a * hn));
+    high.push(b * hl + a * hn);
+  }
+  return { low, high, method: "union bound" };
 }
 
 /**
  * Bucket range that holds the true p-quantile's bucket with probability >= 1 - miss
  * (docs/methods.md §20). G_i = rows in buckets 1..i, n = G_m; the quantile's bucket is the least
- * i* with G_i* >= p n, so G_(i*-1) < p n <= G_i*. With noisy prefixes G~_i (sums of tree nodes)
- * and proven half-widths h_i, and the root n~ with h_n:
- *   low  = least i with b (G~_i + h_i) >= a (n~ - h_n),
- *   high = greatest i with b (G~_(i-1) - h_(i-1)) < a (n~ + h_n) (at least 1).
- * When the three noises of G_i*, G_(i*-1) and n are within their half-widths, low <= i* <= high;
- * i* is fixed by the data, so that event has probability >= 1 - miss by a union bound over the
- * three, each given miss/3 (a prefix of l nodes takes sumHalfWidth at l). Both scans visit every
- * bucket, whatever the counts. Only integers and rationals.
+ * i* with G_i* >= p n, so G_(i*-1) < p n <= G_i*, i.e. T_1 = b' G_i* - a' n >= 0 and
+ * T_0 = b' G_(i*-1) - a' n <= -1 for p = a'/b'. With noisy prefixes G~_i (sums of tree nodes), the
+ * noisy root n~ and D_i = b' G~_i - a' n~ = T + U_i:
+ *   low  = least i with D_i >= low[kind(i)],
+ *   high = greatest i with D_(i-1) < high[kind(i-1)] (at least 1).
+ * If U_i* >= low[kind(i*)] then D_i* >= T_1 + low >= low, so low <= i*; if U_(i*-1) <= high then
+ * D_(i*-1) <= high - 1, so high >= i*. i* is fixed by the data, not by the noise, so coverage is at
+ * least 1 - P(U_i* < low) - P(U_(i*-1) > high) >= 1 - miss (rankCuts or unionCuts). Both scans
+ * visit every bucket, whatever the counts. Only integers and rationals.
  */
 export function quantileInterval(args: QuantileIntervalArgs): QuantileInterval {
-  const { tree, m, p, law, miss } = args;
+  const { tree, m, p, law, miss, bits } = args;
   if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
   if (!(miss instanceof Rational) || miss.sign() <= 0 || miss.ge(Rational.ONE)) throw new BadInputError("miss probability must lie strictly between 0 and 1");
   const L = treeDepth(m);
   if (!Array.isArray(tree) || tree.length !== L + 1 || tree.some((lv, l) => !Array.isArray(lv) || lv.length !== 2 ** l)) {
     throw new BadInputError("tree does not match the number of buckets");
   }
-  const third = miss.div(Rational.of(3n));
-  const byNodes = new Map<number, bigint>();
-  const h = (nodes: number): bigint => {
-    let w = byNodes.get(nodes);
-    if (w === undefined) {
-      w = sumHalfWidth(law, nodes, third);
-      byNodes.set(nodes, w);
-    }
-    return w;
-  };
+  const cuts = (bits === undefined ? null : rankCuts(law, L, p, miss, bits)) ?? unionCuts(law, L, p, miss);
   // The prefix [0, i) is the prefix [0, i - low) plus the one node [i - low, i), low = 2^z the
   // lowest set bit of i: that node is at level L - z, index i/low - 1 (the root for i = 2^L). So a
-  // prefix is a sum of popcount(i) nodes, built here in one pass.
+  // prefix is a sum of popcount(i) nodes, built here in one pass; its kind is that count, or
+  // L + 1 for the root.
   const prefix: bigint[] = [0n];
-  const nodes: number[] = [0];
-  const width: bigint[] = [0n];
+  const kind: number[] = [0];
   for (let i = 1; i <= m; i++) {
     let z = 0;
     while (((i >>> z) & 1) === 0) z++;
     const rest = i & (i - 1);
     prefix.push(prefix[rest] + tree[L - z][(i >>> z) - 1]);
-    nodes.push(nodes[rest] + 1);
-    width.push(h(nodes[i]));
+    kind.push(z === L ? L + 1 : kind[rest] + 1);
   }
   const a = p.num;
   const b = p.den;
-  const hn = h(1);
-  const nLow = a * (tree[0][0] - hn);
-  const nHigh = a * (tree[0][0] + hn);
+  const an = a * tree[0][0];
   let low = 0;
   let high = 1;
   for (let i = 1; i <= m; i++) {
-    const lowOk = b * (prefix[i] + width[i]) >= nLow;
+    const lowOk = b * prefix[i] - an >= cuts.low[kind[i]];
     if (lowOk && low === 0) low = i;
-    if (b * (prefix[i - 1] - width[i - 1]) < nHigh) high = i;
+    if (b * prefix[i - 1] - an < cuts.high[kind[i - 1]]) high = i;
   }
   // Off the event of §20 the scans can disagree; the whole range is then returned (never narrower).
   if (low === 0 || low > high) {
     low = 1;
     high = m;
   }
-  return { lowBucket: low, highBucket: high, totalHalfWidth: hn };
+  return { lowBucket: low, highBucket: high, method: cuts.method };
 }
 
 /** Fractions theta of 1/t at which the Laplace Chernoff bound is tried (public; any theta is valid). */

@@ -168,7 +168,7 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
     const drawn = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.epsilon, bits });
     // Bucket i holds values in [candidates[i-1], candidates[i]); the last bucket holds the upper
     // bound only. Values are whole grid units, so the interval ends one unit below candidates[high].
-    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss });
+    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss, bits });
     const lowUnits = r.candidates[iv.lowBucket - 1];
     const highUnits = iv.highBucket <= last ? r.candidates[iv.highBucket] - 1n : r.candidates[last];
     // The draw is moved into the interval when it falls outside (post-processing of two private
