@@ -12,7 +12,7 @@
 import { execFileSync } from "node:child_process";
 import { describe, expect, it } from "vitest";
 import { calibrate, type NoiseLaw } from "../../runtime/core/mechanisms.js";
-import { noisyTree, quantileInterval, sumHalfWidth, treeDepth, treeSensitivity } from "../../runtime/core/quantile.js";
+import { CALIBRATION_DRAWS, noisyTree, quantileInterval, rankCuts, sumHalfWidth, treeDepth, treeSensitivity } from "../../runtime/core/quantile.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
 import { FINISHERS, type QuantileRecipe } from "../../runtime/curator/aggregates/finishers.js";
@@ -101,6 +101,75 @@ describe("half-width of a sum of noise draws (sumHalfWidth)", () => {
     expect(sumHalfWidth(law, 1, R("1/20"))).toBe(3n); // [C4.2a]
     expect(() => sumHalfWidth(law, 0, R("1/20"))).toThrow();
     expect(() => sumHalfWidth(law, 2, R("0"))).toThrow();
+  });
+});
+
+/**
+ * Law of U = b' S - a' E (S a sum of l draws, E one more), from numpy's exact convolution of the
+ * pmf on |y| <= 60 scale-or-sigma (the rest is below 1e-25): P(U < lo) and P(U > hi). Outside
+ * reference for rankCuts.
+ */
+function numpyCutTails(family: string, param: number, l: number, a: number, b: number, lo: number, hi: number): { below: number; above: number } {
+  const script = `
+import sys, json, numpy as np
+d = json.load(sys.stdin)
+fam, par, l, a, b = d['family'], d['param'], d['l'], d['a'], d['b']
+W = int(60 * (par if fam == 'laplace' else np.sqrt(par))) + 10
+y = np.arange(-W, W + 1)
+w = np.exp(-np.abs(y) / par) if fam == 'laplace' else np.exp(-y.astype(float) ** 2 / (2 * par))
+w = w / w.sum()
+s = w
+for _ in range(l - 1):
+    s = np.convolve(s, w)
+S = np.arange(-(len(s) // 2), len(s) // 2 + 1)
+U = b * S[:, None] - a * y[None, :]
+P = s[:, None] * w[None, :]
+print(json.dumps({'below': float(P[U < d['lo']].sum()), 'above': float(P[U > d['hi']].sum())}))
+`;
+  const out = execFileSync("python3", ["-c", script], { input: JSON.stringify({ family, param, l, a, b, lo, hi }) });
+  return JSON.parse(String(out));
+}
+
+describe("calibrated cuts (rankCuts)", () => {
+  it("[C20.3] k = floor((N + 1) a / 2): cuts at 95% and 99.99%, none above about 99.990%", () => {
+    const law: NoiseLaw = { family: "discrete-laplace", scale: R("3") };
+    const bits = new Bits(seededBytes("c203"));
+    expect(CALIBRATION_DRAWS).toBe(20_000);
+    expect(rankCuts(law, 3, R("1/2"), R("1/20"), bits)).not.toBeNull();
+    expect(rankCuts(law, 3, R("1/2"), R("1/10000"), bits)).not.toBeNull(); // k = 1
+    expect(rankCuts(law, 3, R("1/2"), R("1/10001"), bits)).toBeNull(); // 20001 / 20002 < 1: k = 0
+    // Without a calibration the union-bound cuts are used.
+    const tree = noisyTree([5n, 5n, 5n, 5n], law, bits);
+    expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/10001"), bits }).method).toBe("union bound");
+    expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/20"), bits }).method).toBe("calibrated");
+  });
+
+  it("each cut leaves a tail of a/2 of the exact law of U (numpy convolution), within the calibration's spread", () => {
+    // The tail left by a cut has mean k/(N + 1) <= a/2 over calibrations and standard deviation
+    // about sqrt(a/(2N)) (Beta(k, N + 1 - k)); each cut is checked within 5 of those deviations
+    // plus the discreteness of U (the tail at the cut excludes the atom at the cut).
+    const miss = 1 / 20;
+    const sd = Math.sqrt(miss / 2 / CALIBRATION_DRAWS);
+    for (const [family, law, param] of [
+      ["laplace", { family: "discrete-laplace", scale: R("3") }, 3],
+      ["gauss", { family: "discrete-gaussian", sigma2: R("10") }, 10],
+    ] as const) {
+      for (const [p, a, b] of [["1/2", 1, 2], ["9/10", 9, 10]] as const) {
+        const L = 3;
+        const cuts = rankCuts(law as NoiseLaw, L, R(p), R("1/20"), new Bits(seededBytes(`cut-${family}-${p}`)));
+        expect(cuts).not.toBeNull();
+        for (const l of [1, 2, 3]) {
+          const lo = Number(cuts!.low[l]);
+          const hi = Number(cuts!.high[l]);
+          const t = numpyCutTails(family, param, l, a, b, lo, hi);
+          const atLo = numpyCutTails(family, param, l, a, b, lo + 1, hi - 1); // tails including the atoms
+          expect(t.below, `${family} p ${p} l ${l} low ${lo}`).toBeLessThan(miss / 2 + 5 * sd);
+          expect(t.above, `${family} p ${p} l ${l} high ${hi}`).toBeLessThan(miss / 2 + 5 * sd);
+          expect(atLo.below, `${family} p ${p} l ${l} low ${lo}`).toBeGreaterThan(miss / 2 - 5 * sd);
+          expect(atLo.above, `${family} p ${p} l ${l} high ${hi}`).toBeGreaterThan(miss / 2 - 5 * sd);
+        }
+      }
+    }
   });
 });
 
@@ -231,7 +300,7 @@ describe("coverage of quantile value intervals, 2,000 releases per case", () => 
   const band = binomialBand(RUNS, 0.95, 0.001);
   const limit = binomialLowerLimit(RUNS, 0.95, 0.001);
 
-  it("[C20.3] where the bound is nearly attained, coverage lies between 1 - a and 1 - a/2 (median and p90, both noise families); the union bound does not", () => {
+  it("where the bound is nearly attained, coverage lies between 1 - a and 1 - a/2 (median and p90, both noise families); the union bound does not", () => {
     // The argument of §20 is nearly tight when G_(i*) = p n exactly, bucket i* holds one row and its
     // neighbours hold every other row: no bucket but i* - 1 and i* can pass a scan, and the
     // interval misses when U_i* < low (and U_(i*-1) < low + b') or U_(i*-1) > high (and U_i* > high).

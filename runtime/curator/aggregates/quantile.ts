@@ -14,7 +14,7 @@
  * buckets (runtime/core/quantile.ts noisyTree, quantileInterval); each quantile's low/high are the
  * values whose bucket could hold the true quantile at the release's confidence.
  */
-import { Rational, treeDepth, treeSensitivity } from "../../core/index.js";
+import { CALIBRATION_DRAWS, Rational, treeDepth, treeSensitivity } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import type { Engine, TableColumn } from "../engine.js";
 import type { ColumnPolicy } from "../policy.js";
@@ -81,7 +81,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
   const share = (r: Rational): string => `${r.toString()} ${alloc.unit === "rho" ? "rho" : "epsilon"}`;
   const notes = [
     `Quantiles of ${c.name} use the exponential mechanism over ${cand.length} public candidates on its grid (step ${c.step}${cand.length < Number(c.grid.upperUnits - c.grid.lowerUnits) + 1 ? ", thinned" : ""}); values are clamped to [${c.lower}, ${c.upper}] and missing values left out.`,
-    `Value interval: a noisy dyadic tree of counts over the same ${cand.length} buckets (${levels} levels, ${treeSpec.law.family} noise, sensitivity ${treeSpec.sensitivity} rows) bounds the rank of every bucket; the interval is every value whose bucket could hold the quantile, with probability at least ${conf} (docs/methods.md §20). It covers the quantile of the clamped, gridded values (the least value with at least a share p of the rows at or below it); the released value is the exponential mechanism's draw, moved to the nearer end of the interval when it falls outside (post-processing).`,
+    `Value interval: a noisy dyadic tree of counts over the same ${cand.length} buckets (${levels} levels, ${treeSpec.law.family} noise, sensitivity ${treeSpec.sensitivity} rows) bounds the rank of every bucket; the interval is every value whose bucket could hold the quantile, with probability at least ${conf} (docs/methods.md §20). Its cuts are calibrated from the known law of the tree's noise (${CALIBRATION_DRAWS} simulated draws per prefix shape, order statistics; no data involved), so it is valid but close; on smooth data it still covers somewhat more often than ${conf}, because neighbouring buckets have nearly the same rank. It covers the quantile of the clamped, gridded values (the least value with at least a share p of the rows at or below it); the released value is the exponential mechanism's draw, moved to the nearer end of the interval when it falls outside (post-processing).`,
     `Budget split: the exponential mechanism gets ${share(parts.reduce((s, x) => s.add(x.spec.cost), Rational.ZERO))}${ps.length > 1 ? ` (shared evenly by the ${ps.length} quantiles)` : ""}, the tree for the value intervals ${share(treeSpec.cost)}.`,
     `Rank guarantee of the exponential mechanism: with probability at least ${conf}, beyond the best candidate's own distance, ${parts
       .map((x) => `${x.stat} has rank within ${rankBound(x, cand.length, conf)} rows of its target`)
@@ -97,7 +97,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: TableColumn, p
     halfWidths: [],
     notes,
     methods: [
-      "quantiles: value interval from a noisy dyadic tree of bucket counts, union bound over the noisy total and the two prefixes around the quantile (docs/methods.md §20)",
+      "quantiles: value interval from a noisy dyadic tree of bucket counts; cuts calibrated by order statistics of simulated draws of the noise law (miss/2 per side), union bound of proven tail bounds only when the miss is below 2/(draws + 1) (docs/methods.md §20)",
     ],
     size: ps.length,
     steps: 1,
