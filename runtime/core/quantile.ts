@@ -297,7 +297,8 @@ const cutCache = new Map<string, RankCuts>();
  * mean k/(N+1); ties of a discrete law only shrink it), and likewise below. The coverage argument
  * then needs U at two prefixes: a union bound over two one-sided events, each <= miss/2 on
  * average over the calibration. Returns null when k would be 0 (miss below 2/(N+1)).
- * Time: N (L + 1) draws and L + 2 sorts, fixed by m, the law, p and miss.
+ * Time: N (L + 1) draws (calibrationDraws, shared by every p and miss of the same law and L) and
+ * L + 2 sorts, fixed by m, the law, p and miss.
  */
 export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, bits: Bits): RankCuts | null {
   const N = CALIBRATION_DRAWS;
@@ -308,30 +309,63 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   if (hit !== undefined) return hit;
   const a = p.num;
   const b = p.den;
-  const kinds = L + 2;
-  const samples: bigint[][] = Array.from({ length: kinds }, () => new Array<bigint>(N));
-  for (let s = 0; s < N; s++) {
-    const e = drawNoise(law, bits);
-    const ae = a * e;
-    samples[0][s] = -ae;
-    let sum = 0n;
-    for (let l = 1; l <= L; l++) {
-      sum += drawNoise(law, bits);
-      samples[l][s] = b * sum - ae;
-    }
-    samples[L + 1][s] = (b - a) * e;
-  }
+  const { root, sums } = calibrationDraws(law, L, bits);
   const kn = Number(k);
   const low: bigint[] = [];
   const high: bigint[] = [];
-  for (const xs of samples) {
-    xs.sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
-    low.push(xs[kn - 1]);
-    high.push(xs[N - kn]);
+  // U for each kind: -a'E (empty prefix), b'S_l - a'E (l = 1..L), (b' - a')E (the root).
+  const kindOf = (l: number, s: number): bigint => (l === 0 ? -a * root[s] : l === L + 1 ? (b - a) * root[s] : b * sums[l - 1][s] - a * root[s]);
+  const safe = BigInt(Number.MAX_SAFE_INTEGER);
+  for (let l = 0; l <= L + 1; l++) {
+    const xs: bigint[] = new Array<bigint>(N);
+    let big = false;
+    for (let s = 0; s < N; s++) {
+      const u = kindOf(l, s);
+      xs[s] = u;
+      if (u > safe || u < -safe) big = true;
+    }
+    if (big) {
+      xs.sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
+      low.push(xs[kn - 1]);
+      high.push(xs[N - kn]);
+    } else {
+      // Integers below 2^53 in magnitude are exact in binary64; the typed-array sort is exact.
+      const fs = Float64Array.from(xs, (u) => Number(u)).sort();
+      low.push(BigInt(fs[kn - 1]));
+      high.push(BigInt(fs[N - kn]));
+    }
   }
   const out: RankCuts = { low, high, method: "calibrated" };
   if (cutCache.size >= 32) cutCache.delete(cutCache.keys().next().value as string);
   cutCache.set(key, out);
+  return out;
+}
+
+const drawCache = new Map<string, { root: bigint[]; sums: bigint[][] }>();
+
+/**
+ * The calibration's draws for (law, L): N root draws E and, for l = 1..L, the partial sums S_l of
+ * one further sequence of L draws per sample. They depend on the law and L only (never on p, the
+ * miss or the data), so the quantiles of a release, which share one tree, share them too.
+ */
+function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): { root: bigint[]; sums: bigint[][] } {
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}`;
+  const hit = drawCache.get(key);
+  if (hit !== undefined) return hit;
+  const N = CALIBRATION_DRAWS;
+  const root = new Array<bigint>(N);
+  const sums: bigint[][] = Array.from({ length: L }, () => new Array<bigint>(N));
+  for (let s = 0; s < N; s++) {
+    root[s] = drawNoise(law, bits);
+    let sum = 0n;
+    for (let l = 0; l < L; l++) {
+      sum += drawNoise(law, bits);
+      sums[l][s] = sum;
+    }
+  }
+  const out = { root, sums };
+  if (drawCache.size >= 4) drawCache.delete(drawCache.keys().next().value as string);
+  drawCache.set(key, out);
   return out;
 }
 
