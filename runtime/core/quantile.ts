@@ -364,7 +364,7 @@ function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): { root: bigint[
     }
   }
   const out = { root, sums };
-  if (drawCache.size >= 4) drawCache.delete(drawCache.keys().next().value as string);
+  if (drawCache.size >= 2) drawCache.delete(drawCache.keys().next().value as string);
   drawCache.set(key, out);
   return out;
 }
