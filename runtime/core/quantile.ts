@@ -7,7 +7,7 @@
  */
 import { BadInputError } from "../errors.js";
 import { expNeg, ln } from "./bounds.js";
-import { type NoiseLaw, drawNoise } from "./mechanisms.js";
+import { type NoiseLaw, checkLaw, drawNoise } from "./mechanisms.js";
 import { Rational, bitLength, floorDiv, isqrt } from "./rational.js";
 import { gaussianHalfWidth, laplaceHalfWidth } from "./tailbounds.js";
 import type { Bits } from "./random.js";
@@ -301,6 +301,10 @@ const cutCache = new Map<string, RankCuts>();
  * L + 2 sorts, fixed by m, the law, p and miss.
  */
 export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, bits: Bits): RankCuts | null {
+  if (!Number.isInteger(L) || L < 0 || L > 30) throw new BadInputError(`tree depth must be an integer 0..30, got ${L}`);
+  if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
+  if (!(miss instanceof Rational) || miss.sign() <= 0 || miss.ge(Rational.ONE)) throw new BadInputError("miss probability must lie strictly between 0 and 1");
+  checkLaw(law);
   const N = CALIBRATION_DRAWS;
   const k = (BigInt(N + 1) * miss.num) / (2n * miss.den);
   if (k < 1n) return null;

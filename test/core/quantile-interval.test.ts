@@ -138,6 +138,11 @@ describe("calibrated cuts (rankCuts)", () => {
     expect(rankCuts(law, 3, R("1/2"), R("1/20"), bits)).not.toBeNull();
     expect(rankCuts(law, 3, R("1/2"), R("1/10000"), bits)).not.toBeNull(); // k = 1
     expect(rankCuts(law, 3, R("1/2"), R("1/10001"), bits)).toBeNull(); // 20001 / 20002 < 1: k = 0
+    expect(() => rankCuts(law, -1, R("1/2"), R("1/20"), bits)).toThrow();
+    expect(() => rankCuts(law, 31, R("1/2"), R("1/20"), bits)).toThrow();
+    expect(() => rankCuts(law, 3, R("1"), R("1/20"), bits)).toThrow();
+    expect(() => rankCuts(law, 3, R("1/2"), R("0"), bits)).toThrow();
+    expect(() => rankCuts({ family: "discrete-laplace", scale: R("-1") }, 3, R("1/2"), R("1/20"), bits)).toThrow();
     // Without a calibration the union-bound cuts are used.
     const tree = noisyTree([5n, 5n, 5n, 5n], law, bits);
     expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/10001"), bits }).method).toBe("union bound");
