@@ -281,7 +281,7 @@ export interface RankCuts {
 }
 
 /** Draws per kind of prefix in the calibration (rankCuts); public and fixed. */
-export const CALIBRATION_DRAWS = 20_000;
+export const CALIBRATION_DRAWS = 10_000;
 
 const cutCache = new Map<string, RankCuts>();
 
@@ -313,30 +313,39 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   if (hit !== undefined) return hit;
   const a = p.num;
   const b = p.den;
-  const { root, sums } = calibrationDraws(law, L, bits);
+  const draws = calibrationDraws(law, L, bits);
+  const { root, sums } = draws;
   const kn = Number(k);
   const low: bigint[] = [];
   const high: bigint[] = [];
-  // U for each kind: -a'E (empty prefix), b'S_l - a'E (l = 1..L), (b' - a')E (the root).
-  const kindOf = (l: number, s: number): bigint => (l === 0 ? -a * root[s] : l === L + 1 ? (b - a) * root[s] : b * sums[l - 1][s] - a * root[s]);
   const safe = BigInt(Number.MAX_SAFE_INTEGER);
-  for (let l = 0; l <= L + 1; l++) {
-    const xs: bigint[] = new Array<bigint>(N);
-    let big = false;
-    for (let s = 0; s < N; s++) {
-      const u = kindOf(l, s);
-      xs[s] = u;
-      if (u > safe || u < -safe) big = true;
+  if (b <= safe && b * draws.maxSum + a * draws.maxRoot <= safe) {
+    // Every U is an integer below 2^53 in magnitude, and so is every product and sum forming it:
+    // binary64 holds them exactly, and the typed-array sort is exact.
+    const an = Number(a);
+    const bn = Number(b);
+    const rootF = draws.rootF;
+    const u = new Float64Array(N);
+    for (let l = 0; l <= L + 1; l++) {
+      if (l === 0) for (let s = 0; s < N; s++) u[s] = -an * rootF[s];
+      else if (l === L + 1) for (let s = 0; s < N; s++) u[s] = (bn - an) * rootF[s];
+      else {
+        const sl = draws.sumsF[l - 1];
+        for (let s = 0; s < N; s++) u[s] = bn * sl[s] - an * rootF[s];
+      }
+      u.sort();
+      low.push(BigInt(u[kn - 1]));
+      high.push(BigInt(u[N - kn]));
     }
-    if (big) {
+  } else {
+    // U for each kind: -a'E (empty prefix), b'S_l - a'E (l = 1..L), (b' - a')E (the root).
+    const kindOf = (l: number, s: number): bigint => (l === 0 ? -a * root[s] : l === L + 1 ? (b - a) * root[s] : b * sums[l - 1][s] - a * root[s]);
+    for (let l = 0; l <= L + 1; l++) {
+      const xs: bigint[] = new Array<bigint>(N);
+      for (let s = 0; s < N; s++) xs[s] = kindOf(l, s);
       xs.sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
       low.push(xs[kn - 1]);
       high.push(xs[N - kn]);
-    } else {
-      // Integers below 2^53 in magnitude are exact in binary64; the typed-array sort is exact.
-      const fs = Float64Array.from(xs, (u) => Number(u)).sort();
-      low.push(BigInt(fs[kn - 1]));
-      high.push(BigInt(fs[N - kn]));
     }
   }
   const out: RankCuts = { low, high, method: "calibrated" };
@@ -345,29 +354,54 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   return out;
 }
 
-const drawCache = new Map<string, { root: bigint[]; sums: bigint[][] }>();
+interface CalibrationDraws {
+  root: bigint[];
+  sums: bigint[][];
+  /** largest |E| and |S_l| drawn */
+  maxRoot: bigint;
+  maxSum: bigint;
+  /** the same draws as binary64, exact when below 2^53 (used only then) */
+  rootF: Float64Array;
+  sumsF: Float64Array[];
+}
+
+const drawCache = new Map<string, CalibrationDraws>();
 
 /**
  * The calibration's draws for (law, L): N root draws E and, for l = 1..L, the partial sums S_l of
  * one further sequence of L draws per sample. They depend on the law and L only (never on p, the
  * miss or the data), so the quantiles of a release, which share one tree, share them too.
  */
-function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): { root: bigint[]; sums: bigint[][] } {
+function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): CalibrationDraws {
   const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}`;
   const hit = drawCache.get(key);
   if (hit !== undefined) return hit;
   const N = CALIBRATION_DRAWS;
   const root = new Array<bigint>(N);
   const sums: bigint[][] = Array.from({ length: L }, () => new Array<bigint>(N));
+  let maxRoot = 0n;
+  let maxSum = 0n;
   for (let s = 0; s < N; s++) {
-    root[s] = drawNoise(law, bits);
+    const e = drawNoise(law, bits);
+    root[s] = e;
+    if (e > maxRoot) maxRoot = e;
+    else if (-e > maxRoot) maxRoot = -e;
     let sum = 0n;
     for (let l = 0; l < L; l++) {
       sum += drawNoise(law, bits);
       sums[l][s] = sum;
+      if (sum > maxSum) maxSum = sum;
+      else if (-sum > maxSum) maxSum = -sum;
     }
   }
-  const out = { root, sums };
+  const out: CalibrationDraws = {
+    root,
+    sums,
+    maxRoot,
+    maxSum,
+    rootF: Float64Array.from(root, (x) => Number(x)),
+    sumsF: sums.map((xs) => Float64Array.from(xs, (x) => Number(x))),
+  };
   if (drawCache.size >= 2) drawCache.delete(drawCache.keys().next().value as string);
   drawCache.set(key, out);
   return out;

@@ -131,13 +131,13 @@ print(json.dumps({'below': float(P[U < d['lo']].sum()), 'above': float(P[U > d['
 }
 
 describe("calibrated cuts (rankCuts)", () => {
-  it("[C20.3] k = floor((N + 1) a / 2): cuts at 95% and 99.99%, none above about 99.990%", () => {
+  it("[C20.3] k = floor((N + 1) a / 2): cuts at 95% and 99.98%, none above about 99.980%", () => {
     const law: NoiseLaw = { family: "discrete-laplace", scale: R("3") };
     const bits = new Bits(seededBytes("c203"));
-    expect(CALIBRATION_DRAWS).toBe(20_000);
+    expect(CALIBRATION_DRAWS).toBe(10_000);
     expect(rankCuts(law, 3, R("1/2"), R("1/20"), bits)).not.toBeNull();
-    expect(rankCuts(law, 3, R("1/2"), R("1/10000"), bits)).not.toBeNull(); // k = 1
-    expect(rankCuts(law, 3, R("1/2"), R("1/10001"), bits)).toBeNull(); // 20001 / 20002 < 1: k = 0
+    expect(rankCuts(law, 3, R("1/2"), R("1/5000"), bits)).not.toBeNull(); // k = floor(10001 / 10000) = 1
+    expect(rankCuts(law, 3, R("1/2"), R("1/5001"), bits)).toBeNull(); // 10001 / 10002 < 1: k = 0
     expect(() => rankCuts(law, -1, R("1/2"), R("1/20"), bits)).toThrow();
     expect(() => rankCuts(law, 31, R("1/2"), R("1/20"), bits)).toThrow();
     expect(() => rankCuts(law, 3, R("1"), R("1/20"), bits)).toThrow();
@@ -145,7 +145,7 @@ describe("calibrated cuts (rankCuts)", () => {
     expect(() => rankCuts({ family: "discrete-laplace", scale: R("-1") }, 3, R("1/2"), R("1/20"), bits)).toThrow();
     // Without a calibration the union-bound cuts are used.
     const tree = noisyTree([5n, 5n, 5n, 5n], law, bits);
-    expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/10001"), bits }).method).toBe("union bound");
+    expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/5001"), bits }).method).toBe("union bound");
     expect(quantileInterval({ tree, m: 4, p: R("1/2"), law, miss: R("1/20"), bits }).method).toBe("calibrated");
   });
 
