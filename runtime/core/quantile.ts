@@ -319,8 +319,9 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   const low: bigint[] = [];
   const high: bigint[] = [];
   const safe = BigInt(Number.MAX_SAFE_INTEGER);
-  if (b <= safe && b * draws.maxSum + a * draws.maxRoot <= safe) {
-    // Every U is an integer below 2^53 in magnitude, and so is every product and sum forming it:
+  if (b * (draws.maxSum + draws.maxRoot) <= safe) {
+    // a' < b', so every U, and every product and sum forming it, is an integer of magnitude at most
+    // b' (max|S| + max|E|) <= 2^53 - 1:
     // binary64 holds them exactly, and the typed-array sort is exact.
     const an = Number(a);
     const bn = Number(b);

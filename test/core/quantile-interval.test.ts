@@ -138,6 +138,10 @@ describe("calibrated cuts (rankCuts)", () => {
     expect(rankCuts(law, 3, R("1/2"), R("1/20"), bits)).not.toBeNull();
     expect(rankCuts(law, 3, R("1/2"), R("1/5000"), bits)).not.toBeNull(); // k = floor(10001 / 10000) = 1
     expect(rankCuts(law, 3, R("1/2"), R("1/5001"), bits)).toBeNull(); // 10001 / 10002 < 1: k = 0
+    // A quantile whose denominator is past 2^53 takes the bigint path; its cuts still bracket 0.
+    const fine = rankCuts(law, 3, Rational.of(1n, 2n ** 60n + 1n), R("1/20"), bits)!;
+    for (let l = 0; l <= 4; l++) expect(fine.low[l] <= 0n && 0n <= fine.high[l]).toBe(true);
+    expect(fine.high[2]).toBeGreaterThan(2n ** 60n);
     expect(() => rankCuts(law, -1, R("1/2"), R("1/20"), bits)).toThrow();
     expect(() => rankCuts(law, 31, R("1/2"), R("1/20"), bits)).toThrow();
     expect(() => rankCuts(law, 3, R("1"), R("1/20"), bits)).toThrow();
