@@ -169,8 +169,42 @@ export abstract class Aggregates<R, O extends SpendOptions = SpendOptions> {
     return this.measure(() => ({ kind: "correlation", columns: columnList(columns, "correlate(columns)", 2, PLAN_LIMITS.maxCorrelationColumns) }), spend, "correlate");
   }
 
-  /** A summary of every column (count; mean, std and median of numbers; counts of categories), budget split evenly. */
-  describe(spend: O): Promise<R> {
-    return this.measure(() => ({ kind: "describe" }), spend, "describe");
+  /**
+   * A summary of every column (count; mean, std and median of numbers; counts of categories), budget
+   * split evenly. `{ clampedShares: true }` adds, as one more part, how many values of each numeric
+   * column were clamped at its declared bounds (see clampedShares).
+   */
+  describe(spend: O & { clampedShares?: boolean }): Promise<R> {
+    return this.measure(
+      () => {
+        const flag = (spend as { clampedShares?: unknown } | undefined)?.clampedShares;
+        if (flag !== undefined && typeof flag !== "boolean") throw new BadInputError(`describe: clampedShares must be true or false, got ${String(flag)}`);
+        return flag ? { kind: "describe", clamped: true } : { kind: "describe" };
+      },
+      spend,
+      "describe",
+    );
+  }
+
+  /**
+   * How many values of numeric columns were clamped at their declared bounds: noisy counts of rows
+   * whose raw value lay below the lower bound and above the upper bound, the noisy number of rows
+   * with a value, and the two shares with error bars. A separate release with its own cost, e.g.
+   * `clampedShares(["age", "wait_minutes"], { epsilon: 0.2 })`; a large share says the declared
+   * range is too narrow and the other answers are biased by clamping.
+   */
+  clampedShares(columns: string | string[], spend: O): Promise<R> {
+    return this.measure(
+      () => {
+        const list = Array.isArray(columns) ? columns : [columns];
+        if (list.length === 0) throw new BadInputError("clampedShares(columns): name at least one numeric column");
+        if (list.length > PLAN_LIMITS.maxClampedColumns) throw new BadInputError(`clampedShares(columns): at most ${PLAN_LIMITS.maxClampedColumns} columns`);
+        const names = list.map((c) => columnArg(c, "clampedShares(columns)"));
+        if (new Set(names).size !== names.length) throw new BadInputError("clampedShares(columns): lists the same column twice");
+        return { kind: "clamped", columns: names };
+      },
+      spend,
+      "clampedShares",
+    );
   }
 }

@@ -69,6 +69,9 @@ function makePlan(s: TableState, m: Measure, spend: SpendOptions, what: string):
     case "histogram":
       numeric(info, m.column, what);
       break;
+    case "clamped":
+      for (const c of m.columns) numeric(info, c, what);
+      break;
     case "crosstab":
       keyed(info, m.rows, what);
       keyed(info, m.cols, what);

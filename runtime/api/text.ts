@@ -57,6 +57,8 @@ function statNoun(m: Measure): string {
       return "coefficient";
     case "correlation":
       return "correlation";
+    case "clamped":
+      return "share";
   }
 }
 
@@ -103,8 +105,11 @@ export function percent(confidence: number): string {
 export function measureText(m: Measure): string {
   switch (m.kind) {
     case "count":
-    case "describe":
       return m.kind;
+    case "describe":
+      return m.clamped ? "describe with clamped shares" : "describe";
+    case "clamped":
+      return `clamped shares of ${m.columns.join(", ")}`;
     case "sum":
     case "mean":
     case "variance":

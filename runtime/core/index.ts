@@ -71,7 +71,22 @@ export {
 export { shortAt, shortIndexDown, shortIndexUp, shortSqrtDown } from "./shortdecimal.js";
 export { firstPassing } from "./search.js";
 export { laplaceHalfWidth, gaussianHalfWidth, missOf } from "./tailbounds.js";
-export { type QuantileArgs, type QuantileResult, exponentialQuantile, quantileCosts } from "./quantile.js";
+export {
+  type QuantileArgs,
+  type QuantileResult,
+  type QuantileInterval,
+  type QuantileIntervalArgs,
+  exponentialQuantile,
+  quantileCosts,
+  treeDepth,
+  treeSensitivity,
+  noisyTree,
+  quantileInterval,
+  rankCuts,
+  unionCuts,
+  type RankCuts,
+  CALIBRATION_DRAWS,
+} from "./quantile.js";
 export {
   type Moments,
   type SimulationArgs,

@@ -6,8 +6,10 @@
  * rejection with exact Bernoulli(x/2^y) trials: no floating point touches the selection.
  */
 import { BadInputError } from "../errors.js";
-import { expNeg } from "./bounds.js";
-import { Rational } from "./rational.js";
+import { expNeg, ln } from "./bounds.js";
+import { type NoiseLaw, checkLaw, drawNoise } from "./mechanisms.js";
+import { Rational, bitLength, floorDiv, isqrt } from "./rational.js";
+import { gaussianHalfWidth, laplaceHalfWidth } from "./tailbounds.js";
 import type { Bits } from "./random.js";
 
 export interface QuantileArgs {
@@ -183,4 +185,391 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
       return j;
     }
   }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Quantile value intervals from a noisy dyadic tree of bucket counts (docs/methods.md §20).
+// ---------------------------------------------------------------------------------------------
+
+/**
+ * Levels below the root of the dyadic tree over m buckets: the least L with 2^L >= m. The tree has
+ * L + 1 levels in all (root included) and 2^(L+1) - 1 nodes, a number fixed by m alone.
+ */
+export function treeDepth(m: number): number {
+  if (!Number.isInteger(m) || m < 1) throw new BadInputError(`a tree needs at least one bucket, got ${m}`);
+  let L = 0;
+  while (2 ** L < m) L++;
+  return L;
+}
+
+/**
+ * Sensitivity of the whole tree for a unit of up to k rows: every level partitions the rows, so one
+ * unit moves each level by at most k in L1 (all its rows in one node, or spread), and the L + 1
+ * levels together by k (L + 1) in L1. In L2 a level moves by at most k, so the tree by
+ * k sqrt(L + 1); the discrete Gaussian is calibrated to an integer, k ceil(sqrt(L + 1)), which is
+ * never smaller (docs/methods.md §20).
+ */
+export function treeSensitivity(m: number, k: number, family: NoiseLaw["family"]): bigint {
+  if (!Number.isInteger(k) || k < 1) throw new BadInputError(`rows per unit must be a positive integer, got ${k}`);
+  const levels = BigInt(treeDepth(m) + 1);
+  if (family === "discrete-laplace") return BigInt(k) * levels;
+  let r = isqrt(levels);
+  if (r * r < levels) r += 1n;
+  return BigInt(k) * r;
+}
+
+/**
+ * The noisy tree: nodes[l][i] is the count of buckets [i 2^(L-l), (i+1) 2^(L-l)) (0-based) plus
+ * one independent draw of `law`. `counts` has one entry per bucket (length m); buckets past m are
+ * empty. Every node is drawn whatever the counts, so the number of draws depends on m only.
+ */
+export function noisyTree(counts: bigint[], law: NoiseLaw, bits: Bits): bigint[][] {
+  const L = treeDepth(counts.length);
+  const leaves: bigint[] = [];
+  for (let i = 0; i < 2 ** L; i++) {
+    const c = i < counts.length ? counts[i] : 0n;
+    if (typeof c !== "bigint" || c < 0n) throw new BadInputError("bucket counts must be non-negative integers");
+    leaves.push(c);
+  }
+  const exact: bigint[][] = [leaves];
+  for (let l = L - 1; l >= 0; l--) {
+    const below = exact[0];
+    const level: bigint[] = [];
+    for (let i = 0; i < below.length / 2; i++) level.push(below[2 * i] + below[2 * i + 1]);
+    exact.unshift(level);
+  }
+  return exact.map((level) => level.map((c) => c + drawNoise(law, bits)));
+}
+
+export interface QuantileIntervalArgs {
+  /** noisyTree's output over the m buckets */
+  tree: bigint[][];
+  /** number of buckets m (the candidates) */
+  m: number;
+  /** target quantile a/b in (0, 1) */
+  p: Rational;
+  /** the law every node was drawn from */
+  law: NoiseLaw;
+  /** miss probability in (0, 1), exact */
+  miss: Rational;
+  /**
+   * Random bits for the calibration draws (rankCuts). Without them, or when the miss is too small
+   * for CALIBRATION_DRAWS, the cuts come from the union bound of proven half-widths (unionCuts).
+   */
+  bits?: Bits;
+}
+
+export interface QuantileInterval {
+  /** 1-based buckets: the true quantile's bucket i* lies in [lowBucket, highBucket] on the event of §20 */
+  lowBucket: number;
+  highBucket: number;
+  /** how the cuts were set: "calibrated" (rankCuts) or "union bound" (unionCuts) */
+  method: "calibrated" | "union bound";
+}
+
+/**
+ * Cuts for the two scans, one pair per kind of prefix (docs/methods.md §20): kind 0 is the empty
+ * prefix G_0 = 0, kind l = 1..L a prefix made of l nodes below the root, kind L + 1 the root itself
+ * (the prefix of all 2^L leaves). With D = b' G~ - a' n~ for p = a'/b':
+ *   the low scan passes bucket i when D_i >= low[kind(i)],
+ *   the high scan passes bucket i when D_(i-1) < high[kind(i-1)].
+ */
+export interface RankCuts {
+  low: bigint[];
+  high: bigint[];
+  method: "calibrated" | "union bound";
+}
+
+/** Draws per kind of prefix in the calibration (rankCuts); public and fixed. */
+export const CALIBRATION_DRAWS = 10_000;
+
+const cutCache = new Map<string, RankCuts>();
+
+/**
+ * Calibrated cuts (docs/methods.md §20). The noise of D at a prefix of kind l is U = b' S - a' E,
+ * S the sum of the prefix's nodes' noises (l independent draws; kind L + 1: S = E) and E the root's,
+ * independent of S below the root. Its law is fixed by (law, l, p) alone, never by the data. N =
+ * CALIBRATION_DRAWS independent samples of U are drawn for every kind (the kinds share the draws
+ * as partial sums of one sequence, which leaves each kind's N samples independent of each other);
+ * with k = floor((N + 1) miss / 2), high = the k-th largest sample and low = the k-th smallest.
+ * For a fresh U independent of the samples, P(U > k-th largest) <= k / (N + 1) <= miss / 2
+ * (order statistics: the k-th largest of N continuous samples leaves a tail of law Beta(k, N+1-k),
+ * mean k/(N+1); ties of a discrete law only shrink it), and likewise below. The coverage argument
+ * then needs U at two prefixes: a union bound over two one-sided events, each <= miss/2 on
+ * average over the calibration. Returns null when k would be 0 (miss below 2/(N+1)).
+ * Time: N (L + 1) draws (calibrationDraws, shared by every p and miss of the same law and L) and
+ * L + 2 sorts, fixed by m, the law, p and miss.
+ */
+export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, bits: Bits): RankCuts | null {
+  if (!Number.isInteger(L) || L < 0 || L > 30) throw new BadInputError(`tree depth must be an integer 0..30, got ${L}`);
+  if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
+  if (!(miss instanceof Rational) || miss.sign() <= 0 || miss.ge(Rational.ONE)) throw new BadInputError("miss probability must lie strictly between 0 and 1");
+  checkLaw(law);
+  const N = CALIBRATION_DRAWS;
+  const k = (BigInt(N + 1) * miss.num) / (2n * miss.den);
+  if (k < 1n) return null;
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}:${p}:${miss}`;
+  const hit = cutCache.get(key);
+  if (hit !== undefined) return hit;
+  const a = p.num;
+  const b = p.den;
+  const draws = calibrationDraws(law, L, bits);
+  const { root, sums } = draws;
+  const kn = Number(k);
+  const low: bigint[] = [];
+  const high: bigint[] = [];
+  const safe = BigInt(Number.MAX_SAFE_INTEGER);
+  if (b * (draws.maxSum + draws.maxRoot) <= safe) {
+    // a' < b', so every U, and every product and sum forming it, is an integer of magnitude at most
+    // b' (max|S| + max|E|) <= 2^53 - 1:
+    // binary64 holds them exactly, and the typed-array sort is exact.
+    const an = Number(a);
+    const bn = Number(b);
+    const rootF = draws.rootF;
+    const u = new Float64Array(N);
+    for (let l = 0; l <= L + 1; l++) {
+      if (l === 0) for (let s = 0; s < N; s++) u[s] = -an * rootF[s];
+      else if (l === L + 1) for (let s = 0; s < N; s++) u[s] = (bn - an) * rootF[s];
+      else {
+        const sl = draws.sumsF[l - 1];
+        for (let s = 0; s < N; s++) u[s] = bn * sl[s] - an * rootF[s];
+      }
+      u.sort();
+      low.push(BigInt(u[kn - 1]));
+      high.push(BigInt(u[N - kn]));
+    }
+  } else {
+    // U for each kind: -a'E (empty prefix), b'S_l - a'E (l = 1..L), (b' - a')E (the root).
+    const kindOf = (l: number, s: number): bigint => (l === 0 ? -a * root[s] : l === L + 1 ? (b - a) * root[s] : b * sums[l - 1][s] - a * root[s]);
+    for (let l = 0; l <= L + 1; l++) {
+      const xs: bigint[] = new Array<bigint>(N);
+      for (let s = 0; s < N; s++) xs[s] = kindOf(l, s);
+      xs.sort((x, y) => (x < y ? -1 : x > y ? 1 : 0));
+      low.push(xs[kn - 1]);
+      high.push(xs[N - kn]);
+    }
+  }
+  const out: RankCuts = { low, high, method: "calibrated" };
+  if (cutCache.size >= 32) cutCache.delete(cutCache.keys().next().value as string);
+  cutCache.set(key, out);
+  return out;
+}
+
+interface CalibrationDraws {
+  root: bigint[];
+  sums: bigint[][];
+  /** largest |E| and |S_l| drawn */
+  maxRoot: bigint;
+  maxSum: bigint;
+  /** the same draws as binary64, exact when below 2^53 (used only then) */
+  rootF: Float64Array;
+  sumsF: Float64Array[];
+}
+
+const drawCache = new Map<string, CalibrationDraws>();
+
+/**
+ * The calibration's draws for (law, L): N root draws E and, for l = 1..L, the partial sums S_l of
+ * one further sequence of L draws per sample. They depend on the law and L only (never on p, the
+ * miss or the data), so the quantiles of a release, which share one tree, share them too.
+ */
+function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): CalibrationDraws {
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}`;
+  const hit = drawCache.get(key);
+  if (hit !== undefined) return hit;
+  const N = CALIBRATION_DRAWS;
+  const root = new Array<bigint>(N);
+  const sums: bigint[][] = Array.from({ length: L }, () => new Array<bigint>(N));
+  let maxRoot = 0n;
+  let maxSum = 0n;
+  for (let s = 0; s < N; s++) {
+    const e = drawNoise(law, bits);
+    root[s] = e;
+    if (e > maxRoot) maxRoot = e;
+    else if (-e > maxRoot) maxRoot = -e;
+    let sum = 0n;
+    for (let l = 0; l < L; l++) {
+      sum += drawNoise(law, bits);
+      sums[l][s] = sum;
+      if (sum > maxSum) maxSum = sum;
+      else if (-sum > maxSum) maxSum = -sum;
+    }
+  }
+  const out: CalibrationDraws = {
+    root,
+    sums,
+    maxRoot,
+    maxSum,
+    rootF: Float64Array.from(root, (x) => Number(x)),
+    sumsF: sums.map((xs) => Float64Array.from(xs, (x) => Number(x))),
+  };
+  if (drawCache.size >= 2) drawCache.delete(drawCache.keys().next().value as string);
+  drawCache.set(key, out);
+  return out;
+}
+
+/**
+ * Cuts from proven half-widths (the method before calibration; kept for misses too small to
+ * calibrate and for callers without random bits): h_l = sumHalfWidth(law, l, miss/3) for a prefix
+ * of l nodes (the root counts as one), h_n the root's, and the cuts -(b' h_l + a' h_n) and
+ * b' h_l + a' h_n: the union bound over the noises of the two prefixes and the total, miss/3 each.
+ */
+export function unionCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational): RankCuts {
+  const third = miss.div(Rational.of(3n));
+  const a = p.num;
+  const b = p.den;
+  const hn = sumHalfWidth(law, 1, third);
+  const low: bigint[] = [];
+  const high: bigint[] = [];
+  for (let l = 0; l <= L + 1; l++) {
+    const hl = l === 0 ? 0n : sumHalfWidth(law, l === L + 1 ? 1 : l, third);
+    low.push(-(b * hl + a * hn));
+    high.push(b * hl + a * hn);
+  }
+  return { low, high, method: "union bound" };
+}
+
+/**
+ * Bucket range that holds the true p-quantile's bucket with probability >= 1 - miss
+ * (docs/methods.md §20). G_i = rows in buckets 1..i, n = G_m; the quantile's bucket is the least
+ * i* with G_i* >= p n, so G_(i*-1) < p n <= G_i*, i.e. T_1 = b' G_i* - a' n >= 0 and
+ * T_0 = b' G_(i*-1) - a' n <= -1 for p = a'/b'. With noisy prefixes G~_i (sums of tree nodes), the
+ * noisy root n~ and D_i = b' G~_i - a' n~ = T + U_i:
+ *   low  = least i with D_i >= low[kind(i)],
+ *   high = greatest i with D_(i-1) < high[kind(i-1)] (at least 1).
+ * If U_i* >= low[kind(i*)] then D_i* >= T_1 + low >= low, so low <= i*; if U_(i*-1) <= high then
+ * D_(i*-1) <= high - 1, so high >= i*. i* is fixed by the data, not by the noise, so coverage is at
+ * least 1 - P(U_i* < low) - P(U_(i*-1) > high) >= 1 - miss (rankCuts or unionCuts). Both scans
+ * visit every bucket, whatever the counts. Only integers and rationals.
+ */
+export function quantileInterval(args: QuantileIntervalArgs): QuantileInterval {
+  const { tree, m, p, law, miss, bits } = args;
+  if (!(p instanceof Rational) || p.sign() <= 0 || p.ge(Rational.ONE)) throw new BadInputError(`quantile must lie strictly between 0 and 1, got ${String(p)}`);
+  if (!(miss instanceof Rational) || miss.sign() <= 0 || miss.ge(Rational.ONE)) throw new BadInputError("miss probability must lie strictly between 0 and 1");
+  const L = treeDepth(m);
+  if (!Array.isArray(tree) || tree.length !== L + 1 || tree.some((lv, l) => !Array.isArray(lv) || lv.length !== 2 ** l)) {
+    throw new BadInputError("tree does not match the number of buckets");
+  }
+  const cuts = (bits === undefined ? null : rankCuts(law, L, p, miss, bits)) ?? unionCuts(law, L, p, miss);
+  // The prefix [0, i) is the prefix [0, i - low) plus the one node [i - low, i), low = 2^z the
+  // lowest set bit of i: that node is at level L - z, index i/low - 1 (the root for i = 2^L). So a
+  // prefix is a sum of popcount(i) nodes, built here in one pass; its kind is that count, or
+  // L + 1 for the root.
+  const prefix: bigint[] = [0n];
+  const kind: number[] = [0];
+  for (let i = 1; i <= m; i++) {
+    let z = 0;
+    while (((i >>> z) & 1) === 0) z++;
+    const rest = i & (i - 1);
+    prefix.push(prefix[rest] + tree[L - z][(i >>> z) - 1]);
+    kind.push(z === L ? L + 1 : kind[rest] + 1);
+  }
+  const a = p.num;
+  const b = p.den;
+  const an = a * tree[0][0];
+  let low = 0;
+  let high = 1;
+  for (let i = 1; i <= m; i++) {
+    const lowOk = b * prefix[i] - an >= cuts.low[kind[i]];
+    if (lowOk && low === 0) low = i;
+    if (b * prefix[i - 1] - an < cuts.high[kind[i - 1]]) high = i;
+  }
+  // Off the event of §20 the scans can disagree; the whole range is then returned (never narrower).
+  if (low === 0 || low > high) {
+    low = 1;
+    high = m;
+  }
+  return { lowBucket: low, highBucket: high, method: cuts.method };
+}
+
+/** Fractions theta of 1/t at which the Laplace Chernoff bound is tried (public; any theta is valid). */
+const CHERNOFF_THETAS = [Rational.of(1n, 3n), Rational.of(1n, 2n), Rational.of(2n, 3n), Rational.of(4n, 5n)];
+const sumCache = new Map<string, bigint>();
+const logCache = new Map<string, (bigint | null)[]>();
+
+/**
+ * For each theta of CHERNOFF_THETAS, an upper bound on 2^128 ln M(theta/t) (M the moment
+ * generating function of the discrete Laplace at scale t, sumHalfWidth), or null when the bound
+ * cannot be formed at this precision. Depends on t only, so it is kept for the recent scales.
+ */
+function chernoffLogs(t: Rational): (bigint | null)[] {
+  const key = t.toString();
+  const hit = logCache.get(key);
+  if (hit !== undefined) return hit;
+  const P = 128;
+  const Pt = P + bitLength(t.ceil());
+  const oneP = 1n << BigInt(Pt);
+  const q = expNeg(Rational.ONE.div(t), Pt);
+  const out = CHERNOFF_THETAS.map((theta) => {
+    const eA = expNeg(Rational.ONE.sub(theta).div(t), Pt).hi; // >= q e^lambda
+    const eB = expNeg(Rational.ONE.add(theta).div(t), Pt).hi; // >= q e^-lambda
+    const den = (oneP - eA) * (oneP - eB);
+    if (den <= 0n || oneP - q.lo <= 0n) return null;
+    return ln(Rational.of((oneP - q.lo) * (oneP - q.lo), den), P).hi; // >= 2^P ln M
+  });
+  if (logCache.size >= 64) logCache.delete(logCache.keys().next().value as string);
+  logCache.set(key, out);
+  return out;
+}
+
+/**
+ * An integer h with P(|Y_1 + ... + Y_l| > h) <= a for l independent draws of `law`, proven in
+ * integers (bounds.ts rounds every step outward), docs/methods.md §20. l = 1: the exact least h
+ * (tailbounds.ts). l >= 2: the least of these valid bounds (the union bound only for tiny noise,
+ * scale or sigma^2 below 1, the only case where it can win),
+ *   - union: l h_1(a / l), since |S| > l h_1 needs some |Y_i| > h_1;
+ *   - discrete Laplace, Chernoff: E e^(lambda Y) = (1 - q)^2 / ((1 - q e^lambda)(1 - q e^-lambda))
+ *     for q = e^(-1/t), |lambda| < 1/t; with lambda = theta/t, P(S >= s) <= M^l e^(-theta s/t), so
+ *     h + 1 >= t (l ln M + ln(2/a)) / theta suffices (theta from a fixed public list);
+ *   - discrete Gaussian, sub-Gaussian: E e^(lambda X) <= e^(lambda^2 sigma^2/2) (Canonne, Kamath,
+ *     Steinke 2020), so P(|S| >= s) <= 2 e^(-s^2/(2 l sigma^2)) and (h + 1)^2 >= 2 l sigma^2 ln(2/a)
+ *     suffices.
+ */
+export function sumHalfWidth(law: NoiseLaw, l: number, a: Rational): bigint {
+  if (!Number.isInteger(l) || l < 1) throw new BadInputError(`number of draws must be a positive integer, got ${l}`);
+  if (!(a instanceof Rational) || a.sign() <= 0) throw new BadInputError("miss probability must be positive");
+  if (a.ge(Rational.ONE)) return 0n;
+  const one = (x: Rational): bigint => (law.family === "discrete-laplace" ? laplaceHalfWidth(law.scale, x) : gaussianHalfWidth(law.sigma2, x));
+  const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${l}:${a}`;
+  const hit = sumCache.get(key);
+  if (hit !== undefined) return hit;
+  const L = BigInt(l);
+  // The union bound needs one exact half-width per l; it only wins over the moment bounds when
+  // the noise is tiny (scale or sigma^2 below 1, where h is 0 or 1), so it is formed only there.
+  const tiny = law.family === "discrete-laplace" ? law.scale.lt(Rational.ONE) : law.sigma2.lt(Rational.ONE);
+  let best = -1n;
+  if (tiny || l === 1) best = L * one(a.div(Rational.of(L)));
+  if (l === 1) {
+    sumCache.set(key, best);
+    return best;
+  }
+  const P = 128;
+  const scaleP = 1n << BigInt(P);
+  const ln2a = ln(Rational.of(2n).div(a), P).hi; // >= 2^P ln(2/a)
+  const keep = (h: bigint): void => {
+    const x = h < 0n ? 0n : h;
+    if (best < 0n || x < best) best = x;
+  };
+  if (law.family === "discrete-laplace") {
+    const t = law.scale;
+    for (const [i, lnM] of chernoffLogs(t).entries()) {
+      if (lnM === null) continue;
+      const theta = CHERNOFF_THETAS[i];
+      // h + 1 = ceil(t (l lnM + ln2a) / (theta 2^P))
+      const num = t.num * (L * lnM + ln2a) * theta.den;
+      const dd = t.den * scaleP * theta.num;
+      keep(-floorDiv(-num, dd) - 1n);
+    }
+    if (best < 0n) best = L * one(a.div(Rational.of(L)));
+  } else {
+    const s2 = law.sigma2;
+    // (h + 1)^2 >= v = ceil(2 l sigma^2 ln(2/a))
+    const v = -floorDiv(-(2n * L * s2.num * ln2a), s2.den * scaleP);
+    let r = isqrt(v);
+    if (r * r < v) r += 1n;
+    keep(r - 1n);
+  }
+  if (sumCache.size >= 256) sumCache.delete(sumCache.keys().next().value as string);
+  sumCache.set(key, best);
+  return best;
 }

@@ -22,6 +22,7 @@ import { parsePlan } from "../protocol/schema.js";
 import { countPiece, meanPiece, spreadPiece, sumPiece } from "./aggregates/additive.js";
 import { Allocator } from "./aggregates/budget.js";
 import type { Piece, Source } from "./aggregates/common.js";
+import { clampedPiece } from "./aggregates/clamped.js";
 import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
@@ -125,10 +126,13 @@ function checkCells(plan: QueryPlan, t: DatasetSchema): void {
     cells = 1;
     for (const c of t.columns.values()) {
       const p = c.policy;
-      if (p.type === "integer" || p.type === "number") cells += 3;
+      if (p.type === "integer" || p.type === "number") cells += 3 + (m.clamped ? 5 : 0); // + clamped shares (§21)
       else if (p.type === "category" || p.type === "boolean") cells += keySize(t, { column: p.name });
     }
     path = "plan.measure";
+  } else if (m.kind === "clamped") {
+    cells = 5 * m.columns.length;
+    path = "plan.measure.columns";
   } else {
     cells = (plan.groupBy ?? []).reduce((n, k) => n * keySize(t, k), 1);
     path = "plan.groupBy";
@@ -390,13 +394,19 @@ export class Answerer {
         return { piece, groupColumns: [m.rows, m.cols], columnsUsed: [m.rows, m.cols] };
       }
       case "describe":
-        return { piece: describePiece(alloc, src), groupColumns: ["value"], columnsUsed: [...t.columns.keys()] };
+        return { piece: describePiece(alloc, src, m.clamped === true), groupColumns: ["value"], columnsUsed: [...t.columns.keys()] };
       case "regression": {
         const piece = regressionPiece(alloc, src, m.response, m.predictors, m.reference ?? []);
         return { piece, groupColumns: ["term"], columnsUsed: [m.response, ...m.predictors] };
       }
       case "correlation":
         return { piece: correlationPiece(alloc, src, m.columns), groupColumns: ["column", "with"], columnsUsed: [...m.columns] };
+      case "clamped": {
+        // Clamped shares (aggregates/clamped.ts, docs/methods.md §21).
+        if (new Set(m.columns).size !== m.columns.length) throw new BadInputError("plan.measure.columns: lists the same column twice");
+        const cols = m.columns.map((c, i) => numericColumn(t, c, `plan.measure.columns[${i}]`, "clamped shares"));
+        return { piece: clampedPiece(alloc, src, cols, one), groupColumns: [], columnsUsed: m.columns.slice() };
+      }
     }
   }
 

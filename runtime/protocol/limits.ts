@@ -57,6 +57,8 @@ export const PLAN_LIMITS = {
   maxGroupKeys: 3,
   maxBins: 1000,
   maxQuantiles: 20,
+  /** Columns of one clamped-shares release (five released rows each, docs/methods.md §21). */
+  maxClampedColumns: 50,
   /**
    * Declared cells of one release: the product of the key sizes (bins, category values, 2 for a
    * boolean, rows x columns of a crosstab; for describe, the rows of all its parts). Every declared

@@ -41,8 +41,17 @@ export type Measure =
   | { kind: "histogram"; column: string; bins: number }
   /** Counts for every pair of declared values of two category columns. */
   | { kind: "crosstab"; rows: string; cols: string }
-  /** A summary of every column; the budget is split evenly across the parts (stated in the release). */
-  | { kind: "describe" }
+  /**
+   * A summary of every column; the budget is split evenly across the parts (stated in the release).
+   * `clamped: true` adds the clamped shares of every numeric column as one more part.
+   */
+  | { kind: "describe"; clamped?: boolean }
+  /**
+   * How many values of each listed numeric column were clamped at its declared bounds: noisy counts
+   * of rows whose raw value lay below the lower / above the upper bound, the noisy number of rows
+   * with a value, and the two shares (docs/methods.md §21). Charged like any release.
+   */
+  | { kind: "clamped"; columns: string[] }
   /**
    * Linear regression of a numeric `response` on `predictors` (numeric columns; category and boolean
    * columns as indicators, one per declared value other than the reference level: the first declared

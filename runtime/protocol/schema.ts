@@ -107,7 +107,14 @@ const measure = z.discriminatedUnion(
     }),
     z.strictObject({ kind: z.literal("histogram"), column: name, bins }),
     z.strictObject({ kind: z.literal("crosstab"), rows: name, cols: name }),
-    z.strictObject({ kind: z.literal("describe") }),
+    z.strictObject({ kind: z.literal("describe"), clamped: z.boolean({ error: "must be true or false" }).optional() }),
+    z.strictObject({
+      kind: z.literal("clamped"),
+      columns: z
+        .array(name, { error: "must be a list of column names" })
+        .min(1, { message: "must list at least one column" })
+        .max(PLAN_LIMITS.maxClampedColumns, { message: `must list at most ${PLAN_LIMITS.maxClampedColumns} columns` }),
+    }),
     z.strictObject({
       kind: z.literal("regression"),
       response: name,
@@ -130,7 +137,7 @@ const measure = z.discriminatedUnion(
         .max(PLAN_LIMITS.maxCorrelationColumns, { message: `must list at most ${PLAN_LIMITS.maxCorrelationColumns} columns (maxCorrelationColumns)` }),
     }),
   ],
-  { error: "must have kind one of count, sum, mean, variance, std, quantile, histogram, crosstab, describe, regression, correlation" },
+  { error: "must have kind one of count, sum, mean, variance, std, quantile, histogram, crosstab, describe, regression, correlation, clamped" },
 );
 
 const privacy = z.union(

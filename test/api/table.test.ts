@@ -47,7 +47,7 @@ describe("sealed handle", () => {
       // query building (return new handles)
       "where", "by",
       // differentially private aggregates and their previews, budget
-      "count", "sum", "mean", "variance", "std", "quantile", "quantiles", "median", "histogram", "crosstab", "describe",
+      "count", "sum", "mean", "variance", "std", "quantile", "quantiles", "median", "histogram", "crosstab", "describe", "clampedShares",
       "regress", "correlate",
       "preview", "budget",
       // internal dispatch to the curator (protected), shared by aggregates
@@ -126,6 +126,22 @@ describe("sealed handle", () => {
     expect(fake.asked[9].groupBy).toEqual([{ column: "insured" }]);
   });
 
+  test("clampedShares and describe({ clampedShares }) send the clamped measures; the spend option is not sent", async () => {
+    const { hush, fake } = await fakeSession();
+    const t = await hush.open("clinic");
+    await t.clampedShares("age", { epsilon: 0.1 });
+    await t.clampedShares(["age", "wait_minutes"], { epsilon: 0.1 });
+    await t.describe({ epsilon: 0.1, clampedShares: true });
+    await t.describe({ epsilon: 0.1, clampedShares: false });
+    expect(fake.asked.map((p) => p.measure)).toEqual([
+      { kind: "clamped", columns: ["age"] },
+      { kind: "clamped", columns: ["age", "wait_minutes"] },
+      { kind: "describe", clamped: true },
+      { kind: "describe" },
+    ]);
+    expect(fake.asked.map((p) => p.privacy)).toEqual(Array.from({ length: 4 }, () => ({ epsilon: "0.1" })));
+  });
+
   test.each([
     ["epsilon NaN", (t: SealedTable) => t.count({ epsilon: Number.NaN }), /NaN/],
     ["epsilon ∞", (t: SealedTable) => t.count({ epsilon: Number.POSITIVE_INFINITY }), /finite/],
@@ -148,6 +164,11 @@ describe("sealed handle", () => {
     ["grouped quantile", (t: SealedTable) => t.by("district").median("age", { epsilon: 0.1 }), /cannot be grouped/],
     ["accuracy-first mean", (t: SealedTable) => t.mean("age", { within: 2 }), /accuracy first/],
     ["column not a string", (t: SealedTable) => t.sum(42 as never, { epsilon: 0.1 }), /name a column/],
+    ["clamped shares of nothing", (t: SealedTable) => t.clampedShares([], { epsilon: 0.1 }), /at least one numeric column/],
+    ["clamped shares of a category", (t: SealedTable) => t.clampedShares(["age", "district"], { epsilon: 0.1 }), /needs a numeric column/],
+    ["clamped shares twice", (t: SealedTable) => t.clampedShares(["age", "age"], { epsilon: 0.1 }), /same column twice/],
+    ["clamped shares grouped", (t: SealedTable) => t.by("district").clampedShares("age", { epsilon: 0.1 }), /cannot be grouped/],
+    ["describe clampedShares junk", (t: SealedTable) => t.describe({ epsilon: 0.1, clampedShares: "yes" as never }), /true or false/],
   ])("%s is refused before sending, saying what remains", async (_name, run, msg) => {
     const { hush, fake } = await fakeSession();
     const t = await hush.open("clinic");

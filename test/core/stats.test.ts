@@ -2,6 +2,15 @@ import { describe, expect, it } from "vitest";
 import { binomialBand, binomialCdf, binomialLowerLimit, dingPValue, fisherOneSided, hypergeomUpperTail, jstat, logGamma, thinnedPValue } from "./stats.js";
 
 describe("test statistics helpers", () => {
+  it("hypergeometric upper tail far below the mean does not underflow to 0 (scipy.stats.hypergeom.sf, Debian python3-scipy, computed for this test)", () => {
+    // Population 100,000, 14,697 successes, 50,000 draws (mean 7348.5): the Ding test's thinned
+    // counts at c1 = 11571, c2 = 10440 reach k = 4257, where the first term underflowed.
+    expect(hypergeomUpperTail(4257, 100_000, 14_697, 50_000)).toBeCloseTo(1, 12);
+    expect(hypergeomUpperTail(7300, 100_000, 14_697, 50_000)).toBeCloseTo(0.8092794282077187, 8);
+    expect(hypergeomUpperTail(7400, 100_000, 14_697, 50_000)).toBeCloseTo(0.18115598248349374, 8);
+    expect(dingPValue(11571, 50_000, 10440, 50_000, 1)).toBe(1);
+  });
+
   it("log-gamma matches factorials and jstat", () => {
     expect(Math.exp(logGamma(11))).toBeCloseTo(3628800, 6);
     for (const x of [0.5, 3.7, 120.25, 20001]) expect(logGamma(x)).toBeCloseTo(jstat.gammaln(x), 8);

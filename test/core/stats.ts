@@ -105,6 +105,18 @@ export function hypergeomUpperTail(k: number, N: number, K: number, n: number): 
   if (k <= jMin) return 1;
   if (k > jMax) return 0;
   const logDen = logChoose(N, n);
+  if (k <= (n * K) / N) {
+    // Below the mean the upper tail is near 1 and its first term can underflow to 0: use
+    // 1 - P(H <= k - 1), summed downward from k - 1 (its terms shrink away from the mean).
+    let down = Math.exp(logChoose(K, k - 1) + logChoose(N - K, n - k + 1) - logDen);
+    let lower = down;
+    for (let j = k - 1; j > jMin; j--) {
+      down *= (j * (N - K - n + j)) / ((K - j + 1) * (n - j + 1));
+      lower += down;
+      if (down < 1e-18 * lower) break;
+    }
+    return Math.max(0, 1 - lower);
+  }
   let term = Math.exp(logChoose(K, k) + logChoose(N - K, n - k) - logDen);
   let sum = term;
   for (let j = k; j < jMax; j++) {

@@ -135,13 +135,22 @@ describe("costs and sensitivities", () => {
     ]);
   });
 
-  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9)", async () => {
+  it("quantiles: exponential mechanism records with rank sensitivity k * max(a, b - a) (docs/methods.md §9), and the value-interval tree (§20, [C20.2])", async () => {
     const q = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5, 0.9] }, privacy: { epsilon: "2" } }));
+    // Half the budget to the two draws (1/2 each), half to one tree over the 101 candidates of
+    // age [0, 100]: 7 levels below the root, 8 in all, so sensitivity k (L + 1) = 4 * 8 = 32 and
+    // discrete Laplace scale 32 / 1.
     expect(q.mechanisms).toEqual([
-      { target: "p50 of age", family: "exponential", scale: "1", sensitivity: "4", step: "1", cost: "1" },
-      { target: "p90 of age", family: "exponential", scale: "1", sensitivity: "36", step: "1", cost: "1" },
+      { target: "p50 of age", family: "exponential", scale: "1/2", sensitivity: "4", step: "1", cost: "1/2" },
+      { target: "p90 of age", family: "exponential", scale: "1/2", sensitivity: "36", step: "1", cost: "1/2" },
+      { target: "value intervals of age", family: "discrete-laplace", scale: "32", sensitivity: "32", step: "1", cost: "1" },
     ]);
-    for (const r of q.rows) expect([r.low, r.high]).toEqual([null, null]);
+    for (const r of q.rows) {
+      expect(Number(r.low)).toBeLessThanOrEqual(Number(r.high));
+      expect(Number(r.low)).toBeGreaterThanOrEqual(0);
+      expect(Number(r.high)).toBeLessThanOrEqual(100);
+    }
+    expect(q.notes.join(" ")).toMatch(/Budget split: the exponential mechanism gets 1 epsilon \(shared evenly by the 2 quantiles\), the tree for the value intervals 1 epsilon/);
   });
 
   it("quantiles on a fine grid use at most 2001 evenly spaced public candidates", () => {
@@ -300,15 +309,22 @@ describe("large epsilon recovers the bounded, clamped truth of the fixture", () 
     expect(expected.reduce((a, b) => a + b, 0)).toBe(ages.length);
   });
 
-  it("median of the row-level dataset has the smallest rank cost |2 r(y) - n| (docs/methods.md §9), missing ages left out", async () => {
+  it("median of the row-level dataset is the inverted-cdf median (docs/methods.md §9, §20), missing ages left out", async () => {
     const ages = lines
       .filter(([, age, wait, district, date]) => age !== "" && /^\d+$/.test(age) && (wait === "" || Number.isFinite(Number(wait))) && DISTRICTS.includes(district) && date >= "2025-01-01" && date <= "2025-12-31")
       .map((l) => Math.min(100, Number(l[1])));
     const cost = (y: number) => Math.abs(2 * ages.filter((a) => a < y).length - ages.length);
     const best = Math.min(...Array.from({ length: 101 }, (_, y) => cost(y)));
+    // The exponential draw has the smallest rank cost; across a gap every candidate ties, and the
+    // release moves the draw into the value interval (§20), which at this epsilon is the single
+    // inverted-cdf median: the least age with at least half the rows at or below it.
+    const sorted = [...ages].sort((a, b) => a - b);
+    const invertedCdf = sorted[Math.ceil(sorted.length / 2) - 1];
     for (const seed of [1, 2, 3]) {
       const r = await ask(plan({ measure: { kind: "quantile", column: "age", p: [0.5] }, privacy: { epsilon: "1000000" } }, "rows"), seed);
-      expect(cost(Number(r.rows[0].value))).toBe(best);
+      expect(Number(r.rows[0].value)).toBe(invertedCdf);
+      expect([r.rows[0].low, r.rows[0].high]).toEqual([String(invertedCdf), String(invertedCdf)]);
+      expect(cost(invertedCdf) - best).toBeLessThanOrEqual(2); // one row from the best rank
     }
   });
 

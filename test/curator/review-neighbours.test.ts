@@ -113,3 +113,48 @@ describe("review: removing one unit moves each released vector by at most its se
     expect(Rational.parse(a.rows[0].value!).sub(Rational.parse(b.rows[0].value!)).toString()).toBe(String(K));
   });
 });
+
+describe("review: clamped shares and quantile value intervals (docs/methods.md §20, §21)", () => {
+  it("clamped shares: the (below, above) pair and the total each move by at most k", async () => {
+    // The heavy unit holds v = 50 (above 10) and v = -50 (below -5): it lands in both flags.
+    for (const where of [undefined, FILTER, { op: "not", of: { op: "isNull", column: "cat" } } as const]) {
+      for (let seed = 0; seed < 3; seed++) {
+        const p = plan({ measure: { kind: "clamped", columns: ["v"] }, ...(where ? { where } : {}) });
+        const a = await release(withUnit, p, seed);
+        const b = await release(without, p, seed);
+        const v = (r: typeof a, stat: string) => Rational.parse(r.rows.find((x) => x.stat === stat)!.value!);
+        const pairL1 = v(a, "below lower").sub(v(b, "below lower")).abs().add(v(a, "above upper").sub(v(b, "above upper")).abs());
+        const total = v(a, "values").sub(v(b, "values")).abs();
+        expect(a.mechanisms.map((m) => m.sensitivity)).toEqual([String(K), String(K)]);
+        expect(pairL1.le(Rational.of(K))).toBe(true);
+        expect(total.le(Rational.of(K))).toBe(true);
+        if (where === undefined) {
+          // Every value of the heavy unit lies beyond a bound (50 or -50), so each of its kept rows
+          // with a value is flagged: the pair moves exactly as much as the total. (Which K of its
+          // 24 rows are kept is random per load, and some have no value, so the move is not always K.)
+          expect(pairL1.eq(total)).toBe(true);
+          expect(pairL1.sign()).toBeGreaterThan(-1);
+        }
+      }
+    }
+  });
+
+  it("quantile value-interval tree: removing the unit moves the exact tree by at most its recorded L1 sensitivity", async () => {
+    // The tree's levels each partition the kept rows, so its L1 move is (levels) x (rows moved);
+    // here the exact bucket counts come from the releases' own SQL at huge epsilon via a count by bins.
+    // v in [-5, 10] step 1: 16 candidates, L = 4, 5 levels: sensitivity K * 5.
+    const p = plan({ measure: { kind: "quantile", column: "v", p: [0.5] } });
+    const a = await release(withUnit, p, 1);
+    const tree = a.mechanisms.find((m) => m.target === "value intervals of v")!;
+    expect(tree.sensitivity).toBe(String(K * 5));
+    const h = (o: Opened) => release(o, plan({ measure: { kind: "histogram", column: "v", bins: 15 } }), 1);
+    const ha = await h(withUnit);
+    const hb = await h(without);
+    let moved = Rational.ZERO;
+    for (let i = 0; i < ha.rows.length; i++) moved = moved.add(Rational.parse(ha.rows[i].value!).sub(Rational.parse(hb.rows[i].value!)).abs());
+    // Each level moves by at most the rows moved in the leaves (at most K), and there are 5 levels.
+    expect(moved.le(Rational.of(K))).toBe(true);
+    expect(moved.mul(Rational.of(5n)).le(Rational.parse(tree.sensitivity))).toBe(true);
+    for (const r of a.rows) expect(Rational.parse(r.low!).le(Rational.parse(r.high!))).toBe(true);
+  });
+});

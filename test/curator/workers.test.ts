@@ -38,6 +38,9 @@ const ENDLESS: QuantileRecipe = {
   candidates: Array.from({ length: 2001 }, (_, j) => BigInt(j)),
   step: Rational.ONE,
   parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.parse("2e-6") }],
+  // the value-interval tree (docs/methods.md §20): 4095 quick draws, a small part of the job
+  treeLaw: { family: "discrete-laplace", scale: Rational.of(12n) },
+  confidence: 0.95,
 };
 /**
  * Sixty such draws in one job. One draw's time is random (an early acceptance ends it after its

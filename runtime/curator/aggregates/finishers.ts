@@ -19,6 +19,9 @@ import {
   FIXED_BITS,
   floorDivInt,
   isqrt,
+  missOf,
+  noisyTree,
+  quantileInterval,
   simulateIntervals,
   solveNormal,
   solveNormalInt,
@@ -74,6 +77,15 @@ export interface QuantileRecipe {
   candidates: bigint[];
   step: Rational;
   parts: { p: Rational; stat: string; epsilon: Rational }[];
+  /** Law of every node of the value-interval tree (docs/methods.md §20). */
+  treeLaw: NoiseLaw;
+  confidence: number;
+}
+
+/** Clamped shares (clamped.ts, docs/methods.md §21): per column a (below, above) pair law and a total law. */
+export interface ClampedRecipe {
+  columns: { column: string; pairLaw: NoiseLaw; totalLaw: NoiseLaw; hPair: Rational; hTotal: Rational }[];
+  confidence: number;
 }
 
 /** One released entry G[a][b] of a moment matrix (regression.ts) and its noise law. */
@@ -116,6 +128,7 @@ export interface Finishers {
   spread: (r: SpreadRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
   quantile: (r: QuantileRecipe, data: [bigint, bigint][], bits: Bits) => ReleaseRow[];
   moments: (r: MomentsRecipe, data: bigint[][], bits: Bits) => ReleaseRow[];
+  clamped: (r: ClampedRecipe, data: bigint[], bits: Bits) => ReleaseRow[];
 }
 export type FinisherName = keyof Finishers;
 
@@ -200,12 +213,56 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
   }
   let n = acc;
   while (i < data.length) n += data[i++][1];
+  // Counts per bucket 1..m (index 0 = bucket 1), for the value-interval tree.
+  const perBucket: bigint[] = Array.from({ length: r.candidates.length }, () => 0n);
+  for (const [bucket, rows] of data) if (bucket >= 1n && bucket <= m) perBucket[Number(bucket) - 1] += rows;
+  const tree = noisyTree(perBucket, r.treeLaw, bits);
+  const miss = missOf(r.confidence);
+  const last = r.candidates.length - 1;
   return r.parts.map((x) => {
     const drawn = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.epsilon, bits });
-    const v = r.step.mul(r.candidates[drawn.index]);
-    return { key: [], stat: x.stat, column: r.column, value: exactDecimal(v), low: null, high: null };
+    // Bucket i holds values in [candidates[i-1], candidates[i]); the last bucket holds the upper
+    // bound only. Values are whole grid units, so the interval ends one unit below candidates[high].
+    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss, bits });
+    const lowUnits = r.candidates[iv.lowBucket - 1];
+    const highUnits = iv.highBucket <= last ? r.candidates[iv.highBucket] - 1n : r.candidates[last];
+    // The draw is moved into the interval when it falls outside (post-processing of two private
+    // outputs): when the interval holds the quantile, this never moves the value away from it.
+    // It matters where the rank utility is flat across a gap (all candidates in the gap tie).
+    const drawnUnits = r.candidates[drawn.index];
+    const shown = drawnUnits < lowUnits ? lowUnits : drawnUnits > highUnits ? highUnits : drawnUnits;
+    return {
+      key: [],
+      stat: x.stat,
+      column: r.column,
+      value: exactDecimal(r.step.mul(shown)),
+      low: exactDecimal(r.step.mul(lowUnits)),
+      high: exactDecimal(r.step.mul(highUnits)),
+    };
   });
 }
+
+/** data: per column [rows below lower, rows above upper, rows with a value], flattened. */
+function clamped(r: ClampedRecipe, data: bigint[], bits: Bits): ReleaseRow[] {
+  const out: ReleaseRow[] = [];
+  r.columns.forEach((c, i) => {
+    const below = addNoise(data[3 * i], c.pairLaw, bits);
+    const above = addNoise(data[3 * i + 1], c.pairLaw, bits);
+    const total = addNoise(data[3 * i + 2], c.totalLaw, bits);
+    const count = (stat: string, v: bigint, h: Rational): ReleaseRow => {
+      const x = Rational.of(v);
+      return { key: [], stat, column: c.column, value: exactDecimal(x), low: exactDecimal(x.sub(h)), high: exactDecimal(x.add(h)) };
+    };
+    const share = (stat: string, v: bigint): ReleaseRow => {
+      const x = ratioInterval({ sum: { noisy: v, law: c.pairLaw }, count: { noisy: total, law: c.totalLaw }, sumStep: Rational.ONE, lower: Rational.ZERO, upper: Rational.ONE, confidence: r.confidence });
+      return { key: [], stat, column: c.column, value: x.estimate === null ? null : exactDecimal(x.estimate), low: exactDecimal(x.low), high: exactDecimal(x.high) };
+    };
+    out.push(count("below lower", below, c.hPair), count("above upper", above, c.hPair), count("values", total, c.hTotal));
+    out.push(share("share below lower", below), share("share above upper", above));
+  });
+  return out;
+}
+
 
 /** The full symmetric moment matrix from the released entries (structural zeros and aliases filled in). */
 function momentMatrix(r: MomentsRecipe, stats: readonly bigint[]): bigint[][] {
@@ -423,7 +480,7 @@ function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
   return rows;
 }
 
-export const FINISHERS: Finishers = { cells, mean, spread, quantile, moments };
+export const FINISHERS: Finishers = { cells, mean, spread, quantile, moments, clamped };
 
 /** A Cpu that runs the finishers on this thread with the given bits (tests that need reproducible noise). */
 export function onThisThread(bits: Bits): Cpu {
