@@ -2,22 +2,25 @@
  * The body of a regression or correlation release in the notebook (docs/methods.md §18, §19): a
  * table of the terms (or column pairs) with their estimates and error bars, then R² and the rows
  * used, and a plain message when the noisy statistics left no estimate. Every figure is written by
- * the shared formatter (shownValue), each after its signed key, in the signed order, so the
+ * the shared formatter (shownParts, docs/methods.md §23), each after its signed key, in the signed order, so the
  * notebook audit reads exactly what the curator signed. Uses only the kernel's HTML vocabulary
  * (div, b, table; the inline styles of html.ts).
  *
  * Hooked into views.ts answerHtml by one call: `modelBody(a)` returns null for other releases.
  */
 import type { Answer } from "../../runtime/api/answer.js";
-import { percent, shownValue } from "../../runtime/api/text.js";
-import { formatDecimal } from "../../runtime/protocol/format.js";
+import { percent, shownParts } from "../../runtime/api/text.js";
 import type { ReleaseRow } from "../../runtime/protocol/messages.js";
 import { MUTED, esc, table } from "./html.js";
 
-function interval(row: ReleaseRow): string {
+/**
+ * One figure as the compact view writes it (docs/methods.md §23), with the browser test's hooks:
+ * `hush-value` on the value, `hush-errorbar` on its bar; "unavailable" when there is no estimate.
+ */
+function figure(row: ReleaseRow): string {
   if (row.value === null) return "unavailable";
-  if (row.low === null || row.high === null) return "unbounded (see notes)";
-  return `[${esc(formatDecimal(row.low))}, ${esc(formatDecimal(row.high))}]`;
+  const f = shownParts(row);
+  return `<span class="hush-value">${esc(f.value)}</span>${f.bar === null ? " (no error bar, see notes)" : ` <span class="hush-errorbar">${esc(f.bar)}</span>`}`;
 }
 
 /** The message shown when the released statistics leave no estimate (the spend is already done). */
@@ -44,15 +47,15 @@ export function modelBody(a: Answer): string | null {
   const note = modelTextNote(a);
   const warn = note === null ? "" : `<div style="border-left:3px solid #c62828;padding:2px 8px;margin:4px 0">${esc(note)}</div>`;
   const main = kind === "regression" ? "coefficient" : "correlation";
-  const head = kind === "regression" ? ["term", `coefficient (${conf})`, "interval"] : ["column", "with", `correlation (${conf})`, "interval"];
-  const rows = r.rows.filter((x) => x.stat === main).map((x) => [...x.key.map((k) => esc(k ?? "")), esc(shownValue(x)), interval(x)]);
+  const head = kind === "regression" ? ["term", `coefficient (${conf})`] : ["column", "with", `correlation (${conf})`];
+  const rows = r.rows.filter((x) => x.stat === main).map((x) => [...x.key.map((k) => esc(k ?? "")), figure(x)]);
   const extras = r.rows
     .filter((x) => x.stat !== main)
     .map((x) => {
       const what = x.stat === "r2" ? "R squared" : x.stat === "count" ? "rows used (noisy count)" : x.stat;
-      return `<div>${x.key.map((k) => esc(k ?? "")).join(" ")} ${esc(what)}: <b>${esc(shownValue(x))}</b></div>`;
+      return `<div>${x.key.map((k) => esc(k ?? "")).join(" ")} ${esc(what)}: <b>${figure(x)}</b></div>`;
     })
     .join("");
   const n = head.length;
-  return warn + table(head, rows, new Set([n - 2, n - 1])) + extras + `<div style="${MUTED}">${esc(r.intervalMethod)}</div>`;
+  return warn + table(head, rows, new Set([n - 1])) + extras + `<div style="${MUTED}">${esc(r.intervalMethod)}</div>`;
 }

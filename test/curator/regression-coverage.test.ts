@@ -16,6 +16,7 @@ import { Allocator } from "../../runtime/curator/aggregates/budget.js";
 import type { Cpu, Piece } from "../../runtime/curator/aggregates/common.js";
 import { FINISHERS, type MomentsRecipe } from "../../runtime/curator/aggregates/finishers.js";
 import { correlationPiece, regressionPiece } from "../../runtime/curator/aggregates/regression.js";
+import { schemaOf } from "../../runtime/curator/engines/types.js";
 import type { ReleaseRow } from "../../runtime/protocol/messages.js";
 import { binomialBand } from "../core/stats.js";
 import { type Opened, open } from "../fixtures/curator-helpers.js";
@@ -51,7 +52,7 @@ describe(`coverage over ${RELEASES} releases at ${CONFIDENCE} confidence (binomi
   it("regression of mass on flipper and species, epsilon 20: each coefficient and R^2", async () => {
     const d = o.policy.datasets.get("d")!;
     const alloc = new Allocator(d, { epsilon: "20" }, CONFIDENCE);
-    const { recipe, data } = await captured(regressionPiece(alloc, { t: o.engine.table("d"), where: undefined }, "mass", ["flipper", "species"], []));
+    const { recipe, data } = await captured(regressionPiece(alloc, { t: schemaOf(o.policy.datasets.get("d")!), where: undefined }, "mass", ["flipper", "species"], []));
     expect(recipe.draws).toBe(1000);
     const rows = clampedRows(["flipper", "mass"]);
     const x = rows.map((p) => [p.values[0], ...SPECIES.slice(1).map((s) => (p.species === s ? 1 : 0))]);
@@ -84,7 +85,7 @@ describe(`coverage over ${RELEASES} releases at ${CONFIDENCE} confidence (binomi
     const d = o.policy.datasets.get("d")!;
     const alloc = new Allocator(d, { epsilon: "5" }, CONFIDENCE);
     const names = ["flipper", "bill", "mass"] as const;
-    const { recipe, data } = await captured(correlationPiece(alloc, { t: o.engine.table("d"), where: undefined }, [...names]));
+    const { recipe, data } = await captured(correlationPiece(alloc, { t: schemaOf(o.policy.datasets.get("d")!), where: undefined }, [...names]));
     const rows = clampedRows([...names]);
     // Source: numpy.corrcoef.
     const ref = numpyCorr(names.map((_, i) => rows.map((x) => x.values[i])));

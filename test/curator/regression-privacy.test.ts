@@ -21,6 +21,7 @@ import { Allocator } from "../../runtime/curator/aggregates/budget.js";
 import type { Cpu, Piece, Source } from "../../runtime/curator/aggregates/common.js";
 import { type MomentsRecipe, noisyMoments } from "../../runtime/curator/aggregates/finishers.js";
 import { correlationPiece, regressionPiece } from "../../runtime/curator/aggregates/regression.js";
+import { schemaOf } from "../../runtime/curator/engines/types.js";
 import type { Condition, MechanismRecord, PrivacyAsk } from "../../runtime/protocol/messages.js";
 import { epsilonFromRho } from "../../runtime/core/accounting.js";
 import { dingPValue } from "../core/stats.js";
@@ -99,7 +100,7 @@ const PLANS: { name: string; build: Build; where?: Condition }[] = [
 
 async function capture(o: Opened, build: Build, where: Condition | undefined, privacy: PrivacyAsk = { epsilon: "1" }): Promise<{ recipe: MomentsRecipe; data: bigint[][]; mechanisms: MechanismRecord[] }> {
   const alloc = new Allocator(o.policy.datasets.get("d")!, privacy, 0.95);
-  const piece = build(alloc, { t: o.engine.table("d"), where });
+  const piece = build(alloc, { t: schemaOf(o.policy.datasets.get("d")!), where });
   let got: { recipe: MomentsRecipe; data: bigint[][] } | undefined;
   const cpu = { finish: async (_: string, recipe: unknown, data: unknown) => ((got = { recipe: recipe as MomentsRecipe, data: data as bigint[][] }), []) } as unknown as Cpu;
   await piece.run(o.engine, cpu);

@@ -84,10 +84,12 @@ describe("regression and correlation through the kernel and a curator process, a
     const copy = structuredClone(nb);
     const out = copy.cells[2].outputs!.find((o) => (o.metadata as Record<string, unknown> | undefined)?.[OUTPUT_METADATA_KEY] !== undefined)!;
     const data = out.data as Record<string, string>;
-    const meta = (out.metadata as Record<string, OutputMetadata>)[OUTPUT_METADATA_KEY];
-    const age = meta.receipt.result[1][3]!;
-    const shown = Number(age).toPrecision(6);
-    const edited = data["text/html"].replace(String(Number(shown)), String(Number(shown) + 1));
+    // The second coefficient (age) as the compact view prints it (docs/methods.md §23), last digit changed.
+    const html = data["text/html"];
+    const spans = [...html.matchAll(/<span class="hush-value">([^<]*)<\/span>/g)];
+    const target = spans[1];
+    const changed = target[1].replace(/\d(?=\D*$)/, (d) => String((Number(d) + 1) % 10));
+    const edited = html.slice(0, target.index) + `<span class="hush-value">${changed}</span>` + html.slice(target.index! + target[0].length);
     expect(edited).not.toBe(data["text/html"]);
     data["text/html"] = edited;
     expect(auditNotebook(copy, key).findings.length).toBeGreaterThan(0);

@@ -28,7 +28,7 @@ import {
   toColumnUnits,
   varianceInterval,
 } from "../../core/index.js";
-import type { Bits, NoiseLaw } from "../../core/index.js";
+import { Bits, type NoiseLaw } from "../../core/index.js";
 import type { ReleaseRow } from "../../protocol/messages.js";
 import { exactDecimal, sqrtRational } from "./budget.js";
 import { type Cpu, keyTuples } from "./common.js";
@@ -202,6 +202,9 @@ function spread(r: SpreadRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
  * data: sorted (bucket, rows) pairs, bucket b(x) = number of candidates <= x, so
  * r(y_j) = #{x < y_j} = #{b(x) <= j} (quantile.ts explains the buckets).
  */
+/** Fresh CSPRNG bits for the quantile calibration only (rankCuts), one stream per thread. */
+const calibrationBits = new Bits();
+
 function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): ReleaseRow[] {
   const m = BigInt(r.candidates.length);
   const below: bigint[] = [];
@@ -223,7 +226,10 @@ function quantile(r: QuantileRecipe, data: [bigint, bigint][], bits: Bits): Rele
     const drawn = exponentialQuantile({ countsBelow: below, n, p: x.p, epsilon: x.epsilon, bits });
     // Bucket i holds values in [candidates[i-1], candidates[i]); the last bucket holds the upper
     // bound only. Values are whole grid units, so the interval ends one unit below candidates[high].
-    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss, bits });
+    // The calibration (docs/methods.md §20) draws from its own CSPRNG stream, never from the
+    // release's: its draws are cached per law, so taking them from `bits` would make what a release
+    // draws next depend on which laws this thread has met before.
+    const iv = quantileInterval({ tree, m: r.candidates.length, p: x.p, law: r.treeLaw, miss, bits: calibrationBits });
     const lowUnits = r.candidates[iv.lowBucket - 1];
     const highUnits = iv.highBucket <= last ? r.candidates[iv.highBucket] - 1n : r.candidates[last];
     // The draw is moved into the interval when it falls outside (post-processing of two private
