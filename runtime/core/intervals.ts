@@ -364,6 +364,10 @@ export function ratioInterval(args: RatioIntervalArgs): IntervalResult {
   const mHi = args.upper.sub(c).div(g);
   const toValue = (m: Rational): Rational => c.add(g.mul(m));
   if (N <= 0n) {
+    // The same search on a stand-in count, its result discarded: answering must take about as long
+    // with no matching row as with many (the reply's time must not tell the count apart; pacing,
+    // docs/methods.md §16, hides what differences remain). A count of 1 gives the widest search.
+    ratioInterval({ ...args, count: { ...args.count, noisy: 1n } });
     const method = `pivot method (docs/methods.md §8): the noisy count is not positive, so the noise leaves the mean unbounded within the declared range, which is reported; noise only`;
     return { estimate, low: args.lower, high: args.upper, method, noiseOnly: true, coverage: 1 };
   }
@@ -450,6 +454,9 @@ export function varianceInterval(args: VarianceIntervalArgs): IntervalResult {
   const vMax = vmaxValue.div(sq);
   const estimate = N > 0n ? clampR(sq.mul(Rational.of(Q, N).sub(k.mul(Rational.of(S, N)).mul(Rational.of(S, N)))), zero, vmaxValue) : null;
   if (N <= 0n) {
+    // As in ratioInterval: the same search on a stand-in count, discarded, so the time does not
+    // tell a count that is not positive apart.
+    varianceInterval({ ...args, count: { ...args.count, noisy: 1n } });
     const method = `pivot method (docs/methods.md §8): the noisy count is not positive, so the noise leaves the variance unbounded within [0, ((U - L)/2)^2], which is reported; noise only`;
     return { estimate, low: zero, high: vmaxValue, method, noiseOnly: true, coverage: 1 };
   }
