@@ -113,15 +113,24 @@ export function momentSql(t: DatasetSchema, term: Extract<CellTerm, { kind: "mom
   return { agg: `sum(CASE WHEN ${when} THEN ${a.sql} * ${b.sql} END)`, cols };
 }
 
+/** How a dialect differs in the terms' SQL (both engines share termSql). */
+export interface TermDialect {
+  /** The exact wide integer type for products (DuckDB HUGEINT, PostgreSQL numeric). */
+  wide: string;
+  /** The relation column whose non-missing rows a `present` term counts (default: the column itself). */
+  presentIdent?: (c: SchemaColumn) => string;
+}
+
 /** The aggregate expression of one term, and the relation columns it reads. */
-function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; cols: string[] } {
+export function termSql(t: DatasetSchema, term: CellTerm, i: number, d: TermDialect = { wide: "HUGEINT" }): { agg: string; cols: string[] } {
   const path = `terms[${i}]`;
   switch (term.kind) {
     case "count":
       return { agg: "count(*)", cols: [] };
     case "present": {
       const c = resolveColumn(t, term.column, `${path}.column`);
-      return { agg: `count(${c.ident})`, cols: [c.ident] };
+      const id = d.presentIdent?.(c) ?? c.ident;
+      return { agg: `count(${id})`, cols: [id] };
     }
     case "sum": {
       const c = numeric(t, term.column, `${path}.column`);
@@ -143,7 +152,7 @@ function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; co
       return { agg: `count(CASE WHEN ${c.flag} ${term.kind === "atLower" ? "< 0" : "> 0"} THEN 1 END)`, cols: [c.flag] };
     }
     case "moment":
-      return momentSql(t, term, path, "HUGEINT");
+      return momentSql(t, term, path, d.wide);
   }
 }
 

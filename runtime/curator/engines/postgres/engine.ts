@@ -20,7 +20,7 @@ import { Bits, cryptoBytes } from "../../../core/index.js";
 import { PolicyError, UnknownDatasetError } from "../../../errors.js";
 import type { DatasetPolicy, LoadedPolicy } from "../../policy.js";
 import { compileGroup, compileWhere, type Dialect, Params } from "../../sql.js";
-import { cellsFromRows, momentSql, toBigInt } from "../shapes.js";
+import { type TermDialect, cellsFromRows, termSql as sharedTermSql, toBigInt } from "../shapes.js";
 import {
   type BucketsRequest,
   type CellTerm,
@@ -88,46 +88,18 @@ function numericColumn(t: DatasetSchema, name: string, path: string): SchemaColu
   return c;
 }
 
-function anyColumn(t: DatasetSchema, name: string, path: string): SchemaColumn {
-  const c = t.columns.get(name);
-  if (c === undefined) throw new BadInputError(`${path}: unknown column ${JSON.stringify(name.slice(0, 40))} in dataset ${t.dataset.name}`);
-  return c;
-}
+/**
+ * PostgreSQL's terms: the shared SQL of engines/shapes.ts, with numeric for exact products and a
+ * numeric column's presence read from p<i> (relation.ts), which is present exactly when c<i> is,
+ * without rounding.
+ */
+const PG_TERMS: TermDialect = {
+  wide: "numeric",
+  presentIdent: (c) => (c.policy.type === "integer" || c.policy.type === "number" ? `"p${c.index}"` : c.ident),
+};
 
-/** One term's aggregate (before FILTER) and the relation columns it reads. */
 function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; cols: string[] } {
-  const path = `terms[${i}]`;
-  switch (term.kind) {
-    case "count":
-      return { agg: "count(*)", cols: [] };
-    case "present": {
-      const c = anyColumn(t, term.column, `${path}.column`);
-      // Numeric columns: count p<i> (relation.ts), which is present exactly when c<i> is, without rounding.
-      const id = c.policy.type === "integer" || c.policy.type === "number" ? `"p${c.index}"` : c.ident;
-      return { agg: `count(${id})`, cols: [id] };
-    }
-    case "sum": {
-      const c = numericColumn(t, term.column, `${path}.column`);
-      return { agg: `sum(${c.ident})`, cols: [c.ident] };
-    }
-    case "sumSquares": {
-      // |units| <= 2^31 (policy limit): the square fits bigint, and sum(bigint) is numeric (exact).
-      const c = numericColumn(t, term.column, `${path}.column`);
-      return { agg: `sum(${c.ident} * ${c.ident})`, cols: [c.ident] };
-    }
-    case "sumProduct": {
-      const a = numericColumn(t, term.a, `${path}.a`);
-      const b = numericColumn(t, term.b, `${path}.b`);
-      return { agg: `sum(${a.ident} * ${b.ident})`, cols: [a.ident, b.ident] };
-    }
-    case "atLower":
-    case "atUpper": {
-      const c = numericColumn(t, term.column, `${path}.column`);
-      return { agg: `count(CASE WHEN ${c.flag} ${term.kind === "atLower" ? "< 0" : "> 0"} THEN 1 END)`, cols: [c.flag] };
-    }
-    case "moment":
-      return momentSql(t, term, path, "numeric");
-  }
+  return sharedTermSql(t, term, i, PG_TERMS);
 }
 
 export class PostgresEngine implements DataEngine {
