@@ -40,6 +40,10 @@ const KINDS: { name: string; measure: QueryPlan["measure"]; groupBy?: QueryPlan[
   { name: "crosstab", measure: { kind: "crosstab", rows: "region", cols: "member" } },
   { name: "describe", measure: { kind: "describe" } },
   { name: "grouped mean", measure: { kind: "mean", column: "amount" }, groupBy: [{ column: "region" }] },
+  // With no rows the noisy moment matrix is rarely positive definite, so most simulated re-solves
+  // stop at an early pivot; the pacing must hide that (the size class grows with draws x sums).
+  { name: "regression", measure: { kind: "regression", response: "amount", predictors: ["age", "member"] } },
+  { name: "correlation", measure: { kind: "correlation", columns: ["age", "amount"] } },
 ];
 
 /** Ask i of one arm: epsilon 0.5 + i/10^6, so every plan (and its digest) is new. */
