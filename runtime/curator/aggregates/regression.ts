@@ -225,6 +225,14 @@ async function fetchMoments(engine: DataEngine, src: Source, factors: Factor[], 
   return cells[0];
 }
 
+/** A piece's `run` for a regression or correlation: its released moments, then the finisher. */
+function momentsRun(src: Source, factors: Factor[], used: SchemaColumn[], recipe: MomentsRecipe): Piece["run"] {
+  return async (engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> => {
+    const data = await fetchMoments(engine, src, factors, recipe.entries.map((e) => [e.a, e.b]), used);
+    return cpu.finish("moments", recipe, [data]);
+  };
+}
+
 function caution(what: string): string[] {
   return [
     `The ${what} uses only rows where every column it names is present (complete cases); values are clamped to their declared ranges first, which can bias slopes and correlations towards zero when a range is too narrow.`,
@@ -315,10 +323,7 @@ export function regressionPiece(
     ],
     size: design.length + 2,
     steps: plan.steps,
-    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
-      const data = await fetchMoments(engine, src, factors, plan.recipe.entries.map((e) => [e.a, e.b]), plan.used);
-      return cpu.finish("moments", recipe, [data]);
-    },
+    run: momentsRun(src, factors, plan.used, recipe),
   };
 }
 
@@ -358,9 +363,6 @@ export function correlationPiece(alloc: Allocator, src: Source, columns: readonl
     ],
     size: pairs.length + 1,
     steps: plan.steps,
-    async run(engine: DataEngine, cpu: Cpu): Promise<ReleaseRow[]> {
-      const data = await fetchMoments(engine, src, factors, plan.recipe.entries.map((e) => [e.a, e.b]), plan.used);
-      return cpu.finish("moments", recipe, [data]);
-    },
+    run: momentsRun(src, factors, plan.used, recipe),
   };
 }
