@@ -5,8 +5,9 @@
  * The service (service.ts) calls prepare, checks the budget, calls compute, then debits and
  * replies. compute asks the data engine (engines/types.ts; it works on its own threads or server, so the message
  * loop is free meanwhile) and the CPU part (noise, intervals, the quantile draw) on the worker pool
- * (workers/), under the policy's time limit, and holds the result until its reply slot
- * (workers/pacing.ts) so the time to answer does not follow the data. Nothing here refuses based
+ * (workers/), under the policy's time limit; the result carries its reply slot
+ * (workers/pacing.ts, untilReply), which the service waits for after the debit and just before
+ * the reply, so the time to answer does not follow the data. Nothing here refuses based
  * on data: every declared key is released, the number of released rows is fixed by the plan and
  * the policy, and a mean with a non-positive noisy count is released as unavailable rather than
  * refused.
@@ -45,7 +46,7 @@ export interface PreparedAsk {
   notes: string[];
   /**
    * Reads the data and draws the noise. Without `bits`: on the worker pool with the CSPRNG, under
-   * the time limit, paced to its reply slot (production). With `bits`: on this thread with those
+   * the time limit, with its reply slot to wait for (production). With `bits`: on this thread with those
    * bits, unpaced (tests that need reproducible noise).
    */
   compute(bits?: Bits): Promise<ComputedRelease>;
@@ -58,6 +59,12 @@ export interface ComputedRelease {
   intervalMethod: string;
   mechanisms: MechanismRecord[];
   notes: string[];
+  /**
+   * Waits for the release's reply slot (workers/pacing.ts); resolves at once when unpaced. The
+   * service calls it after the debit and the signing, just before the reply leaves, so the only
+   * work after the slot is sending: nothing that varies with the answer runs past it.
+   */
+  untilReply(): Promise<void>;
 }
 
 export const DEFAULT_CONFIDENCE = 0.95;
@@ -186,11 +193,12 @@ export class Answerer {
   }
 
   /**
-   * One release's data and noise on the pool, under the time limit, then held to its reply slot.
+   * One release's data and noise on the pool, under the time limit, with its reply slot (measured
+   * from the start of this work) for the caller to wait for.
    * The limit covers the engine's work too: a statement is not stopped from here, so a late one is
    * left to finish in the engine and its result dropped; a late CPU part is stopped with its worker.
    */
-  private async onPool(piece: Piece): Promise<ReleaseRow[]> {
+  private async onPool(piece: Piece): Promise<{ rows: ReleaseRow[]; untilReply: () => Promise<void> }> {
     const { timeLimitMs, paceMs } = this.policy.answering;
     const started = performance.now();
     if (this.closed) throw new UnreachableError("the curator is shutting down; nothing was spent");
@@ -205,8 +213,7 @@ export class Answerer {
     work.catch(() => undefined);
     try {
       const rows = await Promise.race([work, limit]);
-      await holdUntilSlot(started, firstSlot(paceMs, piece.steps, piece.size), timeLimitMs);
-      return rows;
+      return { rows, untilReply: () => holdUntilSlot(started, firstSlot(paceMs, piece.steps, piece.size), timeLimitMs) };
     } finally {
       clearTimeout(timer);
     }
@@ -298,9 +305,9 @@ export class Answerer {
       cost: piece.cost,
       notes: notes.slice(),
       async compute(bits?: Bits): Promise<ComputedRelease> {
-        const rows = bits === undefined ? await onPool(piece) : await piece.run(engine, onThisThread(bits));
+        const { rows, untilReply } = bits === undefined ? await onPool(piece) : { rows: await piece.run(engine, onThisThread(bits)), untilReply: async () => undefined };
         if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
-        return { groupColumns: groupColumns.slice(), rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms: mechanisms.map((m) => ({ ...m })), notes: notes.slice() };
+        return { groupColumns: groupColumns.slice(), rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms: mechanisms.map((m) => ({ ...m })), notes: notes.slice(), untilReply };
       },
     };
   }

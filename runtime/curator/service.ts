@@ -393,6 +393,8 @@ export class CuratorService {
           return { release, receipt };
         },
       });
+      // Debited, signed and stored: now wait for the reply slot, so only the send follows it.
+      await computed.untilReply();
       switch (outcome.kind) {
         case "new":
           return outcome.row.release;

@@ -26,6 +26,8 @@ class FakeAnswers implements AnswerSource {
   computed = 0;
   prepareError: Error | null = null;
   computeError: Error | null = null;
+  /** Called when the service waits for the reply slot (ComputedRelease.untilReply). */
+  onUntilReply: (() => Promise<void>) | null = null;
   datasetColumns() {
     return [{ name: "age", type: "integer" as const, lower: "0", upper: "100", step: "1" }];
   }
@@ -52,6 +54,9 @@ class FakeAnswers implements AnswerSource {
           intervalMethod: "fake",
           mechanisms: [{ target: "count", family: "discrete-laplace" as const, scale: "10", sensitivity: "1", step: "1", cost: amount }],
           notes: [],
+          untilReply: async () => {
+            await this.onUntilReply?.();
+          },
         };
       },
     };
@@ -144,6 +149,26 @@ describe("CuratorService", () => {
     expect(r.ok).toBe(false);
     const spend = await call(service, { op: "spend", dataset: "clinic" });
     expect(spend.ok && spend.body.op === "spend" && spend.body.spend.releases).toBe(0);
+    await service.close();
+  });
+
+  it("waits for the reply slot after the debit is stored and before the reply leaves", async () => {
+    const { service, fake } = makeService();
+    const seen: number[] = [];
+    let replied = false;
+    fake.onUntilReply = async () => {
+      // The release is already debited and its receipt stored when the slot is waited for.
+      const spend = await call(service, { op: "spend", dataset: "clinic" });
+      seen.push(spend.ok && spend.body.op === "spend" ? spend.body.spend.releases : -1);
+      expect(replied).toBe(false);
+      await new Promise((r) => setTimeout(r, 30));
+    };
+    const t0 = performance.now();
+    const r = await call(service, { op: "ask", plan: countPlan("0.1") });
+    replied = true;
+    expect(r.ok).toBe(true);
+    expect(seen).toEqual([1]);
+    expect(performance.now() - t0).toBeGreaterThanOrEqual(29);
     await service.close();
   });
 
