@@ -69,6 +69,9 @@ export interface ComputedRelease {
 
 export const DEFAULT_CONFIDENCE = 0.95;
 
+/** untilReply of an unpaced release (one function, so two such releases compare equal). */
+const noWait = async (): Promise<void> => undefined;
+
 function shown(name: string): string {
   return JSON.stringify(name.length > 40 ? `${name.slice(0, 40)}...` : name);
 }
@@ -305,7 +308,7 @@ export class Answerer {
       cost: piece.cost,
       notes: notes.slice(),
       async compute(bits?: Bits): Promise<ComputedRelease> {
-        const { rows, untilReply } = bits === undefined ? await onPool(piece) : { rows: await piece.run(engine, onThisThread(bits)), untilReply: async () => undefined };
+        const { rows, untilReply } = bits === undefined ? await onPool(piece) : { rows: await piece.run(engine, onThisThread(bits)), untilReply: noWait };
         if (rows.length !== piece.size) throw new Error("internal: released row count differs from the declared size");
         return { groupColumns: groupColumns.slice(), rows, confidence, intervalMethod: piece.methods.join("; "), mechanisms: mechanisms.map((m) => ({ ...m })), notes: notes.slice(), untilReply };
       },
