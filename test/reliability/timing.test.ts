@@ -3,8 +3,15 @@
  * timing"). For every release kind, 200 asks whose filter matches no row and 200 whose filter
  * matches every row, each a distinct plan (epsilon varies slightly, so no ask is a replay), go to a
  * real curator process. Their client-side response times must not be told apart by the
- * two-sample Kolmogorov-Smirnov test at level 0.001 per kind (10 kinds: at most 0.01 for the whole
+ * two-sample Kolmogorov-Smirnov test at level 0.001 per kind (12 kinds: at most 0.012 for the whole
  * file, Bonferroni).
+ *
+ * What it can see and what that means: the error-bar searches read only noisy values, so their
+ * time may follow the release itself (post-processing, docs/methods.md §16). With no rows a pivot
+ * search is nearly free, with all rows it took up to 300 ms per cell until the tail sums stopped
+ * converting each law to binary64 on every term; under load those asks overran their slot and this
+ * test failed (std D = 0.225 in CI; 0.44 to 0.52 with two busy cores) though no data leaked. At
+ * 40 to 70 ms they fit the slot again (D 0.04 to 0.10 with two busy cores).
  *
  * The test's power: the same measurement against the curator as it was before this work (commit
  * e82de90: no match flag, no padded draw, no pacing; this file's measure() run on a build of that
@@ -144,6 +151,6 @@ describe("reliability: timing", () => {
       const crit = ksCritical(ALPHA, ASKS, ASKS);
       for (const [name, d] of ds) expect.soft(d, `${name}: D = ${d}`).toBeLessThan(crit);
     },
-    600_000,
+    1_200_000,
   );
 });

@@ -156,8 +156,12 @@ export async function loadTable(
   } else {
     // __n: the unit's row count. __rk: the row's place in a uniformly random order of its unit's
     // rows, computed only for units above maxRows; rows of smaller units get 1. Queries keep rows
-    // with __rk <= maxRows. The order is hash(hash(row id) XOR seed), the seed from the CSPRNG:
-    // the seed must go through the mixer. DuckDB's hash(row id, seed) combines the two hashes
+    // with __rk <= maxRows. The order is hash(hash(unit, j) XOR seed), j the row's place among its
+    // own unit's rows in file order (__j), the seed from the CSPRNG. j, not the row's place in the
+    // file: removing another unit's rows moves every later row in the file, and with it the order
+    // of units it does not touch; j moves with nothing but the unit's own rows, so the kept subset
+    // of a unit depends only on its rows and the seed (docs/methods.md §7).
+    // The seed must go through the mixer. DuckDB's hash(row id, seed) combines the two hashes
     // without mixing the seed in, and its orders are far from uniform (over 20,000 random seeds,
     // one pair of 8 rows was kept together 10,075 times where a uniform 4-of-8 choice gives about
     // 4,286; this form gives 4,082-4,439 for every pair: test/engines/sources.test.ts).
@@ -167,7 +171,8 @@ export async function loadTable(
     const joined = `FROM ${stage} AS s JOIN ${sizes} AS z USING (__u) WHERE s.__why IS NULL`;
     const big = quoteIdent(`big${index}`);
     const stmt = await conn.prepare(
-      `CREATE TEMP TABLE ${big} AS SELECT __u, z.__n, CAST(row_number() OVER (PARTITION BY __u ORDER BY hash(xor(hash(s.rowid), CAST($1 AS UBIGINT)))) AS INTEGER) AS __rk, ${finals} ${joined} AND z.__n > ${k}`,
+      `CREATE TEMP TABLE ${big} AS SELECT __u, __n, CAST(row_number() OVER (PARTITION BY __u ORDER BY hash(xor(hash(__u, __j), CAST($1 AS UBIGINT)))) AS INTEGER) AS __rk, ${finals} ` +
+        `FROM (SELECT __u, z.__n, row_number() OVER (PARTITION BY __u ORDER BY s.rowid) AS __j, ${finals} ${joined} AND z.__n > ${k})`,
     );
     stmt.bindBigInt(1, bits.uniformInt(1n << 63n));
     await stmt.run();
