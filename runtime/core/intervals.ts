@@ -122,26 +122,33 @@ function acklam(p: number): number {
 // ---------------------------------------------------------------------------------------------
 
 /**
- * A law's parameter (Laplace scale or Gaussian sigma^2) in binary64, converted once per law object:
- * the tail sums below call tailAt millions of times, and converting the exact rational each time
- * was most of a variance interval's cost (about 200 ms of 240 ms).
+ * A law's tail h -> P(|noise| > h) in binary64, made once per law object: the tail sums below call
+ * it millions of times, and converting the exact rational parameter on each call was most of a
+ * variance interval's cost (about 200 ms of 240 ms). The Laplace form is tails.ts laplaceTail
+ * with exp(-1/t) taken once: the same operations on the same values, so the same results.
  */
-const lawNumbers = new WeakMap<NoiseLaw, number>();
+const lawTails = new WeakMap<NoiseLaw, (h: number) => number>();
 
-function lawNumber(law: NoiseLaw): number {
-  let v = lawNumbers.get(law);
-  if (v === undefined) {
-    v = law.family === "discrete-laplace" ? law.scale.toNumber() : law.sigma2.toNumber();
-    lawNumbers.set(law, v);
+function tailOf(law: NoiseLaw): (h: number) => number {
+  let f = lawTails.get(law);
+  if (f === undefined) {
+    if (law.family === "discrete-laplace") {
+      const t = law.scale.toNumber();
+      const onePlusQ = 1 + Math.exp(-1 / t);
+      f = (h) => (h < 0 ? 1 : Math.min(1, (2 * Math.exp(-(h + 1) / t)) / onePlusQ));
+    } else {
+      const sigma2 = law.sigma2.toNumber();
+      f = (h) => gaussianTail(sigma2, h);
+    }
+    lawTails.set(law, f);
   }
-  return v;
+  return f;
 }
 
 /** P(|noise| > x) for a real threshold x (the noise is an integer: P(|noise| > floor x)); 1 below 0. Binary64. */
 function tailAt(law: NoiseLaw, x: number): number {
   if (!(x >= 0)) return 1;
-  const h = Math.floor(x);
-  return law.family === "discrete-laplace" ? laplaceTail(lawNumber(law), h) : gaussianTail(lawNumber(law), h);
+  return tailOf(law)(Math.floor(x));
 }
 
 /**
@@ -204,11 +211,12 @@ const BLOCKS_OUTER = 32;
  * For s = 0 it is P(|X| > h); for j - 1 < s <= j (j >= 1) the event |X + s| <= h contains
  * X in [-(h + j - 1), h - j], a window of 2h integers centred at -(j - 1/2), which moves out as j grows.
  */
-function shiftedTail(x: NoiseLaw, h: number, s: number): number {
+function shiftedTail(tx: (h: number) => number, h: number, s: number): number {
+  // tx = tailOf(X); every argument below is a whole number (h, j integers), as tailAt would floor it.
   if (h < 0) return 1;
-  if (s <= 0) return tailAt(x, h);
+  if (s <= 0) return tx(h);
   const j = Math.ceil(s);
-  const half = (k: number): number => tailAt(x, k) / 2; // P(X > k) for k >= 0
+  const half = (k: number): number => tx(k) / 2; // P(X > k) for k >= 0
   const inside = h - j >= 0 ? 1 - half(h - j) - half(h + j - 1) : half(j - h - 1) - half(h + j - 1);
   return Math.min(1, Math.max(0, 1 - inside));
 }
@@ -222,12 +230,13 @@ function shiftedTail(x: NoiseLaw, h: number, s: number): number {
 function pivotTail(h: number, x: NoiseLaw, e1: Extra, e2: Extra | null, cut: number): number {
   const two = e2 !== null && e2.c > 0;
   const b1 = e1.c > 0 ? blocksOf(e1.law, cut, two ? BLOCKS_TWO : BLOCKS_ONE) : null;
+  const tx = tailOf(x);
   const inner = (thr: number): number => {
     if (thr < 0) return 1;
     const t = Math.floor(thr);
     if (b1 === null) return tailAt(x, t);
     let s = b1.rest;
-    for (let b = 0; b < b1.ends.length; b++) s += b1.mass[b] * shiftedTail(x, t, e1.c * b1.ends[b]);
+    for (let b = 0; b < b1.ends.length; b++) s += b1.mass[b] * shiftedTail(tx, t, e1.c * b1.ends[b]);
     return Math.min(1, s);
   };
   let total: number;
