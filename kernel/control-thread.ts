@@ -73,14 +73,14 @@ async function main(): Promise<void> {
           signalled = sender.signal(k) !== "wait";
         } catch (e: unknown) {
           signalled = true;
-          logSendError(e);
+          process.stderr.write(`hush kernel: could not send SIGINT to cell ${k}: ${e instanceof Error ? e.message : String(e)}\n`);
         }
       }
       if (Date.now() - lastNudge >= NUDGE_MS) {
         sender.nudge();
         lastNudge = Date.now();
       }
-      setTimeout(step, signalled ? NUDGE_MS : SIGNAL_POLL_MS);
+      setTimeout(step, signalled ? NUDGE_MS : SIGNAL_POLL_MS).unref();
     };
     step();
     return k;

@@ -17,8 +17,12 @@
  *
  * Why IN_VM is written from inside the cell's script. A SIGINT stops synchronous cell code only
  * while node's SIGINT watchdog runs, that is inside `script.runInContext`. Around that call node
- * takes the process's SIGINT listeners off and puts them back; in between, for some tens of
- * microseconds on each side, a SIGINT has its default action and ends the kernel process. So the
+ * takes the process's SIGINT listeners off and puts them back (node lib/vm.js,
+ * `sigintHandlersWrap`), and the watchdog installs its own handler and restores node's exiting one
+ * (src/node_watchdog.cc, `SigintWatchdogHelper::Start` and `Stop`); in between, for some tens of
+ * microseconds on each side, a SIGINT has its default action and ends the kernel process (a node
+ * process taking a SIGINT every few milliseconds around such calls died within a few signals on
+ * this machine; test/kernel/interrupt-target.test.ts shows it). So the
  * script itself marks IN_VM as its first statement and clears it in a `finally` as its last: the
  * watchdog is running whenever IN_VM names a cell. The control thread sends a SIGINT only after
  * swapping IN_VM from k to -k (compare-and-swap); a cell leaving its script while IN_VM is -k
@@ -37,7 +41,7 @@ const IN_VM = 3;
 const ENTERED = 4;
 const WORDS = 8;
 
-/** The buffer both threads use (the control thread gets it by message at start). */
+/** The buffer both threads use (the control thread gets it in its workerData). */
 export const interruptState = new SharedArrayBuffer(WORDS * 4);
 const shared = new Int32Array(interruptState);
 
