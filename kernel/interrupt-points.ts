@@ -23,7 +23,7 @@
  * there), and work the interrupted cell left scheduled that runs no cell loop.
  */
 import { createRequire } from "node:module";
-import { pointShouldStop } from "./interrupt-target.js";
+import { CHECK_EVERY, passCounter, pointShouldStop } from "./interrupt-target.js";
 
 /** The name of the global the points call; a reserved-looking name no notebook is expected to use. */
 export const INTERRUPT_POINT = "__hushInterruptPoint";
@@ -48,9 +48,12 @@ export class CellInterrupted extends Error {
  */
 export function installInterruptPoint(): void {
   if (Object.prototype.hasOwnProperty.call(globalThis, INTERRUPT_POINT)) return;
+  const { words, index } = passCounter;
   Object.defineProperty(globalThis, INTERRUPT_POINT, {
     value: function interruptPoint(cell: number): void {
-      if (pointShouldStop(cell)) throw new CellInterrupted();
+      // The counter wraps around harmlessly; its increment races only with the control thread's
+      // store of the next check, which it repeats.
+      if ((++words[index] & (CHECK_EVERY - 1)) === 0 && pointShouldStop(cell)) throw new CellInterrupted();
     },
     enumerable: false,
     writable: false,

@@ -12,10 +12,10 @@
 import { spawnSync } from "node:child_process";
 import { existsSync } from "node:fs";
 import { fileURLToPath } from "node:url";
-import { runInNewContext } from "node:vm";
+import { runInNewContext, runInThisContext } from "node:vm";
+import { INTERRUPTED_MESSAGE, installInterruptPoint, withInterruptPoints } from "../../kernel/interrupt-points.js";
 import { describe, expect, it } from "vitest";
 import {
-  CHECK_EVERY,
   InterruptSender,
   VM_MARK,
   armVm,
@@ -29,10 +29,9 @@ import {
   pointShouldStop,
 } from "../../kernel/interrupt-target.js";
 
-/** Does a point of cell `c` stop within one full round of the pass counter? */
+/** Does a point of cell `c` stop (checked as on a point's CHECK_EVERY-th pass)? */
 function stops(c: number): boolean {
-  for (let i = 0; i < CHECK_EVERY; i++) if (pointShouldStop(c)) return true;
-  return false;
+  return pointShouldStop(c);
 }
 
 const mark = (k: number, entering: number): void =>
@@ -142,6 +141,19 @@ describe("interrupt targets (shared words, fake SIGINT)", () => {
     disarmVm(k);
     expect(sender.signal(k)).toBe("over");
     endCell(k);
+  });
+
+  it("a cell's loop stops at its points on its interrupt; the next cell's loop runs to its end", () => {
+    installInterruptPoint();
+    const sender = new InterruptSender(interruptState, () => {});
+    const k = beginCell();
+    expect(sender.request()).toBe(k);
+    expect(() => runInThisContext(withInterruptPoints("for (;;) {}", k))).toThrow(INTERRUPTED_MESSAGE);
+    endCell(k);
+    const next = beginCell();
+    const counted = "(() => { let n = 0; for (let i = 0; i < 100000; i++) n++; return n; })()";
+    expect(runInThisContext(withInterruptPoints(counted, next))).toBe(100000);
+    endCell(next);
   });
 
   it("the marked script keeps its completion value", () => {
