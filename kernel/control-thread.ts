@@ -4,42 +4,42 @@
  * heartbeat threads).
  *
  * Every correctly signed control message is forwarded to the main thread, which dispatches it on
- * the one dispatch path. An `interrupt_request` additionally raises SIGINT on this process first:
- * a synchronous cell runs under `vm` with `breakOnSigint`, so the signal stops it; an awaiting cell
- * is stopped by the main thread's SIGINT listener, and its loops by the shared interrupt flag this
- * thread raises (interrupt-points.ts). Badly signed messages are dropped here.
- *
- * The main thread reports each cell's start and end (it can post while a cell blocks it later),
- * so SIGINT is raised only while a cell runs, and raised again until that cell ends: a signal
- * that lands while the cell is still being compiled is taken by the listener, not by `vm`, and
- * would otherwise leave a busy loop running.
+ * the one dispatch path. An `interrupt_request` is first aimed at the cell running when it
+ * arrives, read from memory shared with the main thread (interrupt-target.ts), and dropped when
+ * none runs: the cell's number is recorded as interrupted (interrupt points in its loops and its
+ * `vm` call read it), its first synchronous stretch gets one SIGINT while it runs inside `vm` (at
+ * once, or as soon as it gets there if it is still compiling), and the forwarded message carries
+ * the number, so the main thread stops awaiting that cell and no other. Badly signed messages are
+ * dropped here.
  */
 import { parentPort, workerData } from "node:worker_threads";
 import * as zmq from "zeromq";
 import { endpoint, type ConnectionInfo } from "./connection.js";
 import { DELIMITER, Signer } from "./wire.js";
 import { isHushError } from "../runtime/errors.js";
-import { raiseInterrupt } from "./interrupt-points.js";
+import { InterruptSender } from "./interrupt-target.js";
 
+export interface ControlData {
+  info: ConnectionInfo;
+  /** Memory shared with the main thread: which cell runs, which one is interrupted (interrupt-target.ts). */
+  interruptState: SharedArrayBuffer;
+}
 export type ToMain =
   | { type: "ready" }
-  | { type: "message"; frames: Uint8Array[] }
+  /** `interrupted`: the cell an interrupt_request was aimed at, else 0. */
+  | { type: "message"; frames: Uint8Array[]; interrupted: number }
   | { type: "failed"; message: string };
-export type ToControl =
-  | { type: "send"; frames: Uint8Array[] }
-  | { type: "cell"; running: boolean }
-  /** The interrupt flag shared with the main thread (interrupt-points.ts), sent once at start. */
-  | { type: "flag"; buffer: SharedArrayBuffer }
-  | { type: "close" };
+export type ToControl = { type: "send"; frames: Uint8Array[] } | { type: "close" };
 
-/** Interval between repeated SIGINTs while the interrupted cell still runs, and their number. */
-const REPEAT_MS = 150;
-const REPEAT_MAX = 40;
+/** While an interrupted cell has not reached `vm` yet: how often to look again. */
+const SIGNAL_POLL_MS = 5;
+/** While an interrupted cell still runs: how often the point counter is moved to its next check. */
+const NUDGE_MS = 150;
 
 async function main(): Promise<void> {
   const port = parentPort;
   if (!port) throw new Error("control-thread must run as a worker");
-  const info = workerData as ConnectionInfo;
+  const { info, interruptState } = workerData as ControlData;
   const signer = new Signer(info.signature_scheme, info.key);
   const control = new zmq.Router();
   const hb = new zmq.Reply();
@@ -53,35 +53,41 @@ async function main(): Promise<void> {
     return;
   }
 
-  let sending: Promise<void> = Promise.resolve();
-  let cell = 0; // increases when a cell starts
-  let running = false;
-  let flag: SharedArrayBuffer | null = null;
-  const interrupt = (): void => {
-    if (!running) return;
-    const target = cell;
-    // Stops cell loops running after an `await`, even while they block the main thread.
-    if (flag) raiseInterrupt(flag);
-    process.kill(process.pid, "SIGINT");
-    let repeats = 0;
-    const timer = setInterval(() => {
-      if (!running || cell !== target || ++repeats > REPEAT_MAX) clearInterval(timer);
-      else {
-        if (flag) raiseInterrupt(flag);
-        process.kill(process.pid, "SIGINT");
+  const sender = new InterruptSender(interruptState);
+  /** The cell being followed after an interrupt (one at a time: cells run one after another). */
+  let following = 0;
+  const interrupt = (): number => {
+    const k = sender.request();
+    if (k === 0 || k === following) return k;
+    following = k;
+    let lastNudge = Date.now();
+    let signalled = false;
+    const step = (): void => {
+      if (following !== k) return;
+      if (!sender.pending(k)) {
+        following = 0;
+        return;
       }
-    }, REPEAT_MS);
+      if (!signalled) {
+        try {
+          signalled = sender.signal(k) !== "wait";
+        } catch (e: unknown) {
+          signalled = true;
+          process.stderr.write(`hush kernel: could not send SIGINT to cell ${k}: ${e instanceof Error ? e.message : String(e)}\n`);
+        }
+      }
+      if (Date.now() - lastNudge >= NUDGE_MS) {
+        sender.nudge();
+        lastNudge = Date.now();
+      }
+      setTimeout(step, signalled ? NUDGE_MS : SIGNAL_POLL_MS).unref();
+    };
+    step();
+    return k;
   };
+
+  let sending: Promise<void> = Promise.resolve();
   port.on("message", (m: ToControl) => {
-    if (m.type === "flag") {
-      flag = m.buffer;
-      return;
-    }
-    if (m.type === "cell") {
-      if (m.running) cell += 1;
-      running = m.running;
-      return;
-    }
     if (m.type === "close") {
       void sending.finally(() => {
         control.close();
@@ -103,8 +109,8 @@ async function main(): Promise<void> {
     for await (const frames of control) {
       const type = verifiedType(frames, signer);
       if (type === null) continue;
-      if (type === "interrupt_request") interrupt();
-      port.postMessage({ type: "message", frames } satisfies ToMain);
+      const interrupted = type === "interrupt_request" ? interrupt() : 0;
+      port.postMessage({ type: "message", frames, interrupted } satisfies ToMain);
     }
   } catch (e: unknown) {
     ignoreClosed(e);

@@ -3,9 +3,11 @@
  * and its converter, which runs on the language service's thread (completion-service.ts); answers
  * completion, inspection and is-complete. Knows nothing about the wire protocol.
  *
- * Interruption: a synchronous cell runs under `vm.runInThisContext({ breakOnSigint: true })`
- * inside tslab, so a SIGINT stops it; a cell awaiting at top level is raced against tslab's
- * interrupt promise, so `interrupt()` stops waiting for it. Work the interrupted async cell had
+ * Interruption (aimed at one cell by its number, interrupt-target.ts): a cell's first synchronous
+ * stretch runs under `vm.runInThisContext({ breakOnSigint: true })` inside tslab, so a SIGINT the
+ * control thread sends while it runs stops it; a cell interrupted before that stretch starts
+ * (while compiling) does not start it. A cell awaiting at top level is raced against tslab's
+ * interrupt promise, so `interrupt(k)` stops waiting for it. Work the interrupted async cell had
  * already scheduled (timers, pending promises) keeps running in the background: a promise cannot
  * be cancelled from outside. Code after an `await` is stopped at interrupt points the converter
  * adds to every loop of the cell (interrupt-points.ts).
@@ -19,20 +21,33 @@ import { type CellError, diagnosticText, readableError, registerCell } from "./c
 import { hasTopLevelAwait } from "./top-level-await.js";
 import { languageService } from "./completion-service.js";
 import { lookupPath, quickComplete, type Completion } from "./completion-quick.js";
-import { clearInterrupt, installInterruptPoint, withInterruptPoints } from "./interrupt-points.js";
+import { CellInterrupted, installInterruptPoint, withInterruptPoints } from "./interrupt-points.js";
+import { armVm, disarmVm, installVmMark, interruptedCell, markedScript, runningCell } from "./interrupt-target.js";
 
 export type { CellError } from "./cell-errors.js";
 
 // tslab runs each cell with vm.runInThisContext and no file name. The next call gets the name the
-// cell was registered under (cell-errors.ts), so its stack frames say which cell holds the code.
+// cell was registered under (cell-errors.ts), so its stack frames say which cell holds the code,
+// and, for a cell of an execute request, marks where the cell's script runs (interrupt-target.ts).
 let nextFileName: string | null = null;
+let nextCell = 0;
 const runInThisContext = vm.runInThisContext;
 if (!(runInThisContext as { hushNamed?: boolean }).hushNamed) {
   const named = function (code: string, options?: vm.RunningScriptOptions | string): unknown {
     const filename = nextFileName;
+    const cell = nextCell;
     nextFileName = null;
+    nextCell = 0;
     if (filename === null || typeof options === "string") return runInThisContext.call(vm, code, options);
-    return runInThisContext.call(vm, code, { ...options, filename });
+    if (cell === 0) return runInThisContext.call(vm, code, { ...options, filename });
+    // Interrupted while compiling: the cell's code does not start.
+    if (interruptedCell(cell)) throw new CellInterrupted();
+    armVm(cell);
+    try {
+      return runInThisContext.call(vm, markedScript(code, cell), { ...options, filename });
+    } finally {
+      disarmVm(cell);
+    }
   };
   (named as { hushNamed?: boolean }).hushNamed = true;
   vm.runInThisContext = named as typeof vm.runInThisContext;
@@ -87,7 +102,8 @@ export interface Execution {
   /** The values of the cells' own variables (data properties only; at most `max`). */
   cellValues(max: number): unknown[];
   isComplete(code: string): { status: "complete" | "incomplete" | "invalid"; indent?: string };
-  interrupt(): void;
+  /** Interrupts cell `k` (interrupt-target.ts) if it is the one running; otherwise does nothing. */
+  interrupt(k: number): void;
   /** Forgets every variable and declaration of earlier cells. */
   reset(): void;
   close(): void;
@@ -121,7 +137,8 @@ export function createExecution(opts: ExecutionOptions): Execution {
       if (converted.output) {
         // Lines are mapped on the converter's output; interrupt points keep every line where it is.
         nextFileName = registerCell(src, converted.output, runningCount);
-        converted.output = withInterruptPoints(converted.output);
+        nextCell = runningCell();
+        converted.output = withInterruptPoints(converted.output, nextCell);
       }
       return converted;
     },
@@ -177,6 +194,7 @@ export function createExecution(opts: ExecutionOptions): Execution {
   };
   installGlobals();
   installInterruptPoint();
+  installVmMark();
 
   // tslab rewrites uses of earlier cells' names to `exports.<name>` but misses shorthand
   // properties (`{ total }` stays a bare `total`). Bare names resolve on the global object, so
@@ -202,13 +220,13 @@ export function createExecution(opts: ExecutionOptions): Execution {
       result = null;
       failures = [];
       runningCount = count;
-      clearInterrupt();
       // Asks made by this code (now or later, from work it started) carry its source digest.
       let ok: boolean;
       try {
         ok = await runAsCell(code, () => executor.execute(code));
       } finally {
         nextFileName = null;
+        nextCell = 0;
       }
       exposeLocals();
       if (!ok || failures.length > 0) return { status: "error", ...describeFailures(failures, count) };
@@ -235,7 +253,10 @@ export function createExecution(opts: ExecutionOptions): Execution {
       return out;
     },
     isComplete,
-    interrupt: () => executor.interrupt(),
+    // Only the cell it is for: tslab's interrupt rejects whichever top-level await is raced now.
+    interrupt: (k) => {
+      if (k !== 0 && runningCell() === k) executor.interrupt();
+    },
     reset() {
       executor.reset();
       for (const name of exposed) delete (globalThis as Record<string, unknown>)[name];

@@ -31,8 +31,10 @@ export interface KernelParts {
   /** Closes the cell API session if it was ever loaded. */
   closeSession(): Promise<void>;
   history: History;
-  /** Told when a cell starts and ends running (interrupts target only a running cell). */
-  cellRunning(running: boolean): void;
+  /** Numbers a cell as it starts running (interrupts target only the running cell: interrupt-target.ts). */
+  beginCell(): number;
+  /** Told when cell `k` ends. */
+  endCell(k: number): void;
   /** Closes sockets and the session, then ends the process. */
   exit(): Promise<void>;
 }
@@ -110,14 +112,14 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
       const count = executionCount;
       const engine = await parts.engine();
       const { execution, session } = engine;
-      // Reported before execute_input, so an interrupt sent on seeing it finds the cell running.
-      parts.cellRunning(true);
+      // Begun before execute_input, so an interrupt sent on seeing it finds the cell running.
+      const cell = parts.beginCell();
       let outcome: Awaited<ReturnType<Execution["run"]>>;
       try {
         if (!c.silent) await ctx.publish("execute_input", { code: c.code, execution_count: count });
         outcome = await execution.run(c.code, counted ? count : null);
       } finally {
-        parts.cellRunning(false);
+        parts.endCell(cell);
       }
       let resultText: string | null = null;
       if (outcome.status === "ok" && outcome.hasValue && !c.silent) {
@@ -203,8 +205,9 @@ export function createHandlers(parts: KernelParts): { table: HandlerTable; abort
     async comm_close() {},
 
     async interrupt_request(_msg, ctx) {
-      // The control thread has already raised SIGINT (if a cell runs), whose listener interrupts
-      // the cell; doing it here again could hit the next queued cell instead.
+      // The interrupt itself was aimed at the cell running when the control thread received the
+      // request, before it reached this queue (interrupt-target.ts, kernel.ts); acting here could
+      // hit a later cell instead.
       await ctx.reply("interrupt_reply", { status: "ok" });
     },
 

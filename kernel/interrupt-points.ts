@@ -9,17 +9,21 @@
  * kernel itself).
  *
  * So every loop in a cell's compiled JavaScript gets an interrupt point: its body `B` becomes
- * `{ __hushInterruptPoint(); B }`. The point reads a shared 32-bit flag (a SharedArrayBuffer the
- * control thread also holds); the control thread sets it on `interrupt_request` while a cell runs,
- * even while the main thread is blocked, and a pass through any cell loop soon after throws
- * `CellInterrupted`. The point sits in front of the body, so a `try` inside the loop does not
- * catch it; a `try` around a loop can, but the flag stays set until the next cell starts, so every
- * further loop pass throws again. Edits add no line breaks: line numbers of errors stay the cell's.
+ * `{ __hushInterruptPoint(k); B }`, k being the cell's number (interrupt-target.ts). The point
+ * reads shared memory the control thread also holds; on `interrupt_request` the control thread
+ * records there which cell the interrupt is for, even while the main thread is blocked, and a
+ * pass through a cell loop soon after throws `CellInterrupted`: any loop while that cell still
+ * runs (its own, or one an earlier cell left behind), and between cells only the interrupted
+ * cell's own, until the next cell starts. A later cell's loops never see an earlier interrupt.
+ * The point sits in front of the body, so a `try` inside the loop does not catch it; a `try`
+ * around a loop can, but every further loop pass throws again. Edits add no line breaks: line
+ * numbers of errors stay the cell's.
  *
  * Not covered: a loop inside library code a cell calls after an `await` (no point is inserted
  * there), and work the interrupted cell left scheduled that runs no cell loop.
  */
 import { createRequire } from "node:module";
+import { CHECK_EVERY, passCounter, pointShouldStop } from "./interrupt-target.js";
 
 /** The name of the global the points call; a reserved-looking name no notebook is expected to use. */
 export const INTERRUPT_POINT = "__hushInterruptPoint";
@@ -35,42 +39,21 @@ export class CellInterrupted extends Error {
 }
 
 /**
- * Shared with the control thread: [0] the flag (0 = run on, 1 = interrupt requested), [1] a pass
- * counter. A point reads the flag (an atomic load, the only read another thread's store is sure to
- * reach) on every CHECK_EVERY-th pass only: a load on every pass made the tightest loops about six
+ * Defines the global the points call (non-enumerable, not writable: a cell cannot replace it).
+ * A point reads the shared target (an atomic load, the only read another thread's store is sure
+ * to reach) on every 256th pass only: a load on every pass made the tightest loops about six
  * times slower, this about two. So that a loop with slow passes (each calling into a library,
- * say) need not make that many passes first, raising the interrupt also sets the counter to one
- * short of a check, and the control thread raises it again every 150 ms while the cell runs.
+ * say) need not make that many passes first, raising an interrupt also sets the pass counter to
+ * one short of a check, and the control thread does so again every 150 ms while the cell runs.
  */
-export const interruptFlag = new SharedArrayBuffer(8);
-const shared = new Int32Array(interruptFlag);
-/** Passes between two reads of the flag (a power of two). */
-const CHECK_EVERY = 256;
-
-/** Raises the flag of a shared buffer (called on the control thread, which gets the buffer by message). */
-export function raiseInterrupt(buffer: SharedArrayBuffer): void {
-  const view = new Int32Array(buffer);
-  Atomics.store(view, 0, 1);
-  Atomics.store(view, 1, CHECK_EVERY - 1);
-}
-
-/** Clears the flag; called when a cell starts, so an old interrupt does not hit the new cell. */
-export function clearInterrupt(): void {
-  Atomics.store(shared, 0, 0);
-}
-
-export function interruptRequested(): boolean {
-  return Atomics.load(shared, 0) !== 0;
-}
-
-/** Defines the global the points call (non-enumerable, not writable: a cell cannot replace it). */
 export function installInterruptPoint(): void {
   if (Object.prototype.hasOwnProperty.call(globalThis, INTERRUPT_POINT)) return;
+  const { words, index } = passCounter;
   Object.defineProperty(globalThis, INTERRUPT_POINT, {
-    value: function interruptPoint(): void {
-      // The counter wraps around harmlessly; its increment races only with raiseInterrupt's store,
-      // which the control thread repeats.
-      if ((++shared[1] & (CHECK_EVERY - 1)) === 0 && Atomics.load(shared, 0) !== 0) throw new CellInterrupted();
+    value: function interruptPoint(cell: number): void {
+      // The counter wraps around harmlessly; its increment races only with the control thread's
+      // store of the next check, which it repeats.
+      if ((++words[index] & (CHECK_EVERY - 1)) === 0 && pointShouldStop(cell)) throw new CellInterrupted();
     },
     enumerable: false,
     writable: false,
@@ -98,9 +81,10 @@ let ts: Ts | null = null;
 
 /**
  * `js` with an interrupt point at the start of every loop body (while, do-while, for, for-in,
- * for-of, for-await). Returns `js` unchanged when it has no loop.
+ * for-of, for-await), each naming cell `cell` (0: code run outside any cell request). Returns
+ * `js` unchanged when it has no loop.
  */
-export function withInterruptPoints(js: string): string {
+export function withInterruptPoints(js: string, cell = 0): string {
   if (!/\b(?:while|for|do)\b/.test(js)) return js;
   ts ??= require("@tslab/typescript-for-tslab") as Ts;
   const t = ts;
@@ -119,7 +103,7 @@ export function withInterruptPoints(js: string): string {
   // Insertions at each position, applied from the end so earlier offsets stay valid.
   const inserts: Array<{ at: number; text: string }> = [];
   for (const b of bodies) {
-    inserts.push({ at: b.start, text: `{${INTERRUPT_POINT}();` });
+    inserts.push({ at: b.start, text: `{${INTERRUPT_POINT}(${cell});` });
     inserts.push({ at: b.end, text: "}" });
   }
   // Same position: closing braces (of inner bodies) before opening ones; stable otherwise.

@@ -12,6 +12,7 @@ import { History } from "./history.js";
 import { errorText, kernelLog } from "./log.js";
 import { Output } from "./output.js";
 import { loadSession, type CellHost, type CellSession, type MimeBundle } from "./session-loader.js";
+import { beginCell, endCell, interruptRunningCell } from "./interrupt-target.js";
 import { openSockets } from "./sockets.js";
 import { Signer } from "./wire.js";
 
@@ -119,14 +120,17 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
     warm,
     closeSession,
     history: new History(),
-    cellRunning: (running) => sockets.cellRunning(running),
+    beginCell,
+    endCell,
     exit,
   });
   dispatcher = new Dispatcher({ signer, session: sessionId, send: sockets.send, output, handlers: table, aborted });
   const d = dispatcher;
 
   output.captureStdio();
-  process.on("SIGINT", () => execution?.interrupt());
+  // The kernel's own interrupts never reach this listener (interrupt-target.ts); a SIGINT from
+  // outside (Ctrl-C, `interrupt_mode: "signal"`) interrupts whichever cell runs when it is heard.
+  process.on("SIGINT", () => execution?.interrupt(interruptRunningCell()));
   process.on("uncaughtException", (e) => output.write("stderr", `Uncaught ${describeThrown(e).traceback.join("\n")}\n`));
   process.on("unhandledRejection", (e) =>
     output.write("stderr", `Unhandled rejection ${describeThrown(e).traceback.join("\n")}\n`),
@@ -137,7 +141,12 @@ export async function startKernel(info: ConnectionInfo, opts: { rootDir?: string
       .then(exit);
   });
 
-  sockets.onControl((frames) => void d.dispatch("control", frames));
+  sockets.onControl((frames, interrupted) => {
+    // An interrupt_request the control thread aimed at a running cell: stop awaiting it, if it
+    // still is the running one (execution.ts checks). The request is then answered as usual.
+    if (interrupted !== 0) execution?.interrupt(interrupted);
+    void d.dispatch("control", frames);
+  });
   void (async () => {
     try {
       for await (const frames of sockets.shell) d.enqueueShell(frames);

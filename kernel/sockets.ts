@@ -8,10 +8,10 @@
 import { Worker } from "node:worker_threads";
 import * as zmq from "zeromq";
 import { endpoint, type ConnectionInfo } from "./connection.js";
-import type { ToControl, ToMain } from "./control-thread.js";
+import type { ControlData, ToControl, ToMain } from "./control-thread.js";
 import { UnreachableError } from "../runtime/errors.js";
 import { errorText, kernelLog } from "./log.js";
-import { interruptFlag } from "./interrupt-points.js";
+import { interruptState } from "./interrupt-target.js";
 
 export type ReplyChannel = "shell" | "control" | "stdin";
 
@@ -40,9 +40,11 @@ export interface KernelSockets {
   send(channel: ReplyChannel | "iopub", frames: Buffer[]): Promise<void>;
   /** Resolves once all iopub messages queued so far have been handed to ZeroMQ. */
   iopubDrained(): Promise<void>;
-  onControl(listener: (frames: Buffer[]) => void): void;
-  /** Tells the control thread whether a cell is running (interrupts only target a running cell). */
-  cellRunning(running: boolean): void;
+  /**
+   * Every signed control message; `interrupted` is the cell an interrupt_request was aimed at
+   * (interrupt-target.ts), 0 for other messages and for an interrupt received between cells.
+   */
+  onControl(listener: (frames: Buffer[], interrupted: number) => void): void;
   close(): Promise<void>;
 }
 
@@ -57,20 +59,22 @@ export async function openSockets(info: ConnectionInfo): Promise<KernelSockets> 
     stdin.bind(endpoint(info, "stdin")),
   ]);
 
-  const worker = new Worker(new URL("./control-thread.js", import.meta.url), { workerData: info, stderr: true });
+  const worker = new Worker(new URL("./control-thread.js", import.meta.url), {
+    workerData: { info, interruptState } satisfies ControlData,
+    stderr: true,
+  });
   // The worker's stderr would otherwise flow through process.stderr, which cells' output captures.
   worker.stderr.on("data", (chunk: Buffer) => kernelLog(chunk.toString("utf8").replace(/^hush kernel: /, "").trimEnd()));
-  let controlListener: ((frames: Buffer[]) => void) | null = null;
+  let controlListener: ((frames: Buffer[], interrupted: number) => void) | null = null;
   await new Promise<void>((resolve, reject) => {
     worker.on("message", (m: ToMain) => {
       if (m.type === "ready") resolve();
       else if (m.type === "failed") reject(new UnreachableError(`control/heartbeat sockets: ${m.message}`));
-      else controlListener?.(m.frames.map((f) => Buffer.from(f.buffer, f.byteOffset, f.byteLength)));
+      else controlListener?.(m.frames.map((f) => Buffer.from(f.buffer, f.byteOffset, f.byteLength)), m.interrupted);
     });
     worker.once("error", reject);
   });
   worker.unref();
-  worker.postMessage({ type: "flag", buffer: interruptFlag } satisfies ToControl);
 
   const queues = {
     shell: new SendQueue((f) => shell.send(f)),
@@ -85,9 +89,6 @@ export async function openSockets(info: ConnectionInfo): Promise<KernelSockets> 
     iopubDrained: () => queues.iopub.drained(),
     onControl(listener) {
       controlListener = listener;
-    },
-    cellRunning(running) {
-      worker.postMessage({ type: "cell", running } satisfies ToControl);
     },
     async close() {
       await Promise.all(Object.values(queues).map((q) => q.drained()));

@@ -106,7 +106,8 @@ describe("withInterruptPoints", () => {
   it("puts a point in front of every loop body, keeping line numbers", () => {
     const js = "let s = 0;\nfor (let i = 0; i < 3; i++) s += i;\nwhile (s < 10) { s++; }\ndo s--; while (s > 5);\nfor (const k in {a: 1}) s++;\nfor (const v of [1]) s++;";
     const out = withInterruptPoints(js);
-    expect(out.split(`${INTERRUPT_POINT}();`).length - 1).toBe(5);
+    expect(out.split(`${INTERRUPT_POINT}(0);`).length - 1).toBe(5);
+    expect(withInterruptPoints("while (a) b();", 7)).toBe(`while (a) {${INTERRUPT_POINT}(7);b();}`);
     expect(out.split("\n").length).toBe(js.split("\n").length);
     expect(withInterruptPoints("const a = 1;")).toBe("const a = 1;");
   });

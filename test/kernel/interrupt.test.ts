@@ -1,6 +1,8 @@
 /**
- * interrupt_request (interrupt_mode "message"): the control thread raises SIGINT, which stops a
- * synchronous cell (vm breakOnSigint) and stops waiting for an awaiting cell.
+ * interrupt_request (interrupt_mode "message"): aimed at the cell running when the control thread
+ * receives it (kernel/interrupt-target.ts). It stops that cell's synchronous stretch (one SIGINT
+ * while it runs inside vm, breakOnSigint), its loops after an await (interrupt points), and the
+ * wait for its top-level await; it never reaches a later cell, and is dropped between cells.
  */
 import { existsSync, mkdtempSync } from "node:fs";
 import { tmpdir } from "node:os";
@@ -17,8 +19,7 @@ afterAll(async () => {
   await k?.shutdown().catch(() => k.kill());
 });
 
-/** Resolves once `path` exists (checked every 20 ms; bounded by the test timeout). */
-/** Waits for the cell's marker file; fails at once if the cell ends first (with its reply). */
+/** Waits for the cell's marker file (checked every 20 ms); fails at once if the cell ends first (with its reply). */
 async function fileAppears(path: string, exec?: Promise<{ reply: unknown }>): Promise<void> {
   let ended: { reply: unknown } | null = null;
   void exec?.then((r) => (ended = r));
@@ -27,12 +28,6 @@ async function fileAppears(path: string, exec?: Promise<{ reply: unknown }>): Pr
     await new Promise((r) => setTimeout(r, 20));
   }
 }
-
-// A known race, open: under heavy load a SIGINT meant for an interrupt can land in a later cell
-// (the process's SIGINT listener, tslab's breakOnSigint), which then ends "Interrupted" before it
-// writes its marker. The marker tests fail fast on that and are tried again (up to twice) in the
-// same kernel; a kernel that cannot be interrupted at all still fails every attempt.
-const MARKER_RETRY = { retry: 2 };
 
 it("interrupts a cell awaiting in a loop, then runs the next cell", async () => {
   let started!: () => void;
@@ -51,7 +46,7 @@ it("interrupts a cell awaiting in a loop, then runs the next cell", async () => 
   expect((await k.execute("(globalThis as any).stopLoop = true; 'next'")).reply.status).toBe("ok");
 });
 
-it("interrupts a synchronous busy loop", MARKER_RETRY, async () => {
+it("interrupts a synchronous busy loop", async () => {
   const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
   const exec = k.execute(
     `import { writeFileSync } from "fs";\nwriteFileSync(${JSON.stringify(marker)}, "x");\nlet spins = 0;\nwhile (true) { spins++; }`,
@@ -84,7 +79,7 @@ it("answers interrupt_request when nothing runs, and keeps working", async () =>
   expect((await k.execute("21 * 2")).outputs[0]).toMatchObject({ data: { "text/plain": "42" } });
 });
 
-it("interrupts a busy loop that runs after an await, then answers the next cell", MARKER_RETRY, async () => {
+it("interrupts a busy loop that runs after an await, then answers the next cell", async () => {
   const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
   // After the await the loop runs as a promise continuation, outside tslab's vm call, so a SIGINT
   // alone cannot stop it; the interrupt point in the loop body does.
@@ -99,7 +94,7 @@ it("interrupts a busy loop that runs after an await, then answers the next cell"
   expect(after.outputs[0]).toMatchObject({ data: { "text/plain": "'answers after an interrupted async loop'" } });
 });
 
-it("an interrupt point is not swallowed by a try inside the loop", MARKER_RETRY, async () => {
+it("an interrupt point is not swallowed by a try inside the loop", async () => {
   const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
   const exec = k.execute(
     `import { writeFileSync } from "fs";\nawait Promise.resolve();\nwriteFileSync(${JSON.stringify(marker)}, "x");\nfor (;;) { try { for (;;) {} } catch { /* swallowed */ } }`,
@@ -110,7 +105,7 @@ it("an interrupt point is not swallowed by a try inside the loop", MARKER_RETRY,
   expect((await k.execute("1 + 1")).outputs[0]).toMatchObject({ data: { "text/plain": "2" } });
 });
 
-it("interrupts a loop with slow passes after an await without waiting for many passes", { ...MARKER_RETRY, timeout: 30_000 }, async () => {
+it("interrupts a loop with slow passes after an await without waiting for many passes", { timeout: 30_000 }, async () => {
   const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "spinning");
   // Each pass blocks 200 ms in a library call (no cell loop inside it). The points read the flag
   // on every 256th pass only; the interrupt also moves the pass counter to the next check, so
@@ -122,4 +117,61 @@ it("interrupts a loop with slow passes after an await without waiting for many p
   await k.interrupt();
   expect((await exec).reply).toMatchObject({ status: "error", ename: "Interrupted" });
   expect((await k.execute("'after slow passes'")).outputs[0]).toMatchObject({ data: { "text/plain": "'after slow passes'" } });
+});
+
+it("stops a synchronous stretch that runs no loop (only the SIGINT reaches it)", async () => {
+  const marker = join(mkdtempSync(join(tmpdir(), "hush-int-")), "waiting");
+  // Atomics.wait without a time limit: no interrupt point runs; the SIGINT's termination wakes it.
+  const exec = k.execute(
+    `import { writeFileSync } from "fs";\nwriteFileSync(${JSON.stringify(marker)}, "x");\nAtomics.wait(new Int32Array(new SharedArrayBuffer(4)), 0, 0);`,
+  );
+  await fileAppears(marker, exec);
+  await k.interrupt();
+  expect((await exec).reply).toMatchObject({ status: "error", ename: "Interrupted" });
+  expect((await k.execute("'after a wait'")).outputs[0]).toMatchObject({ data: { "text/plain": "'after a wait'" } });
+});
+
+/**
+ * A cell that notices any interrupt mechanism: loops in its synchronous stretch (SIGINT and
+ * points), a top-level await (tslab's race) and loops after it (points). Value: `tag`.
+ */
+const SENSITIVE = (tag: string): string =>
+  `let s = 0;\nfor (let i = 0; i < 300000; i++) s += i % 7;\nawait new Promise((r) => setTimeout(r, 20));\nfor (let i = 0; i < 300000; i++) s += i % 7;\n${JSON.stringify(tag)}`;
+
+it("an interrupt answered after its cell ended does not stop the next cell", { timeout: 120_000 }, async () => {
+  for (let round = 0; round < 8; round++) {
+    const a = await k.execute(`let t${round} = 0;\nfor (let i = 0; i < ${1000 * round}; i++) t${round} += i;\nt${round}`);
+    expect(a.reply.status).toBe("ok");
+    // Sent once the cell's reply is in: no cell runs, so the kernel drops it.
+    await k.interrupt();
+    const b = await k.execute(SENSITIVE(`b${round}`));
+    expect(b.reply, `round ${round}`).toMatchObject({ status: "ok" });
+    expect(b.outputs[0]).toMatchObject({ data: { "text/plain": `'b${round}'` } });
+  }
+});
+
+it("many interrupts around a cell's end stop at most that cell, never the next one", { timeout: 180_000 }, async () => {
+  let stopped = 0;
+  const rounds = 12;
+  for (let round = 0; round < rounds; round++) {
+    // A: a synchronous loop of varied length, an await, and a loop after it; interrupts are sent
+    // 0 to 60 ms after it, some landing in each part, some after it ended.
+    const spin = 20_000 * (round % 7);
+    const a = k.execute(
+      `let u = 0;\nfor (let i = 0; i < ${spin}; i++) u += i % 3;\nawait new Promise((r) => setTimeout(r, ${round % 4}));\nfor (let i = 0; i < ${spin}; i++) u += i % 3;\nu`,
+    );
+    const interrupts = [0, 3, 10, 25, 60].map((ms) => new Promise((r) => setTimeout(r, ms)).then(() => k.interrupt()));
+    const ra = await a;
+    if (ra.reply.status === "error") {
+      expect(ra.reply).toMatchObject({ ename: "Interrupted" });
+      stopped++;
+    }
+    await Promise.all(interrupts);
+    // Every interrupt has been answered: the next cell must run to its end.
+    const b = await k.execute(SENSITIVE(`after ${round}`));
+    expect(b.reply, `round ${round}`).toMatchObject({ status: "ok" });
+    expect(b.outputs[0]).toMatchObject({ data: { "text/plain": `'after ${round}'` } });
+  }
+  // The interrupts did reach cells (those sent while A ran).
+  expect(stopped).toBeGreaterThan(0);
 });
