@@ -9,7 +9,7 @@
 import { BadInputError } from "../errors.js";
 import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
-import { sampleDiscreteGaussian, sampleDiscreteLaplace } from "./samplers.js";
+import { sampleDiscreteGaussian, sampleDiscreteGaussianNumber, sampleDiscreteLaplace, sampleDiscreteLaplaceNumber } from "./samplers.js";
 
 export type PrivacyParam = { epsilon: Rational } | { rho: Rational };
 export type NoiseLaw = { family: "discrete-laplace"; scale: Rational } | { family: "discrete-gaussian"; sigma2: Rational };
@@ -69,6 +69,17 @@ export function addNoise(value: bigint, law: NoiseLaw, bits: Bits): bigint {
 export function drawNoise(law: NoiseLaw, bits: Bits): bigint {
   if (law.family === "discrete-laplace") return sampleDiscreteLaplace(law.scale, bits);
   if (law.family === "discrete-gaussian") return sampleDiscreteGaussian(law.sigma2, bits);
+  checkLaw(law);
+  throw new BadInputError("unknown noise family");
+}
+
+/**
+ * drawNoise's draw, bit for bit, as a number when it is an integer of magnitude at most 2^52 on the
+ * samplers' number path, else as a bigint. For loops that keep many draws (the quantile calibration).
+ */
+export function drawNoiseNumber(law: NoiseLaw, bits: Bits): number | bigint {
+  if (law.family === "discrete-laplace") return sampleDiscreteLaplaceNumber(law.scale, bits);
+  if (law.family === "discrete-gaussian") return sampleDiscreteGaussianNumber(law.sigma2, bits);
   checkLaw(law);
   throw new BadInputError("unknown noise family");
 }

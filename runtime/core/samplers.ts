@@ -184,6 +184,24 @@ export function sampleDiscreteLaplace(scale: Rational, bits: Bits): bigint {
   return plan.small ? laplaceSmall(plan.tn, plan.td, bits) : laplaceBig(plan.tnBig, plan.tdBig, bits);
 }
 
+/**
+ * The same draw as sampleDiscreteLaplace, bit for bit, as a number when the number path holds it
+ * (|y| <= 2^52) and as a bigint otherwise: loops that keep many draws (the quantile calibration)
+ * avoid a bigint per draw.
+ */
+export function sampleDiscreteLaplaceNumber(scale: Rational, bits: Bits): number | bigint {
+  let plan: LaplacePlan;
+  if (scale === lastScale && lastLaplace !== null) plan = lastLaplace;
+  else {
+    plan = laplacePlan(scale);
+    lastScale = scale;
+    lastLaplace = plan;
+  }
+  if (!plan.small) return laplaceBig(plan.tnBig, plan.tdBig, bits);
+  const r = laplaceNum(plan.tn, plan.td, bits);
+  return r === r ? r : overflowDraw;
+}
+
 /** The bigint-only transcription of algorithm C, exported so tests can check it separately. */
 export function sampleDiscreteLaplaceBig(scale: Rational, bits: Bits): bigint {
   const p = laplacePlan(scale);
@@ -251,11 +269,23 @@ function gaussPlan(sigma2: Rational): GaussPlan {
 
 /** Algorithm D with number-path proposals (requires p.small). */
 function gaussSmall(p: GaussPlan, bits: Bits): bigint {
+  const r = gaussNum(p, bits);
+  return r === r ? BigInt(r) : overflowDraw;
+}
+
+/**
+ * gaussSmall's draw as a number, or NaN after storing it in overflowDraw when the proposal left
+ * the number range (laplaceNum).
+ */
+function gaussNum(p: GaussPlan, bits: Bits): number {
   for (;;) {
     const y = laplaceNum(p.lap.tn, p.lap.td, bits);
     if (y !== y) {
       const yb = overflowDraw;
-      if (gaussAcceptBig(p, yb < 0n ? -yb : yb, bits)) return yb;
+      if (gaussAcceptBig(p, yb < 0n ? -yb : yb, bits)) {
+        overflowDraw = yb;
+        return NaN;
+      }
       continue;
     }
     const yn = Math.abs(y);
@@ -277,10 +307,10 @@ function gaussSmall(p: GaussPlan, bits: Bits): bigint {
       }
     }
     if (n >= 0) {
-      if (expSmall(n, p.gDenN, bits)) return BigInt(y);
+      if (expSmall(n, p.gDenN, bits)) return y;
       continue;
     }
-    if (gaussAcceptBig(p, BigInt(yn), bits)) return BigInt(y);
+    if (gaussAcceptBig(p, BigInt(yn), bits)) return y;
   }
 }
 
@@ -309,6 +339,20 @@ export function sampleDiscreteGaussian(sigma2: Rational, bits: Bits): bigint {
     lastGauss = plan;
   }
   return plan.small ? gaussSmall(plan, bits) : gaussBig(plan, bits);
+}
+
+/** The same draw as sampleDiscreteGaussian, bit for bit, as a number when it fits (see sampleDiscreteLaplaceNumber). */
+export function sampleDiscreteGaussianNumber(sigma2: Rational, bits: Bits): number | bigint {
+  let plan: GaussPlan;
+  if (sigma2 === lastSigma2 && lastGauss !== null) plan = lastGauss;
+  else {
+    plan = gaussPlan(sigma2);
+    lastSigma2 = sigma2;
+    lastGauss = plan;
+  }
+  if (!plan.small) return gaussBig(plan, bits);
+  const r = gaussNum(plan, bits);
+  return r === r ? r : overflowDraw;
 }
 
 /** Bigint-only path of algorithm D, exported so tests can check it separately. */
