@@ -166,19 +166,31 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
   const xn = Number(x);
   const on = Number(one);
   const trial = small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
+  // The exponents as numbers when they are safe integers (always, below the default cost cap):
+  // a bigint counter would allocate on every trial. Same trials either way.
+  const safe = d.every((c) => c <= 9007199254740991n);
+  const dn = safe ? Float64Array.from(d, (c) => Number(c)) : null;
   let made = 0;
   for (;;) {
     const j = bits.uniformSmall(m);
     made++;
-    let left = d[j];
     let accepted = true;
-    while (left > 0n) {
-      made++;
-      if (!trial()) {
-        accepted = false;
-        break;
+    if (dn !== null) {
+      for (let left = dn[j]; left > 0; left--) {
+        made++;
+        if (!trial()) {
+          accepted = false;
+          break;
+        }
       }
-      left--;
+    } else {
+      for (let left = d[j]; left > 0n; left--) {
+        made++;
+        if (!trial()) {
+          accepted = false;
+          break;
+        }
+      }
     }
     if (accepted) {
       for (let pad = paddedTrials(m, x, one) - made; pad > 0; pad--) trial();
