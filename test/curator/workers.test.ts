@@ -102,48 +102,6 @@ describe("curator worker pool", () => {
     await expect(pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 1000, 1000)).rejects.toBeInstanceOf(UnreachableError);
   });
 
-  it("warms a quantile's calibration on an idle worker while the SQL would run; its finish goes there, others elsewhere", async () => {
-    const pool = new WorkerPool(2);
-    pools.push(pool);
-    const recipe: QuantileRecipe = {
-      column: "x",
-      candidates: Array.from({ length: 101 }, (_, j) => BigInt(j)),
-      step: Rational.ONE,
-      parts: [{ p: Rational.of(1n, 2n), stat: "p50", epsilon: Rational.ONE }],
-      // scales used nowhere else, so each warm forms fresh cuts
-      treeLaw: { family: "discrete-laplace", scale: Rational.of(97n, 7n) },
-      confidence: 0.95,
-    };
-    const other: QuantileRecipe = { ...recipe, treeLaw: { family: "discrete-gaussian", sigma2: Rational.of(1001n, 7n) } };
-    // 40 rows at each of 0..100: the median is 50 (bucket j + 1 holds the value j).
-    const data: [bigint, bigint][] = Array.from({ length: 101 }, (_, j) => [BigInt(j + 1), 40n]);
-    expect(pool.warm("cells", COUNT)).toBeNull(); // nothing to form ahead
-    const a = pool.warm("quantile", recipe);
-    const b = pool.warm("quantile", other);
-    expect(a).not.toBeNull();
-    expect(b).not.toBeNull();
-    expect(a).not.toBe(b);
-    expect(pool.warm("quantile", recipe)).toBeNull(); // both workers are warming
-    const deadline = performance.now() + 30_000;
-    // Each quantile waits for its warming worker; the count waits for whichever is free first.
-    const [r1, r2, r3] = await Promise.all([
-      pool.run("quantile", recipe, data, deadline, 30_000, a),
-      pool.run("quantile", other, data, deadline, 30_000, b),
-      pool.run("cells", COUNT, [[1n], [2n]], deadline, 30_000),
-    ]);
-    for (const rows of [r1, r2]) {
-      expect(rows).toHaveLength(1);
-      // The released value is moved into its interval (finishers.ts quantile), within the range.
-      const [lo, v, hi] = [rows[0].low, rows[0].value, rows[0].high].map(Number);
-      expect(0 <= lo && lo <= v && v <= hi && hi <= 100).toBe(true);
-    }
-    expect(r3).toHaveLength(2);
-    // Through the Cpu a piece uses: warm, then finish.
-    const cpu = pool.cpu(deadline, 30_000);
-    cpu.warm?.("quantile", recipe);
-    expect(await cpu.finish("quantile", recipe, data)).toHaveLength(1);
-  });
-
   it("paces replies on a public ladder of slots", () => {
     // Work inside the first slot leaves at the first slot; longer work at the next doubling.
     expect(replySlot(3, 50, 30_000)).toBe(50);

@@ -45,12 +45,6 @@ export interface Piece {
  */
 export interface Cpu {
   finish<K extends keyof Finishers>(name: K, recipe: Parameters<Finishers[K]>[0], data: Parameters<Finishers[K]>[1]): Promise<ReleaseRow[]>;
-  /**
-   * Starts the part of a finisher that needs only its public recipe (finishers.ts WARMERS), so it
-   * overlaps the release's SQL; call it after starting the SQL and before awaiting it, then finish
-   * as usual. It never sees data and never draws from the release's bits.
-   */
-  warm?<K extends keyof Finishers>(name: K, recipe: Parameters<Finishers[K]>[0]): void;
 }
 
 /** Rows per privacy unit after bounding (1 when each row is its own unit). */

@@ -22,12 +22,10 @@ import {
   missOf,
   noisyTree,
   quantileInterval,
-  rankCuts,
   simulateIntervals,
   solveNormal,
   solveNormalInt,
   toColumnUnits,
-  treeDepth,
   varianceInterval,
 } from "../../core/index.js";
 import { Bits, type NoiseLaw } from "../../core/index.js";
@@ -490,25 +488,9 @@ function moments(r: MomentsRecipe, data: bigint[][], bits: Bits): ReleaseRow[] {
 
 export const FINISHERS: Finishers = { cells, mean, spread, quantile, moments, clamped };
 
-/**
- * Work a finisher can do from its recipe alone, before the data arrive (Cpu.warm): the quantile's
- * calibrated cuts (rankCuts), which depend on the tree's noise law, the depth, p and the miss only.
- * They are cached on the thread that forms them and drawn from calibrationBits, never from a
- * release's bits, so forming them early (or twice) changes nothing a release draws or releases.
- */
-export const WARMERS: { [K in FinisherName]?: (recipe: Parameters<Finishers[K]>[0]) => void } = {
-  quantile(r: QuantileRecipe): void {
-    const L = treeDepth(r.candidates.length);
-    const miss = missOf(r.confidence);
-    for (const x of r.parts) rankCuts(r.treeLaw, L, x.p, miss, calibrationBits);
-  },
-};
-
 /** A Cpu that runs the finishers on this thread with the given bits (tests that need reproducible noise). */
 export function onThisThread(bits: Bits): Cpu {
   return {
     finish: async (name, recipe, data) => (FINISHERS[name] as (r: unknown, d: unknown, b: Bits) => ReleaseRow[])(recipe, data, bits),
-    // Runs while this thread would otherwise wait for the engine (the SQL runs on its own threads).
-    warm: (name, recipe) => (WARMERS[name] as ((r: unknown) => void) | undefined)?.(recipe),
   };
 }

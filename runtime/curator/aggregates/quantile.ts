@@ -106,14 +106,7 @@ export function quantilePiece(alloc: Allocator, src: Source, col: SchemaColumn, 
       // candidates lo + j s (j < m - 1) and hi last: the engine computes b (engines/types.ts).
       const stride = cand.length > 1 ? cand[1] - cand[0] : 1n;
       const m = BigInt(cand.length);
-      const pending = fetchBuckets(engine, src, col, { lowerUnits: c.grid.lowerUnits, upperUnits: c.grid.upperUnits, stride, count: m });
-      // The calibration (docs/methods.md §20) needs only the recipe: formed while the engine works.
-      let counts: [bigint, bigint][];
-      try {
-        cpu.warm?.("quantile", recipe);
-      } finally {
-        counts = await pending;
-      }
+      const counts = await fetchBuckets(engine, src, col, { lowerUnits: c.grid.lowerUnits, upperUnits: c.grid.upperUnits, stride, count: m });
       return cpu.finish("quantile", recipe, counts);
     },
   };

@@ -12,8 +12,7 @@ import { BadInputError, HushError, TimeLimitError, UnreachableError } from "../.
 import type { ReleaseRow } from "../../protocol/messages.js";
 import type { Cpu } from "../aggregates/common.js";
 import type { FinisherName } from "../aggregates/finishers.js";
-import { WARMERS } from "../aggregates/finishers.js";
-import type { JobMessage, ResultMessage, WarmMessage, WarmedMessage } from "./worker.js";
+import type { JobMessage, ResultMessage } from "./worker.js";
 import { fromWire, toWire } from "./wire.js";
 
 /**
@@ -31,15 +30,11 @@ interface Job {
   reject(e: unknown): void;
   timer: NodeJS.Timeout;
   slot: Slot | null;
-  /** the worker that warmed this release's recipe (warm), taken when free */
-  prefer: Slot | null;
 }
 
 interface Slot {
   worker: Worker;
   job: Job | null;
-  /** forming a recipe's public part (warm); no job is sent to it meanwhile */
-  warming: boolean;
 }
 
 export function timeLimitText(limitMs: number): string {
@@ -58,79 +53,35 @@ export class WorkerPool {
   }
 
   private spawn(): Slot {
-    const slot: Slot = { worker: new Worker(entry()), job: null, warming: false };
+    const slot: Slot = { worker: new Worker(entry()), job: null };
     slot.worker.unref(); // an idle pool never keeps the process alive
-    slot.worker.on("message", (m: ResultMessage | WarmedMessage) => {
-      if ("warmed" in m) {
-        slot.warming = false;
-        this.dispatch();
-      } else this.done(slot, m);
-    });
+    slot.worker.on("message", (m: ResultMessage) => this.done(slot, m));
     slot.worker.on("error", (e: unknown) => this.lost(slot, e));
     slot.worker.on("exit", (code: number) => this.lost(slot, new Error(`worker thread exited with code ${code}`)));
     return slot;
   }
 
-  /**
-   * Runs one finisher on a worker; refused with TimeLimitError at `deadlineAt` (performance.now() ms).
-   * `prefer`: the worker that warmed the recipe, taken when it is free (waited for while it warms).
-   */
-  run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number, prefer: Slot | null = null): Promise<ReleaseRow[]> {
+  /** Runs one finisher on a worker; refused with TimeLimitError at `deadlineAt` (performance.now() ms). */
+  run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<ReleaseRow[]> {
     if (this.closed) return Promise.reject(new UnreachableError("the curator is shutting down; nothing was spent"));
     return new Promise<ReleaseRow[]>((resolve, reject) => {
       const msg: JobMessage = { id: this.nextId++, name, recipe: toWire(recipe), data: toWire(data) };
-      const job: Job = { msg, resolve, reject, slot: null, prefer, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
+      const job: Job = { msg, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
       this.queue.push(job);
       this.dispatch();
     });
   }
 
-  /**
-   * Has an idle worker form the public part of a recipe (finishers.ts WARMERS: the quantile's
-   * calibration) while the release's SQL runs; returns that worker, or null when none is idle or
-   * the finisher has nothing to warm (the finish then forms it itself). A warm has no deadline of
-   * its own: its work is fixed by the recipe (a bounded number of draws), never by the data.
-   */
-  warm(name: FinisherName, recipe: unknown): Slot | null {
-    if (this.closed || !(name in WARMERS)) return null;
-    const slot = this.slots.find((s) => s.job === null && !s.warming);
-    if (slot === undefined) return null;
-    slot.warming = true;
-    const msg: WarmMessage = { warm: true, name, recipe: toWire(recipe) };
-    slot.worker.postMessage(msg);
-    return slot;
-  }
-
-  /** A Cpu whose finishers run on this pool under one deadline; a warmed recipe finishes on the worker that warmed it. */
+  /** A Cpu whose finishers run on this pool under one deadline. */
   cpu(deadlineAt: number, limitMs: number): Cpu {
-    let warmed: Slot | null = null;
-    return {
-      finish: (name, recipe, data) => this.run(name, recipe, data, deadlineAt, limitMs, warmed),
-      warm: (name, recipe) => {
-        warmed = this.warm(name, recipe);
-      },
-    };
-  }
-
-  private free(slot: Slot): boolean {
-    return slot.job === null && !slot.warming;
+    return { finish: (name, recipe, data) => this.run(name, recipe, data, deadlineAt, limitMs) };
   }
 
   private dispatch(): void {
-    for (let i = 0; i < this.queue.length; ) {
-      const job = this.queue[i];
-      const prefer = job.prefer !== null && this.slots.includes(job.prefer) ? job.prefer : null;
-      // A job whose warmed worker is still warming waits for it (its cuts are nearly formed there);
-      // if that worker took another job meanwhile, or is gone, any free worker will do.
-      let slot: Slot | undefined;
-      if (prefer !== null && this.free(prefer)) slot = prefer;
-      else if (prefer !== null && prefer.warming && prefer.job === null) slot = undefined;
-      else slot = this.slots.find((s) => this.free(s) && !this.queue.some((q) => q !== job && q.prefer === s));
-      if (slot === undefined) {
-        i++;
-        continue;
-      }
-      this.queue.splice(i, 1);
+    for (const slot of this.slots) {
+      if (this.queue.length === 0) return;
+      if (slot.job !== null) continue;
+      const job = this.queue.shift()!;
       job.slot = slot;
       slot.job = job;
       slot.worker.ref(); // a running job keeps the process alive until it settles

@@ -7,7 +7,7 @@
 import { parentPort } from "node:worker_threads";
 import { Bits, cryptoBytes } from "../../core/index.js";
 import { isHushError } from "../../errors.js";
-import { FINISHERS, type FinisherName, WARMERS } from "../aggregates/finishers.js";
+import { FINISHERS, type FinisherName } from "../aggregates/finishers.js";
 import { fromWire, toWire } from "./wire.js";
 
 export interface JobMessage {
@@ -15,17 +15,6 @@ export interface JobMessage {
   name: FinisherName;
   recipe: unknown;
   data: unknown;
-}
-
-/** Form a recipe's public part ahead of its job (finishers.ts WARMERS); answered by WarmedMessage. */
-export interface WarmMessage {
-  warm: true;
-  name: FinisherName;
-  recipe: unknown;
-}
-
-export interface WarmedMessage {
-  warmed: true;
 }
 
 export type ResultMessage =
@@ -36,17 +25,7 @@ const bits = new Bits(cryptoBytes);
 const port = parentPort;
 if (port === null) throw new Error("workers/worker.js runs only as a worker thread");
 
-port.on("message", (job: JobMessage | WarmMessage) => {
-  if ("warm" in job) {
-    try {
-      (WARMERS[job.name] as ((r: unknown) => void) | undefined)?.(fromWire(job.recipe));
-    } catch {
-      // Not an answer: the finish runs the same steps on its recipe and reports the error there.
-    }
-    const done: WarmedMessage = { warmed: true };
-    port.postMessage(done);
-    return;
-  }
+port.on("message", (job: JobMessage) => {
   let reply: ResultMessage;
   try {
     const run = FINISHERS[job.name] as ((r: unknown, d: unknown, b: Bits) => unknown) | undefined;
