@@ -9,7 +9,7 @@
 import { BadInputError } from "../errors.js";
 import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
-import { sampleDiscreteGaussian, sampleDiscreteGaussianNumber, sampleDiscreteLaplace, sampleDiscreteLaplaceNumber } from "./samplers.js";
+import { fillDiscreteGaussian, fillDiscreteLaplace, sampleDiscreteGaussian, sampleDiscreteLaplace } from "./samplers.js";
 
 export type PrivacyParam = { epsilon: Rational } | { rho: Rational };
 export type NoiseLaw = { family: "discrete-laplace"; scale: Rational } | { family: "discrete-gaussian"; sigma2: Rational };
@@ -74,12 +74,13 @@ export function drawNoise(law: NoiseLaw, bits: Bits): bigint {
 }
 
 /**
- * drawNoise's draw, bit for bit, as a number when it is an integer of magnitude at most 2^52 on the
- * samplers' number path, else as a bigint. For loops that keep many draws (the quantile calibration).
+ * out.length draws of drawNoise, in order and bit for bit the same, as numbers; a draw the samplers'
+ * number path cannot hold is NaN in `out` and its bigint is in the returned map, by index. For
+ * loops that keep many draws (the quantile calibration).
  */
-export function drawNoiseNumber(law: NoiseLaw, bits: Bits): number | bigint {
-  if (law.family === "discrete-laplace") return sampleDiscreteLaplaceNumber(law.scale, bits);
-  if (law.family === "discrete-gaussian") return sampleDiscreteGaussianNumber(law.sigma2, bits);
+export function fillNoise(law: NoiseLaw, bits: Bits, out: Float64Array): Map<number, bigint> {
+  if (law.family === "discrete-laplace") return fillDiscreteLaplace(law.scale, bits, out);
+  if (law.family === "discrete-gaussian") return fillDiscreteGaussian(law.sigma2, bits, out);
   checkLaw(law);
   throw new BadInputError("unknown noise family");
 }

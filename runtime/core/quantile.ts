@@ -7,7 +7,7 @@
  */
 import { BadInputError } from "../errors.js";
 import { expNeg, ln } from "./bounds.js";
-import { type NoiseLaw, checkLaw, drawNoise, drawNoiseNumber } from "./mechanisms.js";
+import { type NoiseLaw, checkLaw, drawNoise, fillNoise } from "./mechanisms.js";
 import { Rational, bitLength, floorDiv, isqrt } from "./rational.js";
 import { gaussianHalfWidth, laplaceHalfWidth } from "./tailbounds.js";
 import type { Bits } from "./random.js";
@@ -441,19 +441,30 @@ function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): CalibrationDraw
   const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}`;
   const hit = drawCache.get(key);
   if (hit !== undefined) return hit;
-  const out = drawCalibration(() => drawNoiseNumber(law, bits), CALIBRATION_DRAWS, L);
+  const N = CALIBRATION_DRAWS;
+  const values = new Float64Array(N * (L + 1));
+  const big = fillNoise(law, bits, values);
+  const out = drawCalibration(values, big, N, L);
   if (drawCache.size >= 2) drawCache.delete(drawCache.keys().next().value as string);
   drawCache.set(key, out);
   return out;
 }
 
 /**
- * N samples of (E, S_1..S_L) from `next` (E first, then the L draws of S, per sample), kept as
- * binary64 while every draw and partial sum is an integer of magnitude at most 2^53 - 1; from the
- * first one that is not, every value drawn so far is moved (exactly) to bigints and the rest is
- * kept in bigints. Exported for tests.
+ * N samples of (E, S_1..S_L) from N (L + 1) draws in order (E first, then the L draws of S, per
+ * sample; fillNoise: a draw past the number path is NaN in `values` and a bigint in `big`), kept
+ * as binary64 while every draw and partial sum is an integer of magnitude at most 2^53 - 1; from
+ * the first one that is not, every value so far is moved (exactly) to bigints and the rest is kept
+ * in bigints. Exported for tests.
  */
-export function drawCalibration(next: () => number | bigint, N: number, L: number): CalibrationDraws {
+export function drawCalibration(values: Float64Array, big: ReadonlyMap<number, bigint>, N: number, L: number): CalibrationDraws {
+  if (values.length !== N * (L + 1)) throw new BadInputError("calibration needs N (L + 1) draws");
+  let at = 0;
+  const next = (): number | bigint => {
+    const v = values[at];
+    const i = at++;
+    return v === v ? v : big.get(i)!;
+  };
   const SAFE = Number.MAX_SAFE_INTEGER;
   const rootF = new Float64Array(N);
   const sumsF: Float64Array[] = Array.from({ length: L }, () => new Float64Array(N));

@@ -185,21 +185,27 @@ export function sampleDiscreteLaplace(scale: Rational, bits: Bits): bigint {
 }
 
 /**
- * The same draw as sampleDiscreteLaplace, bit for bit, as a number when the number path holds it
- * (|y| <= 2^52) and as a bigint otherwise: loops that keep many draws (the quantile calibration)
- * avoid a bigint per draw.
+ * out.length draws of sampleDiscreteLaplace, in order and bit for bit the same, as numbers: a draw
+ * the number path cannot hold is NaN in `out` and its bigint is in the returned map, by index.
+ * For loops that keep many draws (the quantile calibration): one plan, no bigint per draw.
  */
-export function sampleDiscreteLaplaceNumber(scale: Rational, bits: Bits): number | bigint {
-  let plan: LaplacePlan;
-  if (scale === lastScale && lastLaplace !== null) plan = lastLaplace;
-  else {
-    plan = laplacePlan(scale);
-    lastScale = scale;
-    lastLaplace = plan;
+export function fillDiscreteLaplace(scale: Rational, bits: Bits, out: Float64Array): Map<number, bigint> {
+  const plan = laplacePlan(scale);
+  const big = new Map<number, bigint>();
+  if (!plan.small) {
+    for (let i = 0; i < out.length; i++) {
+      out[i] = NaN;
+      big.set(i, laplaceBig(plan.tnBig, plan.tdBig, bits));
+    }
+    return big;
   }
-  if (!plan.small) return laplaceBig(plan.tnBig, plan.tdBig, bits);
-  const r = laplaceNum(plan.tn, plan.td, bits);
-  return r === r ? r : overflowDraw;
+  const { tn, td } = plan;
+  for (let i = 0; i < out.length; i++) {
+    const r = laplaceNum(tn, td, bits);
+    out[i] = r;
+    if (r !== r) big.set(i, overflowDraw);
+  }
+  return big;
 }
 
 /** The bigint-only transcription of algorithm C, exported so tests can check it separately. */
@@ -341,18 +347,16 @@ export function sampleDiscreteGaussian(sigma2: Rational, bits: Bits): bigint {
   return plan.small ? gaussSmall(plan, bits) : gaussBig(plan, bits);
 }
 
-/** The same draw as sampleDiscreteGaussian, bit for bit, as a number when it fits (see sampleDiscreteLaplaceNumber). */
-export function sampleDiscreteGaussianNumber(sigma2: Rational, bits: Bits): number | bigint {
-  let plan: GaussPlan;
-  if (sigma2 === lastSigma2 && lastGauss !== null) plan = lastGauss;
-  else {
-    plan = gaussPlan(sigma2);
-    lastSigma2 = sigma2;
-    lastGauss = plan;
+/** out.length draws of sampleDiscreteGaussian, as fillDiscreteLaplace does for the Laplace. */
+export function fillDiscreteGaussian(sigma2: Rational, bits: Bits, out: Float64Array): Map<number, bigint> {
+  const plan = gaussPlan(sigma2);
+  const big = new Map<number, bigint>();
+  for (let i = 0; i < out.length; i++) {
+    const r = plan.small ? gaussNum(plan, bits) : NaN;
+    out[i] = r;
+    if (r !== r) big.set(i, plan.small ? overflowDraw : gaussBig(plan, bits));
   }
-  if (!plan.small) return gaussBig(plan, bits);
-  const r = gaussNum(plan, bits);
-  return r === r ? r : overflowDraw;
+  return big;
 }
 
 /** Bigint-only path of algorithm D, exported so tests can check it separately. */

@@ -3,11 +3,12 @@
  * integers and cuts found by selection must give exactly the cuts of the method as written, i.e.
  * the bigint draws of drawNoise, the U of every kind, a full sort and its k-th smallest and k-th
  * largest entries. The reference below is that transcription, run on the same seeded bytes; the
+ * batch draws (fillNoise) are checked against drawNoise one at a time on the same bytes; the
  * selection is also checked against Array.prototype.sort, and the move to bigints (a draw or a
  * partial sum past 2^53 - 1) against plain bigint sums of the same sequence.
  */
 import { describe, expect, it } from "vitest";
-import { drawNoise, type NoiseLaw } from "../../runtime/core/mechanisms.js";
+import { drawNoise, fillNoise, type NoiseLaw } from "../../runtime/core/mechanisms.js";
 import { bigDraws, CALIBRATION_DRAWS, drawCalibration, rankCuts, selectInPlace } from "../../runtime/core/quantile.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
@@ -60,6 +61,25 @@ describe("calibration fast path", () => {
     }
   });
 
+  it("fillNoise gives drawNoise's draws one by one, the same bytes, both families, number and bigint paths", () => {
+    const laws: NoiseLaw[] = [
+      { family: "discrete-laplace", scale: R("240000000/5000001") },
+      { family: "discrete-laplace", scale: R("123456789012345678901/7") }, // past the number path
+      { family: "discrete-gaussian", sigma2: R("1013/10") },
+      { family: "discrete-gaussian", sigma2: R("123456789012345678901234567/7") },
+    ];
+    for (const law of laws) {
+      const out = new Float64Array(3000);
+      const big = fillNoise(law, new Bits(seededBytes("fill")), out);
+      const one = new Bits(seededBytes("fill"));
+      for (let i = 0; i < out.length; i++) {
+        const want = drawNoise(law, one);
+        const got = out[i] === out[i] ? BigInt(out[i]) : big.get(i);
+        expect(got, `${law.family} draw ${i}`).toBe(want);
+      }
+    }
+  });
+
   it("selectInPlace gives the sort's k-th entry and partitions around it, with ties and signed zeros", () => {
     const bits = new Bits(seededBytes("select"));
     for (const [n, range] of [[1, 3], [2, 2], [7, 1], [100, 5], [1000, 3], [10_000, 1000], [10_000, 2 ** 40]] as const) {
@@ -82,6 +102,7 @@ describe("calibration fast path", () => {
     const want = Array.from(organ).sort((x, y) => x - y);
     expect(selectInPlace(organ.slice(), 100, 0, 4095)).toBe(want[100]);
     expect(() => selectInPlace(new Float64Array(3), 3, 0, 2)).toThrow();
+    expect(() => drawCalibration(new Float64Array(15), new Map(), 4, 3)).toThrow(); // needs N (L + 1) draws
   });
 
   it("moves to bigints, exactly, when a draw or a partial sum passes 2^53 - 1", () => {
@@ -94,9 +115,13 @@ describe("calibration fast path", () => {
       [1, 2, 3, 4, 5, -6, 7, 8, 9, 10, 11, 12, 13, 14, 15, 16], // all small: binary64 throughout
     ];
     for (const seq of seqs) {
-      let i = 0;
-      const d = drawCalibration(() => seq[i++], 4, 3);
-      expect(i).toBe(16);
+      // As fillNoise hands them over: a bigint draw is NaN among the numbers and kept by index.
+      const values = Float64Array.from(seq, (x) => (typeof x === "bigint" ? NaN : x));
+      const big = new Map<number, bigint>();
+      seq.forEach((x, i) => {
+        if (typeof x === "bigint") big.set(i, x);
+      });
+      const d = drawCalibration(values, big, 4, 3);
       const { root, sums } = bigDraws(d);
       const want = { root: [] as bigint[], sums: [[], [], []] as bigint[][] };
       for (let s = 0; s < 4; s++) {
