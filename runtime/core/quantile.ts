@@ -433,7 +433,7 @@ const drawCache = new Map<string, CalibrationDraws>();
  * The calibration's draws for (law, L): N root draws E and, for l = 1..L, the partial sums S_l of
  * one further sequence of L draws per sample. They depend on the law and L only (never on p, the
  * miss or the data), so the quantiles of a release, which share one tree, share them too.
- * The draws are kept as binary64 integers (drawNoiseNumber: the same draws, without a bigint per
+ * The draws are kept as binary64 integers (fillNoise: the same draws, without a bigint per
  * draw) while every draw and partial sum is of magnitude at most 2^53 - 1; the first one that is
  * not moves every value drawn so far, exactly, and the rest to bigints.
  */
