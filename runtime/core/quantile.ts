@@ -165,7 +165,11 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
   const small = one <= 281474976710656n; // 2^48: the number path of Bits
   const xn = Number(x);
   const on = Number(one);
-  const trial = small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
+  // one = 2^y (y <= 32): UniformInt(2^y) is y fresh bits with no rejection, so bits(y) draws
+  // exactly what uniformSmall(2^y) would, from the same bits, without its range checks.
+  const y = bitLength(one - 1n);
+  const trial =
+    one === 1n << BigInt(y) && y >= 1 && y <= 32 ? () => bits.bits(y) < xn : small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
   // The exponents as numbers when they are safe integers (always, below the default cost cap):
   // a bigint counter would allocate on every trial. Same trials either way.
   const safe = d.every((c) => c <= 9007199254740991n);
