@@ -36,6 +36,8 @@ export async function benchAggregates(opts: {
   runs: (rows: number) => number;
   warmup: number;
   dataDir?: string;
+  /** names of BENCH_QUERIES to run; null for all */
+  queries?: Set<string> | null;
 }): Promise<{ rows: AggregateRow[]; loads: { rows: number; unit: boolean; ms: number }[]; markdown: string }> {
   const out: AggregateRow[] = [];
   const loads: { rows: number; unit: boolean; ms: number }[] = [];
@@ -54,7 +56,9 @@ export async function benchAggregates(opts: {
       try {
         const answerer = new Answerer(eng, policy);
         const table = eng.relation(BENCH_DATASET);
-        for (const q of BENCH_QUERIES) {
+        const queries = opts.queries ? BENCH_QUERIES.filter((q) => opts.queries!.has(q.name)) : BENCH_QUERIES;
+        if (queries.length === 0) throw new Error(`no bench query named ${[...(opts.queries ?? [])].join(", ")}`);
+        for (const q of queries) {
           progress(`aggregates: ${rowsLabel(size)} ${unit ? "with unit" : "no unit"}: ${q.name}`);
           let k = 0;
           // A fresh epsilon each call, so nothing downstream can reuse an earlier answer.

@@ -1,5 +1,7 @@
 /**
  * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,completion,memory] [-- --out FILE]`
+ * `[-- --sizes 1000000,10000000] [-- --queries median,count]` (aggregates only: a subset of the sizes
+ * and of the query names of bench/baseline.ts, for measuring one change; default all)
  *
  * Runs each bench section and writes a markdown report: machine facts, date, and per figure the
  * median and min–max over repeated runs, as a ratio to a baseline measured in the same run. A full
@@ -24,12 +26,22 @@ interface Options {
   quick: boolean;
   only: Set<string> | null;
   out: string;
+  sizes: number[] | null;
+  queries: Set<string> | null;
 }
 
 function parseArgs(argv: string[]): Options {
   let quick = false;
   let only: Set<string> | null = null;
   let out: string | null = null;
+  let sizes: number[] | null = null;
+  let queries: Set<string> | null = null;
+  const sizeList = (v: string): number[] =>
+    v.split(",").map((x) => {
+      const n = Number(x);
+      if (!Number.isSafeInteger(n) || n < 1) throw new Error(`--sizes takes positive whole numbers, got ${x}`);
+      return n;
+    });
   for (let i = 0; i < argv.length; i++) {
     const a = argv[i];
     if (a === "--quick") quick = true;
@@ -37,13 +49,24 @@ function parseArgs(argv: string[]): Options {
     else if (a.startsWith("--only=")) only = new Set(a.slice(7).split(",").filter(Boolean));
     else if (a === "--out") out = argv[++i] ?? null;
     else if (a.startsWith("--out=")) out = a.slice(6);
-    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,memory] [--out FILE]`);
+    else if (a === "--sizes") sizes = sizeList(argv[++i] ?? "");
+    else if (a.startsWith("--sizes=")) sizes = sizeList(a.slice(8));
+    else if (a === "--queries") queries = new Set((argv[++i] ?? "").split(",").filter(Boolean));
+    else if (a.startsWith("--queries=")) queries = new Set(a.slice(10).split(",").filter(Boolean));
+    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,memory] [--out FILE] [--sizes N,...] [--queries NAME,...]`);
   }
   const root = repoRoot();
   return {
     quick,
     only,
-    out: out ?? (quick ? path.join(root, ".hush", "bench", "RESULTS-quick.md") : path.join(root, "bench", "RESULTS.md")),
+    sizes,
+    queries,
+    // A partial run (a subset of sizes or queries) never overwrites bench/RESULTS.md by default.
+    out:
+      out ??
+      (quick ? path.join(root, ".hush", "bench", "RESULTS-quick.md")
+        : sizes !== null || queries !== null ? path.join(root, ".hush", "bench", "RESULTS-partial.md")
+        : path.join(root, "bench", "RESULTS.md")),
   };
 }
 
@@ -74,7 +97,8 @@ async function main(): Promise<void> {
     await section("aggregates", "DP aggregates vs plain DuckDB SQL", opts, async () =>
       (
         await benchAggregates({
-          sizes: opts.quick ? [100_000] : [1_000_000, 10_000_000],
+          sizes: opts.sizes ?? (opts.quick ? [100_000] : [1_000_000, 10_000_000]),
+          queries: opts.queries,
           // Many runs at 1M: there a query takes a few milliseconds and a busy machine's jitter is
           // of the same size, so medians need more samples to settle.
           runs: (rows) => (opts.quick ? 3 : rows >= 10_000_000 ? 9 : 31),

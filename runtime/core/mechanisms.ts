@@ -9,7 +9,7 @@
 import { BadInputError } from "../errors.js";
 import { Rational } from "./rational.js";
 import type { Bits } from "./random.js";
-import { sampleDiscreteGaussian, sampleDiscreteLaplace } from "./samplers.js";
+import { fillDiscreteGaussian, fillDiscreteLaplace, sampleDiscreteGaussian, sampleDiscreteLaplace } from "./samplers.js";
 
 export type PrivacyParam = { epsilon: Rational } | { rho: Rational };
 export type NoiseLaw = { family: "discrete-laplace"; scale: Rational } | { family: "discrete-gaussian"; sigma2: Rational };
@@ -69,6 +69,18 @@ export function addNoise(value: bigint, law: NoiseLaw, bits: Bits): bigint {
 export function drawNoise(law: NoiseLaw, bits: Bits): bigint {
   if (law.family === "discrete-laplace") return sampleDiscreteLaplace(law.scale, bits);
   if (law.family === "discrete-gaussian") return sampleDiscreteGaussian(law.sigma2, bits);
+  checkLaw(law);
+  throw new BadInputError("unknown noise family");
+}
+
+/**
+ * out.length draws of drawNoise, in order and bit for bit the same, as numbers; a draw the samplers'
+ * number path cannot hold is NaN in `out` and its bigint is in the returned map, by index. For
+ * loops that keep many draws (the quantile calibration).
+ */
+export function fillNoise(law: NoiseLaw, bits: Bits, out: Float64Array): Map<number, bigint> {
+  if (law.family === "discrete-laplace") return fillDiscreteLaplace(law.scale, bits, out);
+  if (law.family === "discrete-gaussian") return fillDiscreteGaussian(law.sigma2, bits, out);
   checkLaw(law);
   throw new BadInputError("unknown noise family");
 }

@@ -7,7 +7,7 @@
  */
 import { BadInputError } from "../errors.js";
 import { expNeg, ln } from "./bounds.js";
-import { type NoiseLaw, checkLaw, drawNoise } from "./mechanisms.js";
+import { type NoiseLaw, checkLaw, drawNoise, fillNoise } from "./mechanisms.js";
 import { Rational, bitLength, floorDiv, isqrt } from "./rational.js";
 import { gaussianHalfWidth, laplaceHalfWidth } from "./tailbounds.js";
 import type { Bits } from "./random.js";
@@ -165,20 +165,36 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
   const small = one <= 281474976710656n; // 2^48: the number path of Bits
   const xn = Number(x);
   const on = Number(one);
-  const trial = small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
+  // one = 2^y (y <= 32): UniformInt(2^y) is y fresh bits with no rejection, so bits(y) draws
+  // exactly what uniformSmall(2^y) would, from the same bits, without its range checks.
+  const y = bitLength(one - 1n);
+  const trial =
+    one === 1n << BigInt(y) && y >= 1 && y <= 32 ? () => bits.bits(y) < xn : small ? () => bits.uniformSmall(on) < xn : () => bits.bernoulli(x, one);
+  // The exponents as numbers when they are safe integers (always, below the default cost cap):
+  // a bigint counter would allocate on every trial. Same trials either way.
+  const safe = d.every((c) => c <= 9007199254740991n);
+  const dn = safe ? Float64Array.from(d, (c) => Number(c)) : null;
   let made = 0;
   for (;;) {
     const j = bits.uniformSmall(m);
     made++;
-    let left = d[j];
     let accepted = true;
-    while (left > 0n) {
-      made++;
-      if (!trial()) {
-        accepted = false;
-        break;
+    if (dn !== null) {
+      for (let left = dn[j]; left > 0; left--) {
+        made++;
+        if (!trial()) {
+          accepted = false;
+          break;
+        }
       }
-      left--;
+    } else {
+      for (let left = d[j]; left > 0n; left--) {
+        made++;
+        if (!trial()) {
+          accepted = false;
+          break;
+        }
+      }
     }
     if (accepted) {
       for (let pad = paddedTrials(m, x, one) - made; pad > 0; pad--) trial();
@@ -298,7 +314,8 @@ const cutCache = new Map<string, RankCuts>();
  * then needs U at two prefixes: a union bound over two one-sided events, each <= miss/2 on
  * average over the calibration. Returns null when k would be 0 (miss below 2/(N+1)).
  * Time: N (L + 1) draws (calibrationDraws, shared by every p and miss of the same law and L) and
- * L + 2 sorts, fixed by m, the law, p and miss.
+ * two selections per kind (selectInPlace: the same k-th values a sort gives), fixed by m, the law,
+ * p and miss, give or take the draws' own randomness (never the data).
  */
 export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, bits: Bits): RankCuts | null {
   if (!Number.isInteger(L) || L < 0 || L > 30) throw new BadInputError(`tree depth must be an integer 0..30, got ${L}`);
@@ -314,15 +331,14 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   const a = p.num;
   const b = p.den;
   const draws = calibrationDraws(law, L, bits);
-  const { root, sums } = draws;
   const kn = Number(k);
   const low: bigint[] = [];
   const high: bigint[] = [];
   const safe = BigInt(Number.MAX_SAFE_INTEGER);
-  if (b * (draws.maxSum + draws.maxRoot) <= safe) {
+  if (draws.rootF !== null && draws.sumsF !== null && b * (draws.maxSum + draws.maxRoot) <= safe) {
     // a' < b', so every U, and every product and sum forming it, is an integer of magnitude at most
-    // b' (max|S| + max|E|) <= 2^53 - 1:
-    // binary64 holds them exactly, and the typed-array sort is exact.
+    // b' (max|S| + max|E|) <= 2^53 - 1: binary64 holds them exactly, and the selection compares
+    // exact integers. Selection gives the same k-th smallest and k-th largest values as a sort.
     const an = Number(a);
     const bn = Number(b);
     const rootF = draws.rootF;
@@ -334,11 +350,13 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
         const sl = draws.sumsF[l - 1];
         for (let s = 0; s < N; s++) u[s] = bn * sl[s] - an * rootF[s];
       }
-      u.sort();
-      low.push(BigInt(u[kn - 1]));
-      high.push(BigInt(u[N - kn]));
+      // k <= (N + 1)/2, so N - k > k - 1: after the first selection every entry before N - k is at
+      // most u[N - k], and the k-th smallest is found among them.
+      high.push(BigInt(selectInPlace(u, N - kn, 0, N - 1)));
+      low.push(BigInt(selectInPlace(u, kn - 1, 0, N - kn - 1)));
     }
   } else {
+    const { root, sums } = bigDraws(draws);
     // U for each kind: -a'E (empty prefix), b'S_l - a'E (l = 1..L), (b' - a')E (the root).
     const kindOf = (l: number, s: number): bigint => (l === 0 ? -a * root[s] : l === L + 1 ? (b - a) * root[s] : b * sums[l - 1][s] - a * root[s]);
     for (let l = 0; l <= L + 1; l++) {
@@ -355,15 +373,62 @@ export function rankCuts(law: NoiseLaw, L: number, p: Rational, miss: Rational, 
   return out;
 }
 
-interface CalibrationDraws {
-  root: bigint[];
-  sums: bigint[][];
+/**
+ * The k-th smallest entry (0-based) of a[lo..hi], by quickselect in place (Hoare partitions around
+ * a median of three); afterwards every entry of a[lo..k) is at most a[k] and every entry of
+ * (k..hi] at least a[k]. Falls back to a sort of the remaining range after 2 log2(n) + 8 rounds,
+ * so the time is at most that of a sort. Exact on integers held in binary64.
+ */
+export function selectInPlace(a: Float64Array, k: number, lo: number, hi: number): number {
+  if (!(lo <= k && k <= hi && 0 <= lo && hi < a.length)) throw new BadInputError("selection index out of range");
+  let rounds = 2 * (32 - Math.clz32(hi - lo + 1)) + 8;
+  while (hi > lo) {
+    if (rounds-- === 0) {
+      a.subarray(lo, hi + 1).sort();
+      return a[k];
+    }
+    const mid = (lo + hi) >>> 1;
+    const x = a[lo];
+    const y = a[mid];
+    const z = a[hi];
+    const pivot = x < y ? (y < z ? y : x < z ? z : x) : x < z ? x : y < z ? z : y;
+    let i = lo;
+    let j = hi;
+    while (i <= j) {
+      while (a[i] < pivot) i++;
+      while (a[j] > pivot) j--;
+      if (i <= j) {
+        const t = a[i];
+        a[i] = a[j];
+        a[j] = t;
+        i++;
+        j--;
+      }
+    }
+    // Now a[lo..j] <= pivot, a[i..hi] >= pivot and a(j..i) == pivot.
+    if (k <= j) hi = j;
+    else if (k >= i) lo = i;
+    else return a[k];
+  }
+  return a[k];
+}
+
+export interface CalibrationDraws {
+  /** the draws as binary64 (every one, and every partial sum, of magnitude at most 2^53 - 1), or null */
+  rootF: Float64Array | null;
+  sumsF: Float64Array[] | null;
+  /** the draws as bigints when some did not fit binary64 exactly, else null (bigDraws forms them) */
+  root: bigint[] | null;
+  sums: bigint[][] | null;
   /** largest |E| and |S_l| drawn */
   maxRoot: bigint;
   maxSum: bigint;
-  /** the same draws as binary64, exact when below 2^53 (used only then) */
-  rootF: Float64Array;
-  sumsF: Float64Array[];
+}
+
+/** The draws as bigints, formed from the binary64 copy (exact) when they were kept that way. Exported for tests. */
+export function bigDraws(d: CalibrationDraws): { root: bigint[]; sums: bigint[][] } {
+  if (d.root !== null && d.sums !== null) return { root: d.root, sums: d.sums };
+  return { root: Array.from(d.rootF!, (x) => BigInt(x)), sums: d.sumsF!.map((xs) => Array.from(xs, (x) => BigInt(x))) };
 }
 
 const drawCache = new Map<string, CalibrationDraws>();
@@ -372,40 +437,90 @@ const drawCache = new Map<string, CalibrationDraws>();
  * The calibration's draws for (law, L): N root draws E and, for l = 1..L, the partial sums S_l of
  * one further sequence of L draws per sample. They depend on the law and L only (never on p, the
  * miss or the data), so the quantiles of a release, which share one tree, share them too.
+ * The draws are kept as binary64 integers (fillNoise: the same draws, without a bigint per
+ * draw) while every draw and partial sum is of magnitude at most 2^53 - 1; the first one that is
+ * not moves every value drawn so far, exactly, and the rest to bigints.
  */
 function calibrationDraws(law: NoiseLaw, L: number, bits: Bits): CalibrationDraws {
   const key = `${law.family}:${law.family === "discrete-laplace" ? law.scale : law.sigma2}:${L}`;
   const hit = drawCache.get(key);
   if (hit !== undefined) return hit;
   const N = CALIBRATION_DRAWS;
-  const root = new Array<bigint>(N);
-  const sums: bigint[][] = Array.from({ length: L }, () => new Array<bigint>(N));
-  let maxRoot = 0n;
-  let maxSum = 0n;
-  for (let s = 0; s < N; s++) {
-    const e = drawNoise(law, bits);
-    root[s] = e;
-    if (e > maxRoot) maxRoot = e;
-    else if (-e > maxRoot) maxRoot = -e;
-    let sum = 0n;
-    for (let l = 0; l < L; l++) {
-      sum += drawNoise(law, bits);
-      sums[l][s] = sum;
-      if (sum > maxSum) maxSum = sum;
-      else if (-sum > maxSum) maxSum = -sum;
-    }
-  }
-  const out: CalibrationDraws = {
-    root,
-    sums,
-    maxRoot,
-    maxSum,
-    rootF: Float64Array.from(root, (x) => Number(x)),
-    sumsF: sums.map((xs) => Float64Array.from(xs, (x) => Number(x))),
-  };
+  const values = new Float64Array(N * (L + 1));
+  const big = fillNoise(law, bits, values);
+  const out = drawCalibration(values, big, N, L);
   if (drawCache.size >= 2) drawCache.delete(drawCache.keys().next().value as string);
   drawCache.set(key, out);
   return out;
+}
+
+/**
+ * N samples of (E, S_1..S_L) from N (L + 1) draws in order (E first, then the L draws of S, per
+ * sample; fillNoise: a draw past the number path is NaN in `values` and a bigint in `big`), kept
+ * as binary64 while every draw and partial sum is an integer of magnitude at most 2^53 - 1; from
+ * the first one that is not, every value so far is moved (exactly) to bigints and the rest is kept
+ * in bigints. Exported for tests.
+ */
+export function drawCalibration(values: Float64Array, big: ReadonlyMap<number, bigint>, N: number, L: number): CalibrationDraws {
+  if (values.length !== N * (L + 1)) throw new BadInputError("calibration needs N (L + 1) draws");
+  let at = 0;
+  const next = (): number | bigint => {
+    const v = values[at];
+    const i = at++;
+    return v === v ? v : big.get(i)!;
+  };
+  const SAFE = Number.MAX_SAFE_INTEGER;
+  const rootF = new Float64Array(N);
+  const sumsF: Float64Array[] = Array.from({ length: L }, () => new Float64Array(N));
+  let root: bigint[] | null = null;
+  let sums: bigint[][] | null = null;
+  // From here on every value is a bigint; entries not drawn yet are 0 and overwritten later.
+  const toBig = (): void => {
+    root = Array.from(rootF, (x) => BigInt(x));
+    sums = sumsF.map((xs) => Array.from(xs, (x) => BigInt(x)));
+  };
+  for (let s = 0; s < N; s++) {
+    const e = next();
+    if (root === null && typeof e === "number" && e <= SAFE && e >= -SAFE) rootF[s] = e;
+    else {
+      if (root === null) toBig();
+      root![s] = typeof e === "bigint" ? e : BigInt(e);
+    }
+    let sum = 0;
+    let sumB = 0n;
+    for (let l = 0; l < L; l++) {
+      const d = next();
+      if (sums === null) {
+        if (typeof d === "number" && d <= SAFE && d >= -SAFE) {
+          const t = sum + d; // exact when |t| <= 2^53 - 1; a true sum past that rounds past it too
+          if (t <= SAFE && t >= -SAFE) {
+            sum = t;
+            sumsF[l][s] = t;
+            continue;
+          }
+        }
+        toBig();
+        sumB = BigInt(sum);
+      }
+      sumB += typeof d === "bigint" ? d : BigInt(d);
+      sums![l][s] = sumB;
+    }
+  }
+  if (root === null || sums === null) {
+    let mr = 0;
+    let ms = 0;
+    for (let s = 0; s < N; s++) mr = Math.max(mr, Math.abs(rootF[s]));
+    for (const xs of sumsF) for (let s = 0; s < N; s++) ms = Math.max(ms, Math.abs(xs[s]));
+    return { rootF, sumsF, root: null, sums: null, maxRoot: BigInt(mr), maxSum: BigInt(ms) };
+  }
+  const rb: bigint[] = root;
+  const sb: bigint[][] = sums;
+  const abs = (x: bigint): bigint => (x < 0n ? -x : x);
+  let maxRoot = 0n;
+  let maxSum = 0n;
+  for (const e of rb) if (abs(e) > maxRoot) maxRoot = abs(e);
+  for (const xs of sb) for (const x of xs) if (abs(x) > maxSum) maxSum = abs(x);
+  return { rootF: null, sumsF: null, root: rb, sums: sb, maxRoot, maxSum };
 }
 
 /**

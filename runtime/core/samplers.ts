@@ -184,6 +184,30 @@ export function sampleDiscreteLaplace(scale: Rational, bits: Bits): bigint {
   return plan.small ? laplaceSmall(plan.tn, plan.td, bits) : laplaceBig(plan.tnBig, plan.tdBig, bits);
 }
 
+/**
+ * out.length draws of sampleDiscreteLaplace, in order and bit for bit the same, as numbers: a draw
+ * the number path cannot hold is NaN in `out` and its bigint is in the returned map, by index.
+ * For loops that keep many draws (the quantile calibration): one plan, no bigint per draw.
+ */
+export function fillDiscreteLaplace(scale: Rational, bits: Bits, out: Float64Array): Map<number, bigint> {
+  const plan = laplacePlan(scale);
+  const big = new Map<number, bigint>();
+  if (!plan.small) {
+    for (let i = 0; i < out.length; i++) {
+      out[i] = NaN;
+      big.set(i, laplaceBig(plan.tnBig, plan.tdBig, bits));
+    }
+    return big;
+  }
+  const { tn, td } = plan;
+  for (let i = 0; i < out.length; i++) {
+    const r = laplaceNum(tn, td, bits);
+    out[i] = r;
+    if (r !== r) big.set(i, overflowDraw);
+  }
+  return big;
+}
+
 /** The bigint-only transcription of algorithm C, exported so tests can check it separately. */
 export function sampleDiscreteLaplaceBig(scale: Rational, bits: Bits): bigint {
   const p = laplacePlan(scale);
@@ -251,11 +275,23 @@ function gaussPlan(sigma2: Rational): GaussPlan {
 
 /** Algorithm D with number-path proposals (requires p.small). */
 function gaussSmall(p: GaussPlan, bits: Bits): bigint {
+  const r = gaussNum(p, bits);
+  return r === r ? BigInt(r) : overflowDraw;
+}
+
+/**
+ * gaussSmall's draw as a number, or NaN after storing it in overflowDraw when the proposal left
+ * the number range (laplaceNum).
+ */
+function gaussNum(p: GaussPlan, bits: Bits): number {
   for (;;) {
     const y = laplaceNum(p.lap.tn, p.lap.td, bits);
     if (y !== y) {
       const yb = overflowDraw;
-      if (gaussAcceptBig(p, yb < 0n ? -yb : yb, bits)) return yb;
+      if (gaussAcceptBig(p, yb < 0n ? -yb : yb, bits)) {
+        overflowDraw = yb;
+        return NaN;
+      }
       continue;
     }
     const yn = Math.abs(y);
@@ -277,10 +313,10 @@ function gaussSmall(p: GaussPlan, bits: Bits): bigint {
       }
     }
     if (n >= 0) {
-      if (expSmall(n, p.gDenN, bits)) return BigInt(y);
+      if (expSmall(n, p.gDenN, bits)) return y;
       continue;
     }
-    if (gaussAcceptBig(p, BigInt(yn), bits)) return BigInt(y);
+    if (gaussAcceptBig(p, BigInt(yn), bits)) return y;
   }
 }
 
@@ -309,6 +345,18 @@ export function sampleDiscreteGaussian(sigma2: Rational, bits: Bits): bigint {
     lastGauss = plan;
   }
   return plan.small ? gaussSmall(plan, bits) : gaussBig(plan, bits);
+}
+
+/** out.length draws of sampleDiscreteGaussian, as fillDiscreteLaplace does for the Laplace. */
+export function fillDiscreteGaussian(sigma2: Rational, bits: Bits, out: Float64Array): Map<number, bigint> {
+  const plan = gaussPlan(sigma2);
+  const big = new Map<number, bigint>();
+  for (let i = 0; i < out.length; i++) {
+    const r = plan.small ? gaussNum(plan, bits) : NaN;
+    out[i] = r;
+    if (r !== r) big.set(i, plan.small ? overflowDraw : gaussBig(plan, bits));
+  }
+  return big;
 }
 
 /** Bigint-only path of algorithm D, exported so tests can check it separately. */
