@@ -11,7 +11,7 @@
  * search is nearly free, with all rows it took up to 300 ms per cell until the tail sums stopped
  * converting each law to binary64 on every term; under load those asks overran their slot and this
  * test failed (std D = 0.225 in CI; 0.44 to 0.52 with two busy cores) though no data leaked. At
- * 40 to 70 ms they fit the slot again (D 0.04 to 0.10 with two busy cores).
+ * 15 to 25 ms they fit the slot again (D 0.04 to 0.16 with two busy cores).
  *
  * The test's power: the same measurement against the curator as it was before this work (commit
  * e82de90: no match flag, no padded draw, no pacing; this file's measure() run on a build of that

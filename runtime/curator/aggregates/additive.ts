@@ -187,7 +187,7 @@ export function spreadPiece(
     methods: [`${stat}: pivot interval from the joint noise law of the three noisy parts, Q - 2mS + (m^2 - v)N, with the mean m in its own pivot interval (docs/methods.md §8)${cells > SEARCH_CELLS ? `; with ${cells} cells (more than ${SEARCH_CELLS}) its quantile is the union bound, wider but quick` : ""}${stat === "std" ? ", square-rooted" : ""}`],
     size: cells,
     // Public size class for reply pacing (docs/methods.md §16): the variance pivot's search costs
-    // about 40 to 70 ms per cell with a large noisy count (one core of the bench machine; several
+    // about 15 to 25 ms per cell with a large noisy count (one core of the bench machine; several
     // times that when the cores are shared) and far less with a small one, so the first slot allows
     // 16 steps per cell; above SEARCH_CELLS the quantile is the quick union bound. The cell count is
     // public, so the size class reveals nothing.
