@@ -184,7 +184,7 @@ describe("hush prepare", () => {
       await e.close();
     }
     const other = tempPolicy(policyWith(`    source: data.csv\n${COLUMNS}`));
-    await expect(runPrepare({ policy: other, dataset: "d" }, () => undefined)).rejects.toThrow(/datasets\.d\.source is not a DuckDB file/);
+    await expect(runPrepare({ policy: other, dataset: "d" }, () => undefined)).rejects.toThrow(/datasets\.d\.source is neither a DuckDB file/);
     const none: string[] = [];
     await runPrepare({ policy: other }, (s) => void none.push(s));
     expect(none.join("")).toMatch(/nothing to prepare/);
@@ -213,6 +213,59 @@ describe("in place: the per-unit order kept for the next start", () => {
     expect(third.access("d")).not.toMatch(/start cache/);
     expect(await third.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
     await third.close();
+  });
+});
+
+describe("in place with a unit: the split path and hush prepare", () => {
+  it("answers as the bounded relation does (all rows, minus the big units' rows, plus their kept rows), with and without filters", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "q.parquet" }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    const pq = join(dirname(file), "q.parquet");
+    // 40 units: units 0..9 have 1..10 rows (so some are big), the rest one row each; a few rows
+    // without a unit id (left out).
+    await duck([
+      `COPY (SELECT (range * 7) % 100 AS age, CASE WHEN range % 3 = 0 THEN 'a' ELSE 'b' END AS town, ` +
+        `CASE WHEN range % 50 = 49 THEN NULL WHEN range < 55 THEN 'u' || CAST(floor((sqrt(8 * range + 1) - 1) / 2) AS INTEGER) ELSE 'w' || range END AS pid FROM range(200)) TO '${pq}' (FORMAT parquet)`,
+    ]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("split")), cacheDir: null });
+    try {
+      const r = e.relation("d");
+      for (const where of [undefined, { column: "town", op: "eq", value: "a" } as const, { column: "age", op: "ge", value: 50 } as const]) {
+        const terms = [{ kind: "count" as const }, { kind: "sum" as const, column: "age" }, { kind: "present" as const, column: "age" }];
+        const got = await e.cells({ dataset: "d", where, keys: [{ column: "town" }], terms });
+        // The same statement over the bounded view (the relation's meaning, one statement).
+        const { cellsStatement, cellsFromRows, toBigInt } = await import("../../runtime/curator/engines/shapes.js");
+        const { DUCKDB_DIALECT } = await import("../../runtime/curator/sql.js");
+        const st = cellsStatement(r, where, [{ column: "town" }], terms, DUCKDB_DIALECT);
+        expect(got, JSON.stringify(where)).toEqual(cellsFromRows(await e.query(st.sql, st.params), st.sizes, terms.length, toBigInt));
+        // And by hand: every unit keeps at most 3 of its matching rows.
+        const hand = await e.query(
+          `SELECT count(*) FROM (SELECT pid, least(count(*), 3) AS n FROM read_parquet('${pq}') WHERE pid IS NOT NULL` +
+            `${where === undefined ? "" : where.column === "town" ? " AND town = 'a'" : " AND age >= 50"} GROUP BY pid), range(1, 4) AS t(i) WHERE t.i <= n`,
+          [],
+        );
+        expect(got.reduce((a, c) => a + c[0], 0n)).toBe(toBigInt(hand[0][0]));
+      }
+    } finally {
+      await e.close();
+    }
+  });
+
+  it("hush prepare runs the start pass once; a later start reads it from the start cache", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "p.parquet" }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    const pq = join(dirname(file), "p.parquet");
+    await duck([`COPY (SELECT range % 100 AS age, 'a' AS town, 'u' || (range % 11) AS pid FROM range(300)) TO '${pq}' (FORMAT parquet)`]);
+    const lines: string[] = [];
+    await runPrepare({ policy: file }, (s) => void lines.push(s));
+    expect(lines.join("")).toMatch(/^dataset d: per-unit order kept in the start cache \(Parquet in place, 1 file; 11 units above maxRows\) in [0-9.]+ s\n$/);
+    await runPrepare({ policy: file, dataset: "d" }, (s) => void lines.push(s));
+    expect(lines[1]).toMatch(/^dataset d: start cache already current/);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    try {
+      expect(e.access("d")).toMatch(/per-unit order from the start cache/);
+      expect(await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
+    } finally {
+      await e.close();
+    }
   });
 });
 

@@ -15,7 +15,7 @@ import { DUCKDB_DIALECT } from "../../sql.js";
 import { type Relation, bucketsStatement, cellsFromRows, cellsStatement, toBigInt } from "../shapes.js";
 import { type BucketsRequest, type CellsRequest, type DataEngine, type LoadReport, type OpenOptions, type SqlParam, schemaOf } from "../types.js";
 import { quoteIdent, tableKey } from "./columns.js";
-import { openInPlace } from "./in-place.js";
+import { BIG_ROWS_BOUNDING, type InPlaceSplit, openInPlace } from "./in-place.js";
 import { LOADED_BOUNDING, loadTable } from "./load.js";
 import { ConnectionPool } from "./pool.js";
 import { attachPrepared } from "./prepare.js";
@@ -28,6 +28,17 @@ interface Opened {
   access: string;
   /** Checked before every statement (in place: the files have not changed since start). */
   check?: () => Promise<void>;
+  /** In place with a unit: the statements' split path (in-place.ts InPlaceSplit). */
+  split?: InPlaceSplit;
+}
+
+/** The three relations of a split path, with their signs: all rows, minus big rows unbounded, plus big rows bounded. */
+function splitParts(r: Relation, s: InPlaceSplit): { relation: Relation; sign: 1n | -1n }[] {
+  return [
+    { relation: { schema: r.schema, from: s.all, bounding: null }, sign: 1n },
+    { relation: { schema: r.schema, from: s.big, bounding: null }, sign: -1n },
+    { relation: { schema: r.schema, from: s.big, bounding: BIG_ROWS_BOUNDING }, sign: 1n },
+  ];
 }
 
 /** DuckDB configuration from the policy's engine limits. */
@@ -153,27 +164,51 @@ export class DuckDBEngine implements DataEngine {
 
   async cells(req: CellsRequest): Promise<bigint[][]> {
     const o = this.get(req.dataset);
-    const st = cellsStatement(o.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT);
-    const rows = await this.checked(o, st.sql, st.params);
-    return cellsFromRows(rows, st.sizes, req.terms.length, toBigInt);
+    if (o.split === undefined) {
+      const st = cellsStatement(o.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT);
+      const rows = await this.checked(o, [st]);
+      return cellsFromRows(rows[0], st.sizes, req.terms.length, toBigInt);
+    }
+    // Split path: the same cells as the bounded relation, as a signed sum of three statements.
+    const parts = splitParts(o.relation, o.split);
+    const sts = parts.map((p) => cellsStatement(p.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT));
+    const results = await this.checked(o, sts);
+    let out: bigint[][] | null = null;
+    for (const [j, p] of parts.entries()) {
+      const cells = cellsFromRows(results[j], sts[j].sizes, req.terms.length, toBigInt);
+      out = out === null ? cells.map((v) => v.map((x) => p.sign * x)) : out.map((v, c) => v.map((x, t) => x + p.sign * cells[c][t]));
+    }
+    return out!;
   }
 
   async buckets(req: BucketsRequest): Promise<[bigint, bigint][]> {
     const o = this.get(req.dataset);
-    const st = bucketsStatement(o.relation, req, DUCKDB_DIALECT);
-    const rows = await this.checked(o, st.sql, st.params);
-    // The bucket of a missing value is NULL: left out.
-    return rows.filter((r) => r[0] !== null).map((r) => [toBigInt(r[0]), toBigInt(r[1])]);
+    const parts = o.split === undefined ? [{ relation: o.relation, sign: 1n }] : splitParts(o.relation, o.split);
+    const sts = parts.map((p) => bucketsStatement(p.relation, req, DUCKDB_DIALECT));
+    const results = await this.checked(o, sts);
+    const counts = new Map<bigint, bigint>();
+    for (const [j, p] of parts.entries()) {
+      // The bucket of a missing value is NULL: left out.
+      for (const r of results[j]) {
+        if (r[0] === null) continue;
+        const b = toBigInt(r[0]);
+        counts.set(b, (counts.get(b) ?? 0n) + p.sign * toBigInt(r[1]));
+      }
+    }
+    const out = [...counts].filter(([, n]) => n !== 0n).sort((x, y) => (x[0] < y[0] ? -1 : x[0] > y[0] ? 1 : 0));
+    if (out.some(([, n]) => n < 0n)) throw new Error("internal: a bucket count below zero on the split path");
+    return out;
   }
 
   /**
-   * Runs a dataset's statement alongside its source check (in place: the files are unchanged);
-   * a failed check drops the result and refuses, whatever the statement returned.
+   * Runs a dataset's statements alongside its source check (in place: the files are unchanged);
+   * a failed check drops the results and refuses, whatever the statements returned.
    */
-  private async checked(o: Opened, sql: string, params: readonly SqlParam[]): Promise<unknown[][]> {
-    if (o.check === undefined) return this.query(sql, params);
-    const [rows] = await Promise.all([this.query(sql, params), o.check()]);
-    // Checked again after the statement, so a change while it ran is not missed.
+  private async checked(o: Opened, sts: readonly { sql: string; params: readonly SqlParam[] }[]): Promise<unknown[][][]> {
+    const runs = Promise.all(sts.map((st) => this.query(st.sql, st.params)));
+    if (o.check === undefined) return runs;
+    const [rows] = await Promise.all([runs, o.check()]);
+    // Checked again after the statements, so a change while they ran is not missed.
     await o.check();
     return rows;
   }
