@@ -56,7 +56,7 @@ function program(): Command {
     });
 
   p.command("prepare")
-    .description("prepare the datasets whose source is a DuckDB database file (once, before the curator starts)")
+    .description("prepare the datasets whose source is a DuckDB database file, and run the start pass of Parquet in place with a unit (once, before the curator starts)")
     .requiredOption("--policy <file>", "the steward's policy (YAML)")
     .option("--dataset <name>", "only this dataset")
     .action(async (o: { policy: string; dataset?: string }) => {
