@@ -4,7 +4,9 @@
  * c(alpha) * sqrt((n + m) / (n m)) with c(alpha) = sqrt(-ln(alpha / 2) / 2) (Smirnov 1948; the
  * form tabulated in e.g. Wikipedia's "Kolmogorov-Smirnov test" article, c(0.001) = 1.949).
  * Ties are handled by stepping over each distinct value at once (the statistic scipy's
- * `ks_2samp` computes; cross-checked in timing.test.ts).
+ * `ks_2samp` computes; cross-checked in timing.test.ts). The table assumes every observation
+ * independent; the timing test's asks are not (pairs and neighbours share the machine's load), so it
+ * judges D with pairedPermutationKs below and prints ksCritical only for comparison.
  */
 export function ksStatistic(a: readonly number[], b: readonly number[]): number {
   const x = [...a].sort((p, q) => p - q);
