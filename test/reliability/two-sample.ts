@@ -29,14 +29,14 @@ export function ksCritical(alpha: number, n: number, m: number): number {
 
 /**
  * The within-pair permutation (randomization) test for paired samples, with the KS D as its
- * statistic (Fisher 1935, The Design of Experiments, ch. 3, Darwin's paired plants: the coin within pairs is what
- * makes the reference distribution; Good, Permutation Tests, 2005: Monte Carlo p-values and their
- * "+1"; both from memory). Pair i holds a[i] and b[i]; the order inside each pair was chosen by a fair coin. If the
- * time does not depend on the arm, the two times of a pair are exchangeable, however the load
- * drifted (it is shared, or not, by both members alike), so swapping the labels inside each pair
- * independently with probability 1/2 gives D's exact reference distribution given the times. The
- * asymptotic table (ksCritical) assumes every time independent of every other, which a pair sharing
- * its moment, and pairs sharing a load, are not.
+ * statistic (Fisher 1935, The Design of Experiments, ch. 3, Darwin's paired plants: the coin within
+ * pairs is what makes the reference distribution; Good, Permutation Tests, 2005: Monte Carlo
+ * p-values and their "+1"; both from memory). Pair i holds a[i] and b[i]; the order inside each
+ * pair was chosen by a fair coin. If the time does not depend on the arm, the two times of a pair
+ * are exchangeable, however the load drifted (it is shared, or not, by both members alike), so
+ * swapping the labels inside each pair independently with probability 1/2 gives D's exact reference
+ * distribution given the times. The asymptotic table (ksCritical) assumes every time independent of
+ * every other, which a pair sharing its moment, and pairs sharing a load, are not.
  *
  * p = (1 + #{r : D_r >= D}) / (1 + R) over R resamples: a valid p-value for any R, since the
  * observed labelling is one more draw from the same distribution (Good 2005). The kind fails
