@@ -328,21 +328,6 @@ export class ServeProcess {
   }
 }
 
-/**
- * A small seeded PRNG (mulberry32, T. Ettinger, public domain; from memory) for generating fuzz
- * frames reproducibly. Test-only: it never comes near noise, which uses runtime/core/random.ts.
- */
-export function seededRandom(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
-
 /** A raw DEALER over CURVE, pinned to the server key: frames the typed client would never send. */
 export class CurveSpeaker {
   private readonly sock: Dealer;

@@ -28,7 +28,8 @@ import { CuratorClient } from "../../runtime/client/client.js";
 import { MAX_FRAME_BYTES, type Receipt } from "../../runtime/protocol/messages.js";
 import { loadPublicKey, receiptHash } from "../../runtime/protocol/receipts.js";
 import { ledgerProblems, readLedger, sumOf } from "./checks.js";
-import { CurveSpeaker, HOSTILE_BOUNDS, makeHostileWorkspace, seededRandom, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
+import { CurveSpeaker, HOSTILE_BOUNDS, makeHostileWorkspace, ServeProcess, watchCurator, type HostileWorkspace, type WatchLog } from "./fixtures.js";
+import { seededRandom } from "./seeded-random.js";
 
 const SEED = Number(process.env.HUSH_FUZZ_SEED ?? 20_261_202);
 const FRAMES = Number(process.env.HUSH_FUZZ_FRAMES ?? 10_000);
