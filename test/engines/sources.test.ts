@@ -405,3 +405,55 @@ describe("a unit's kept rows depend only on its own rows (loaded into memory)", 
     expect(subsets.size).toBeGreaterThan(6);
   });
 });
+
+describe("in place, integer source columns on a step of 1 (integer arithmetic)", () => {
+  it("give the load's stored values row by row: bounds, beyond them, the 64-bit extremes, NULL", async () => {
+    const values = ["0", "1", "-1", "-10", "-11", "10", "11", "7", "-7", "9223372036854775807", "-9223372036854775808", "NULL", "100", "-100"];
+    // One row per value in each of four integer types; column w is a `number` on a step of 1,
+    // column b an integer on a step of 2 (the binary64 path, for contrast).
+    const rows = values
+      .map((v, j) => `SELECT 'r${j}' AS rid, CAST(${v.startsWith("9") || v.startsWith("-9") ? "NULL" : v} AS TINYINT) AS t, CAST(${v.startsWith("9") || v.startsWith("-9") ? "NULL" : v} AS SMALLINT) AS s, ` +
+        `CAST(${v.startsWith("9") || v.startsWith("-9") ? "NULL" : v} AS INTEGER) AS i, CAST(${v} AS BIGINT) AS w, CAST(${v} AS BIGINT) AS b`)
+      .join(" UNION ALL ");
+    const cols = `    accounting: { mode: pure, cap: { epsilon: "10" } }
+    analysts: [ada]
+    columns:
+      rid: { type: category, values: [${values.map((_, j) => `r${j}`).join(", ")}] }
+      t: { type: integer, range: [-10, 10] }
+      s: { type: integer, range: [-10, 10] }
+      i: { type: integer, range: [-10, 10] }
+      w: { type: number, range: [-10, 10], step: "1" }
+      b: { type: integer, range: [-10, 10], step: "2" }
+`;
+    const file = tempPolicy(`${policyWith(`    source: a.parquet\n    population: one\n${cols}`)}  e:\n    source: { files: a.parquet }\n    population: one\n${cols}`);
+    await duck([`COPY (${rows}) TO '${join(dirname(file), "a.parquet")}' (FORMAT parquet)`]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
+    try {
+      for (const column of ["t", "s", "i", "w", "b"]) {
+        const terms = [
+          { kind: "present" as const, column },
+          { kind: "sum" as const, column },
+          { kind: "sumSquares" as const, column },
+          { kind: "atLower" as const, column },
+          { kind: "atUpper" as const, column },
+        ];
+        const mem = await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms });
+        const inPlace = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms });
+        expect(inPlace, column).toEqual(mem);
+      }
+      // Hand-worked values of w (grid units = values on a step of 1): 11 clamps to 10, -11 to
+      // -10, the 64-bit extremes to 10 and -10, NULL is missing; the flags count 11, 2^63 - 1, 100
+      // above and -11, -2^63, -100 below.
+      const w = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "w" }] });
+      expect(w.slice(0, values.length).map((c) => c[0])).toEqual([0n, 1n, -1n, -10n, -10n, 10n, 10n, 7n, -7n, 10n, -10n, 0n, 10n, -10n]);
+      const flags = await e.cells({ dataset: "e", keys: [], terms: [{ kind: "atLower", column: "w" }, { kind: "atUpper", column: "w" }, { kind: "present", column: "w" }] });
+      expect(flags).toEqual([[3n, 3n, 13n]]);
+      // The integer path is the one taken: no division by the step in the view's SQL for w.
+      const sql = await e.query(`SELECT sql FROM duckdb_views() WHERE view_name = 'v1'`, []);
+      expect(String(sql[0][0])).not.toMatch(/x4 \/ CAST/);
+      expect(String(sql[0][0])).toMatch(/x5 \/ CAST/);
+    } finally {
+      await e.close();
+    }
+  });
+});

@@ -102,6 +102,17 @@ export function tableKey(d: { source: string; format: string; columns: readonly 
 }
 
 const INTEGER_TYPES = /^(TINYINT|SMALLINT|INTEGER|BIGINT|HUGEINT|UTINYINT|USMALLINT|UINTEGER|UBIGINT|UHUGEINT)$/;
+const SIGNED_64 = /^(TINYINT|SMALLINT|INTEGER|BIGINT)$/;
+
+/**
+ * Whether a numeric column can be converted in integer arithmetic: a signed source integer of at
+ * most 64 bits on a grid step of exactly 1, where grid units are the values themselves and
+ * round(clamp(x / 1)) is clamp(x). (Unsigned and 128-bit sources keep the binary64 path: their
+ * comparisons with negative bounds would need wider types.)
+ */
+function integerPath(c: ColumnPolicy, type: string): boolean {
+  return (c.type === "integer" || c.type === "number") && SIGNED_64.test(type.toUpperCase()) && c.grid.step.num === 1n && c.grid.step.den === 1n;
+}
 
 /**
  * In place (in-place.ts), the typed value x<i> of a source column of DuckDB type `type`, read as
@@ -112,7 +123,7 @@ export function inPlaceTyped(c: ColumnPolicy, i: number, src: string, type: stri
   switch (c.type) {
     case "integer":
     case "number":
-      if (t === "DOUBLE") return `${src} AS x${i}`;
+      if (t === "DOUBLE" || integerPath(c, t)) return `${src} AS x${i}`;
       if (INTEGER_TYPES.test(t) || t === "FLOAT" || t.startsWith("DECIMAL")) return `CAST(${src} AS DOUBLE) AS x${i}`;
       return `TRY_CAST(${src} AS DOUBLE) AS x${i}`;
     case "category": {
@@ -140,6 +151,14 @@ export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[]
     case "number": {
       const lo = c.grid.lowerUnits.toString();
       const hi = c.grid.upperUnits.toString();
+      if (integerPath(c, type)) {
+        // Integer arithmetic: the value itself, clamped (the ELSE arm lies strictly between the
+        // bounds, so its cast to BIGINT cannot overflow); a NULL reaches the ELSE arm and stays NULL.
+        const value = `CASE WHEN ${x} <= ${lo} THEN ${lo} WHEN ${x} >= ${hi} THEN ${hi} ELSE CAST(${x} AS BIGINT) END AS c${i}`;
+        // On a step of 1 the declared bounds are the end units themselves (fixedpoint.ts: bounds lie on the grid).
+        const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${lo} THEN -1 WHEN ${x} > ${hi} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+        return [value, flag];
+      }
       const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";
       // isfinite(NULL) is NULL, so a missing value stays missing.
       const fits = `isfinite(${x})${whole}`;
