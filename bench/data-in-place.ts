@@ -12,7 +12,7 @@
  *
  * DP path: Answerer.prepare + compute (bounding, exact noise, intervals), as the curator runs it.
  * Plain path: the same aggregate as plain SQL over read_parquet of the same files, on the same
- * DuckDB instance: count(*), sum(amount), avg(amount) GROUP BY region, median(amount). Plain SQL
+ * DuckDB instance: count(*), sum(amount), sum(age), avg(amount) GROUP BY region, median(amount). Plain SQL
  * neither clamps nor bounds, so the ratio shows everything DP adds, including reading values
  * through the in-place view. Timed alternately (harness.timePair). Not part of `npm run bench`.
  */
@@ -105,6 +105,12 @@ const QUERIES: Query[] = [
     name: "clamped sum",
     plan: (e) => ({ v: 1, dataset: BENCH_DATASET, measure: { kind: "sum", column: "amount" }, privacy: { epsilon: e } }),
     sql: (f) => `SELECT sum(amount) FROM ${f}`,
+  },
+  {
+    // An INTEGER column on a step of 1: converted in integer arithmetic (columns.ts integerPath).
+    name: "clamped sum (integer column)",
+    plan: (e) => ({ v: 1, dataset: BENCH_DATASET, measure: { kind: "sum", column: "age" }, privacy: { epsilon: e } }),
+    sql: (f) => `SELECT sum(age) FROM ${f}`,
   },
   {
     name: "grouped mean (8 regions)",
