@@ -17,6 +17,7 @@
  * DataEngine interface and through the Answerer. DuckDB in memory over a CSV of the same rows is
  * opened beside every entry to compare answer-level outputs (costs, notes, refusals, releases).
  */
+import { seededRandom } from "../reliability/seeded-random.js";
 import { mkdtempSync, writeFileSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -62,17 +63,8 @@ export interface EngineUnderTest {
 const DISTRICTS = ["Northgate", "Riverside", "Old Town"];
 const REGIONS = ["north", "south"];
 
-/** mulberry32: a small seeded generator for test data only (never for noise). */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** A small seeded generator for test data only (never for noise). */
+const rng = seededRandom;
 
 /**
  * 500 units with 1..12 rows each (about 3000 rows). Ages include values below 0 and above 100,

@@ -269,6 +269,11 @@ describe("in place with a unit: the split path and hush prepare", () => {
   });
 });
 
+/** Every per-value term of a numeric column: what a load's stored value decides. */
+function valueTerms(column: string) {
+  return (["present", "sum", "sumSquares", "atLower", "atUpper"] as const).map((kind) => ({ kind, column }));
+}
+
 describe("in place computes the load's stored values", () => {
   it("row by row on awkward numbers: halves, bounds, huge, non-finite, negative zero, non-whole integers", async () => {
     const values = [
@@ -293,13 +298,7 @@ describe("in place computes the load's stored values", () => {
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
     try {
       for (const column of ["v", "n"]) {
-        const terms = [
-          { kind: "present" as const, column },
-          { kind: "sum" as const, column },
-          { kind: "sumSquares" as const, column },
-          { kind: "atLower" as const, column },
-          { kind: "atUpper" as const, column },
-        ];
+        const terms = valueTerms(column);
         // The rows that try values in this column (the other rows are whole-row rejections in
         // memory when the other column's value does not fit, by design).
         const part = (cells: bigint[][]) => (column === "v" ? cells.slice(0, 20) : cells.slice(20));
@@ -430,13 +429,7 @@ describe("in place, integer source columns on a step of 1 (integer arithmetic)",
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
     try {
       for (const column of ["t", "s", "i", "w", "b"]) {
-        const terms = [
-          { kind: "present" as const, column },
-          { kind: "sum" as const, column },
-          { kind: "sumSquares" as const, column },
-          { kind: "atLower" as const, column },
-          { kind: "atUpper" as const, column },
-        ];
+        const terms = valueTerms(column);
         const mem = await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms });
         const inPlace = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms });
         expect(inPlace, column).toEqual(mem);

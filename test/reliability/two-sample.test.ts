@@ -196,22 +196,30 @@ describe("within-pair permutation KS test: fair under drift, where the asymptoti
   });
 });
 
+/**
+ * Rejections at 0.001 over `runs` synthetic files of PAIRS pairs: the "none" arm 50 ms plus 30 ms
+ * of Gaussian noise, the "all" arm as `allArm` draws it (data from seed, label swaps from seed + 1).
+ */
+function rejections(seed: number, runs: number, allArm: (u: () => number) => number): number {
+  const u = seededRandom(seed);
+  const next = mulberry32(seed + 1);
+  let rejected = 0;
+  for (let r = 0; r < runs; r++) {
+    const none: number[] = [];
+    const all: number[] = [];
+    for (let i = 0; i < PAIRS; i++) {
+      none.push(50 + 30 * gauss(u));
+      all.push(allArm(u));
+    }
+    if (pairedPermutationKs(none, all, { resamples: 3999, alpha: 0.001, next }).p < 0.001) rejected++;
+  }
+  return rejected;
+}
+
 describe("within-pair permutation KS test: power", () => {
   it("rejects +20 ms on one arm with 30 ms noise at 0.001 (200 pairs)", () => {
-    const u = seededRandom(801);
-    const next = mulberry32(802);
-    let rejected = 0;
     const RUNS = 20;
-    for (let r = 0; r < RUNS; r++) {
-      const none: number[] = [];
-      const all: number[] = [];
-      for (let i = 0; i < PAIRS; i++) {
-        none.push(50 + 30 * gauss(u));
-        all.push(70 + 30 * gauss(u));
-      }
-      const res = pairedPermutationKs(none, all, { resamples: 3999, alpha: 0.001, next });
-      if (res.p < 0.001) rejected++;
-    }
+    const rejected = rejections(801, RUNS, (u) => 70 + 30 * gauss(u));
     // D is about 0.26 for a 2/3-sd shift against a permutation critical value near 0.2.
     expect(rejected).toBe(RUNS);
   });
@@ -220,19 +228,8 @@ describe("within-pair permutation KS test: power", () => {
     // The limit of the KS statistic at 200 pairs, not of the permutation: D cannot exceed the
     // slowed share by much, and the 0.001 critical value is near 0.2. Recorded so nobody reads the
     // timing test as able to see a 15% slot overrun.
-    const u = seededRandom(901);
-    const next = mulberry32(902);
-    let rejected = 0;
     const RUNS = 20;
-    for (let r = 0; r < RUNS; r++) {
-      const none: number[] = [];
-      const all: number[] = [];
-      for (let i = 0; i < PAIRS; i++) {
-        none.push(50 + 30 * gauss(u));
-        all.push(50 + 30 * gauss(u) + (u() < 0.15 ? 200 : 0));
-      }
-      if (pairedPermutationKs(none, all, { resamples: 3999, alpha: 0.001, next }).p < 0.001) rejected++;
-    }
+    const rejected = rejections(901, RUNS, (u) => 50 + 30 * gauss(u) + (u() < 0.15 ? 200 : 0));
     process.stdout.write(`15% slowed by 200 ms: permutation rejects ${rejected}/${RUNS} at 0.001\n`);
     expect(rejected).toBeGreaterThan(0);
     expect(rejected).toBeLessThan(RUNS);
