@@ -228,6 +228,9 @@ describe("in place with a unit: the split path and hush prepare", () => {
     ]);
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("split")), cacheDir: null });
     try {
+      // Unit uj holds rows j(j+1)/2 .. j(j+1)/2 + j, so u3..u9 have 4..10 rows, less row 49 (no
+      // unit id) from u9: 7 units above maxRows 3 with 4+5+6+7+8+9+9 = 48 rows, in memory here.
+      expect(e.access("d")).toMatch(/; 7 units above maxRows \(48 rows of them held in memory\)$/);
       const r = e.relation("d");
       for (const where of [undefined, { column: "town", op: "eq", value: "a" } as const, { column: "age", op: "ge", value: 50 } as const]) {
         const terms = [{ kind: "count" as const }, { kind: "sum" as const, column: "age" }, { kind: "present" as const, column: "age" }];
@@ -256,7 +259,7 @@ describe("in place with a unit: the split path and hush prepare", () => {
     await duck([`COPY (SELECT range % 100 AS age, 'a' AS town, 'u' || (range % 11) AS pid FROM range(300)) TO '${pq}' (FORMAT parquet)`]);
     const lines: string[] = [];
     await runPrepare({ policy: file }, (s) => void lines.push(s));
-    expect(lines.join("")).toMatch(/^dataset d: per-unit order kept in the start cache \(Parquet in place, 1 file; 11 units above maxRows\) in [0-9.]+ s\n$/);
+    expect(lines.join("")).toMatch(/^dataset d: per-unit order kept in the start cache \(Parquet in place, 1 file; 11 units above maxRows \(300 rows of them copied beside the ledger\)\) in [0-9.]+ s\n$/);
     await runPrepare({ policy: file, dataset: "d" }, (s) => void lines.push(s));
     expect(lines[1]).toMatch(/^dataset d: start cache already current/);
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });

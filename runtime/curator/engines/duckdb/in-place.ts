@@ -387,9 +387,11 @@ export async function openInPlace(
         `WHERE __u NOT IN (SELECT __u FROM ${bigUnits}) UNION ALL SELECT ${cols.join(", ")}, __u, __thr, __h FROM ${bigRows}`,
     );
     const units = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${bigUnits}`)).getRows()[0][0]);
+    // The steward sees how large the copy beside the ledger is (a count of rows, never a value).
+    const copied = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${bigRows}`)).getRows()[0][0]);
     split = { all, big: bigRows };
     report = { rows: null, rejected: 0, reasons: {} };
-    access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows`;
+    access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows (${copied} row${copied === 1 ? "" : "s"} of ${units === 1 ? "it" : "them"} ${bigRows === rows ? "held in memory" : "copied beside the ledger"})`;
   }
   if (o.format === "parquet") {
     // Row count from the files' metadata (no scan).
