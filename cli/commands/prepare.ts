@@ -42,11 +42,11 @@ export async function runPrepare(o: { policy: string; dataset?: string }, out: (
       const e = await DuckDBEngine.open(policy, { datasets: [d], quiet: true });
       try {
         const secs = ((performance.now() - started) / 1000).toFixed(1);
-        if (/start cache could not be written/.test(e.access(d.name))) {
+        const cache = e.startCache(d.name);
+        if (cache !== "read" && cache !== "written") {
           throw new PolicyError(`dataset ${d.name}: the start cache could not be written beside the ledger (${policy.ledgerPath}); check that folder's permissions`);
         }
-        const current = /from the start cache/.test(e.access(d.name));
-        out(`dataset ${d.name}: ${current ? "start cache already current" : "per-unit order kept in the start cache"} (${e.access(d.name)}) in ${secs} s\n`);
+        out(`dataset ${d.name}: ${cache === "read" ? "start cache already current" : "per-unit order kept in the start cache"} (${e.access(d.name)}) in ${secs} s\n`);
       } finally {
         await e.close();
       }

@@ -265,6 +265,26 @@ describe("in place with a unit: the split path and hush prepare", () => {
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
     try {
       expect(e.access("d")).toMatch(/per-unit order from the start cache/);
+      expect(e.startCache("d")).toBe("read");
+      expect(await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
+    } finally {
+      await e.close();
+    }
+  });
+
+  it("hush prepare refuses, naming the ledger's folder, when the start cache cannot be written there", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "p.parquet" }\n    unit: { column: pid, maxRows: 3 }\n${COLUMNS}`));
+    await duck([`COPY (SELECT range % 100 AS age, 'a' AS town, 'u' || (range % 11) AS pid FROM range(300)) TO '${join(dirname(file), "p.parquet")}' (FORMAT parquet)`]);
+    // A plain file where the cache folder would go: the folder cannot be made, whoever runs this.
+    const state = dirname(loadPolicy(file).ledgerPath);
+    mkdirSync(state, { recursive: true });
+    writeFileSync(join(state, "in-place"), "not a folder\n");
+    await expect(runPrepare({ policy: file }, () => undefined)).rejects.toThrow(/dataset d: the start cache could not be written beside the ledger/);
+    // The curator itself still starts (and says so), repeating the pass next time.
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true });
+    try {
+      expect(e.startCache("d")).toBe("unwritable");
+      expect(e.access("d")).toMatch(/the start cache could not be written/);
       expect(await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] })).toEqual([[33n]]);
     } finally {
       await e.close();

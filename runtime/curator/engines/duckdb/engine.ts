@@ -15,7 +15,7 @@ import { DUCKDB_DIALECT } from "../../sql.js";
 import { type Relation, bucketsStatement, cellsFromRows, cellsStatement, toBigInt } from "../shapes.js";
 import { type BucketsRequest, type CellsRequest, type DataEngine, type LoadReport, type OpenOptions, type SqlParam, schemaOf } from "../types.js";
 import { quoteIdent, tableKey } from "./columns.js";
-import { BIG_ROWS_BOUNDING, type InPlaceSplit, openInPlace } from "./in-place.js";
+import { BIG_ROWS_BOUNDING, type InPlaceSplit, type StartCache, openInPlace } from "./in-place.js";
 import { LOADED_BOUNDING, loadTable } from "./load.js";
 import { ConnectionPool } from "./pool.js";
 import { attachPrepared } from "./prepare.js";
@@ -30,10 +30,12 @@ interface Opened {
   check?: () => Promise<void>;
   /** In place with a unit: the statements' split path (in-place.ts InPlaceSplit). */
   split?: InPlaceSplit;
+  /** In place with a unit: what the start did with the start cache. */
+  startCache?: StartCache;
 }
 
 /** The three relations of a split path, with their signs: all rows, minus big rows unbounded, plus big rows bounded. */
-function splitParts(r: Relation, s: InPlaceSplit): { relation: Relation; sign: 1n | -1n }[] {
+function splitParts(r: Relation, s: InPlaceSplit): { relation: Relation; sign: bigint }[] {
   return [
     { relation: { schema: r.schema, from: s.all, bounding: null }, sign: 1n },
     { relation: { schema: r.schema, from: s.big, bounding: null }, sign: -1n },
@@ -152,6 +154,11 @@ export class DuckDBEngine implements DataEngine {
     return this.get(dataset).access;
   }
 
+  /** Steward-only: what the start did with a dataset's start cache (null: it has none, not in place with a unit). */
+  startCache(dataset: string): StartCache | null {
+    return this.get(dataset).startCache ?? null;
+  }
+
   loadReport(dataset: string): LoadReport {
     const r = this.get(dataset).report;
     return { ...r, reasons: { ...r.reasons } };
@@ -164,21 +171,16 @@ export class DuckDBEngine implements DataEngine {
 
   async cells(req: CellsRequest): Promise<bigint[][]> {
     const o = this.get(req.dataset);
-    if (o.split === undefined) {
-      const st = cellsStatement(o.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT);
-      const rows = await this.checked(o, [st]);
-      return cellsFromRows(rows[0], st.sizes, req.terms.length, toBigInt);
-    }
-    // Split path: the same cells as the bounded relation, as a signed sum of three statements.
-    const parts = splitParts(o.relation, o.split);
+    // Split path (in place with a unit): the same cells as the bounded relation, as a signed sum.
+    const parts = o.split === undefined ? [{ relation: o.relation, sign: 1n }] : splitParts(o.relation, o.split);
     const sts = parts.map((p) => cellsStatement(p.relation, req.where, req.keys, req.terms, DUCKDB_DIALECT));
     const results = await this.checked(o, sts);
-    let out: bigint[][] | null = null;
-    for (const [j, p] of parts.entries()) {
+    const sum = cellsFromRows(results[0], sts[0].sizes, req.terms.length, toBigInt);
+    for (let j = 1; j < parts.length; j++) {
       const cells = cellsFromRows(results[j], sts[j].sizes, req.terms.length, toBigInt);
-      out = out === null ? cells.map((v) => v.map((x) => p.sign * x)) : out.map((v, c) => v.map((x, t) => x + p.sign * cells[c][t]));
+      for (const [c, v] of sum.entries()) for (let t = 0; t < v.length; t++) v[t] += parts[j].sign * cells[c][t];
     }
-    return out!;
+    return sum;
   }
 
   async buckets(req: BucketsRequest): Promise<[bigint, bigint][]> {

@@ -183,8 +183,13 @@ async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy,
     chmodSync(tmp, 0o600);
     renameSync(tmp, file);
   } catch {
-    // A cache that cannot be written costs the next start the pass again, nothing else.
-    rmSync(tmp, { force: true });
+    // A cache that cannot be written costs the next start the pass again, nothing else (and a
+    // leftover that cannot be removed, e.g. under a path that is not a folder, is no error either).
+    try {
+      rmSync(tmp, { force: true });
+    } catch {
+      // nothing to remove
+    }
     return null;
   }
   return attachCache(conn, file);
@@ -208,6 +213,9 @@ async function unitNeverMissing(conn: DuckDBConnection, list: string, column: st
     return false;
   }
 }
+
+/** What a start did with the start cache: read it, wrote it, could not write it, or had no folder for it. */
+export type StartCache = "read" | "written" | "unwritable" | "none";
 
 /**
  * The split path of a dataset in place with a unit: the statements run over every row without
@@ -237,7 +245,7 @@ export async function openInPlace(
   where: string,
   bits: Bits,
   cacheDir: string | null = null,
-): Promise<{ relation: Relation; report: LoadReport; access: string; check: () => Promise<void>; split?: InPlaceSplit }> {
+): Promise<{ relation: Relation; report: LoadReport; access: string; check: () => Promise<void>; split?: InPlaceSplit; startCache?: StartCache }> {
   const schema = schemaOf(d);
   // The files, matched once (sorted, so the same files give the same positions).
   let files: string[];
@@ -302,6 +310,7 @@ export async function openInPlace(
   const k = d.unit.maxRows;
   let report: LoadReport;
   let split: InPlaceSplit | undefined;
+  let startCache: StartCache | undefined;
   let access = `${o.format === "parquet" ? "Parquet" : "CSV"} in place, ${files.length} file${files.length === 1 ? "" : "s"}`;
 
   if (unit === null) {
@@ -337,7 +346,9 @@ export async function openInPlace(
       bigRows = `${cached.alias}.rows`;
       bigUnits = `${cached.alias}.big`;
       access = `${access}; per-unit order from the start cache`;
+      startCache = "read";
     } else {
+      startCache = cacheDir === null ? "none" : "unwritable";
       // The start pass: every row of a unit with more than k rows, its values in stored form and
       // its position (one read of the unit column to find the big units, one read of their rows).
       try {
@@ -371,6 +382,7 @@ export async function openInPlace(
         const alias = await writeCache(conn, cacheDir, d, start, big, rows);
         if (alias === null) access = `${access}; the start cache could not be written (the next start repeats the start pass)`;
         else {
+          startCache = "written";
           // Read from the cache file from now on: the rows leave memory.
           await conn.run(`DROP TABLE ${rows}`);
           await conn.run(`DROP TABLE ${big}`);
@@ -411,5 +423,5 @@ export async function openInPlace(
       throw new UnreachableError(`the data files of dataset ${d.name} changed after the curator started; nothing was spent (the steward must restart the curator)`);
     }
   };
-  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split };
+  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split, startCache };
 }
