@@ -112,7 +112,7 @@ function typeFits(c: ColumnPolicy, type: string): boolean {
 
 /** What a cached per-unit order was built for: the declaration and every file's size and time. */
 function cacheKey(d: DatasetPolicy, start: readonly FileStamp[]): string {
-  return createHash("sha256").update(JSON.stringify(["in-place-v3", tableKey(d), start])).digest("hex");
+  return createHash("sha256").update(JSON.stringify(["in-place-v4", tableKey(d), start])).digest("hex");
 }
 
 function cacheFile(dir: string, d: DatasetPolicy): string {
@@ -141,18 +141,19 @@ async function attachCache(conn: DuckDBConnection, file: string): Promise<string
  * file by every statement); null when there is none (or it was built for other files or another
  * declaration, or cannot be read).
  */
-async function readCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[]): Promise<{ alias: string } | null> {
+async function readCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[]): Promise<{ alias: string; missing: number } | null> {
   const file = cacheFile(dir, d);
   if (!existsSync(file)) return null;
   const alias = await attachCache(conn, file);
   if (alias === null) return null;
   try {
-    const meta = (await conn.runAndReadAll(`SELECT key FROM ${alias}.meta`)).getRows();
-    if (meta.length === 1 && meta[0][0] === cacheKey(d, start)) {
+    const meta = (await conn.runAndReadAll(`SELECT key, missing FROM ${alias}.meta`)).getRows();
+    const missing = meta.length === 1 ? Number(meta[0][1]) : NaN;
+    if (meta.length === 1 && meta[0][0] === cacheKey(d, start) && Number.isSafeInteger(missing) && missing >= 0) {
       // Both tables must be there with the columns the statements read.
       await conn.runAndReadAll(`SELECT __u, __thr FROM ${alias}.big LIMIT 0`);
       await conn.runAndReadAll(`SELECT __u, __h, __thr FROM ${alias}.rows LIMIT 0`);
-      return { alias };
+      return { alias, missing };
     }
   } catch {
     // fall through: not usable
@@ -165,7 +166,7 @@ async function readCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, 
  * Keeps the per-unit order for the next start (folder and file readable by the curator's user
  * only) and attaches the written file read-only; its name, or null when it cannot be written.
  */
-async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[], big: string, rows: string): Promise<string | null> {
+async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy, start: readonly FileStamp[], big: string, rows: string, missing: number): Promise<string | null> {
   const file = cacheFile(dir, d);
   const tmp = `${file}.${process.pid}.tmp`;
   const alias = quoteIdent(`cachew_${process.pid}`);
@@ -176,7 +177,7 @@ async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy,
     try {
       await conn.run(`CREATE TABLE ${alias}.big AS SELECT * FROM ${big}`);
       await conn.run(`CREATE TABLE ${alias}.rows AS SELECT * FROM ${rows}`);
-      await conn.run(`CREATE TABLE ${alias}.meta AS SELECT ${quoteString(cacheKey(d, start))} AS key`);
+      await conn.run(`CREATE TABLE ${alias}.meta AS SELECT ${quoteString(cacheKey(d, start))} AS key, CAST(${missing} AS BIGINT) AS missing`);
     } finally {
       await conn.run(`DETACH ${alias}`);
     }
@@ -193,25 +194,6 @@ async function writeCache(conn: DuckDBConnection, dir: string, d: DatasetPolicy,
     return null;
   }
   return attachCache(conn, file);
-}
-
-/**
- * Whether every row group of every file holds the unit column with a null count of 0 in its
- * statistics (a row group without the column, or without statistics, answers no).
- */
-async function unitNeverMissing(conn: DuckDBConnection, list: string, column: string): Promise<boolean> {
-  try {
-    const stmt = await conn.prepare(
-      `SELECT count(*) FROM (SELECT file_name, row_group_id, bool_or(path_in_schema = $1 AND stats_null_count = 0) AS ok ` +
-        `FROM parquet_metadata(${list}) GROUP BY 1, 2) WHERE NOT ok`,
-    );
-    stmt.bindVarchar(1, column);
-    const rows = (await stmt.runAndReadAll()).getRows();
-    stmt.destroySync();
-    return Number(rows[0][0]) === 0;
-  } catch {
-    return false;
-  }
 }
 
 /** What a start did with the start cache: read it, wrote it, could not write it, or had no folder for it. */
@@ -330,19 +312,14 @@ export async function openInPlace(
         `(SELECT ${staged.join(", ")}, ${u} AS __u, hash(src.__hush_file) AS __f, src.file_row_number AS __r ` +
         `FROM ${source} AS src WHERE ${u} IS NOT NULL)`,
     );
-    // Every row with a unit, without positions, for the split path: the same rows as srcView.
-    // When the files' own statistics show no missing unit id in any row group, the test for one
-    // is left out (it would read the unit column for nothing; a count is then read from the
-    // files' metadata). The files are the ones stamped at start, checked at every statement.
     const plainSource = `read_parquet(${list}, union_by_name = true)`;
-    const noMissingUnit = await unitNeverMissing(conn, list, srcName(unit));
-    await conn.run(
-      `CREATE VIEW ${all} AS SELECT ${finals.join(", ")}, __u FROM (SELECT ${staged.join(", ")}, ${u} AS __u FROM ${plainSource} AS src${noMissingUnit ? "" : ` WHERE ${u} IS NOT NULL`})`,
-    );
     const cached = cacheDir === null ? null : await readCache(conn, cacheDir, d, start);
     let bigRows: string;
     let bigUnits: string;
+    /** Rows of the files without a unit id (counted by the start pass, never from file statistics). */
+    let missing: number;
     if (cached !== null) {
+      missing = cached.missing;
       bigRows = `${cached.alias}.rows`;
       bigUnits = `${cached.alias}.big`;
       access = `${access}; per-unit order from the start cache`;
@@ -356,6 +333,7 @@ export async function openInPlace(
           `CREATE TABLE ${raw} AS SELECT ${cols.join(", ")}, __u, __f, __r FROM ${srcView} ` +
             `WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k})`,
         );
+        missing = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${plainSource} AS src WHERE ${u} IS NULL`)).getRows()[0][0]);
       } catch (e) {
         throw new PolicyError(`${where}.source.files: cannot be read as parquet (${engineMessage(e)})`);
       }
@@ -379,7 +357,7 @@ export async function openInPlace(
       bigRows = rows;
       bigUnits = big;
       if (cacheDir !== null) {
-        const alias = await writeCache(conn, cacheDir, d, start, big, rows);
+        const alias = await writeCache(conn, cacheDir, d, start, big, rows, missing);
         if (alias === null) access = `${access}; the start cache could not be written (the next start repeats the start pass)`;
         else {
           startCache = "written";
@@ -391,6 +369,13 @@ export async function openInPlace(
         }
       }
     }
+    // Every row with a unit, without positions, for the split path: the same rows as srcView.
+    // When the start pass found no row without a unit id, the test for one is left out (it would
+    // read the unit column for nothing; a count is then read from the files' metadata). The files
+    // are the ones counted at start (their stamps are checked at every statement).
+    await conn.run(
+      `CREATE VIEW ${all} AS SELECT ${finals.join(", ")}, __u FROM (SELECT ${staged.join(", ")}, ${u} AS __u FROM ${plainSource} AS src${missing === 0 ? "" : ` WHERE ${u} IS NOT NULL`})`,
+    );
     // The bounded view: the rows of small units with no threshold, and the big units' rows with
     // theirs. It is the relation's meaning (plain-SQL comparisons in tests and the bench read it);
     // the engine's statements take the split path instead (InPlaceSplit).
