@@ -6,6 +6,7 @@
  *   - N rows (default 10M; HUSH_BENCH_PG_ROWS) in one PostgreSQL 15 table;
  *   - the same N rows over 3 local shards (postgres_fdw foreign partitions, hash on the unit), where
  *     plain SQL runs over the same partitioned table on the coordinator.
+ * HUSH_BENCH_PG_WHERE=single or shards measures one of the two set-ups only.
  *
  * Each with each row its own unit and with a privacy unit (patient, maxRows 2: every unit of ~3
  * rows is bounded, so the per-unit window always runs). The DP path is Answerer.prepare + compute
@@ -30,6 +31,9 @@ import { fmtRatio, fmtTiming, machineFacts, machineMarkdown, markdownTable, prog
 
 const ROWS = Number(process.env.HUSH_BENCH_PG_ROWS ?? 10_000_000);
 const RUNS = Number(process.env.HUSH_BENCH_PG_RUNS ?? 3);
+/** Which set-ups to measure: "single", "shards" or both (default; HUSH_BENCH_PG_WHERE). */
+const WHERE = process.env.HUSH_BENCH_PG_WHERE ?? "both";
+if (!["single", "shards", "both"].includes(WHERE)) throw new Error("HUSH_BENCH_PG_WHERE: single, shards or both");
 const TARGET = 1.3;
 const COLUMNS = "patient bigint, age integer, income numeric(12,2), region text";
 const REGIONS = ["north", "south", "east", "west", "harbour", "hills", "centre", "airport"];
@@ -154,12 +158,7 @@ async function measure(where: string, coordinator: PgCluster, reader: { user: st
   }
 }
 
-async function main(): Promise<void> {
-  const facts = machineFacts();
-  const out: Row[] = [];
-  const loads: string[][] = [];
-  const label = ROWS >= 1_000_000 ? `${ROWS / 1_000_000}M` : String(ROWS);
-
+async function oneServer(label: string, out: Row[], loads: string[][]): Promise<void> {
   progress(`bench:pg: one server, ${label} rows`);
   const single = await startCluster({ conf: CONF });
   try {
@@ -175,7 +174,9 @@ async function main(): Promise<void> {
   } finally {
     await single.stop();
   }
+}
 
+async function shards(label: string, out: Row[], loads: string[][]): Promise<void> {
   progress(`bench:pg: 3 shards, ${label} rows`);
   const set = await startShardedSet(3, { conf: CONF });
   try {
@@ -201,6 +202,15 @@ async function main(): Promise<void> {
   } finally {
     await set.stop();
   }
+}
+
+async function main(): Promise<void> {
+  const facts = machineFacts();
+  const out: Row[] = [];
+  const loads: string[][] = [];
+  const label = ROWS >= 1_000_000 ? `${ROWS / 1_000_000}M` : String(ROWS);
+  if (WHERE !== "shards") await oneServer(label, out, loads);
+  if (WHERE !== "single") await shards(label, out, loads);
 
   const table = markdownTable(
     ["where", "rows", "privacy unit", "query", "runs", "DP median (min–max)", "plain SQL median (min–max)", "ratio of medians", "target", "met", "plain SQL with the same bounding", "DP / bounded plain"],

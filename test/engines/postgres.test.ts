@@ -17,7 +17,7 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { Bits, seededBytes } from "../../runtime/core/index.js";
-import { PostgresEngine } from "../../runtime/curator/engines/postgres/engine.js";
+import { PostgresEngine, pgBigInt } from "../../runtime/curator/engines/postgres/engine.js";
 import { type LoadedPolicy, loadPolicy } from "../../runtime/curator/policy.js";
 import { type PgCluster, createReader, havePostgres, startCluster } from "../helpers/pg-cluster.js";
 import { ADA_HASH } from "../fixtures/curator-helpers.js";
@@ -262,6 +262,118 @@ run("PostgreSQL engine: true aggregates", () => {
     const st = engine.cellsStatement(ungrouped("rows", [{ kind: "count" }], { op: "eq", column: "age", value: 77 }));
     expect(st.sql).not.toMatch(/77/);
     expect(st.params).toContain("77");
+  });
+});
+
+run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () => {
+  // A sum over a numeric(p, s) column on a step of 10^-t (t >= s) adds the clamped values in the
+  // column's units and scales once (relation.ts onGrid); every other column, and every view or
+  // foreign table, rounds each row to grid units. Both must give the same exact integers.
+  const N = 2400;
+  let engine: PostgresEngine;
+  const GRID_COLUMNS = `    columns:
+      amount: { type: number, range: [-50, 1000], step: "0.01" }
+      tenth:  { type: number, range: [-5, 5], step: "0.01" }
+      whole:  { type: integer, range: [0, 500] }
+      coarse: { type: number, range: [-50, 1000], step: "0.05" }
+      loose:  { type: number, range: [-50, 1000], step: "0.01" }
+      region: { type: category, values: [north, south, east, west] }
+      milli:  { type: number, range: [-5, 5], step: "0.01" }
+`;
+  const grid = (name: string, table: string, unit: string | null) =>
+    `  ${name}:\n    source: ${pgSource(table)}\n` +
+    (unit === null ? "" : `    unit: ${unit}\n`) +
+    `    accounting: { mode: pure, cap: { epsilon: "10" } }\n    analysts: [ada]\n${GRID_COLUMNS}`;
+  beforeAll(async () => {
+    const cols = "patient bigint, amount numeric(12,2), tenth numeric(6,1), whole numeric(8,0), loose numeric, region text, coarse numeric(12,2), milli numeric(8,3)";
+    await cluster.sql(`CREATE TABLE cents (${cols})`);
+    await cluster.sql(`CREATE TABLE cents_parts (${cols}) PARTITION BY HASH (patient)`);
+    for (let i = 0; i < 3; i++) await cluster.sql(`CREATE TABLE cents_parts_${i} PARTITION OF cents_parts FOR VALUES WITH (MODULUS 3, REMAINDER ${i})`);
+    // Deterministic rows (test data, not noise): amounts from -99.99 to 1099.99 so that both bounds
+    // clamp, the bounds themselves, NaN, NULL; the same in every numeric column kind.
+    const rows = `SELECT *, amount AS coarse, (tenth * 7.005)::numeric(8,3) AS milli FROM (SELECT g / 3 AS patient,
+        CASE WHEN g % 41 = 0 THEN 'NaN'::numeric WHEN g % 37 = 0 THEN NULL WHEN g % 53 = 0 THEN -50 WHEN g % 59 = 0 THEN 1000
+             ELSE ((g * 7919) % 120000 - 10000) / 100.0 END::numeric(12,2) AS amount,
+        CASE WHEN g % 43 = 0 THEN 'NaN'::numeric WHEN g % 31 = 0 THEN NULL ELSE ((g * 613) % 140 - 70) / 10.0 END::numeric(6,1) AS tenth,
+        CASE WHEN g % 47 = 0 THEN 'NaN'::numeric WHEN g % 29 = 0 THEN NULL ELSE (g * 271) % 700 - 100 END::numeric(8,0) AS whole,
+        CASE WHEN g % 41 = 0 THEN 'NaN'::numeric WHEN g % 37 = 0 THEN NULL ELSE ((g * 7919) % 120000 - 10000) / 100.0 END AS loose,
+        (ARRAY['north', 'south', 'east', 'west', 'elsewhere'])[1 + g % 5] AS region
+      FROM generate_series(1, ${N}) g) AS r`;
+    await cluster.sql(`INSERT INTO cents ${rows}`);
+    await cluster.sql(`INSERT INTO cents_parts ${rows}`);
+    await cluster.sql("CREATE VIEW cents_view AS SELECT * FROM cents");
+    await cluster.sql(`GRANT SELECT ON cents, cents_parts, cents_view TO ${reader.user}`);
+    const p = policy(
+      grid("table", "cents", null) +
+        grid("view", "cents_view", null) +
+        grid("tableUnit", "cents", "{ column: patient, maxRows: 10 }") +
+        grid("viewUnit", "cents_view", "{ column: patient, maxRows: 10 }") +
+        grid("parts", "cents_parts", "{ column: patient, maxRows: 10 }"),
+      "grid.yaml",
+    );
+    engine = await PostgresEngine.open(p, { datasets: [...p.datasets.values()], quiet: true, bits: new Bits(seededBytes("pg-grid")) });
+  });
+  afterAll(async () => {
+    await engine?.close();
+  });
+
+  const terms: CellsRequest["terms"] = [
+    { kind: "count" },
+    { kind: "sum", column: "amount" },
+    { kind: "sum", column: "tenth" },
+    { kind: "sum", column: "whole" },
+    { kind: "sum", column: "coarse" },
+    { kind: "sum", column: "loose" },
+    { kind: "sum", column: "milli" },
+    { kind: "present", column: "amount" },
+    { kind: "present", column: "tenth" },
+    { kind: "present", column: "whole" },
+    { kind: "present", column: "loose" },
+    { kind: "sumSquares", column: "amount" },
+    { kind: "atLower", column: "amount" },
+    { kind: "atUpper", column: "tenth" },
+  ];
+
+  it("the table takes the on-grid sum for amount, tenth and whole only; the view rounds every row", () => {
+    const t = engine.cellsStatement(ungrouped("table", terms)).sql;
+    expect(t).toMatch(/\(sum\(v0\)\) \* 100\b/);
+    expect(t).toMatch(/\(sum\(v1\)\) \* 100\b/);
+    expect(t).toMatch(/\(sum\(v2\)\) \* 1\b/);
+    // step 0.05; a numeric without typmod; numeric(8,3) on a step of 0.01 (values between points)
+    expect(t).not.toMatch(/sum\(v3\)|sum\(v4\)|sum\(v6\)/);
+    expect(engine.cellsStatement(ungrouped("view", terms)).sql).not.toMatch(/sum\(v\d\)/);
+    expect(engine.cellsStatement(ungrouped("parts", terms)).sql).toMatch(/\(sum\(v0\) FILTER \(WHERE __m\)\) \* 100\b/);
+  });
+
+  it("identical cells on the table (on the grid) and on the view (rounded per row): ungrouped, filtered, grouped, with a unit", async () => {
+    const where: CellsRequest["where"] = { op: "ge", column: "tenth", value: -1.5 };
+    for (const [a, b] of [["table", "view"], ["tableUnit", "viewUnit"], ["parts", "viewUnit"]]) {
+      expect(await engine.cells(ungrouped(a, terms))).toEqual(await engine.cells(ungrouped(b, terms)));
+      expect(await engine.cells(ungrouped(a, terms, where))).toEqual(await engine.cells(ungrouped(b, terms, where)));
+      const g = { keys: [{ column: "region" }], terms, where };
+      expect(await engine.cells({ dataset: a, ...g })).toEqual(await engine.cells({ dataset: b, ...g }));
+    }
+  });
+
+  it("equal to plain SQL written by hand (clamp, scale, NaN and NULL missing)", async () => {
+    const got = (await engine.cells(ungrouped("table", terms.slice(0, 11))))[0].map(String);
+    const u = (x: string, lo: number, hi: number, k: number) => `sum(round(LEAST(GREATEST(${x}, ${lo}), ${hi}) * ${k})) FILTER (WHERE ${x} <> 'NaN')`;
+    const c = (x: string) => `count(${x}) FILTER (WHERE ${x} <> 'NaN')`;
+    const want = await plain(
+      `SELECT count(*), ${u("amount", -50, 1000, 100)}, ${u("tenth", -5, 5, 100)}, ${u("whole", 0, 500, 1)}, ` +
+        `${u("coarse", -50, 1000, 20)}, ${u("loose", -50, 1000, 100)}, ${u("milli", -5, 5, 100)}, ${c("amount")}, ${c("tenth")}, ${c("whole")}, ${c("loose")} FROM cents`,
+    );
+    expect(got).toEqual(want);
+    // The fixture reaches every arm: both bounds clamp, NaN and NULL occur.
+    const [below, above, nan] = await plain("SELECT count(*) FILTER (WHERE amount < -50), count(*) FILTER (WHERE amount > 1000 AND amount <> 'NaN'), count(*) FILTER (WHERE amount = 'NaN') FROM cents");
+    expect([Number(below) > 0, Number(above) > 0, Number(nan) > 0]).toEqual([true, true, true]);
+  });
+
+  it("a sum that comes back with a digit after the point is a fault, never rounded", () => {
+    expect(pgBigInt("123400.00")).toBe(123400n);
+    expect(pgBigInt("-7.0")).toBe(-7n);
+    expect(() => pgBigInt("1.50")).toThrow(/not an exact integer/);
+    expect(() => pgBigInt("1.")).toThrow(/not an exact integer/);
   });
 });
 

@@ -14,6 +14,9 @@
  *     one partition and the per-unit window can run per partition; every partition must be a leaf
  *     (a plain or foreign table), not partitioned again
  *   - a plain table with inheritance children is refused (its rows' ctids would not be unique)
+ *   - the scale of each numeric(p, s) column, trusted only where PostgreSQL stores the rows
+ *     itself (a plain table, a materialized view, a partitioned table without foreign
+ *     partitions): relation.ts then sums values on the declared grid without rounding each row
  *   - the full source expression plans and runs on zero rows (catches anything the type map missed)
  *
  * What the curator CANNOT check (the steward's responsibility, stated in DEVELOPERS.md): that the
@@ -92,7 +95,7 @@ export async function checkSource(
   const oid = String(rel[0].oid);
 
   const cols = await q(
-    `SELECT column_name::text AS name, data_type::text AS type,
+    `SELECT column_name::text AS name, data_type::text AS type, numeric_scale::int AS scale,
             (SELECT t.typtype::text FROM pg_type t JOIN pg_namespace tn ON tn.oid = t.typnamespace
               WHERE t.typname = c.udt_name AND tn.nspname = c.udt_schema) AS typtype
        FROM information_schema.columns c WHERE table_schema = $1 AND table_name = $2`,
@@ -112,7 +115,8 @@ export async function checkSource(
         `${where}: column ${JSON.stringify(c.from)} of ${cfg.table} has PostgreSQL type ${String(row.type)}, which does not fit declared type ${c.type} of column ${c.name}`,
       );
     }
-    return { policy: c, kind: k };
+    const scale = k === "numeric" && typeof row.scale === "number" ? row.scale : null;
+    return { policy: c, kind: k, scale };
   });
   const unit = d.unit.column;
   if (unit !== null && !types.has(unit)) throw new PolicyError(`${where}: ${cfg.table} has no column ${JSON.stringify(unit)} (the privacy unit column)`);
@@ -147,6 +151,10 @@ export async function checkSource(
   } else if (rel[0].children === true) {
     throw new PolicyError(`${where}.table: ${cfg.table} has inheritance children; use declarative partitioning (PARTITION BY HASH on the unit column)`);
   }
+
+  // PostgreSQL keeps stored values to a numeric(p, s) typmod only where it stores them itself.
+  const typmodKept = kind === "r" || kind === "m" || (kind === "p" && foreign === 0);
+  if (!typmodKept) for (const c of columns) c.scale = null;
 
   const shape: SourceShape = {
     relation: `${quoteIdent(schema)}.${quoteIdent(name)}`,

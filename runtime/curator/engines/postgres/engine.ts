@@ -34,7 +34,7 @@ import {
 } from "../types.js";
 import { type CheckedSource, checkSource } from "./checks.js";
 import { type PgSourceConfig, connectError, poolConfig, readPassword } from "./connection.js";
-import { type SourceShape, flaggedFrom, unitCounts } from "./relation.js";
+import { type SourceShape, flaggedFrom, onGrid, unitCounts } from "./relation.js";
 import { BadInputError } from "../../../errors.js";
 
 /**
@@ -98,8 +98,32 @@ const PG_TERMS: TermDialect = {
   presentIdent: (c) => (c.policy.type === "integer" || c.policy.type === "number" ? `"p${c.index}"` : c.ident),
 };
 
-function termSql(t: DatasetSchema, term: CellTerm, i: number): { agg: string; cols: string[] } {
+/**
+ * One term's aggregate, the relation columns it reads, and a whole multiplier applied after the
+ * aggregate (and its FILTER). A sum over a column stored on its grid (relation.ts onGrid) adds the
+ * clamped values in the column's own units, as PostgreSQL stores them, and scales once: the same
+ * exact integer as the sum of grid units, without rounding and casting every row.
+ */
+function termSql(t: DatasetSchema, shape: SourceShape, term: CellTerm, i: number): { agg: string; cols: string[]; times?: bigint } {
+  if (term.kind === "sum") {
+    const c = numericColumn(t, term.column, `terms[${i}].column`);
+    const pow = onGrid(shape.columns[c.index]);
+    if (pow !== null) return { agg: `sum(v${c.index})`, cols: [`v${c.index}`], times: pow };
+  }
   return sharedTermSql(t, term, i, PG_TERMS);
+}
+
+/**
+ * An aggregate as PostgreSQL returns it: int8 and numeric arrive as text. A sum scaled by
+ * onGrid's power of ten keeps the column's scale ("1234.00"); any digit after the point other
+ * than zero would be a fault, never rounded away.
+ */
+export function pgBigInt(v: unknown): bigint {
+  if (typeof v === "string") {
+    const m = /^(-?[0-9]{1,40})\.0{1,1000}$/.exec(v);
+    if (m !== null) return BigInt(m[1]);
+  }
+  return toBigInt(v);
 }
 
 export class PostgresEngine implements DataEngine {
@@ -185,7 +209,7 @@ export class PostgresEngine implements DataEngine {
     const ps = new Params(PG_DIALECT);
     const where = req.where === undefined ? "TRUE" : compileWhere(req.where, t, ps);
     const groups = req.keys.map((k, i) => compileGroup(k, t, ps, `plan.groupBy[${i}]`));
-    const parts = req.terms.map((term, i) => termSql(t, term, i));
+    const parts = req.terms.map((term, i) => termSql(t, o.shape, term, i));
     const cols = [...groups.map((g) => g.ident), ...parts.flatMap((p) => p.cols)];
     if (groups.length === 0 && parts.length > 0 && req.terms.every((x) => x.kind === "count") && o.shape.dataset.unit.column !== null) {
       // Ungrouped counts: sum over units of min(matching rows, k), the kept count whichever k rows a
@@ -196,7 +220,10 @@ export class PostgresEngine implements DataEngine {
     }
     const from = flaggedFrom(o.shape, where, cols, ps);
     const flagged = where !== "TRUE" || o.shape.dataset.unit.column !== null;
-    const aggs = parts.map((p) => (flagged ? `${p.agg} FILTER (WHERE __m)` : p.agg));
+    const aggs = parts.map((p) => {
+      const a = flagged ? `${p.agg} FILTER (WHERE __m)` : p.agg;
+      return p.times === undefined ? a : `(${a}) * ${p.times}`;
+    });
     let sql: string;
     if (groups.length === 0) sql = `SELECT ${aggs.join(", ")} FROM ${from}`;
     else {
@@ -209,7 +236,7 @@ export class PostgresEngine implements DataEngine {
   async cells(req: CellsRequest): Promise<bigint[][]> {
     const { sql, params, sizes } = this.cellsStatement(req);
     const rows = await this.run(req.dataset, sql, params);
-    return cellsFromRows(rows, sizes, req.terms.length, toBigInt);
+    return cellsFromRows(rows, sizes, req.terms.length, pgBigInt);
   }
 
   /** The SQL and parameters of a buckets request. */

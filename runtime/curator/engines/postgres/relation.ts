@@ -8,6 +8,8 @@
  *         category column -> INTEGER index into the declared list (NULL for a missing value)
  *         date / boolean  -> the value itself
  *   p<i>  numeric column: non-NULL exactly when c<i> is (what a count of values reads)
+ *   v<i>  numeric column stored on the declared grid (see onGrid): the clamped value in the
+ *         column's own units, NULL exactly when c<i> is; a sum reads it and scales once
  *   k<i>  numeric column: -1 when the raw value lay below the declared lower bound, 1 above the
  *         upper bound, 0 otherwise, NULL when missing (the clamping flag of engines/types.ts)
  *   __u   the unit id as stored (only with a unit column)
@@ -51,6 +53,13 @@ export type PgKind = "int" | "numeric" | "float" | "text" | "date" | "boolean" |
 export interface SourceColumn {
   policy: ColumnPolicy;
   kind: PgKind;
+  /**
+   * The scale s of a numeric(p, s) column whose stored values PostgreSQL itself keeps to that
+   * typmod (a plain table, a materialized view, a partitioned table without foreign partitions);
+   * null otherwise (no typmod, another type, a view, a foreign table or partition, whose values
+   * PostgreSQL does not check against the local declaration). Such a column holds no infinity.
+   */
+  scale: number | null;
 }
 
 export interface SourceShape {
@@ -69,6 +78,48 @@ const INT_SAFE = 1n << 62n;
 /** A bound as an SQL constant: a plain integer as is, anything else as an exact numeric. */
 function constant(v: string): string {
   return /^-?[0-9]{1,18}$/.test(v) ? v : `${quoteString(v)}::numeric`;
+}
+
+/**
+ * The power of ten 10^t when every value the column can hold lies on the declared grid, so that
+ * grid units are the value times 10^t with no rounding: a numeric(p, s) column (scale s, trusted;
+ * see SourceColumn.scale) on a step of 10^-t with t >= s. Then the sum of the clamped grid units
+ * equals 10^t times the sum of the clamped values (exact numeric arithmetic; clamped values are
+ * on the grid too, since the bounds are whole grid units), and a sum need not round or cast each
+ * row. Null for any other column.
+ */
+export function onGrid(c: SourceColumn): bigint | null {
+  if (c.kind !== "numeric" || c.scale === null) return null;
+  const p = c.policy;
+  if (p.type !== "integer" && p.type !== "number") return null;
+  const { num, den } = p.grid.step;
+  if (num !== 1n) return null;
+  let t = 0;
+  for (let d = den; d > 1n; d /= 10n) {
+    if (d % 10n !== 0n) return null;
+    t++;
+  }
+  return t >= c.scale ? den : null;
+}
+
+/** units / 10^t as an exact decimal literal (t = number of zeros of the power `pow`). */
+function decimal(units: bigint, pow: bigint): string {
+  const t = pow.toString().length - 1;
+  const sign = units < 0n ? "-" : "";
+  const a = (units < 0n ? -units : units).toString().padStart(t + 1, "0");
+  return `${quoteString(t === 0 ? `${sign}${a}` : `${sign}${a.slice(0, -t)}.${a.slice(-t)}`)}::numeric`;
+}
+
+/**
+ * v<i> of an on-grid column (onGrid): the value clamped to the declared range, in the column's
+ * units; NULL for a missing value or one that does not fit (NaN; a non-whole number in an integer
+ * column), exactly where c<i> is NULL. No infinity can be stored under a typmod.
+ */
+function onGridSql(x: string, p: Extract<ColumnPolicy, { grid: unknown }>, pow: bigint): string {
+  const lo = decimal(p.grid.lowerUnits, pow);
+  const hi = decimal(p.grid.upperUnits, pow);
+  const whole = p.type === "integer" ? `WHEN ${x} <> trunc(${x}) THEN NULL ` : "";
+  return `CASE ${whole}WHEN ${x} < ${lo} THEN ${lo} WHEN ${x} > ${hi} THEN CASE WHEN ${x} = 'NaN' THEN NULL ELSE ${hi} END ELSE ${x} END`;
 }
 
 /**
@@ -123,7 +174,7 @@ export function isTrue(e: string): string {
 }
 
 /** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
-function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string; present?: string } {
+function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string; present?: string; units?: string } {
   const p = c.policy;
   switch (p.type) {
     case "integer":
@@ -132,8 +183,15 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
       // Non-NULL exactly when c<i> is (a count of values need not round them): NaN compares
       // above 'Infinity', so the two comparisons leave out NaN and both infinities.
       const whole = p.type === "integer" && c.kind !== "int" ? ` AND ${raw} = trunc(${raw})` : "";
-      const present = c.kind === "int" ? raw : `CASE WHEN ${raw} < 'Infinity' AND ${raw} > '-Infinity'${whole} THEN 1 END`;
-      return { value, misfit: [], flag, present };
+      // Under a trusted typmod no infinity can be stored, so one comparison leaves out NaN.
+      const present =
+        c.kind === "int"
+          ? raw
+          : c.scale !== null
+            ? `CASE WHEN ${raw} < 'NaN'${whole} THEN 1 END`
+            : `CASE WHEN ${raw} < 'Infinity' AND ${raw} > '-Infinity'${whole} THEN 1 END`;
+      const pow = onGrid(c);
+      return { value, misfit: [], flag, present, ...(pow === null ? {} : { units: onGridSql(raw, p, pow) }) };
     }
     case "category": {
       const text = c.kind === "text" ? raw : `${raw}::text`;
@@ -169,6 +227,7 @@ export function sourceSelect(shape: SourceShape, seed: string): string {
     sel.push(`${missing(sql.value)} AS c${i}`);
     if (sql.flag !== undefined) sel.push(`${missing(sql.flag)} AS k${i}`);
     if (sql.present !== undefined) sel.push(`${sql.present} AS p${i}`);
+    if (sql.units !== undefined) sel.push(`${sql.units} AS v${i}`);
   });
   const unit = shape.dataset.unit.column;
   if (unit !== null) {
