@@ -279,19 +279,21 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
       loose:  { type: number, range: [-50, 1000], step: "0.01" }
       region: { type: category, values: [north, south, east, west] }
       milli:  { type: number, range: [-5, 5], step: "0.01" }
+      fee:    { type: number, range: [0, 20], step: "0.01" }
 `;
   const grid = (name: string, table: string, unit: string | null) =>
     `  ${name}:\n    source: ${pgSource(table)}\n` +
     (unit === null ? "" : `    unit: ${unit}\n`) +
     `    accounting: { mode: pure, cap: { epsilon: "10" } }\n    analysts: [ada]\n${GRID_COLUMNS}`;
   beforeAll(async () => {
-    const cols = "patient bigint, amount numeric(12,2), tenth numeric(6,1), whole numeric(8,0), loose numeric, region text, coarse numeric(12,2), milli numeric(8,3)";
+    const cols = "patient bigint, amount numeric(12,2), tenth numeric(6,1), whole numeric(8,0), loose numeric, region text, coarse numeric(12,2), milli numeric(8,3), fee cents_fee";
+    await cluster.sql("CREATE DOMAIN cents_fee AS numeric(10,2) CHECK (VALUE >= -1000)");
     await cluster.sql(`CREATE TABLE cents (${cols})`);
     await cluster.sql(`CREATE TABLE cents_parts (${cols}) PARTITION BY HASH (patient)`);
     for (let i = 0; i < 3; i++) await cluster.sql(`CREATE TABLE cents_parts_${i} PARTITION OF cents_parts FOR VALUES WITH (MODULUS 3, REMAINDER ${i})`);
     // Deterministic rows (test data, not noise): amounts from -99.99 to 1099.99 so that both bounds
     // clamp, the bounds themselves, NaN, NULL; the same in every numeric column kind.
-    const rows = `SELECT *, amount AS coarse, (tenth * 7.005)::numeric(8,3) AS milli FROM (SELECT g / 3 AS patient,
+    const rows = `SELECT *, amount AS coarse, (tenth * 7.005)::numeric(8,3) AS milli, (tenth * 3)::numeric(10,2)::cents_fee AS fee FROM (SELECT g / 3 AS patient,
         CASE WHEN g % 41 = 0 THEN 'NaN'::numeric WHEN g % 37 = 0 THEN NULL WHEN g % 53 = 0 THEN -50 WHEN g % 59 = 0 THEN 1000
              ELSE ((g * 7919) % 120000 - 10000) / 100.0 END::numeric(12,2) AS amount,
         CASE WHEN g % 43 = 0 THEN 'NaN'::numeric WHEN g % 31 = 0 THEN NULL ELSE ((g * 613) % 140 - 70) / 10.0 END::numeric(6,1) AS tenth,
@@ -302,10 +304,12 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
     await cluster.sql(`INSERT INTO cents ${rows}`);
     await cluster.sql(`INSERT INTO cents_parts ${rows}`);
     await cluster.sql("CREATE VIEW cents_view AS SELECT * FROM cents");
-    await cluster.sql(`GRANT SELECT ON cents, cents_parts, cents_view TO ${reader.user}`);
+    await cluster.sql("CREATE MATERIALIZED VIEW cents_mv AS SELECT * FROM cents");
+    await cluster.sql(`GRANT SELECT ON cents, cents_parts, cents_view, cents_mv TO ${reader.user}`);
     const p = policy(
       grid("table", "cents", null) +
         grid("view", "cents_view", null) +
+        grid("matview", "cents_mv", null) +
         grid("tableUnit", "cents", "{ column: patient, maxRows: 10 }") +
         grid("viewUnit", "cents_view", "{ column: patient, maxRows: 10 }") +
         grid("parts", "cents_parts", "{ column: patient, maxRows: 10 }"),
@@ -325,6 +329,7 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
     { kind: "sum", column: "coarse" },
     { kind: "sum", column: "loose" },
     { kind: "sum", column: "milli" },
+    { kind: "sum", column: "fee" },
     { kind: "present", column: "amount" },
     { kind: "present", column: "tenth" },
     { kind: "present", column: "whole" },
@@ -339,15 +344,17 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
     expect(t).toMatch(/\(sum\(v0\)\) \* 100\b/);
     expect(t).toMatch(/\(sum\(v1\)\) \* 100\b/);
     expect(t).toMatch(/\(sum\(v2\)\) \* 1\b/);
+    expect(t).toMatch(/\(sum\(v7\)\) \* 100\b/); // a domain over numeric(10,2)
     // step 0.05; a numeric without typmod; numeric(8,3) on a step of 0.01 (values between points)
     expect(t).not.toMatch(/sum\(v3\)|sum\(v4\)|sum\(v6\)/);
     expect(engine.cellsStatement(ungrouped("view", terms)).sql).not.toMatch(/sum\(v\d\)/);
+    expect(engine.cellsStatement(ungrouped("matview", terms)).sql).toMatch(/\(sum\(v0\)\) \* 100\b/);
     expect(engine.cellsStatement(ungrouped("parts", terms)).sql).toMatch(/\(sum\(v0\) FILTER \(WHERE __m\)\) \* 100\b/);
   });
 
   it("identical cells on the table (on the grid) and on the view (rounded per row): ungrouped, filtered, grouped, with a unit", async () => {
     const where: CellsRequest["where"] = { op: "ge", column: "tenth", value: -1.5 };
-    for (const [a, b] of [["table", "view"], ["tableUnit", "viewUnit"], ["parts", "viewUnit"]]) {
+    for (const [a, b] of [["table", "view"], ["matview", "view"], ["tableUnit", "viewUnit"], ["parts", "viewUnit"]]) {
       expect(await engine.cells(ungrouped(a, terms))).toEqual(await engine.cells(ungrouped(b, terms)));
       expect(await engine.cells(ungrouped(a, terms, where))).toEqual(await engine.cells(ungrouped(b, terms, where)));
       const g = { keys: [{ column: "region" }], terms, where };
@@ -356,12 +363,12 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
   });
 
   it("equal to plain SQL written by hand (clamp, scale, NaN and NULL missing)", async () => {
-    const got = (await engine.cells(ungrouped("table", terms.slice(0, 11))))[0].map(String);
+    const got = (await engine.cells(ungrouped("table", terms.slice(0, 12))))[0].map(String);
     const u = (x: string, lo: number, hi: number, k: number) => `sum(round(LEAST(GREATEST(${x}, ${lo}), ${hi}) * ${k})) FILTER (WHERE ${x} <> 'NaN')`;
     const c = (x: string) => `count(${x}) FILTER (WHERE ${x} <> 'NaN')`;
     const want = await plain(
       `SELECT count(*), ${u("amount", -50, 1000, 100)}, ${u("tenth", -5, 5, 100)}, ${u("whole", 0, 500, 1)}, ` +
-        `${u("coarse", -50, 1000, 20)}, ${u("loose", -50, 1000, 100)}, ${u("milli", -5, 5, 100)}, ${c("amount")}, ${c("tenth")}, ${c("whole")}, ${c("loose")} FROM cents`,
+        `${u("coarse", -50, 1000, 20)}, ${u("loose", -50, 1000, 100)}, ${u("milli", -5, 5, 100)}, ${u("fee", 0, 20, 100)}, ${c("amount")}, ${c("tenth")}, ${c("whole")}, ${c("loose")} FROM cents`,
     );
     expect(got).toEqual(want);
     // The fixture reaches every arm: both bounds clamp, NaN and NULL occur.

@@ -5,7 +5,7 @@
  *
  *   - the relation exists and the user may read it (pg_class, has_table_privilege)
  *   - every declared column and the unit column exist, with a PostgreSQL type that fits the
- *     declared type (information_schema.columns):
+ *     declared type (pg_attribute; a domain as its base type):
  *       integer / number -> smallint, integer, bigint, numeric, real, double precision
  *       category         -> text, varchar, char, an enum type, or an integer type (compared as text)
  *       date             -> date;   boolean -> boolean;   unit column -> any type
@@ -94,17 +94,25 @@ export async function checkSource(
   if (rel[0].readable !== true) throw new PolicyError(`${where}.table: user ${cfg.user} may not read ${cfg.table}`);
   const oid = String(rel[0].oid);
 
+  // pg_attribute rather than information_schema.columns, which leaves out materialized views. A
+  // domain reads as its base type and typmod; a numeric typmod holds (precision << 16 | scale) + 4,
+  // the scale in the low bits (a negative scale reads as a large number: no on-grid sum, see
+  // relation.ts onGrid).
   const cols = await q(
-    `SELECT column_name::text AS name, data_type::text AS type, numeric_scale::int AS scale,
-            (SELECT t.typtype::text FROM pg_type t JOIN pg_namespace tn ON tn.oid = t.typnamespace
-              WHERE t.typname = c.udt_name AND tn.nspname = c.udt_schema) AS typtype
-       FROM information_schema.columns c WHERE table_schema = $1 AND table_name = $2`,
-    [schema, name],
+    `SELECT a.attname::text AS name, format_type(b.oid, NULL) AS type, b.typtype::text AS typtype,
+            CASE WHEN b.oid = 'numeric'::regtype AND m.typmod >= 4 THEN (m.typmod - 4) & 65535 END AS scale
+       FROM pg_attribute a
+       JOIN pg_type t ON t.oid = a.atttypid
+      CROSS JOIN LATERAL (SELECT CASE WHEN t.typtype = 'd' THEN t.typbasetype ELSE t.oid END AS base,
+                                 CASE WHEN t.typtype = 'd' THEN t.typtypmod ELSE a.atttypmod END AS typmod) m
+       JOIN pg_type b ON b.oid = m.base
+      WHERE a.attrelid = $1::bigint::oid AND a.attnum > 0 AND NOT a.attisdropped`,
+    [oid],
   );
   const types = new Map<string, PgKind | null>();
   for (const c of cols) {
     const t = String(c.type);
-    types.set(String(c.name), KINDS[t] ?? (t === "USER-DEFINED" && c.typtype === "e" ? "enum" : null));
+    types.set(String(c.name), KINDS[t] ?? (c.typtype === "e" ? "enum" : null));
   }
   const columns: SourceColumn[] = d.columns.map((c) => {
     if (!types.has(c.from)) throw new PolicyError(`${where}: ${cfg.table} has no column ${JSON.stringify(c.from)} (declared as column ${c.name})`);

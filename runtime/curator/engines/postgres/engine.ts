@@ -34,7 +34,7 @@ import {
 } from "../types.js";
 import { type CheckedSource, checkSource } from "./checks.js";
 import { type PgSourceConfig, connectError, poolConfig, readPassword } from "./connection.js";
-import { type SourceShape, flaggedFrom, onGrid, unitCounts } from "./relation.js";
+import { type SourceShape, categoryIndex, flaggedFrom, onGrid, unitCounts } from "./relation.js";
 import { BadInputError } from "../../../errors.js";
 
 /**
@@ -210,7 +210,6 @@ export class PostgresEngine implements DataEngine {
     const where = req.where === undefined ? "TRUE" : compileWhere(req.where, t, ps);
     const groups = req.keys.map((k, i) => compileGroup(k, t, ps, `plan.groupBy[${i}]`));
     const parts = req.terms.map((term, i) => termSql(t, o.shape, term, i));
-    const cols = [...groups.map((g) => g.ident), ...parts.flatMap((p) => p.cols)];
     if (groups.length === 0 && parts.length > 0 && req.terms.every((x) => x.kind === "count") && o.shape.dataset.unit.column !== null) {
       // Ungrouped counts: sum over units of min(matching rows, k), the kept count whichever k rows a
       // window would keep. Grouped by the unit (the partition key of a sharded table), so
@@ -218,17 +217,31 @@ export class PostgresEngine implements DataEngine {
       const per = unitCounts(o.shape, where, ps);
       return { sql: dateParams(`SELECT ${parts.map(() => "sum(__n)").join(", ")} FROM ${per}`), params: ps.values().map((p) => String(p.value)), sizes: [] };
     }
-    const from = flaggedFrom(o.shape, where, cols, ps);
-    const flagged = where !== "TRUE" || o.shape.dataset.unit.column !== null;
-    const aggs = parts.map((p) => {
-      const a = flagged ? `${p.agg} FILTER (WHERE __m)` : p.agg;
-      return p.times === undefined ? a : `(${a}) * ${p.times}`;
+    // A category key is grouped on its stored value first, then mapped to its declared index in a
+    // second, small aggregate: hashing the stored value is cheaper than running the CASE of the
+    // declared list over every row. Every term is a count or a sum, so the second level adds up.
+    const raw = req.keys.map((k, i) => {
+      const c = t.columns.get(k.column);
+      return c !== undefined && c.policy.type === "category" && groups[i].ident === c.ident ? c.index : null;
     });
+    // The kept relation carries what the aggregates read: a category key's stored value (r<i>), not
+    // its index, which a window subquery would otherwise compute for every row.
+    const read = [...groups.flatMap((g, i) => (raw[i] === null ? [g.ident] : [`r${raw[i]}`])), ...parts.flatMap((p) => p.cols)];
+    const from = flaggedFrom(o.shape, where, read, ps);
+    const flagged = where !== "TRUE" || o.shape.dataset.unit.column !== null;
+    const inner = parts.map((p) => (flagged ? `${p.agg} FILTER (WHERE __m)` : p.agg));
+    const scaled = (a: string, j: number) => (parts[j].times === undefined ? a : `(${a}) * ${parts[j].times}`);
     let sql: string;
-    if (groups.length === 0) sql = `SELECT ${aggs.join(", ")} FROM ${from}`;
-    else {
+    if (groups.length === 0) sql = `SELECT ${inner.map(scaled).join(", ")} FROM ${from}`;
+    else if (raw.every((r) => r === null)) {
       const keySel = groups.map((g, i) => `${g.expr} AS __g${i}`).join(", ");
-      sql = `SELECT ${keySel}, ${aggs.join(", ")} FROM ${from} GROUP BY ${groups.map((_, i) => String(i + 1)).join(", ")}`;
+      sql = `SELECT ${keySel}, ${inner.map(scaled).join(", ")} FROM ${from} GROUP BY ${groups.map((_, i) => String(i + 1)).join(", ")}`;
+    } else {
+      const byPlace = groups.map((_, i) => String(i + 1)).join(", ");
+      const keySel = groups.map((g, i) => `${raw[i] === null ? g.expr : `r${raw[i]}`} AS __k${i}`).join(", ");
+      const first = `SELECT ${keySel}, ${inner.map((a, j) => `${a} AS __a${j}`).join(", ")} FROM ${from} GROUP BY ${byPlace}`;
+      const outerKeys = groups.map((_, i) => `${raw[i] === null ? `__i.__k${i}` : categoryIndex(o.shape.columns[raw[i]!], `__i.__k${i}`)} AS __g${i}`);
+      sql = `SELECT ${outerKeys.join(", ")}, ${parts.map((_, j) => scaled(`sum(__i.__a${j})`, j)).join(", ")} FROM (${first}) AS __i GROUP BY ${byPlace}`;
     }
     return { sql: dateParams(sql), params: ps.values().map((p) => String(p.value)), sizes: groups.map((g) => g.labels.length) };
   }

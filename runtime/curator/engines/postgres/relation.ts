@@ -8,6 +8,7 @@
  *         category column -> INTEGER index into the declared list (NULL for a missing value)
  *         date / boolean  -> the value itself
  *   p<i>  numeric column: non-NULL exactly when c<i> is (what a count of values reads)
+ *   r<i>  category column: the value as stored (grouped on first, then mapped to c<i>'s index)
  *   v<i>  numeric column stored on the declared grid (see onGrid): the clamped value in the
  *         column's own units, NULL exactly when c<i> is; a sum reads it and scales once
  *   k<i>  numeric column: -1 when the raw value lay below the declared lower bound, 1 above the
@@ -47,7 +48,7 @@ export function quoteString(s: string): string {
   return `'${s.replace(/'/g, "''")}'`;
 }
 
-/** How PostgreSQL stores a declared column, as read from information_schema at start. */
+/** How PostgreSQL stores a declared column, as read from the catalog (pg_attribute) at start. */
 export type PgKind = "int" | "numeric" | "float" | "text" | "date" | "boolean" | "enum";
 
 export interface SourceColumn {
@@ -173,6 +174,17 @@ export function isTrue(e: string): string {
   return `CASE WHEN ${e} THEN TRUE ELSE FALSE END`;
 }
 
+/**
+ * The index of a category value in the declared list, NULL for a missing value or one outside the
+ * list. A searched CASE (postgres_fdw ships it; the simple form CASE x WHEN ... it may not).
+ */
+export function categoryIndex(c: SourceColumn, raw: string): string {
+  if (c.policy.type !== "category") throw new Error("internal: not a category column");
+  const text = c.kind === "text" ? raw : `${raw}::text`;
+  const arms = c.policy.values.map((v, j) => `WHEN ${text} = ${quoteString(v)} THEN ${j}`).join(" ");
+  return `(CASE ${arms} END)`;
+}
+
 /** The c<i> expression and the reasons the row does not fit (SQL booleans, NULL-safe). */
 function columnSql(c: SourceColumn, raw: string): { value: string; misfit: string[]; flag?: string; present?: string; units?: string } {
   const p = c.policy;
@@ -193,14 +205,9 @@ function columnSql(c: SourceColumn, raw: string): { value: string; misfit: strin
       const pow = onGrid(c);
       return { value, misfit: [], flag, present, ...(pow === null ? {} : { units: onGridSql(raw, p, pow) }) };
     }
-    case "category": {
-      const text = c.kind === "text" ? raw : `${raw}::text`;
-      // A searched CASE (postgres_fdw ships it; the simple form CASE x WHEN ... it may not).
-      const arms = p.values.map((v, j) => `WHEN ${text} = ${quoteString(v)} THEN ${j}`).join(" ");
-      const value = `(CASE ${arms} END)`;
+    case "category":
       // A value outside the list matches no arm: NULL, missing.
-      return { value, misfit: [] };
-    }
+      return { value: categoryIndex(c, raw), misfit: [] };
     case "date":
       return {
         value: raw,
@@ -228,6 +235,7 @@ export function sourceSelect(shape: SourceShape, seed: string): string {
     if (sql.flag !== undefined) sel.push(`${missing(sql.flag)} AS k${i}`);
     if (sql.present !== undefined) sel.push(`${sql.present} AS p${i}`);
     if (sql.units !== undefined) sel.push(`${sql.units} AS v${i}`);
+    if (c.policy.type === "category") sel.push(`${raw} AS r${i}`);
   });
   const unit = shape.dataset.unit.column;
   if (unit !== null) {
