@@ -473,3 +473,57 @@ describe("in place, integer source columns on a step of 1 (integer arithmetic)",
     }
   });
 });
+
+describe("in place, DECIMAL source columns on a step of 10^-t (exact decimal arithmetic)", () => {
+  it("give the load's stored values row by row: bounds, beyond them, the widest decimals, NULL", async () => {
+    const values = ["0", "0.01", "-0.01", "-10", "-10.01", "10", "10.01", "7.77", "-7.77", "99999999.99", "-99999999.99", "NULL", "100", "-100", "9.99", "-9.99"];
+    // One row per value: c2 DECIMAL(12,2) and c38 DECIMAL(38,2) on a step of 0.01 and c1
+    // DECIMAL(12,2) on a step of 0.1 (t < s: the binary64 path, rounding), w DECIMAL(18,0) an
+    // integer on a step of 1; h DECIMAL(38,2) holds values near 10^35 (scaling those would overflow).
+    const rows = values
+      .map(
+        (v, j) =>
+          `SELECT 'r${j}' AS rid, CAST(${v} AS DECIMAL(12,2)) AS c2, CAST(${v} AS DECIMAL(38,2)) AS c38, CAST(${v} AS DECIMAL(12,2)) AS c1, ` +
+          `CAST(round(${v}) AS DECIMAL(18,0)) AS w, CAST(${j % 3 === 0 && v !== "NULL" ? `'${v.startsWith("-") ? "-" : ""}123456789012345678901234567890123456.78'` : v} AS DECIMAL(38,2)) AS h`,
+      )
+      .join(" UNION ALL ");
+    const cols = `    accounting: { mode: pure, cap: { epsilon: "10" } }
+    analysts: [ada]
+    columns:
+      rid: { type: category, values: [${values.map((_, j) => `r${j}`).join(", ")}] }
+      c2: { type: number, range: [-10, 10], step: "0.01" }
+      c38: { type: number, range: [-10, 10], step: "0.001" }
+      c1: { type: number, range: [-10, 10], step: "0.1" }
+      w: { type: integer, range: [-10, 10] }
+      h: { type: number, range: [-10, 10], step: "0.01" }
+`;
+    const file = tempPolicy(`${policyWith(`    source: a.parquet\n    population: one\n${cols}`)}  e:\n    source: { files: a.parquet }\n    population: one\n${cols}`);
+    const parquet = join(dirname(file), "a.parquet");
+    await duck([`COPY (${rows}) TO '${parquet}' (FORMAT parquet)`]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
+    try {
+      for (const column of ["c2", "c38", "c1", "w", "h"]) {
+        const terms = valueTerms(column);
+        const mem = await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms });
+        const inPlace = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms });
+        expect(inPlace, column).toEqual(mem);
+      }
+      // Hand-worked grid units of c2 (cents): -10.01 and -99999999.99 clamp to -1000, 10.01 and
+      // 99999999.99 to 1000, NULL is missing.
+      const c2 = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "c2" }] });
+      expect(c2.slice(0, values.length).map((c) => c[0])).toEqual([0n, 1n, -1n, -1000n, -1000n, 1000n, 1000n, 777n, -777n, 1000n, -1000n, 0n, 1000n, -1000n, 999n, -999n]);
+      const flags = await e.cells({ dataset: "e", keys: [], terms: [{ kind: "atLower", column: "c2" }, { kind: "atUpper", column: "c2" }, { kind: "present", column: "c2" }] });
+      expect(flags).toEqual([[3n, 3n, 15n]]);
+      // The decimal path is the one taken for c2, c38, w and h: no cast to DOUBLE, no division by the step.
+      const typed = await e.query(`SELECT sql FROM duckdb_views() WHERE view_name = 'v1'`, []);
+      const text = String(typed[0][0]);
+      expect(text).toMatch(/CAST\(\(x1 \* 100\) AS BIGINT\)/);
+      expect(text).toMatch(/CAST\(\(x2 \* 1000\) AS BIGINT\)/);
+      expect(text).toMatch(/CAST\(\(x4 \* 1\) AS BIGINT\)/);
+      expect(text).toMatch(/CAST\(\(x5 \* 100\) AS BIGINT\)/);
+      expect(text).toMatch(/x3 \/ CAST/);
+    } finally {
+      await e.close();
+    }
+  });
+});

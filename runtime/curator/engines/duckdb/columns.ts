@@ -114,6 +114,40 @@ function integerPath(c: ColumnPolicy, type: string): boolean {
   return (c.type === "integer" || c.type === "number") && SIGNED_64.test(type.toUpperCase()) && c.grid.step.num === 1n && c.grid.step.den === 1n;
 }
 
+const DECIMAL_TYPE = /^DECIMAL\((\d{1,2}),\s*(\d{1,2})\)$/;
+
+/**
+ * The power of ten 10^t when a numeric column can be converted in exact decimal arithmetic: a
+ * DECIMAL(w, s) source (fixed point, so no NaN or infinity) on a grid step of 10^-t with t >= s.
+ * Every value then lies on the grid, grid units are x * 10^t with no rounding, and clamping
+ * compares decimals. The binary64 path gives the same units for every value inside the declared
+ * range (|units| <= 2^31, so the quotient's error is far below one half); at a bound it compares
+ * exactly where binary64 could not tell a value 10^-s past a bound from the bound at large s.
+ */
+export function decimalPath(c: ColumnPolicy, type: string): bigint | null {
+  if (c.type !== "integer" && c.type !== "number") return null;
+  const m = DECIMAL_TYPE.exec(type.toUpperCase());
+  if (m === null) return null;
+  const scale = Number(m[2]);
+  const { num, den } = c.grid.step;
+  if (num !== 1n) return null;
+  let t = 0;
+  for (let d = den; d > 1n; d /= 10n) {
+    if (d % 10n !== 0n) return null;
+    t++;
+  }
+  return t >= scale && t <= 18 ? den : null;
+}
+
+/** units / pow (a power of ten) as an exact DECIMAL literal. */
+function decimalLiteral(units: bigint, pow: bigint): string {
+  const t = pow.toString().length - 1;
+  const sign = units < 0n ? "-" : "";
+  const a = (units < 0n ? -units : units).toString().padStart(t + 1, "0");
+  const text = t === 0 ? `${sign}${a}` : `${sign}${a.slice(0, -t)}.${a.slice(-t)}`;
+  return `CAST(${quoteString(text)} AS DECIMAL(38, ${t}))`;
+}
+
 /**
  * In place (in-place.ts), the typed value x<i> of a source column of DuckDB type `type`, read as
  * cheaply as the type allows (no cast when the column already has the declared type).
@@ -123,7 +157,7 @@ export function inPlaceTyped(c: ColumnPolicy, i: number, src: string, type: stri
   switch (c.type) {
     case "integer":
     case "number":
-      if (t === "DOUBLE" || integerPath(c, t)) return `${src} AS x${i}`;
+      if (t === "DOUBLE" || integerPath(c, t) || decimalPath(c, t) !== null) return `${src} AS x${i}`;
       if (INTEGER_TYPES.test(t) || t === "FLOAT" || t.startsWith("DECIMAL")) return `CAST(${src} AS DOUBLE) AS x${i}`;
       return `TRY_CAST(${src} AS DOUBLE) AS x${i}`;
     case "category": {
@@ -157,6 +191,19 @@ export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[]
         const value = `CASE WHEN ${x} <= ${lo} THEN ${lo} WHEN ${x} >= ${hi} THEN ${hi} ELSE CAST(${x} AS BIGINT) END AS c${i}`;
         // On a step of 1 the declared bounds are the end units themselves (fixedpoint.ts: bounds lie on the grid).
         const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${lo} THEN -1 WHEN ${x} > ${hi} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+        return [value, flag];
+      }
+      const pow = decimalPath(c, type);
+      if (pow !== null) {
+        // Exact decimal arithmetic: clamped in the column's units, then scaled by 10^t (a whole
+        // number: t >= the column's scale); the ELSE arm lies strictly between the bounds, so its
+        // cast to BIGINT cannot overflow; a NULL reaches it and stays NULL. (An integer column
+        // here is on a step of 1 over a scale of 0: every value is whole.) The declared bounds are
+        // whole grid units (fixedpoint.ts), so they are these decimals exactly.
+        const dlo = decimalLiteral(c.grid.lowerUnits, pow);
+        const dhi = decimalLiteral(c.grid.upperUnits, pow);
+        const value = `CASE WHEN ${x} <= ${dlo} THEN ${lo} WHEN ${x} >= ${dhi} THEN ${hi} ELSE CAST(${x} * ${pow} AS BIGINT) END AS c${i}`;
+        const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${dlo} THEN -1 WHEN ${x} > ${dhi} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
         return [value, flag];
       }
       const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";
