@@ -280,20 +280,23 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
       region: { type: category, values: [north, south, east, west] }
       milli:  { type: number, range: [-5, 5], step: "0.01" }
       fee:    { type: number, range: [0, 20], step: "0.01" }
+      kind:   { type: category, values: [north, south, east] }
+      zone:   { type: category, values: ["1", "2", "3"] }
 `;
   const grid = (name: string, table: string, unit: string | null) =>
     `  ${name}:\n    source: ${pgSource(table)}\n` +
     (unit === null ? "" : `    unit: ${unit}\n`) +
     `    accounting: { mode: pure, cap: { epsilon: "10" } }\n    analysts: [ada]\n${GRID_COLUMNS}`;
   beforeAll(async () => {
-    const cols = "patient bigint, amount numeric(12,2), tenth numeric(6,1), whole numeric(8,0), loose numeric, region text, coarse numeric(12,2), milli numeric(8,3), fee cents_fee";
+    const cols = "patient bigint, amount numeric(12,2), tenth numeric(6,1), whole numeric(8,0), loose numeric, region text, coarse numeric(12,2), milli numeric(8,3), fee cents_fee, kind cents_kind, zone integer";
     await cluster.sql("CREATE DOMAIN cents_fee AS numeric(10,2) CHECK (VALUE >= -1000)");
+    await cluster.sql("CREATE TYPE cents_kind AS ENUM ('west', 'east', 'south', 'north', 'elsewhere')");
     await cluster.sql(`CREATE TABLE cents (${cols})`);
     await cluster.sql(`CREATE TABLE cents_parts (${cols}) PARTITION BY HASH (patient)`);
     for (let i = 0; i < 3; i++) await cluster.sql(`CREATE TABLE cents_parts_${i} PARTITION OF cents_parts FOR VALUES WITH (MODULUS 3, REMAINDER ${i})`);
     // Deterministic rows (test data, not noise): amounts from -99.99 to 1099.99 so that both bounds
     // clamp, the bounds themselves, NaN, NULL; the same in every numeric column kind.
-    const rows = `SELECT *, amount AS coarse, (tenth * 7.005)::numeric(8,3) AS milli, (tenth * 3)::numeric(10,2)::cents_fee AS fee FROM (SELECT g / 3 AS patient,
+    const rows = `SELECT *, amount AS coarse, (tenth * 7.005)::numeric(8,3) AS milli, (tenth * 3)::numeric(10,2)::cents_fee AS fee, region::cents_kind AS kind, NULLIF(patient % 5, 4)::integer AS zone FROM (SELECT g / 3 AS patient,
         CASE WHEN g % 41 = 0 THEN 'NaN'::numeric WHEN g % 37 = 0 THEN NULL WHEN g % 53 = 0 THEN -50 WHEN g % 59 = 0 THEN 1000
              ELSE ((g * 7919) % 120000 - 10000) / 100.0 END::numeric(12,2) AS amount,
         CASE WHEN g % 43 = 0 THEN 'NaN'::numeric WHEN g % 31 = 0 THEN NULL ELSE ((g * 613) % 140 - 70) / 10.0 END::numeric(6,1) AS tenth,
@@ -374,6 +377,30 @@ run("PostgreSQL engine: numeric(p, s) columns stored on the declared grid", () =
     // The fixture reaches every arm: both bounds clamp, NaN and NULL occur.
     const [below, above, nan] = await plain("SELECT count(*) FILTER (WHERE amount < -50), count(*) FILTER (WHERE amount > 1000 AND amount <> 'NaN'), count(*) FILTER (WHERE amount = 'NaN') FROM cents");
     expect([Number(below) > 0, Number(above) > 0, Number(nan) > 0]).toEqual([true, true, true]);
+  });
+
+  it("grouped by a text, an enum and an integer category: stored values first, then the declared index; equal to plain SQL", async () => {
+    for (const [key, values, cast] of [
+      ["region", ["north", "south", "east", "west"], "region"],
+      ["kind", ["north", "south", "east"], "kind::text"],
+      ["zone", ["1", "2", "3"], "zone::text"],
+    ] as const) {
+      const req: CellsRequest = { dataset: "table", keys: [{ column: key }], terms: [{ kind: "count" }, { kind: "sum", column: "amount" }, { kind: "present", column: "tenth" }] };
+      const st = engine.cellsStatement(req).sql;
+      expect(st).toMatch(/AS __i GROUP BY 1$/); // the two-level shape
+      const got = await engine.cells(req);
+      const rows = await cluster.sql(
+        `SELECT ${cast} AS k, count(*)::text AS n, (sum(round(LEAST(GREATEST(amount, -50), 1000) * 100)) FILTER (WHERE amount <> 'NaN'))::text AS s, ` +
+          `(count(tenth) FILTER (WHERE tenth <> 'NaN'))::text AS p FROM cents WHERE ${cast} IN (${values.map((v) => `'${v}'`).join(", ")}) GROUP BY 1`,
+      );
+      expect(got.length).toBe(values.length);
+      const want = values.map((v) => {
+        const r = rows.find((x) => x.k === v);
+        return r === undefined ? ["0", "0", "0"] : [String(r.n), String(r.s ?? "0"), String(r.p)];
+      });
+      expect(got.map((c) => c.map(String)), key).toEqual(want);
+      expect(got.every((c) => c[0] > 0n), key).toBe(true);
+    }
   });
 
   it("a sum that comes back with a digit after the point is a fault, never rounded", () => {
