@@ -114,3 +114,35 @@ export function centredSumSensitivity(grid: Grid, rowsPerUnit: number): { centre
   const k = checkRows(rowsPerUnit);
   return { centreUnits2: grid.lowerUnits + grid.upperUnits, sensitivity2: k * (grid.upperUnits - grid.lowerUnits) };
 }
+
+/** t when the grid's step is exactly 10^-t (t >= 0), else null: a step a fixed-point column can hold. */
+export function decimalStepDigits(grid: Grid): number | null {
+  const { num, den } = grid.step;
+  if (num !== 1n) return null;
+  let t = 0;
+  for (let d = den; d > 1n; d /= 10n) {
+    if (d % 10n !== 0n) return null;
+    t++;
+  }
+  return t;
+}
+
+/**
+ * units * 10^-t as a plain decimal text with `digits` decimals ("-12.05"), for SQL literals. With
+ * fewer digits than t the value is rounded towards -infinity ("floor") or +infinity ("ceil"), so
+ * that a comparison with a value that has only `digits` decimals keeps its outcome (docs/methods.md
+ * §6): for such x, x <= v iff x <= floor(v), x >= v iff x >= ceil(v), x < v iff x < ceil(v) and
+ * x > v iff x > floor(v).
+ */
+export function decimalText(units: bigint, t: number, digits = t, dir: "floor" | "ceil" = "floor"): string {
+  if (!Number.isInteger(t) || !Number.isInteger(digits) || t < 0 || digits < 0 || digits > t) throw new RangeError("decimalText: need 0 <= digits <= t");
+  const drop = 10n ** BigInt(t - digits);
+  let v = units / drop; // truncated towards zero
+  if (v * drop !== units) {
+    if (dir === "floor" && units < 0n) v -= 1n;
+    if (dir === "ceil" && units > 0n) v += 1n;
+  }
+  const sign = v < 0n ? "-" : "";
+  const a = (v < 0n ? -v : v).toString().padStart(digits + 1, "0");
+  return digits === 0 ? `${sign}${a}` : `${sign}${a.slice(0, -digits)}.${a.slice(-digits)}`;
+}

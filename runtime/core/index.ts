@@ -14,6 +14,8 @@ export {
   fromGridUnits,
   sumSensitivity,
   centredSumSensitivity,
+  decimalStepDigits,
+  decimalText,
 } from "./fixedpoint.js";
 export {
   type PrivacyParam,

@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import { BadInputError } from "../../runtime/errors.js";
-import { centredSumSensitivity, fromGridUnits, makeGrid, sumSensitivity, toGridUnits } from "../../runtime/core/fixedpoint.js";
+import { centredSumSensitivity, decimalStepDigits, decimalText, fromGridUnits, makeGrid, sumSensitivity, toGridUnits } from "../../runtime/core/fixedpoint.js";
 import { addNoise, calibrate } from "../../runtime/core/mechanisms.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
@@ -75,6 +75,50 @@ describe("fixed-point grids (docs/methods.md §6–7)", () => {
           const released = fromGridUnits(addNoise(sum, law, bits), g);
           expect(released.div(g.step).isInteger()).toBe(true);
         }
+      }
+    }
+  });
+});
+
+describe("decimal steps and bound literals (SQL engines compare fixed-point columns with them)", () => {
+  it("recognises a step of 10^-t and nothing else", () => {
+    expect(decimalStepDigits(makeGrid({ lower: "0", upper: "1", step: "0.001" }))).toBe(3);
+    expect(decimalStepDigits(makeGrid({ lower: "0", upper: "10", step: "1" }))).toBe(0);
+    expect(decimalStepDigits(makeGrid({ lower: "0", upper: "100", step: "10" }))).toBeNull();
+    expect(decimalStepDigits(makeGrid({ lower: "0", upper: "1", step: "0.25" }))).toBeNull();
+    expect(decimalStepDigits(makeGrid({ lower: "0", upper: "1", step: "0.002" }))).toBeNull();
+  });
+
+  it("writes units exactly, and rounds outward or inward at fewer decimals", () => {
+    expect(decimalText(-1205n, 2)).toBe("-12.05");
+    expect(decimalText(5n, 3)).toBe("0.005");
+    expect(decimalText(-5n, 3)).toBe("-0.005");
+    expect(decimalText(42n, 0)).toBe("42");
+    // 10.005 and -10.005 at 2 decimals.
+    expect(decimalText(10005n, 3, 2, "floor")).toBe("10.00");
+    expect(decimalText(10005n, 3, 2, "ceil")).toBe("10.01");
+    expect(decimalText(-10005n, 3, 2, "floor")).toBe("-10.01");
+    expect(decimalText(-10005n, 3, 2, "ceil")).toBe("-10.00");
+    // -0.005 rounds to 0 upward (no "-0.00").
+    expect(decimalText(-5n, 3, 2, "ceil")).toBe("0.00");
+    // On the coarser grid already: no rounding either way.
+    expect(decimalText(-10000n, 3, 2, "floor")).toBe("-10.00");
+    expect(decimalText(-10000n, 3, 2, "ceil")).toBe("-10.00");
+    expect(() => decimalText(1n, 2, 3)).toThrow(RangeError);
+  });
+
+  it("keeps every comparison with a value of fewer decimals (all values -2.00..2.00 against bounds at 3 decimals)", () => {
+    for (let b = -2000n; b <= 2000n; b += 7n) {
+      const lo = Number(decimalText(b, 3, 2, "floor"));
+      const hi = Number(decimalText(b, 3, 2, "ceil"));
+      for (let x = -200n; x <= 200n; x++) {
+        // Compare in integers at scale 3: x (2 decimals) is 10x thousandths.
+        const xs = x * 10n;
+        const xv = Number(decimalText(x, 2));
+        expect(xv <= lo, `${x} <= ${b}`).toBe(xs <= b);
+        expect(xv >= hi, `${x} >= ${b}`).toBe(xs >= b);
+        expect(xv < hi, `${x} < ${b}`).toBe(xs < b);
+        expect(xv > lo, `${x} > ${b}`).toBe(xs > b);
       }
     }
   });

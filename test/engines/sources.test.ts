@@ -479,12 +479,17 @@ describe("in place, DECIMAL source columns on a step of 10^-t (exact decimal ari
     const values = ["0", "0.01", "-0.01", "-10", "-10.01", "10", "10.01", "7.77", "-7.77", "99999999.99", "-99999999.99", "NULL", "100", "-100", "9.99", "-9.99"];
     // One row per value: c2 DECIMAL(12,2) and c38 DECIMAL(38,2) on a step of 0.01 and c1
     // DECIMAL(12,2) on a step of 0.1 (t < s: the binary64 path, rounding), w DECIMAL(18,0) an
-    // integer on a step of 1; h DECIMAL(38,2) holds values near 10^35 (scaling those would overflow).
+    // integer on a step of 1; h DECIMAL(38,2) holds values near 10^35 (scaling those would overflow),
+    // and g the same values on a step of 0.001: 36 integer digits and 3 decimals fit no DECIMAL of
+    // DuckDB, so a bound at scale 3 would fail on those rows alone (a data-dependent error; it did
+    // before the bounds were written at the column's scale); f DECIMAL(12,2) on a step of 0.001
+    // with bounds +-10.005, off the column's own grid (rounded outward at scale 2).
     const rows = values
       .map(
         (v, j) =>
           `SELECT 'r${j}' AS rid, CAST(${v} AS DECIMAL(12,2)) AS c2, CAST(${v} AS DECIMAL(38,2)) AS c38, CAST(${v} AS DECIMAL(12,2)) AS c1, ` +
-          `CAST(round(${v}) AS DECIMAL(18,0)) AS w, CAST(${j % 3 === 0 && v !== "NULL" ? `'${v.startsWith("-") ? "-" : ""}123456789012345678901234567890123456.78'` : v} AS DECIMAL(38,2)) AS h`,
+          `CAST(round(${v}) AS DECIMAL(18,0)) AS w, CAST(${j % 3 === 0 && v !== "NULL" ? `'${v.startsWith("-") ? "-" : ""}123456789012345678901234567890123456.78'` : v} AS DECIMAL(38,2)) AS h, ` +
+          `CAST(${j % 3 === 0 && v !== "NULL" ? `'${v.startsWith("-") ? "-" : ""}123456789012345678901234567890123456.78'` : v} AS DECIMAL(38,2)) AS g, CAST(${v} AS DECIMAL(12,2)) AS f`,
       )
       .join(" UNION ALL ");
     const cols = `    accounting: { mode: pure, cap: { epsilon: "10" } }
@@ -496,13 +501,15 @@ describe("in place, DECIMAL source columns on a step of 10^-t (exact decimal ari
       c1: { type: number, range: [-10, 10], step: "0.1" }
       w: { type: integer, range: [-10, 10] }
       h: { type: number, range: [-10, 10], step: "0.01" }
+      g: { type: number, range: [-10, 10], step: "0.001" }
+      f: { type: number, range: ["-10.005", "10.005"], step: "0.001" }
 `;
     const file = tempPolicy(`${policyWith(`    source: a.parquet\n    population: one\n${cols}`)}  e:\n    source: { files: a.parquet }\n    population: one\n${cols}`);
     const parquet = join(dirname(file), "a.parquet");
     await duck([`COPY (${rows}) TO '${parquet}' (FORMAT parquet)`]);
     const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
     try {
-      for (const column of ["c2", "c38", "c1", "w", "h"]) {
+      for (const column of ["c2", "c38", "c1", "w", "h", "g", "f"]) {
         const terms = valueTerms(column);
         const mem = await e.cells({ dataset: "d", keys: [{ column: "rid" }], terms });
         const inPlace = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms });
@@ -522,6 +529,16 @@ describe("in place, DECIMAL source columns on a step of 10^-t (exact decimal ari
       expect(text).toMatch(/CAST\(\(x4 \* 1\) AS BIGINT\)/);
       expect(text).toMatch(/CAST\(\(x5 \* 100\) AS BIGINT\)/);
       expect(text).toMatch(/x3 \/ CAST/);
+      expect(text).toMatch(/CAST\(\(x6 \* 1000\) AS BIGINT\)/);
+      expect(text).toMatch(/CAST\(\(x7 \* 1000\) AS BIGINT\)/);
+      // g's units by hand: every big value clamps to a bound (+-10000), the others as stored.
+      const g = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "g" }] });
+      expect(g.slice(0, values.length).map((c) => c[0])).toEqual([10000n, 10n, -10n, -10000n, -10000n, 10000n, 10000n, 7770n, -7770n, 10000n, -10000n, 0n, 10000n, -10000n, 9990n, -10000n]);
+      // f by hand: +-10.00 lie inside +-10.005, +-10.01 and beyond clamp to +-10005 and are flagged.
+      const f = await e.cells({ dataset: "e", keys: [{ column: "rid" }], terms: [{ kind: "sum", column: "f" }] });
+      expect(f.slice(0, values.length).map((c) => c[0])).toEqual([0n, 10n, -10n, -10000n, -10005n, 10000n, 10005n, 7770n, -7770n, 10005n, -10005n, 0n, 10005n, -10005n, 9990n, -9990n]);
+      const fFlags = await e.cells({ dataset: "e", keys: [], terms: [{ kind: "atLower", column: "f" }, { kind: "atUpper", column: "f" }, { kind: "present", column: "f" }] });
+      expect(fFlags).toEqual([[3n, 3n, 15n]]);
     } finally {
       await e.close();
     }

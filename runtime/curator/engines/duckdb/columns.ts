@@ -4,6 +4,7 @@
  * the reasons a value does not fit, and the stored form (grid units, clamping flag, category
  * index). Only steward-trusted text (declared values, bounds we computed) is written into SQL.
  */
+import { decimalStepDigits, decimalText } from "../../../core/index.js";
 import type { ColumnPolicy } from "../../policy.js";
 
 /** SQL identifier quoting (double quotes, inner quotes doubled). */
@@ -116,36 +117,42 @@ function integerPath(c: ColumnPolicy, type: string): boolean {
 
 const DECIMAL_TYPE = /^DECIMAL\((\d{1,2}),\s*(\d{1,2})\)$/;
 
+/** A DECIMAL(w, s) source on a step of 10^-t with t >= s (decimalPath). */
+export interface DecimalPath {
+  /** 10^t: grid units are x * pow. */
+  pow: bigint;
+  /** t, the step's decimals. */
+  t: number;
+  /** s, the column's scale. */
+  scale: number;
+}
+
 /**
- * The power of ten 10^t when a numeric column can be converted in exact decimal arithmetic: a
- * DECIMAL(w, s) source (fixed point, so no NaN or infinity) on a grid step of 10^-t with t >= s.
- * Every value then lies on the grid, grid units are x * 10^t with no rounding, and clamping
- * compares decimals. The binary64 path gives the same units for every value inside the declared
- * range (|units| <= 2^31, so the quotient's error is far below one half); at a bound it compares
- * exactly where binary64 could not tell a value 10^-s past a bound from the bound at large s.
+ * When a numeric column can be converted in exact decimal arithmetic: a DECIMAL(w, s) source
+ * (fixed point, so no NaN or infinity) on a grid step of 10^-t with s <= t <= 18. Every value then
+ * lies on the grid, grid units are x * 10^t with no rounding, and clamping compares decimals. The
+ * binary64 path gives the same units for every value inside the declared range, but at a bound it
+ * cannot tell a value 10^-s past the bound from the bound when s is large.
  */
-export function decimalPath(c: ColumnPolicy, type: string): bigint | null {
+export function decimalPath(c: ColumnPolicy, type: string): DecimalPath | null {
   if (c.type !== "integer" && c.type !== "number") return null;
   const m = DECIMAL_TYPE.exec(type.toUpperCase());
   if (m === null) return null;
   const scale = Number(m[2]);
-  const { num, den } = c.grid.step;
-  if (num !== 1n) return null;
-  let t = 0;
-  for (let d = den; d > 1n; d /= 10n) {
-    if (d % 10n !== 0n) return null;
-    t++;
-  }
-  return t >= scale && t <= 18 ? den : null;
+  const t = decimalStepDigits(c.grid);
+  return t !== null && t >= scale && t <= 18 ? { pow: 10n ** BigInt(t), t, scale } : null;
 }
 
-/** units / pow (a power of ten) as an exact DECIMAL literal. */
-function decimalLiteral(units: bigint, pow: bigint): string {
-  const t = pow.toString().length - 1;
-  const sign = units < 0n ? "-" : "";
-  const a = (units < 0n ? -units : units).toString().padStart(t + 1, "0");
-  const text = t === 0 ? `${sign}${a}` : `${sign}${a.slice(0, -t)}.${a.slice(-t)}`;
-  return `CAST(${quoteString(text)} AS DECIMAL(38, ${t}))`;
+/**
+ * A bound `units` (grid units, step 10^-t) as a DECIMAL(38, s) literal at the column's own scale s,
+ * rounded down or up (decimalText) so that comparing a DECIMAL(w, s) value with it gives the
+ * comparison with the bound itself. At scale s the comparison needs no type wider than the
+ * column's: at scale t a DECIMAL(38, s) column would have to widen to 38 - s + t digits, which
+ * DuckDB does not have, and the comparison would fail on the largest stored values alone (an
+ * error that would depend on the data).
+ */
+function decimalBound(units: bigint, d: DecimalPath, dir: "floor" | "ceil"): string {
+  return `CAST(${quoteString(decimalText(units, d.t, d.scale, dir))} AS DECIMAL(38, ${d.scale}))`;
 }
 
 /**
@@ -193,17 +200,19 @@ export function inPlaceFinal(c: ColumnPolicy, i: number, type: string): string[]
         const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${lo} THEN -1 WHEN ${x} > ${hi} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
         return [value, flag];
       }
-      const pow = decimalPath(c, type);
-      if (pow !== null) {
+      const dec = decimalPath(c, type);
+      if (dec !== null) {
         // Exact decimal arithmetic: clamped in the column's units, then scaled by 10^t (a whole
         // number: t >= the column's scale); the ELSE arm lies strictly between the bounds, so its
         // cast to BIGINT cannot overflow; a NULL reaches it and stays NULL. (An integer column
-        // here is on a step of 1 over a scale of 0: every value is whole.) The declared bounds are
-        // whole grid units (fixedpoint.ts), so they are these decimals exactly.
-        const dlo = decimalLiteral(c.grid.lowerUnits, pow);
-        const dhi = decimalLiteral(c.grid.upperUnits, pow);
-        const value = `CASE WHEN ${x} <= ${dlo} THEN ${lo} WHEN ${x} >= ${dhi} THEN ${hi} ELSE CAST(${x} * ${pow} AS BIGINT) END AS c${i}`;
-        const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${dlo} THEN -1 WHEN ${x} > ${dhi} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
+        // here is on a step of 1 over a scale of 0: every value is whole.) The bounds are whole
+        // grid units (fixedpoint.ts), compared at the column's scale (decimalBound).
+        const atOrBelow = decimalBound(c.grid.lowerUnits, dec, "floor"); // x <= lower
+        const atOrAbove = decimalBound(c.grid.upperUnits, dec, "ceil"); // x >= upper
+        const below = decimalBound(c.grid.lowerUnits, dec, "ceil"); // x < lower
+        const above = decimalBound(c.grid.upperUnits, dec, "floor"); // x > upper
+        const value = `CASE WHEN ${x} <= ${atOrBelow} THEN ${lo} WHEN ${x} >= ${atOrAbove} THEN ${hi} ELSE CAST(${x} * ${dec.pow} AS BIGINT) END AS c${i}`;
+        const flag = `CAST(CASE WHEN ${x} IS NULL THEN NULL WHEN ${x} < ${below} THEN -1 WHEN ${x} > ${above} THEN 1 ELSE 0 END AS TINYINT) AS k${i}`;
         return [value, flag];
       }
       const whole = c.type === "integer" && !INTEGER_TYPES.test(type.toUpperCase()) ? ` AND ${x} = round(${x})` : "";

@@ -34,7 +34,7 @@
  * category values and grid bounds are steward-trusted literals written by us; everything from a
  * plan (filter literals, bins, maxRows, the seed) is a bound parameter ($1, $2, ...).
  */
-import type { Grid } from "../../../core/index.js";
+import { type Grid, decimalStepDigits, decimalText } from "../../../core/index.js";
 import type { ColumnPolicy, DatasetPolicy } from "../../policy.js";
 import type { Params } from "../../sql.js";
 
@@ -93,22 +93,13 @@ export function onGrid(c: SourceColumn): bigint | null {
   if (c.kind !== "numeric" || c.scale === null) return null;
   const p = c.policy;
   if (p.type !== "integer" && p.type !== "number") return null;
-  const { num, den } = p.grid.step;
-  if (num !== 1n) return null;
-  let t = 0;
-  for (let d = den; d > 1n; d /= 10n) {
-    if (d % 10n !== 0n) return null;
-    t++;
-  }
-  return t >= c.scale ? den : null;
+  const t = decimalStepDigits(p.grid);
+  return t !== null && t >= c.scale ? 10n ** BigInt(t) : null;
 }
 
-/** units / 10^t as an exact decimal literal (t = number of zeros of the power `pow`). */
+/** units / pow (pow = 10^t) as an exact numeric literal (PostgreSQL's numeric has no width limit). */
 function decimal(units: bigint, pow: bigint): string {
-  const t = pow.toString().length - 1;
-  const sign = units < 0n ? "-" : "";
-  const a = (units < 0n ? -units : units).toString().padStart(t + 1, "0");
-  return `${quoteString(t === 0 ? `${sign}${a}` : `${sign}${a.slice(0, -t)}.${a.slice(-t)}`)}::numeric`;
+  return `${quoteString(decimalText(units, pow.toString().length - 1))}::numeric`;
 }
 
 /**
