@@ -6,7 +6,9 @@
  * test (in-process). Every loop stops by itself: sending at `durationMs`, draining at `drainMs`.
  *
  * Half the requests name `targetAnalyst` (a real analyst, so the flood tries to lock it out), half
- * a made-up name, so both the known-name and the unknown-name paths are exercised.
+ * a made-up name, so both the known-name and the unknown-name paths are exercised. With `preview`,
+ * the flood is an authenticated analyst's own: previews (free, they read no data) at a fresh epsilon
+ * each, the heaviest asks an analyst can send without spending.
  */
 import { randomBytes } from "node:crypto";
 import { setTimeout as delay } from "node:timers/promises";
@@ -25,6 +27,12 @@ export interface FloodOptions {
   drainMs: number;
   targetAnalyst: string;
   dataset: string;
+  /**
+   * Instead of wrong tokens: every request signs in as `targetAnalyst` with this (valid) token and
+   * asks a preview of `preview.measure` at a fresh epsilon (so no cache of an earlier law helps),
+   * with `assumeCount` (a mean, variance or std's own expected error is then computed too).
+   */
+  preview?: { token: string; measure: Record<string, unknown>; assumeCount?: number };
 }
 
 export interface FloodResult {
@@ -85,14 +93,23 @@ export async function runFlood(opts: FloodOptions): Promise<FloodResult> {
     const due = Math.min(total, Math.floor(((performance.now() - t0) / tickMs + 1) * perTick));
     while (n < due) {
       const s = sockets[n % sockets.length];
-      const analyst = n % 2 === 0 ? opts.targetAnalyst : `nobody-${n % 97}`;
-      const req = {
-        v: 1,
-        id: `f${n}`,
-        analyst,
-        token: randomBytes(18).toString("base64url"),
-        body: { op: "spend", dataset: opts.dataset },
-      };
+      const analyst = n % 2 === 0 || opts.preview !== undefined ? opts.targetAnalyst : `nobody-${n % 97}`;
+      const pv = opts.preview;
+      const req =
+        pv === undefined
+          ? { v: 1, id: `f${n}`, analyst, token: randomBytes(18).toString("base64url"), body: { op: "spend", dataset: opts.dataset } }
+          : {
+              v: 1,
+              id: `f${n}`,
+              analyst,
+              token: pv.token,
+              body: {
+                op: "preview",
+                // A fresh epsilon for every request: 0.0100001, 0.0100002, ...
+                plan: { v: 1, dataset: opts.dataset, measure: pv.measure, privacy: { epsilon: `0.01${String(n + 1).padStart(7, "0")}` } },
+                ...(pv.assumeCount !== undefined ? { assumeCount: pv.assumeCount } : {}),
+              },
+            };
       n++;
       try {
         await s.send(Buffer.from(JSON.stringify(req), "utf8"));

@@ -27,31 +27,33 @@ export const FLOOD_TARGET_RATIO = 5;
 /** The flood's connections: zeromq fair-queues between peers, so more connections push the analyst further back. */
 const FLOOD_SOCKETS = 32;
 const ANALYST = "ward";
+/** The analyst who floods with previews (bench/flood-driver.ts `preview`). */
+const FLOODER = "mallory";
 const DATASET = "visits";
 /** A legitimate request with no answer within this time counts as unanswered (its latency as this). */
 const LEGIT_TIMEOUT_MS = 30_000;
 
 /** A small workspace: 300 generated rows, one analyst. The figures do not depend on the data. */
-function floodWorkspace(): { dir: string; policyFile: string; token: string } {
+function floodWorkspace(): { dir: string; policyFile: string; token: string; flooderToken: string } {
   const dir = fs.mkdtempSync(path.join(os.tmpdir(), "hush-flood-"));
-  const lines = ["pid,age"];
-  for (let i = 0; i < 300; i++) lines.push(`${i % 100},${20 + ((i * 37) % 60)}`);
+  const lines = ["pid,age,amount"];
+  for (let i = 0; i < 300; i++) lines.push(`${i % 100},${20 + ((i * 37) % 60)},${(i * 7919) % 1000}.25`);
   fs.mkdirSync(path.join(dir, "data"));
   fs.writeFileSync(path.join(dir, "data", "visits.csv"), lines.join("\n") + "\n");
   const ws = writeWorkspace(dir, {
-    analysts: [ANALYST],
+    analysts: [ANALYST, FLOODER],
     datasets: {
       [DATASET]: {
         description: "Generated rows for the flood bench",
         source: "data/visits.csv",
         unit: { column: "pid", maxRows: 4, maxGroups: 2 },
         accounting: { mode: "pure", cap: { epsilon: "10" } },
-        analysts: [ANALYST],
-        columns: { age: { type: "integer", range: [0, 100], step: "1" } },
+        analysts: [ANALYST, FLOODER],
+        columns: { age: { type: "integer", range: [0, 100], step: "1" }, amount: { type: "number", range: [0, 1000000], step: "0.001" } },
       },
     },
   });
-  return { dir, policyFile: ws.policyFile, token: ws.tokens[ANALYST] };
+  return { dir, policyFile: ws.policyFile, token: ws.tokens[ANALYST], flooderToken: ws.tokens[FLOODER] };
 }
 
 /** Runs the flood driver in a child process and resolves with its result line. */
@@ -104,11 +106,24 @@ async function onSchedule(client: CuratorClient, durationMs: number, onTick: () 
   return Promise.all(all);
 }
 
+/** The preview the analyst's own flood asks: a std with its expected error for an assumed count. */
+const HEAVY_PREVIEW = { measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 };
+
 export async function benchFlood(opts: { quick: boolean }): Promise<string> {
-  const rate = opts.quick ? 500 : 1000;
+  return floodSection(opts, "wrong");
+}
+
+/** A legitimate analyst's latency while another analyst, signed in, floods with previews. */
+export async function benchPreviewFlood(opts: { quick: boolean }): Promise<string> {
+  return floodSection(opts, "previews");
+}
+
+async function floodSection(opts: { quick: boolean }, kind: "wrong" | "previews"): Promise<string> {
+  const rate = kind === "wrong" ? (opts.quick ? 500 : 1000) : opts.quick ? 100 : 200;
   const durationMs = opts.quick ? 3_000 : 10_000;
   const idleMs = opts.quick ? 2_000 : 6_000;
-  progress(`flood: ${rate} wrong tokens/s for ${durationMs / 1000} s over tcp+CURVE`);
+  const what = kind === "wrong" ? "wrong tokens" : `previews (${HEAVY_PREVIEW.measure.kind} of ${HEAVY_PREVIEW.measure.column}, assumed count ${HEAVY_PREVIEW.assumeCount}, fresh epsilon each) by the signed-in analyst ${FLOODER}`;
+  progress(`flood: ${rate} ${what}/s for ${durationMs / 1000} s over tcp+CURVE`);
   const ws = floodWorkspace();
   const proc = await CuratorProcess.start({ policyFile: ws.policyFile, listen: "tcp://127.0.0.1:0" });
   try {
@@ -129,8 +144,9 @@ export async function benchFlood(opts: { quick: boolean }): Promise<string> {
         rate,
         durationMs,
         drainMs: 20_000,
-        targetAnalyst: ANALYST,
+        targetAnalyst: kind === "wrong" ? ANALYST : FLOODER,
         dataset: DATASET,
+        ...(kind === "previews" ? { preview: { token: ws.flooderToken, ...HEAVY_PREVIEW } } : {}),
       });
       const timed = await onSchedule(client, durationMs, () => {
         rssPeak = Math.max(rssPeak, proc.memory()?.rss ?? NaN);
@@ -155,7 +171,7 @@ export async function benchFlood(opts: { quick: boolean }): Promise<string> {
           [
             ["idle curator", String(a.n), fmtMs(a.median), fmtMs(a.p95), fmtMs(a.max), "0"],
             [
-              `during the flood (${rate}/s wrong tokens, ${FLOOD_SOCKETS} connections, ${durationMs / 1000} s)`,
+              `during the flood (${rate}/s ${kind === "wrong" ? "wrong tokens" : `previews by ${FLOODER}`}, ${FLOOD_SOCKETS} connections, ${durationMs / 1000} s)`,
               String(b.n),
               fmtMs(b.median),
               fmtMs(b.p95),

@@ -1,5 +1,5 @@
 /**
- * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,completion,memory] [-- --out FILE]`
+ * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,completion,flood,previewflood,memory] [-- --out FILE]`
  * `[-- --sizes 1000000,10000000] [-- --queries median,count]` (aggregates only: a subset of the sizes
  * and of the query names of bench/baseline.ts, for measuring one change; default all)
  *
@@ -15,7 +15,7 @@ import fs from "node:fs";
 import path from "node:path";
 import { benchAggregates } from "./aggregates.js";
 import { repoRoot } from "./curator-process.js";
-import { benchFlood } from "./flood.js";
+import { benchFlood, benchPreviewFlood } from "./flood.js";
 import { machineFacts, machineMarkdown, progress } from "./harness.js";
 import { benchMemory } from "./memory.js";
 import { SECTIONS_EXTRA, type SectionResult } from "./sections.js";
@@ -53,7 +53,7 @@ function parseArgs(argv: string[]): Options {
     else if (a.startsWith("--sizes=")) sizes = sizeList(a.slice(8));
     else if (a === "--queries") queries = new Set((argv[++i] ?? "").split(",").filter(Boolean));
     else if (a.startsWith("--queries=")) queries = new Set(a.slice(10).split(",").filter(Boolean));
-    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,memory] [--out FILE] [--sizes N,...] [--queries NAME,...]`);
+    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,previewflood,memory] [--out FILE] [--sizes N,...] [--queries NAME,...]`);
   }
   const root = repoRoot();
   return {
@@ -113,6 +113,9 @@ async function main(): Promise<void> {
   }
   results.push(
     await section("flood", "A legitimate analyst during a wrong-token flood", opts, () => benchFlood({ quick: opts.quick })),
+  );
+  results.push(
+    await section("previewflood", "A legitimate analyst while another analyst floods with previews", opts, () => benchPreviewFlood({ quick: opts.quick })),
   );
   results.push(
     await section("memory", "Curator resident memory", opts, async () =>

@@ -28,7 +28,7 @@ import { describePiece } from "./aggregates/describe.js";
 import { onThisThread } from "./aggregates/finishers.js";
 import { quantilePiece } from "./aggregates/quantile.js";
 import { correlationPiece, regressionPiece } from "./aggregates/regression.js";
-import { ratioError, wholeRange } from "./aggregates/ratio-preview.js";
+import { type RatioJob, wholeRange } from "./aggregates/ratio-preview.js";
 import { type DataEngine, type DatasetSchema, type SchemaColumn, schemaOf } from "./engines/types.js";
 import type { DatasetPolicy, LoadedPolicy } from "./policy.js";
 import { checkWhere, resolveColumn } from "./sql.js";
@@ -222,6 +222,16 @@ export class Answerer {
     }
   }
 
+  /**
+   * A preview's expected error of a ratio, on the worker pool under the answering time limit: its
+   * exact interval searches can take a few hundred milliseconds, which the curator's loop must not.
+   */
+  private async ratioOnPool(job: RatioJob): Promise<RatioError> {
+    if (this.closed) throw new UnreachableError("the curator is shutting down");
+    const { timeLimitMs } = this.policy.answering;
+    return this.startWorkers().ratioError(job, performance.now() + timeLimitMs, timeLimitMs);
+  }
+
   private dataset(name: string): DatasetPolicy {
     const d = this.policy.datasets.get(name);
     if (d === undefined || !this.engine.hasDataset(name)) throw new UnknownDatasetError(`no dataset named ${shown(name)}`);
@@ -320,11 +330,11 @@ export class Answerer {
    * or std, also the expected error of the estimate itself for an assumed count of values per group
    * (`assumeCount`, else the policy's `sizeHint` for an ungrouped plan; ratio-preview.ts).
    */
-  preview(
+  async preview(
     analyst: string,
     raw: unknown,
     assumeCount?: number,
-  ): { prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: RatioError[] } {
+  ): Promise<{ prepared: PreparedAsk; halfWidths: Preview["halfWidths"]; notes: string[]; ratioErrors?: RatioError[] }> {
     const prepared = this.prepare(analyst, raw);
     const { piece, d } = this.settle(prepared.plan);
     const extra = (piece.previewNotes ?? []).filter((n) => !prepared.notes.includes(n));
@@ -340,7 +350,7 @@ export class Answerer {
       );
       return out;
     }
-    const ratio = ratioError(shape, count, assumeCount !== undefined ? "analyst" : "policy");
+    const ratio = await this.ratioOnPool({ shape, count, from: assumeCount !== undefined ? "analyst" : "policy" });
     // The parts-only explanation (previewNotes) gives way to what the figure assumes.
     out.notes = [...prepared.notes];
     out.notes.push(

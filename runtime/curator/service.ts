@@ -11,7 +11,7 @@
  */
 import { existsSync } from "node:fs";
 import { type Bits, type PartRecord, Rational, pureEpsilonOfParts } from "../core/index.js";
-import { HushError, OverCapError, UnknownDatasetError, isHushError } from "../errors.js";
+import { BusyError, HushError, OverCapError, UnknownDatasetError, isHushError } from "../errors.js";
 import {
   PROTOCOL_VERSION,
   type ColumnInfo,
@@ -30,7 +30,7 @@ import { Ledger, type LedgerRow } from "./ledger.js";
 import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { accuracyFirstRefusal, exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
-import { KeyedLock } from "./keyed-lock.js";
+import { KeyedLock, Turns } from "./keyed-lock.js";
 import { copyMechanisms, receiptResult, signReasked, signReceipt } from "./receipts.js";
 import { encodeResponse, readRequestFrame } from "./request-frame.js";
 import { SignIn } from "./sign-in.js";
@@ -71,8 +71,32 @@ export interface ServiceParts {
 
 const INTERNAL = "internal error in the curator; the details are in the curator's log";
 
+/**
+ * Previews an analyst may have in progress or waiting for the curator's thread at once (service.ts
+ * `previewTurns`); past that they are refused as busy, before any work. Previews are free, so this
+ * bound and the turns are all that limits them.
+ */
+export const MAX_QUEUED_PREVIEWS = 32;
+/**
+ * The same for asks waiting to be planned (`askTurns`): larger, since a notebook may send many
+ * asks at once (they spend, so the cap limits them too), and still a bound on what one analyst
+ * can hold in the curator's memory.
+ */
+export const MAX_QUEUED_ASKS = 256;
+
 export class CuratorService {
   private readonly lock = new KeyedLock();
+  /**
+   * The curator's own thread, shared out per analyst: a preview, and an ask's planning, run one at
+   * a time per analyst, each on a fresh turn of the event loop (keyed-lock.ts Turns), so an
+   * analyst who floods with previews (free: they read no data) or asks delays the others' requests
+   * by at most one planning step, and holds a bounded number of requests.
+   */
+  private readonly previewTurns = new Turns(
+    MAX_QUEUED_PREVIEWS,
+    () => new BusyError(`you have ${MAX_QUEUED_PREVIEWS} previews waiting already; wait for their answers and preview again`),
+  );
+  private readonly askTurns = new Turns(MAX_QUEUED_ASKS, () => new BusyError(`you have ${MAX_QUEUED_ASKS} asks waiting already; wait for their answers and ask again`));
   private readonly inFlight = new Set<Promise<unknown>>();
   /** Per zCDP account: the plain-composition epsilon of its releases up to `seq`, null once one was not pure. */
   private readonly pureTally = new Map<string, { seq: number; pure: Rational | null }>();
@@ -203,7 +227,7 @@ export class CuratorService {
         // From the policy and the ledger only: what a restarted kernel shows before opening anything.
         return { op: "accounts", accounts: this.visibleDatasets(analyst).map((d) => this.spendNow(analyst, d)) };
       case "preview":
-        return { op: "preview", preview: await this.preview(analyst, body.plan, body.assumeCount) };
+        return { op: "preview", preview: await this.previewTurns.run(analyst, () => this.preview(analyst, body.plan, body.assumeCount)) };
       case "ask":
         return { op: "ask", release: await this.ask(analyst, body.plan, body.cell) };
     }
@@ -323,7 +347,7 @@ export class CuratorService {
    * other code, the replay adds a signed statement that this code asked again. */
   private async ask(analyst: string, plan: QueryPlan, cell: string | undefined): Promise<Release> {
     const d = this.dataset(analyst, plan.dataset);
-    const prepared = await this.answerer.prepare(analyst, plan);
+    const prepared = await this.askTurns.run(analyst, () => this.answerer.prepare(analyst, plan));
     const earlier = this.ledger.find(analyst, d.population, prepared.digest);
     if (earlier !== null) return this.replayed(analyst, d, earlier, cell);
     const cap = capOf(d);

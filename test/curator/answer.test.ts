@@ -201,7 +201,7 @@ describe("costs and sensitivities", () => {
 describe("intervals and previews", () => {
   it("preview half-widths need no data and match the released intervals", async () => {
     ctx.statements.length = 0;
-    const pv = ctx.answerer.preview("ada", plan({ measure: { kind: "count" } }, "visits"));
+    const pv = await ctx.answerer.preview("ada", plan({ measure: { kind: "count" } }, "visits"));
     expect(ctx.statements).toHaveLength(0);
     // t = k/epsilon = 4: the exact half-width from the core
     const h = halfWidth({ family: "discrete-laplace", scale: Rational.of(4) }, 0.95).toString();
@@ -212,9 +212,9 @@ describe("intervals and previews", () => {
     expect(Number(row.high) - Number(row.value)).toBe(Number(h));
   });
 
-  it("mean preview names its parts in words, with half-widths in value units and a note", () => {
+  it("mean preview names its parts in words, with half-widths in value units and a note", async () => {
     ctx.statements.length = 0;
-    const pv = ctx.answerer.preview("ada", plan({ measure: { kind: "mean", column: "wait_minutes" } }, "visits"));
+    const pv = await ctx.answerer.preview("ada", plan({ measure: { kind: "mean", column: "wait_minutes" } }, "visits"));
     expect(ctx.statements).toHaveLength(0);
     expect(pv.halfWidths.map((h) => [h.stat, h.column])).toEqual([
       ["count (part of mean)", "wait_minutes"],
@@ -234,13 +234,13 @@ describe("intervals and previews", () => {
     expect(pv.prepared.notes.some((n) => n.includes("error bar depends"))).toBe(false);
   });
 
-  it("variance preview labels its three parts", () => {
-    const pv = ctx.answerer.preview("ada", plan({ measure: { kind: "std", column: "age" } }, "visits"));
+  it("variance preview labels its three parts", async () => {
+    const pv = await ctx.answerer.preview("ada", plan({ measure: { kind: "std", column: "age" } }, "visits"));
     expect(pv.halfWidths.map((h) => h.stat)).toEqual(["count (part of std)", "sum of age (part of std)", "sum of squares of age (part of std; squared units)"]);
     expect(pv.notes.some((n) => n.startsWith("The std's error bar depends on the noisy count"))).toBe(true);
   });
 
-  it("row-level count at epsilon 1 has 95% half-width 3 (docs/methods.md [C4.2a], t = 1)", () => {
+  it("row-level count at epsilon 1 has 95% half-width 3 (docs/methods.md [C4.2a], t = 1)", async () => {
     const file = tempPolicy(
       policyWith(`    source: ${join(FIXTURES, "visits.csv")}
     accounting: { mode: pure, cap: { epsilon: "5" } }
@@ -250,10 +250,10 @@ describe("intervals and previews", () => {
 `),
     );
     return open(file).then(async (o) => {
-      const pv = o.answerer.preview("ada", plan({ measure: { kind: "count" } }, "d"));
+      const pv = await o.answerer.preview("ada", plan({ measure: { kind: "count" } }, "d"));
       expect(pv.halfWidths[0].halfWidth).toBe("3");
       // accuracy first: half-width 10 at 95% needs epsilon >= 0.284348512423 ([C11.2], docs/methods.md §11)
-      const af = o.answerer.preview("ada", plan({ measure: { kind: "count" }, privacy: { within: 10 } }, "d"));
+      const af = await o.answerer.preview("ada", plan({ measure: { kind: "count" }, privacy: { within: 10 } }, "d"));
       expect(af.prepared.cost.toNumber()).toBeGreaterThanOrEqual(0.284348512423);
       expect(af.prepared.cost.toNumber()).toBeLessThan(0.2844);
       expect(Number(af.halfWidths[0].halfWidth)).toBeLessThanOrEqual(10);

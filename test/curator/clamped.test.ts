@@ -98,10 +98,10 @@ describe("clamped shares", () => {
     expect(f.rows.map((x) => Number(x.value)).slice(0, 3)).toEqual([fb, fa, ft]);
   });
 
-  it("records k per count, splits the budget exactly and states the cost", () => {
+  it("records k per count, splits the budget exactly and states the cost", async () => {
     const p = o.answerer.prepare("ada", plan({ kind: "clamped", columns: ["a", "b"] }, { epsilon: "1" }));
     expect(p.cost.toString()).toBe("1");
-    const q = o.answerer.preview("ada", plan({ kind: "clamped", columns: ["a", "b"] }, { epsilon: "1" }));
+    const q = await o.answerer.preview("ada", plan({ kind: "clamped", columns: ["a", "b"] }, { epsilon: "1" }));
     expect(q.halfWidths.map((h) => `${h.column} ${h.stat}`)).toEqual(["a below lower", "a above upper", "a values", "b below lower", "b above upper", "b values"]);
     expect(p.notes.join(" ")).toMatch(/Clamped shares cost ε 1 of your cap/);
     expect(p.notes.join(" ")).toMatch(/The 2 columns share the budget evenly/);

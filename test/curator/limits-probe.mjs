@@ -15,7 +15,7 @@ for (const plan of plans) {
   const t0 = performance.now();
   let out;
   try {
-    const p = answerer.preview("ada", plan);
+    const p = await answerer.preview("ada", plan);
     const previewMs = performance.now() - t0;
     let rows = null;
     let askMs = null;
@@ -31,4 +31,5 @@ for (const plan of plans) {
   }
   process.stdout.write(`${JSON.stringify(out)}\n`);
 }
+await answerer.close();
 await engine.close();

@@ -80,9 +80,9 @@ describe("refusals at parse time (structure) and prepare time (policy), before a
     refused(o, plan({ kind: "correlation", columns: ["mass", "flipper"] }, { confidence: 0.995 }), /up to 0.99/);
   });
 
-  it("a preview prices every released sum and reads no data", () => {
+  it("a preview prices every released sum and reads no data", async () => {
     o.statements.length = 0;
-    const p = o.answerer.preview("ada", plan({ kind: "regression", response: "mass", predictors: ["flipper", "species"] }));
+    const p = await o.answerer.preview("ada", plan({ kind: "regression", response: "mass", predictors: ["flipper", "species"] }));
     // factors 1, flipper, Chinstrap, Gentoo, mass: 15 pairs less 1 structural zero and 2 aliases.
     expect(p.halfWidths).toHaveLength(12);
     expect(p.prepared.cost.toString()).toBe("1");

@@ -401,8 +401,8 @@ export function engineSuite(entries: readonly EngineUnderTest[]): void {
           { v: 1, dataset: "people", measure: { kind: "count" }, groupBy: [{ column: "region" }], privacy: { epsilon: "1" } },
         ];
         for (const [i, plan] of plans.entries()) {
-          const a = mine.preview("ada", plan);
-          const b = ref.preview("ada", plan);
+          const a = await mine.preview("ada", plan);
+          const b = await ref.preview("ada", plan);
           expect(a.prepared.cost.toString(), `plan ${i}`).toBe(b.prepared.cost.toString());
           expect(a.halfWidths).toEqual(b.halfWidths);
           expect(a.notes).toEqual(b.notes);

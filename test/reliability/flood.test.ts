@@ -7,12 +7,19 @@
  * answered or refused (none dropped), none accepted; the curator's resident memory stays under a
  * stated bound; an analyst who had not signed in before can sign in once the flood is over.
  * Latency is not asserted here (bench/flood.ts measures it).
+ *
+ * Then an analyst's own flood: the second analyst, signed in, sends previews (free: they read no
+ * data) at a fresh epsilon each, with an assumed count so each also computes a std's expected
+ * error. Pass: the first analyst is answered throughout; every preview is answered or refused as
+ * busy, and some are refused (the curator holds at most MAX_QUEUED_PREVIEWS of one analyst's
+ * previews; before that bound every one was taken and computed on the curator's loop).
  */
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import fs from "node:fs";
 import { CuratorProcess } from "../../bench/curator-process.js";
 import { runFlood, type FloodResult } from "../../bench/flood-driver.js";
 import { CuratorClient } from "../../runtime/client/client.js";
+import { MAX_QUEUED_PREVIEWS } from "../../runtime/curator/service.js";
 import { makeRelWorkspace, type RelWorkspace } from "./fixtures.js";
 
 const RATE = 1_000;
@@ -102,6 +109,65 @@ describe("wrong-token flood over tcp+CURVE", () => {
       expect((await late.spend(ws.dataset)).analyst).toBe(latecomer);
     } finally {
       await late.close();
+    }
+  });
+
+  it("answers the working analyst while another analyst floods with previews, and bounds the flooder's queue", { timeout: 180_000 }, async () => {
+    const curveServerKey = proc.ready.curvePublicKey;
+    const [worker, flooder] = ws.analysts;
+    const client = await CuratorClient.connect({ address: proc.address, analyst: worker, token: ws.tokens[worker], curveServerKey, timeoutMs: 60_000 });
+    try {
+      await client.spend(ws.dataset);
+      let flooding = true;
+      const legit = { answered: 0, failed: [] as string[] };
+      const work = (async () => {
+        while (flooding) {
+          try {
+            expect((await client.spend(ws.dataset)).analyst).toBe(worker);
+            legit.answered++;
+          } catch (e: unknown) {
+            legit.failed.push(e instanceof Error ? `${e.name}: ${e.message}` : String(e));
+          }
+        }
+      })();
+      let flood: FloodResult;
+      try {
+        flood = await runFlood({
+          address: proc.address,
+          curveServerKey,
+          sockets: 8,
+          rate: 400,
+          durationMs: 3_000,
+          drainMs: 60_000,
+          targetAnalyst: flooder,
+          dataset: ws.dataset,
+          preview: { token: ws.tokens[flooder], measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 },
+        });
+      } finally {
+        flooding = false;
+        await work;
+      }
+      expect(legit.failed).toEqual([]);
+      expect(legit.answered).toBeGreaterThan(10);
+      expect(flood.notQueued).toBe(0);
+      expect(flood.sent).toBe(1_200);
+      expect(flood.unanswered).toBe(0);
+      expect(Object.keys(flood.replies).every((k) => k === "ok" || k === "busy")).toBe(true);
+      expect(Object.values(flood.replies).reduce((a, b) => a + b, 0)).toBe(flood.sent);
+      // At least the first MAX_QUEUED_PREVIEWS were taken; a preview with its ratio search takes
+      // far longer than 1/400 s, so the flooder's queue filled and the rest were refused.
+      expect(flood.replies.ok ?? 0).toBeGreaterThanOrEqual(MAX_QUEUED_PREVIEWS);
+      expect(flood.replies.busy ?? 0).toBeGreaterThan(0);
+    } finally {
+      await client.close();
+    }
+    // The flooder is served again once its queue has drained.
+    const again = await CuratorClient.connect({ address: proc.address, analyst: flooder, token: ws.tokens[flooder], curveServerKey, timeoutMs: 60_000 });
+    try {
+      const pv = await again.preview({ v: 1, dataset: ws.dataset, measure: { kind: "std", column: "amount" }, privacy: { epsilon: "0.25" } }, 1000);
+      expect(pv.ratioErrors?.length).toBe(1);
+    } finally {
+      await again.close();
     }
   });
 });

@@ -15,7 +15,8 @@
  * range clamps it). Variance and std: six points, the mean at the midpoint or half-way to an end
  * and the spread from nothing to the most the range allows; typical is the mean at the midpoint
  * with a standard deviation of half the half-range. The work is a fixed number of exact interval
- * computations, whatever the assumed count (tens of milliseconds at the extreme parameters).
+ * computations, whatever the assumed count (tens to a few hundred milliseconds of CPU at the
+ * extreme parameters), so a preview runs them on the worker pool, never on the curator's loop.
  */
 import { type NoiseLaw, Rational, ratioInterval, varianceInterval } from "../../core/index.js";
 import type { RatioError } from "../../protocol/messages.js";
@@ -123,4 +124,16 @@ export function ratioError(s: RatioShape, count: number, from: RatioError["assum
     typicalAt = `${count} values, mean at the midpoint ${exactDecimal(s.centre)}, standard deviation ${exactDecimal(s.upper.sub(s.lower).div(4n))} (half the half-range)`;
   }
   return { stat: s.stat, column: s.column, assumedCount: count, assumedFrom: from, typical: exactDecimal(typical), typicalAt, widest: exactDecimal(widest) };
+}
+
+/** What a worker needs to compute ratioError (workers/pool.ts `ratioError`). */
+export interface RatioJob {
+  shape: RatioShape;
+  count: number;
+  from: RatioError["assumedFrom"];
+}
+
+/** ratioError on a worker thread: its exact interval searches take tens to hundreds of milliseconds. */
+export function runRatioJob(job: RatioJob): RatioError {
+  return ratioError(job.shape, job.count, job.from);
 }

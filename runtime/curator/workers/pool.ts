@@ -9,9 +9,10 @@
 import { Worker } from "node:worker_threads";
 import { availableParallelism } from "node:os";
 import { BadInputError, HushError, TimeLimitError, UnreachableError } from "../../errors.js";
-import type { ReleaseRow } from "../../protocol/messages.js";
+import type { RatioError, ReleaseRow } from "../../protocol/messages.js";
 import type { Cpu } from "../aggregates/common.js";
 import type { FinisherName } from "../aggregates/finishers.js";
+import type { RatioJob } from "../aggregates/ratio-preview.js";
 import type { JobMessage, ResultMessage } from "./worker.js";
 import { fromWire, toWire } from "./wire.js";
 
@@ -26,7 +27,7 @@ function entry(): URL {
 
 interface Job {
   msg: JobMessage;
-  resolve(rows: ReleaseRow[]): void;
+  resolve(rows: unknown): void;
   reject(e: unknown): void;
   timer: NodeJS.Timeout;
   slot: Slot | null;
@@ -63,8 +64,17 @@ export class WorkerPool {
 
   /** Runs one finisher on a worker; refused with TimeLimitError at `deadlineAt` (performance.now() ms). */
   run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<ReleaseRow[]> {
+    return this.job(name, recipe, data, deadlineAt, limitMs) as Promise<ReleaseRow[]>;
+  }
+
+  /** A preview's expected error of a ratio (ratio-preview.ts), on a worker, under the same kind of deadline. */
+  async ratioError(job: RatioJob, deadlineAt: number, limitMs: number): Promise<RatioError> {
+    return (await this.job("ratio", job, null, deadlineAt, limitMs)) as unknown as RatioError;
+  }
+
+  private job(name: JobMessage["name"], recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<unknown> {
     if (this.closed) return Promise.reject(new UnreachableError("the curator is shutting down; nothing was spent"));
-    return new Promise<ReleaseRow[]>((resolve, reject) => {
+    return new Promise<unknown>((resolve, reject) => {
       const msg: JobMessage = { id: this.nextId++, name, recipe: toWire(recipe), data: toWire(data) };
       const job: Job = { msg, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
       this.queue.push(job);
@@ -101,7 +111,7 @@ export class WorkerPool {
     const job = this.finish(slot);
     if (job === null) return;
     if (job.msg.id !== m.id) job.reject(new Error(`internal: worker answered job ${m.id} while running job ${job.msg.id}`));
-    else if (m.ok) job.resolve(fromWire(m.rows) as ReleaseRow[]);
+    else if (m.ok) job.resolve(fromWire(m.rows));
     else if (m.kind === "bad-input") job.reject(new BadInputError(m.message));
     else if (m.kind !== null) job.reject(new HushError("internal", m.message));
     else job.reject(new Error(`worker: ${m.message}`));

@@ -1,6 +1,7 @@
 /**
- * Entry of one curator worker thread: runs the CPU part of a release (aggregates/finishers.ts) so
- * the curator's message loop never waits on noise, intervals or a quantile draw. Each worker keeps
+ * Entry of one curator worker thread: runs the CPU part of a release (aggregates/finishers.ts), and
+ * a preview's expected error of a ratio (aggregates/ratio-preview.ts), so the curator's message loop
+ * never waits on noise, intervals or a quantile draw. Each worker keeps
  * its own Bits over the operating system's CSPRNG (Bits is not shared across threads); nothing here
  * reads the data store, the ledger or a key.
  */
@@ -8,11 +9,13 @@ import { parentPort } from "node:worker_threads";
 import { Bits, cryptoBytes } from "../../core/index.js";
 import { isHushError } from "../../errors.js";
 import { FINISHERS, type FinisherName } from "../aggregates/finishers.js";
+import { runRatioJob } from "../aggregates/ratio-preview.js";
 import { fromWire, toWire } from "./wire.js";
 
 export interface JobMessage {
   id: number;
-  name: FinisherName;
+  /** A release's finisher, or "ratio": a preview's expected error of a ratio (ratio-preview.ts). */
+  name: FinisherName | "ratio";
   recipe: unknown;
   data: unknown;
 }
@@ -28,7 +31,7 @@ if (port === null) throw new Error("workers/worker.js runs only as a worker thre
 port.on("message", (job: JobMessage) => {
   let reply: ResultMessage;
   try {
-    const run = FINISHERS[job.name] as ((r: unknown, d: unknown, b: Bits) => unknown) | undefined;
+    const run = job.name === "ratio" ? (r: unknown) => runRatioJob(r as Parameters<typeof runRatioJob>[0]) : (FINISHERS[job.name] as ((r: unknown, d: unknown, b: Bits) => unknown) | undefined);
     if (run === undefined) throw new Error(`internal: no finisher named ${String(job.name)}`);
     reply = { id: job.id, ok: true, rows: toWire(run(fromWire(job.recipe), fromWire(job.data), bits)) };
   } catch (e: unknown) {
