@@ -164,7 +164,13 @@ export function ledgerHtml(l: LedgerView): string {
     `${esc(q(e.total))} / ${esc(q(e.receipt.cap))}`,
     esc(e.issuedAt),
   ]);
-  return box(`<div><b>ledger</b> (${l.entries.length} releases, signed receipts)</div>` + table(["dataset", "receipt", "query", "cost", "total after", "issued"], rows, new Set([3, 4])), "ledger");
+  const more = l.earlierNote();
+  return box(
+    `<div><b>ledger</b> (${l.entries.length} releases, signed receipts)</div>` +
+      table(["dataset", "receipt", "query", "cost", "total after", "issued"], rows, new Set([3, 4])) +
+      (more === null ? "" : `<div style="${MUTED}">${esc(more)}</div>`),
+    "ledger",
+  );
 }
 
 /** The running privacy loss under a cell: one entry per dataset touched in the cell. */

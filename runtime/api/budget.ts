@@ -85,9 +85,14 @@ function overviewText(analyst: string, datasets: readonly DatasetBudget[]): stri
 /** The analyst's ledger: every release the curator has recorded (this and earlier sessions). */
 export class LedgerView {
   readonly entries: readonly LedgerEntry[];
+  /** Earlier releases the curator left out of this page (it sends the latest 1,000 per population). */
+  readonly earlier: number;
+  readonly #dataset: string | undefined;
 
-  constructor(entries: LedgerEntry[]) {
+  constructor(entries: LedgerEntry[], earlier = 0, dataset?: string) {
     this.entries = Object.freeze(entries.map((e) => Object.freeze(structuredClone(e))));
+    this.earlier = earlier;
+    this.#dataset = dataset;
     Object.freeze(this);
   }
 
@@ -101,6 +106,22 @@ export class LedgerView {
       `${e.dataset} #${e.seq} ${planText(e.plan)}`,
       `${unitSymbol(e.receipt.unit)} ${q(e.cost)} → total ${q(e.total)} / ${q(e.receipt.cap)} · ${e.issuedAt}`,
     ]);
-    return [`ledger: ${plural(this.entries.length, "release")}`, ...aligned(lines, "  ")].join("\n");
+    const out = [`ledger: ${plural(this.entries.length, "release")}`, ...aligned(lines, "  ")];
+    const more = this.earlierNote();
+    if (more !== null) out.push(`  ${more}`);
+    return out.join("\n");
+  }
+
+  /** What this page leaves out, and how to page back; null when nothing was left out. */
+  earlierNote(): string | null {
+    if (this.earlier === 0) return null;
+    const n = this.earlier;
+    const shown = `… and ${n.toLocaleString("en-US")} earlier release${n === 1 ? "" : "s"} not shown (the curator sends the latest 1,000 of each population)`;
+    const populations = new Set(this.entries.map((e) => e.population));
+    const datasets = [...new Set(this.entries.map((e) => e.dataset))];
+    if (populations.size !== 1) return `${shown}; name a dataset to page back through it: hush.ledger("${datasets[0] ?? "name"}", { before: n })`;
+    const first = Math.min(...this.entries.map((e) => e.seq));
+    const name = this.#dataset ?? (datasets.length === 1 ? datasets[0] : undefined);
+    return `${shown}: hush.ledger(${name === undefined ? "undefined" : JSON.stringify(name)}, { before: ${first} })`;
   }
 }

@@ -12,7 +12,7 @@ import { remainingText } from "./text.js";
  * The curator operations the API uses (CuratorClient satisfies it; tests may pass a stand-in).
  * `accounts` is optional: without it the budget overview asks `spend` per catalogued dataset.
  */
-export type CuratorPort = Pick<CuratorClient, "catalogue" | "open" | "ask" | "preview" | "spend" | "ledger" | "close"> & Partial<Pick<CuratorClient, "accounts">>;
+export type CuratorPort = Pick<CuratorClient, "catalogue" | "open" | "ask" | "preview" | "spend" | "ledger" | "close"> & Partial<Pick<CuratorClient, "accounts" | "ledgerPage">>;
 
 export interface ApiContext {
   /** The curator connection, made on first use. */

@@ -20,7 +20,7 @@ export const HUSH_HELP = [
   '  await visits.regress("wait_minutes", ["age", "district"], { epsilon: 0.3 })   linear regression; correlate(["age", "cost"], ...)',
   '  await visits.preview.mean("wait_minutes", { epsilon: 0.1, assumeCount: 5000 })   cost and expected error, nothing spent',
   "  await hush.budget()    your spend and what remains under the cap (before hush.open: every dataset you may use)",
-  "  await hush.ledger()    every release recorded for you, with its signed receipt",
+  "  await hush.ledger()    your releases as recorded (the latest 1,000 per population), with signed receipts",
   "  await hush.datasets()  the datasets you may open",
   "Spend with { epsilon }, { rho } or { within, atMost } (accuracy first, never more than atMost); confidence defaults to 0.95.",
 ].join("\n");
@@ -82,10 +82,17 @@ export class Hush {
     return new BudgetReport(analyst, out);
   }
 
-  /** Your ledger as the curator records it: every release on every dataset (or the one named), with receipts. */
-  async ledger(dataset?: string): Promise<LedgerView> {
+  /**
+   * Your ledger as the curator records it: your releases on every dataset (or the one named), with
+   * receipts; the latest 1,000 of each population, or those before release `before`.
+   */
+  async ledger(dataset?: string, options: { before?: number } = {}): Promise<LedgerView> {
     const port = await this.#ctx.port();
-    return new LedgerView(await port.ledger(dataset));
+    const before = options.before;
+    if (before !== undefined && !(Number.isSafeInteger(before) && before >= 1)) throw new BadInputError("ledger: before must be a release number (a whole number from 1)");
+    if (port.ledgerPage === undefined) return new LedgerView(await port.ledger(dataset));
+    const page = await port.ledgerPage(dataset, before);
+    return new LedgerView(page.entries, page.earlier, dataset);
   }
 
   /** Starts a filter on a public column: `hush.col("age").ge(65)`. */

@@ -272,8 +272,18 @@ export class CuratorClient {
     return (await this.request({ op: "accounts" })).accounts;
   }
 
+  /** The latest releases (at most LEDGER_PAGE per population; ledgerPage for the rest). */
   async ledger(dataset?: string): Promise<LedgerEntry[]> {
-    return (await this.request(dataset === undefined ? { op: "ledger" } : { op: "ledger", dataset })).entries;
+    return (await this.ledgerPage(dataset)).entries;
+  }
+
+  /**
+   * A page of the ledger: per population the latest LEDGER_PAGE releases with seq below `before`
+   * (default: the latest of all), and how many earlier releases were left out.
+   */
+  async ledgerPage(dataset?: string, before?: number): Promise<{ entries: LedgerEntry[]; earlier: number }> {
+    const body = await this.request({ op: "ledger", ...(dataset !== undefined ? { dataset } : {}), ...(before !== undefined ? { before } : {}) });
+    return { entries: body.entries, earlier: body.earlier ?? 0 };
   }
 
   async close(): Promise<void> {

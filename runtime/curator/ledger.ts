@@ -164,6 +164,28 @@ export class Ledger {
     return rows.map((r) => JSON.parse(r.receipt) as Receipt);
   }
 
+  /**
+   * One page of an analyst's rows (optionally one dataset): in each population the `limit` latest
+   * with seq below `before`, by population then seq, and how many rows below them were left out.
+   * Index range scans on (analyst, population, seq): the work follows the page, not the history
+   * (the count of rows left out is an index count, done only when the page is full).
+   */
+  page(analyst: string, dataset: string | undefined, before: number, limit: number): { rows: LedgerRow[]; earlier: number } {
+    const populations = (this.db.prepare("SELECT DISTINCT population FROM releases WHERE analyst = ? ORDER BY population").all(analyst) as { population: string }[]).map((r) => r.population);
+    const filter = dataset === undefined ? "" : " AND dataset = ?";
+    const take = this.db.prepare(`SELECT * FROM releases WHERE analyst = ? AND population = ?${filter} AND seq < ? ORDER BY seq DESC LIMIT ?`);
+    const below = this.db.prepare(`SELECT count(*) AS n FROM releases WHERE analyst = ? AND population = ?${filter} AND seq < ?`);
+    const rows: LedgerRow[] = [];
+    let earlier = 0;
+    for (const population of populations) {
+      const args = dataset === undefined ? [analyst, population] : [analyst, population, dataset];
+      const got = (take.all(...args, before, limit) as RawRow[]).map(fromRaw).reverse();
+      if (got.length === limit) earlier += (below.get(...args, got[0].seq) as { n: number }).n;
+      rows.push(...got);
+    }
+    return { rows, earlier };
+  }
+
   /** All rows of one analyst (optionally one dataset), by population then seq. */
   entries(analyst: string, dataset?: string): LedgerRow[] {
     const rows =

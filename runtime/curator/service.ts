@@ -31,6 +31,7 @@ import { loadPolicy, type DatasetPolicy, type LoadedPolicy } from "./policy.js";
 import { accuracyFirstRefusal, exactDecimal } from "./aggregates/budget.js";
 import type { ComputedRelease } from "./answer.js";
 import { KeyedLock, Turns } from "./keyed-lock.js";
+import { LEDGER_PAGE } from "../protocol/limits.js";
 import { copyMechanisms, receiptResult, signReasked, signReceipt } from "./receipts.js";
 import { encodeResponse, readRequestFrame } from "./request-frame.js";
 import { SignIn } from "./sign-in.js";
@@ -222,7 +223,7 @@ export class CuratorService {
       case "spend":
         return { op: "spend", spend: this.spendNow(analyst, this.dataset(analyst, body.dataset)) };
       case "ledger":
-        return { op: "ledger", entries: this.entries(analyst, body.dataset) };
+        return { op: "ledger", ...this.entries(analyst, body.dataset, body.before) };
       case "accounts":
         // From the policy and the ledger only: what a restarted kernel shows before opening anything.
         return { op: "accounts", accounts: this.visibleDatasets(analyst).map((d) => this.spendNow(analyst, d)) };
@@ -296,9 +297,11 @@ export class CuratorService {
     };
   }
 
-  private entries(analyst: string, dataset?: string): LedgerEntry[] {
+  /** A page of the analyst's ledger (LEDGER_PAGE per population; Ledger.page). */
+  private entries(analyst: string, dataset?: string, before?: number): { entries: LedgerEntry[]; earlier?: number } {
     if (dataset !== undefined) this.dataset(analyst, dataset);
-    return this.ledger.entries(analyst, dataset).map((r) => ({
+    const { rows, earlier } = this.ledger.page(analyst, dataset, before ?? Number.MAX_SAFE_INTEGER, LEDGER_PAGE);
+    const entries = rows.map((r) => ({
       seq: r.seq,
       dataset: r.dataset,
       population: r.population,
@@ -309,6 +312,7 @@ export class CuratorService {
       issuedAt: r.issuedAt,
       receipt: r.receipt,
     }));
+    return earlier > 0 ? { entries, earlier } : { entries };
   }
 
   private async preview(analyst: string, plan: QueryPlan, assumeCount?: number): Promise<Preview> {

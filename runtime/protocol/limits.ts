@@ -77,3 +77,11 @@ export const PLAN_LIMITS = {
   /** Columns of one correlation matrix (the same released sums as a regression of that width). */
   maxCorrelationColumns: 12,
 } as const;
+
+/**
+ * Releases in one ledger reply, per population: the latest ones (below `before`, if given). An
+ * analyst's history grows with every release, so without a page the reply, and the curator's work
+ * to build it, would grow without bound (at 1e-9 per release a cap of 1 allows 10^9 releases).
+ * About 1.5 KB per entry: a full page of one population is about 1.5 MB.
+ */
+export const LEDGER_PAGE = 1000;

@@ -300,7 +300,11 @@ export type RequestBody =
   /** `assumeCount`: the count of values per group the ratio estimates' expected errors assume (Preview.ratioErrors). */
   | { op: "preview"; plan: QueryPlan; assumeCount?: number }
   | { op: "spend"; dataset: string }
-  | { op: "ledger"; dataset?: string }
+  /**
+   * At most LEDGER_PAGE (limits.ts) releases per population, the latest with seq below `before`
+   * (default: the latest of all).
+   */
+  | { op: "ledger"; dataset?: string; before?: number }
   /** The analyst's spend on every dataset they may use, from the ledger alone (no dataset opened, no data read). */
   | { op: "accounts" };
 
@@ -318,7 +322,8 @@ export type ResponseBody =
   | { op: "ask"; release: Release }
   | { op: "preview"; preview: Preview }
   | { op: "spend"; spend: SpendSummary }
-  | { op: "ledger"; entries: LedgerEntry[] }
+  /** `earlier`: releases (of the same dataset filter) below the page, left out; absent when none. */
+  | { op: "ledger"; entries: LedgerEntry[]; earlier?: number }
   /** One summary per dataset the analyst may use, in policy order; datasets of one population show the same amounts. */
   | { op: "accounts"; accounts: SpendSummary[] };
 

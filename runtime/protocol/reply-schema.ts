@@ -33,8 +33,8 @@ import {
 import { formatPath, parsePlan } from "./schema.js";
 
 /**
- * Largest reply frame the client reads. A ledger reply holds every receipt of the analyst, so this
- * is far above a request's limit; larger frames are refused without being parsed.
+ * Largest reply frame the client reads. A ledger reply holds up to LEDGER_PAGE receipts per
+ * population, so this is far above a request's limit; larger frames are refused without being parsed.
  */
 export const MAX_REPLY_BYTES = 32 * 1024 * 1024;
 
@@ -223,7 +223,7 @@ const responseBody = z.discriminatedUnion("op", [
   z.strictObject({ op: z.literal("ask"), release }),
   z.strictObject({ op: z.literal("preview"), preview }),
   z.strictObject({ op: z.literal("spend"), spend: spendSummary }),
-  z.strictObject({ op: z.literal("ledger"), entries: z.array(ledgerEntry) }),
+  z.strictObject({ op: z.literal("ledger"), entries: z.array(ledgerEntry), earlier: position.optional() }),
   z.strictObject({ op: z.literal("accounts"), accounts: z.array(spendSummary) }),
 ]);
 

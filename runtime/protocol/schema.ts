@@ -188,7 +188,11 @@ const body = z.discriminatedUnion(
       assumeCount: z.number({ error: "must be a whole number" }).int({ message: "must be a whole number" }).min(1, { message: "must be at least 1" }).max(1e15, { message: "must be at most 1e15" }).optional(),
     }),
     z.strictObject({ op: z.literal("spend"), dataset: name }),
-    z.strictObject({ op: z.literal("ledger"), dataset: name.optional() }),
+    z.strictObject({
+      op: z.literal("ledger"),
+      dataset: name.optional(),
+      before: z.number({ error: "must be a whole number" }).int({ message: "must be a whole number" }).min(1, { message: "must be at least 1" }).max(Number.MAX_SAFE_INTEGER, { message: "is too large" }).optional(),
+    }),
     z.strictObject({ op: z.literal("accounts") }),
   ],
   { error: "must have op one of catalogue, open, ask, preview, spend, ledger" },

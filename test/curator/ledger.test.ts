@@ -26,10 +26,10 @@ function plan(n: number, dataset = "visits"): QueryPlan {
 const PEOPLE = "patients";
 
 /** Debits one fake release of `cost` for `analyst`; the digest is the plan number. */
-function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "1", dataset = "visits") {
+function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "1", dataset = "visits", population = PEOPLE) {
   return ledger.debit({
     analyst,
-    population: PEOPLE,
+    population,
     dataset,
     digest: `digest-${n}`,
     plan: plan(n, dataset),
@@ -40,7 +40,7 @@ function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "
         {
           analyst,
           dataset,
-          population: PEOPLE,
+          population,
           seq: ctx.seq,
           digest: `digest-${n}`,
           unit: "epsilon",
@@ -61,6 +61,40 @@ function debit(ledger: Ledger, analyst: string, n: number, cost: string, cap = "
 }
 
 describe("Ledger", () => {
+  it("pages an analyst's history: the latest rows of each population below `before`, and a count of those left out", () => {
+    const ledger = Ledger.open(join(dir, "pages.sqlite"));
+    // 25 releases on the patients (alternating the datasets visits and labs), 3 on the staff.
+    for (let i = 1; i <= 25; i++) expect(debit(ledger, "ada", i, "0.01", "1", i % 2 === 0 ? "labs" : "visits").kind).toBe("new");
+    for (let i = 1; i <= 3; i++) expect(debit(ledger, "ada", 100 + i, "0.01", "1", "rota", "staff").kind).toBe("new");
+    debit(ledger, "ben", 1, "0.01");
+    const seqs = (p: ReturnType<Ledger["page"]>) => p.rows.map((r) => `${r.population}#${r.seq}`);
+    const latest = ledger.page("ada", undefined, Number.MAX_SAFE_INTEGER, 10);
+    expect(seqs(latest)).toEqual([...Array.from({ length: 10 }, (_, i) => `patients#${16 + i}`), "staff#1", "staff#2", "staff#3"]);
+    expect(latest.earlier).toBe(15);
+    const back = ledger.page("ada", undefined, 16, 10);
+    expect(seqs(back)).toEqual([...Array.from({ length: 10 }, (_, i) => `patients#${6 + i}`), "staff#1", "staff#2", "staff#3"]);
+    expect(back.earlier).toBe(5);
+    // One dataset: labs holds the even seqs 2..24; the latest 10 are 6..24, and 2 and 4 are left out.
+    const labs = ledger.page("ada", "labs", Number.MAX_SAFE_INTEGER, 10);
+    expect(seqs(labs)).toEqual(Array.from({ length: 10 }, (_, i) => `patients#${6 + 2 * i}`));
+    expect(labs.earlier).toBe(2);
+    // A page that is not full leaves nothing out; another analyst's rows never show.
+    expect(ledger.page("ada", undefined, Number.MAX_SAFE_INTEGER, 100)).toMatchObject({ earlier: 0 });
+    expect(ledger.page("ada", undefined, Number.MAX_SAFE_INTEGER, 100).rows).toHaveLength(28);
+    expect(seqs(ledger.page("ben", undefined, Number.MAX_SAFE_INTEGER, 10))).toEqual(["patients#1"]);
+    expect(ledger.page("cy", undefined, Number.MAX_SAFE_INTEGER, 10)).toEqual({ rows: [], earlier: 0 });
+    // The same rows as the whole history, page by page.
+    const all: string[] = [];
+    for (let before = Number.MAX_SAFE_INTEGER; ; ) {
+      const p = ledger.page("ada", "visits", before, 4);
+      all.unshift(...seqs(p));
+      if (p.earlier === 0) break;
+      before = p.rows[0].seq;
+    }
+    expect(all).toEqual(ledger.entries("ada", "visits").map((r) => `${r.population}#${r.seq}`));
+    ledger.close();
+  });
+
   it("uses WAL with synchronous=FULL and a private file", () => {
     const path = join(dir, "pragmas", "ledger.sqlite");
     const ledger = Ledger.open(path);

@@ -18,6 +18,8 @@ import { BadInputError, OverCapError } from "../../runtime/errors.js";
 import { digestOf } from "../../runtime/protocol/canonical.js";
 import { MAX_FRAME_BYTES, type QueryPlan, type Response } from "../../runtime/protocol/messages.js";
 import { keyIdOf } from "../../runtime/protocol/receipts.js";
+import { LEDGER_PAGE } from "../../runtime/protocol/limits.js";
+import { responseSchema } from "../../runtime/protocol/reply-schema.js";
 import { checkReceiptChains } from "../../cli/audit/chain.js";
 import { countPlan, makeWorkspace, RawSpeaker, type Workspace } from "../integration/helpers.js";
 
@@ -110,6 +112,34 @@ describe("CuratorService", () => {
     expect(checkReceiptChains(ledger.body.entries.map((e) => e.receipt), service.key.publicKey)).toEqual([]);
     await service.close();
   });
+
+  it("sends the ledger a page at a time: the latest 1,000 releases, how many came before, and the page before a release", async () => {
+    const { service } = makeService();
+    // 1,005 releases at 1/2000 each (cap 1).
+    for (let i = 0; i < 1005; i++) {
+      const r = await call(service, { op: "ask", plan: countPlan("0.0005", { where: { op: "lt", column: "age", value: i } }) });
+      if (!r.ok) throw new Error(`ask ${i} refused: ${r.error.message}`);
+    }
+    const page = await call(service, { op: "ledger", dataset: "clinic" });
+    if (!page.ok || page.body.op !== "ledger") throw new Error("ledger failed");
+    expect(page.body.entries).toHaveLength(LEDGER_PAGE);
+    expect(page.body.entries[0].seq).toBe(6);
+    expect(page.body.entries.at(-1)?.seq).toBe(1005);
+    expect(page.body.earlier).toBe(5);
+    // The reply passes the client's own reading of a ledger reply.
+    expect(responseSchema.safeParse(page).success).toBe(true);
+    const back = await call(service, { op: "ledger", dataset: "clinic", before: 6 });
+    if (!back.ok || back.body.op !== "ledger") throw new Error("ledger failed");
+    expect(back.body.entries.map((e) => e.seq)).toEqual([1, 2, 3, 4, 5]);
+    expect(back.body.earlier).toBeUndefined();
+    // Both pages together are the whole chain, and it verifies.
+    expect(checkReceiptChains([...back.body.entries, ...page.body.entries].map((e) => e.receipt), service.key.publicKey)).toEqual([]);
+    for (const before of [0, -1, 1.5, 1e300, "6"]) {
+      const bad = await call(service, { op: "ledger", before });
+      expect(bad.ok, String(before)).toBe(false);
+    }
+    await service.close();
+  }, 120_000);
 
   it("answers the same plan asked twice at once with one release and one replay", async () => {
     const { service, fake } = makeService();

@@ -12,6 +12,7 @@ import { KERNEL_CLASSES, htmlText } from "../../cli/audit/html-text.js";
 import { VEGALITE_MIME } from "../../kernel/display/chart.js";
 import { HushSession, type MimeBundle } from "../../kernel/hush-session.js";
 import type { Answer } from "../../runtime/api/answer.js";
+import { LedgerView } from "../../runtime/api/budget.js";
 import { DISTRICTS, FakeCurator, fakeSession } from "../api/fake-curator.js";
 
 /** Tags to spaces and entities decoded, as the notebook audit reads an HTML view. */
@@ -168,6 +169,24 @@ describe("other bundles", () => {
       expect(b.metadata).toEqual({});
     }
     expect((await session.render(t))?.data["text/html"]).toContain("sealed — aggregates only");
+  });
+
+  test("a ledger page says how many earlier releases it left out and how to page back", async () => {
+    const { session, hush } = await fakeSession();
+    const t = await hush.open("clinic");
+    await t.count({ epsilon: 0.25 });
+    await t.count({ epsilon: 0.125 });
+    const whole = await hush.ledger();
+    expect(whole.earlier).toBe(0);
+    expect(whole.earlierNote()).toBeNull();
+    // As the curator sends it when the page is full: the latest releases and a count of the rest.
+    const page = new LedgerView([...whole.entries], 1500, "clinic");
+    const b = (await session.render(page))!;
+    const note = `… and 1,500 earlier releases not shown (the curator sends the latest 1,000 of each population): hush.ledger("clinic", { before: 1 })`;
+    expect(b.data["text/plain"]).toContain(note);
+    expect(b.data["text/html"]).toContain(esc(note));
+    await expect(hush.ledger("clinic", { before: 0 })).rejects.toThrow(/before must be a release number/);
+    await expect(hush.ledger("clinic", { before: 1.5 })).rejects.toThrow(/before must be a release number/);
   });
 
   test("console.log and util.inspect show readable summaries, not internal fields", async () => {
