@@ -192,7 +192,7 @@ export function findReleases(nb: Notebook): { releases: FoundRelease[]; suspects
           cell: ci,
           output: oi,
           executionCount,
-          meta: { receipt: m.receipt as Receipt, replay: m.replay === true, dataset: String(m.dataset ?? "") },
+          meta: { receipt: m.receipt as Receipt, replay: m.replay === true, dataset: String(m.dataset ?? ""), ...(m.plan !== undefined ? { plan: m.plan } : {}) },
           out,
         });
         return;

@@ -5,6 +5,7 @@
  * signed (an extra made-up row, or an edited number beside a hidden original). Structured bundles
  * (JSON rows, the Vega-Lite chart's data) must carry exactly the signed numbers.
  */
+import { digestOf } from "../../runtime/protocol/canonical.js";
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
@@ -110,9 +111,48 @@ function chartUri(data: Record<string, unknown>): string | null {
   return svgText === null ? null : `data:image/svg+xml;base64,${Buffer.from(svgText, "utf8").toString("base64")}`;
 }
 
-/** The text with every signed group key taken out: keys are the data's own words and may hold any character. */
-function withoutKeys(text: string, r: Receipt): string {
-  const keys = [...new Set(r.result.flatMap((row) => row[0]).filter((k): k is string => k !== null && k !== ""))];
+/** Plan fields whose strings are names and values from the steward's policy (columns, declared values, the dataset). */
+const WORD_FIELDS = new Set(["dataset", "column", "columns", "value", "values", "response", "predictors", "rows", "cols"]);
+
+/**
+ * The steward's words a release's views show, from the plan in the output's metadata: filter values
+ * (declared category values), column and dataset names. Only when that plan is the one the receipt
+ * signed (its canonical digest is `receipt.digest`); a plan that is not is reported. Strings with
+ * no letter (numbers written as text) are left out, so nothing a figure is made of is set aside.
+ */
+export function planWords(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): string[] {
+  const plan = rel.meta.plan;
+  if (plan === undefined) return [];
+  let signedPlan = false;
+  try {
+    signedPlan = digestOf(plan) === r.digest;
+  } catch {
+    signedPlan = false;
+  }
+  if (!signedPlan) {
+    findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: the plan in its hush metadata is not the one receipt seq ${r.seq} signed (its digest differs)` });
+    return [];
+  }
+  const words = new Set<string>();
+  const visit = (v: unknown, field: string | null): void => {
+    if (typeof v === "string") {
+      if (field !== null && WORD_FIELDS.has(field) && /\p{L}/u.test(v)) words.add(v);
+    } else if (Array.isArray(v)) {
+      for (const x of v) visit(x, field);
+    } else if (v !== null && typeof v === "object") {
+      for (const [k, x] of Object.entries(v)) visit(x, k);
+    }
+  };
+  visit(plan, null);
+  return [...words];
+}
+
+/**
+ * The text with every signed group key, and the signed plan's words, taken out: they are the data's
+ * and the steward's own words and may hold any character.
+ */
+function withoutKeys(text: string, r: Receipt, words: readonly string[]): string {
+  const keys = [...new Set([...r.result.flatMap((row) => row[0]).filter((k): k is string => k !== null && k !== ""), ...words])];
   keys.sort((x, y) => y.length - x.length);
   return keys.reduce((t, k) => t.split(k).join(" ").split(k.normalize("NFKC")).join(" "), text);
 }
@@ -166,6 +206,7 @@ const CHECKED_MIMES = /^(text\/plain|text\/html|text\/markdown|image\/svg\+xml|a
 export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): void {
   const data = rel.out.data !== null && typeof rel.out.data === "object" ? rel.out.data : {};
   const signed = signedFigures(rel, r, findings, at);
+  const words = planWords(rel, r, findings, at);
   const views: [string, string][] = [];
   for (const mime of ["text/plain", "text/html", "text/markdown"]) {
     const v = data[mime];
@@ -190,7 +231,7 @@ export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], a
       findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: text/markdown holds HTML markup or character references, which the kernel does not write and the audit does not read as drawn (receipt seq ${r.seq})` });
     }
     // A table cell is a paragraph of its own in HTML; in text a line is.
-    const readable = withoutKeys(decoded, r);
+    const readable = withoutKeys(decoded, r, words);
     const odd = [...oddCharacters(readable), ...rightToLeftBesideFigure(readable, mime === "text/html" ? /[\n\t]/ : /\n/)];
     if (odd.length > 0) {
       findings.push({

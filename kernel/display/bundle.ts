@@ -36,7 +36,7 @@ export async function answerBundle(a: Answer): Promise<MimeBundle> {
     img = `<img alt="${esc(`chart: ${a.what}`)}" src="data:image/svg+xml;base64,${Buffer.from(svg, "utf8").toString("base64")}">`;
   }
   data["text/html"] = answerHtml(a, img);
-  const meta: OutputMetadata = { receipt: a.release.receipt, replay: a.release.replay, dataset: a.release.dataset };
+  const meta: OutputMetadata = { receipt: a.release.receipt, replay: a.release.replay, dataset: a.release.dataset, plan: a.release.plan };
   // A replay asked from other code than its receipt names: the curator's statement travels with it, for the audit.
   if (a.release.reasked !== undefined) meta.reasked = a.release.reasked;
   return { data, metadata: { [OUTPUT_METADATA_KEY]: meta } };

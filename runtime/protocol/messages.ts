@@ -333,6 +333,12 @@ export interface OutputMetadata {
   receipt: Receipt;
   replay: boolean;
   dataset: string;
+  /**
+   * The release's plan (normalized), whose canonical digest the receipt signed. Not signed itself:
+   * the audit checks it against `receipt.digest` and then knows the steward's words the views show
+   * (filter values, column names), which it reads like group keys.
+   */
+  plan?: QueryPlan;
   /** Copied from the release: this cell's code asked again for a release first made by other code. */
   reasked?: Reasked;
 }

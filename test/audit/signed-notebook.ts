@@ -27,7 +27,7 @@ type Row = Receipt["result"][number];
 export function signedChain(
   key: CuratorKey,
   who: { analyst: string; dataset: string; cap: string; population?: string },
-  parts: { cost: string; rows: Row[]; dataset?: string }[],
+  parts: { cost: string; rows: Row[]; dataset?: string; digest?: string }[],
 ): Receipt[] {
   let prev = GENESIS_PREV;
   let total = Rational.ZERO;
@@ -39,7 +39,7 @@ export function signedChain(
         dataset: p.dataset ?? who.dataset,
         population: who.population ?? "clinic-patients",
         seq: i + 1,
-        digest: String(i + 1).padStart(64, "0"),
+        digest: p.digest ?? String(i + 1).padStart(64, "0"),
         cell: releaseCell(i + 1),
         unit: "epsilon",
         cost: p.cost,

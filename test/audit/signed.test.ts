@@ -12,6 +12,7 @@ import { GENESIS_PREV } from "../../runtime/protocol/receipts.js";
 import { formatWithError } from "../../runtime/protocol/format.js";
 import { auditNotebook } from "../../cli/audit/checks.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
+import { digestOf } from "../../runtime/protocol/canonical.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
 import { clone, releaseWithSeq } from "./tamper.js";
 import { badge, box, budgetBar, esc, notesList, table } from "../../kernel/display/html.js";
@@ -160,6 +161,49 @@ describe("notebook audit on a signed, assembled notebook", () => {
     ) + box(`<div><b>privacy loss</b> on visits-course</div>${budgetBar({ total: "0.1", recent: "0.1", cap: "1", symbol: "ε", recentLabel: "this cell", beforeLabel: "earlier" })}`, "loss");
     for (const c of nb.cells) for (const o of c.outputs ?? []) if (o.data !== undefined) o.data["text/html"] = html;
     expect(auditNotebook(nb, fx.key).findings).toEqual([]);
+  });
+
+  it("reads a filter's declared values (dashes beside digits, right-to-left words) like group keys once the metadata's plan is the signed one", () => {
+    const key = loadCuratorKey(join(fx.dir, "curator.key"));
+    // Declared category values as a steward may write them, used in filters: an en dash beside a
+    // digit, and an Arabic district name with an Arabic-Indic digit.
+    const values = ["Zone\u20133", "منطقة ٣"];
+    const plans = values.map((v) => ({ v: 1, dataset: "visits-course", measure: { kind: "count" }, privacy: { epsilon: "0.1" }, where: { op: "eq", column: "district", value: v }, confidence: 0.95 }));
+    const figures: [string, string, string][] = [["5995", "5755", "6235"], ["120", "-120", "360"]];
+    const receipts = signedChain(
+      key,
+      { analyst: "kit", dataset: "visits-course", cap: "1" },
+      plans.map((p, i) => ({ cost: "0.1", rows: rowsOf("count", null, [figures[i]]), digest: digestOf(p) })),
+    );
+    const build = (plan: (seq: number) => unknown): Notebook => {
+      const nb = assembleNotebook(receipts);
+      for (const c of nb.cells) {
+        for (const o of c.outputs ?? []) {
+          const meta = o.metadata?.[OUTPUT_METADATA_KEY] as { receipt: { seq: number; total: string } } | undefined;
+          if (meta === undefined || o.data === undefined) continue;
+          const i = meta.receipt.seq - 1;
+          // The kernel's one-line form: the question with its filter, then the figure on the same line.
+          const replay = String(o.data["text/plain"]).includes("replayed");
+          o.data["text/plain"] =
+            `count where district = ${values[i]} = ${formatWithError(...figures[i])} · ${replay ? "replayed, no new cost" : "cost ε=0.1"}\n` +
+            `at least 95% of such answers fall within the ± shown of the true count (privacy noise only)`;
+          const p = plan(meta.receipt.seq);
+          if (p !== undefined) (o.metadata![OUTPUT_METADATA_KEY] as Record<string, unknown>).plan = p;
+        }
+      }
+      return nb;
+    };
+    // The kernel's metadata: the plan whose digest the receipt signed. Nothing to report.
+    expect(auditNotebook(build((seq) => plans[seq - 1]), fx.key).findings).toEqual([]);
+    // Without the plan (a notebook from before it was written) the audit cannot tell the steward's
+    // words from odd characters put there, and says so.
+    const without = auditNotebook(build(() => undefined), fx.key).findings;
+    expect(without.some((f) => f.kind === "shown-value" && /a dash or minus sign next to a digit/.test(f.message))).toBe(true);
+    expect(without.some((f) => f.kind === "shown-value" && /right-to-left letter beside a figure/.test(f.message))).toBe(true);
+    // A plan that is not the signed one excuses nothing and is reported.
+    const forged = auditNotebook(build((seq) => ({ ...plans[seq - 1], where: { op: "eq", column: "district", value: "Zone\u20134" } })), fx.key).findings;
+    expect(forged.some((f) => /not the one receipt seq 1 signed/.test(f.message))).toBe(true);
+    expect(forged.some((f) => /a dash or minus sign next to a digit/.test(f.message))).toBe(true);
   });
 
   it("passes release code saved with CRLF or CR line endings (the digest makes line endings LF)", () => {

@@ -58,7 +58,7 @@ describe("release bundles", () => {
     // No running total inside the release (the one privacy-loss line is under the cell), no glyph
     // Debian Chromium's default fonts lack.
     expect(html).not.toMatch(/session|total|hush-loss|ⓘ|<script/);
-    expect(b.metadata).toEqual({ [OUTPUT_METADATA_KEY]: { receipt: a.receipt, replay: false, dataset: "clinic" } });
+    expect(b.metadata).toEqual({ [OUTPUT_METADATA_KEY]: { receipt: a.receipt, replay: false, dataset: "clinic", plan: a.release.plan } });
     expect(b.data[VEGALITE_MIME]).toBeUndefined();
     expectShown(b, a);
   });
