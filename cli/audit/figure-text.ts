@@ -6,6 +6,7 @@
  * is first folded to the kernel's spelling (figureText), and the characters that can make a person
  * read another number than the folded text says are reported (oddCharacters).
  */
+import { RIGHT_TO_LEFT } from "../../runtime/protocol/words.js";
 
 // A number as runtime/protocol/format.ts writes it ("12", "-0.5", "1,234.5", "1.25e-9": integer
 // parts in groups of three after the first, docs/methods.md §23), and a figure with an error bar
@@ -163,9 +164,8 @@ export function oddCharacters(text: string): OddCharacter[] {
   return odd;
 }
 
-// Letters of the right-to-left scripts. JavaScript has no Bidi_Class property, so the scripts
-// whose letters are bidi class R or AL (UAX #9, Table 4) are named instead.
-const RTL = /[\p{Script=Arabic}\p{Script=Hebrew}\p{Script=Syriac}\p{Script=Thaana}\p{Script=Nko}\p{Script=Samaritan}\p{Script=Mandaic}\p{Script=Adlam}\p{Script=Hanifi_Rohingya}\p{Script=Yezidi}]/u;
+// Letters of the right-to-left scripts (protocol/words.ts, shared with the kernel).
+const RTL = RIGHT_TO_LEFT;
 
 /**
  * Paragraphs (split at `breaks`) that hold a figure and a right-to-left letter. The Unicode

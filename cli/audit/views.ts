@@ -6,6 +6,7 @@
  * (JSON rows, the Vega-Lite chart's data) must carry exactly the signed numbers.
  */
 import { digestOf } from "../../runtime/protocol/canonical.js";
+import { FSI, PDI, planWords } from "../../runtime/protocol/words.js";
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
@@ -111,16 +112,13 @@ function chartUri(data: Record<string, unknown>): string | null {
   return svgText === null ? null : `data:image/svg+xml;base64,${Buffer.from(svgText, "utf8").toString("base64")}`;
 }
 
-/** Plan fields whose strings are names and values from the steward's policy (columns, declared values, the dataset). */
-const WORD_FIELDS = new Set(["dataset", "column", "columns", "value", "values", "response", "predictors", "rows", "cols"]);
-
 /**
  * The steward's words a release's views show, from the plan in the output's metadata: filter values
  * (declared category values), column and dataset names. Only when that plan is the one the receipt
  * signed (its canonical digest is `receipt.digest`); a plan that is not is reported. Strings with
  * no letter (numbers written as text) are left out, so nothing a figure is made of is set aside.
  */
-export function planWords(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): string[] {
+export function signedPlanWords(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): string[] {
   const plan = rel.meta.plan;
   if (plan === undefined) return [];
   let signedPlan = false;
@@ -133,18 +131,7 @@ export function planWords(rel: FoundRelease, r: Receipt, findings: Finding[], at
     findings.push({ cell: rel.cell, kind: "shown-value", message: `${at(rel)}: the plan in its hush metadata is not the one receipt seq ${r.seq} signed (its digest differs)` });
     return [];
   }
-  const words = new Set<string>();
-  const visit = (v: unknown, field: string | null): void => {
-    if (typeof v === "string") {
-      if (field !== null && WORD_FIELDS.has(field) && /\p{L}/u.test(v)) words.add(v);
-    } else if (Array.isArray(v)) {
-      for (const x of v) visit(x, field);
-    } else if (v !== null && typeof v === "object") {
-      for (const [k, x] of Object.entries(v)) visit(x, k);
-    }
-  };
-  visit(plan, null);
-  return [...words];
+  return planWords(plan);
 }
 
 /**
@@ -154,7 +141,8 @@ export function planWords(rel: FoundRelease, r: Receipt, findings: Finding[], at
 function withoutKeys(text: string, r: Receipt, words: readonly string[]): string {
   const keys = [...new Set([...r.result.flatMap((row) => row[0]).filter((k): k is string => k !== null && k !== ""), ...words])];
   keys.sort((x, y) => y.length - x.length);
-  return keys.reduce((t, k) => t.split(k).join(" ").split(k.normalize("NFKC")).join(" "), text);
+  // A word the kernel set in an isolate (protocol/words.ts) goes with its two invisible marks.
+  return keys.reduce((t, k) => t.split(`${FSI}${k}${PDI}`).join(" ").split(k).join(" ").split(k.normalize("NFKC")).join(" "), text);
 }
 
 function sameNumber(shown: unknown, signed: string | null): boolean {
@@ -206,7 +194,7 @@ const CHECKED_MIMES = /^(text\/plain|text\/html|text\/markdown|image\/svg\+xml|a
 export function checkShown(rel: FoundRelease, r: Receipt, findings: Finding[], at: Where): void {
   const data = rel.out.data !== null && typeof rel.out.data === "object" ? rel.out.data : {};
   const signed = signedFigures(rel, r, findings, at);
-  const words = planWords(rel, r, findings, at);
+  const words = signedPlanWords(rel, r, findings, at);
   const views: [string, string][] = [];
   for (const mime of ["text/plain", "text/html", "text/markdown"]) {
     const v = data[mime];

@@ -11,6 +11,7 @@ import { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
 import { HUSH_HELP, Hush } from "../../runtime/api/hush.js";
 import { CostQuote } from "../../runtime/api/quote.js";
 import { SealedTable } from "../../runtime/api/table.js";
+import { isolateRightToLeft, planWords } from "../../runtime/protocol/words.js";
 import { OUTPUT_METADATA_KEY, type OutputMetadata } from "../../runtime/protocol/messages.js";
 import { VEGALITE_MIME, chartable, renderSvg, vegaLiteSpec } from "./chart.js";
 import { esc } from "./html.js";
@@ -25,7 +26,11 @@ export interface MimeBundle {
 /** The bundle of a release, with chart and receipt metadata. */
 export async function answerBundle(a: Answer): Promise<MimeBundle> {
   const note = modelTextNote(a); // regression.ts: estimates left unavailable by the noise
-  const data: Record<string, unknown> = { "text/plain": note === null ? a.toString() : `${a.toString()}\n${note}` };
+  // The data's and the steward's words (group keys, filter values, names) in isolates where they
+  // hold a right-to-left letter, so they cannot reorder the figures on their line (protocol/words.ts).
+  const words = [...a.release.rows.flatMap((row) => row.key.filter((k): k is string => k !== null)), ...planWords(a.release.plan)];
+  const plain = isolateRightToLeft(note === null ? a.toString() : `${a.toString()}\n${note}`, words);
+  const data: Record<string, unknown> = { "text/plain": plain };
   let img: string | null = null;
   if (chartable(a)) {
     const spec = vegaLiteSpec(a);

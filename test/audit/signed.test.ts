@@ -13,6 +13,7 @@ import { formatWithError } from "../../runtime/protocol/format.js";
 import { auditNotebook } from "../../cli/audit/checks.js";
 import { OUTPUT_METADATA_KEY } from "../../runtime/protocol/messages.js";
 import { digestOf } from "../../runtime/protocol/canonical.js";
+import { FSI, PDI, isolateRightToLeft, planWords } from "../../runtime/protocol/words.js";
 import { type CorpusFixture, auditCorpus } from "./corpus.js";
 import { clone, releaseWithSeq } from "./tamper.js";
 import { badge, box, budgetBar, esc, notesList, table } from "../../kernel/display/html.js";
@@ -184,9 +185,12 @@ describe("notebook audit on a signed, assembled notebook", () => {
           const i = meta.receipt.seq - 1;
           // The kernel's one-line form: the question with its filter, then the figure on the same line.
           const replay = String(o.data["text/plain"]).includes("replayed");
-          o.data["text/plain"] =
+          // As kernel/display/bundle.ts writes it: a right-to-left word set in an isolate.
+          o.data["text/plain"] = isolateRightToLeft(
             `count where district = ${values[i]} = ${formatWithError(...figures[i])} · ${replay ? "replayed, no new cost" : "cost ε=0.1"}\n` +
-            `at least 95% of such answers fall within the ± shown of the true count (privacy noise only)`;
+              `at least 95% of such answers fall within the ± shown of the true count (privacy noise only)`,
+            planWords(plans[i]),
+          );
           const p = plan(meta.receipt.seq);
           if (p !== undefined) (o.metadata![OUTPUT_METADATA_KEY] as Record<string, unknown>).plan = p;
         }
@@ -194,12 +198,15 @@ describe("notebook audit on a signed, assembled notebook", () => {
       return nb;
     };
     // The kernel's metadata: the plan whose digest the receipt signed. Nothing to report.
-    expect(auditNotebook(build((seq) => plans[seq - 1]), fx.key).findings).toEqual([]);
+    const honest = build((seq) => plans[seq - 1]);
+    expect(JSON.stringify(honest)).toContain(JSON.stringify(`= ${FSI}منطقة ٣${PDI} =`).slice(1, -1));
+    expect(auditNotebook(honest, fx.key).findings).toEqual([]);
     // Without the plan (a notebook from before it was written) the audit cannot tell the steward's
     // words from odd characters put there, and says so.
     const without = auditNotebook(build(() => undefined), fx.key).findings;
     expect(without.some((f) => f.kind === "shown-value" && /a dash or minus sign next to a digit/.test(f.message))).toBe(true);
-    expect(without.some((f) => f.kind === "shown-value" && /right-to-left letter beside a figure/.test(f.message))).toBe(true);
+    // The Arabic word, set in its isolate, shows invisible marks, another numeral system's digit and a right-to-left letter.
+    expect(without.some((f) => f.kind === "shown-value" && /receipt seq 2\)$/.test(f.message) && /invisible format character/.test(f.message))).toBe(true);
     // A plan that is not the signed one excuses nothing and is reported.
     const forged = auditNotebook(build((seq) => ({ ...plans[seq - 1], where: { op: "eq", column: "district", value: "Zone\u20134" } })), fx.key).findings;
     expect(forged.some((f) => /not the one receipt seq 1 signed/.test(f.message))).toBe(true);
