@@ -17,7 +17,7 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import fs from "node:fs";
 import { CuratorProcess } from "../../bench/curator-process.js";
-import { runFlood, type FloodResult } from "../../bench/flood-driver.js";
+import { runFlood, type FloodOptions, type FloodResult } from "../../bench/flood-driver.js";
 import { CuratorClient } from "../../runtime/client/client.js";
 import { MAX_QUEUED_PREVIEWS } from "../../runtime/curator/service.js";
 import { makeRelWorkspace, type RelWorkspace } from "./fixtures.js";
@@ -44,6 +44,37 @@ afterAll(async () => {
   if (ws) fs.rmSync(ws.dir, { recursive: true, force: true });
 });
 
+/**
+ * Runs a flood while `worker` keeps asking `spend` (calling `onTick` after each answer); resolves
+ * with the flood's result and the worker's answers and failures once both have stopped.
+ */
+async function workWhile(
+  client: CuratorClient,
+  worker: string,
+  opts: FloodOptions,
+  onTick: () => void = () => undefined,
+): Promise<{ flood: FloodResult; legit: { answered: number; failed: string[] } }> {
+  let flooding = true;
+  const legit = { answered: 0, failed: [] as string[] };
+  const work = (async () => {
+    while (flooding) {
+      try {
+        expect((await client.spend(ws.dataset)).analyst).toBe(worker);
+        legit.answered++;
+      } catch (e: unknown) {
+        legit.failed.push(e instanceof Error ? `${e.name}: ${e.message}` : String(e));
+      }
+      onTick();
+    }
+  })();
+  try {
+    return { flood: await runFlood(opts), legit };
+  } finally {
+    flooding = false;
+    await work;
+  }
+}
+
 describe("wrong-token flood over tcp+CURVE", () => {
   it("answers the working analyst throughout and answers or refuses every flood request", { timeout: 180_000 }, async () => {
     const curveServerKey = proc.ready.curvePublicKey;
@@ -53,24 +84,11 @@ describe("wrong-token flood over tcp+CURVE", () => {
     try {
       await client.spend(ws.dataset); // signs in once before the flood
 
-      let flooding = true;
       let rssPeak = 0;
-      const legit = { answered: 0, failed: [] as string[] };
-      const work = (async () => {
-        while (flooding) {
-          try {
-            const s = await client.spend(ws.dataset);
-            expect(s.analyst).toBe(worker);
-            legit.answered++;
-          } catch (e: unknown) {
-            legit.failed.push(e instanceof Error ? `${e.name}: ${e.message}` : String(e));
-          }
-          rssPeak = Math.max(rssPeak, proc.memory()?.rss ?? 0);
-        }
-      })();
-      let flood: FloodResult;
-      try {
-        flood = await runFlood({
+      const { flood, legit } = await workWhile(
+        client,
+        worker,
+        {
           address: proc.address,
           curveServerKey,
           sockets: 8,
@@ -79,11 +97,9 @@ describe("wrong-token flood over tcp+CURVE", () => {
           drainMs: 30_000,
           targetAnalyst: worker,
           dataset: ws.dataset,
-        });
-      } finally {
-        flooding = false;
-        await work;
-      }
+        },
+        () => (rssPeak = Math.max(rssPeak, proc.memory()?.rss ?? 0)),
+      );
       rssPeak = Math.max(rssPeak, proc.memory()?.rss ?? 0);
 
       expect(legit.failed).toEqual([]);
@@ -118,35 +134,17 @@ describe("wrong-token flood over tcp+CURVE", () => {
     const client = await CuratorClient.connect({ address: proc.address, analyst: worker, token: ws.tokens[worker], curveServerKey, timeoutMs: 60_000 });
     try {
       await client.spend(ws.dataset);
-      let flooding = true;
-      const legit = { answered: 0, failed: [] as string[] };
-      const work = (async () => {
-        while (flooding) {
-          try {
-            expect((await client.spend(ws.dataset)).analyst).toBe(worker);
-            legit.answered++;
-          } catch (e: unknown) {
-            legit.failed.push(e instanceof Error ? `${e.name}: ${e.message}` : String(e));
-          }
-        }
-      })();
-      let flood: FloodResult;
-      try {
-        flood = await runFlood({
-          address: proc.address,
-          curveServerKey,
-          sockets: 8,
-          rate: 400,
-          durationMs: 3_000,
-          drainMs: 60_000,
-          targetAnalyst: flooder,
-          dataset: ws.dataset,
-          preview: { token: ws.tokens[flooder], measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 },
-        });
-      } finally {
-        flooding = false;
-        await work;
-      }
+      const { flood, legit } = await workWhile(client, worker, {
+        address: proc.address,
+        curveServerKey,
+        sockets: 8,
+        rate: 400,
+        durationMs: 3_000,
+        drainMs: 60_000,
+        targetAnalyst: flooder,
+        dataset: ws.dataset,
+        preview: { token: ws.tokens[flooder], measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 },
+      });
       expect(legit.failed).toEqual([]);
       expect(legit.answered).toBeGreaterThan(10);
       expect(flood.notQueued).toBe(0);
