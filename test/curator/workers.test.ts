@@ -8,6 +8,7 @@ import { Rational } from "../../runtime/core/index.js";
 import { TimeLimitError, UnreachableError } from "../../runtime/errors.js";
 import type { CellsRecipe, QuantileRecipe } from "../../runtime/curator/aggregates/finishers.js";
 import { WorkerPool } from "../../runtime/curator/workers/pool.js";
+import type { RatioShape } from "../../runtime/curator/aggregates/ratio-preview.js";
 import { fromWire, toWire } from "../../runtime/curator/workers/wire.js";
 import { firstSlot, replySlot } from "../../runtime/curator/workers/pacing.js";
 
@@ -92,6 +93,38 @@ describe("curator worker pool", () => {
     const queued = await pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 200, 200).catch((e: unknown) => e);
     expect(queued).toBeInstanceOf(TimeLimitError);
     expect(await first).toBeInstanceOf(TimeLimitError);
+  });
+
+  it("gives a waiting release the next worker before a preview's ratio job queued earlier", async () => {
+    const pool = new WorkerPool(1);
+    pools.push(pool);
+    // Hold the one worker; its job is refused at its deadline and the worker replaced.
+    const blocker = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 1500, 1500).catch((e: unknown) => e);
+    const order: string[] = [];
+    const shape: RatioShape = {
+      stat: "mean",
+      column: "x",
+      lower: Rational.ZERO,
+      upper: Rational.of(100n),
+      centre: Rational.of(50n),
+      half: Rational.of(1n, 2n),
+      width: 100n,
+      confidence: 0.95,
+      countLaw: { family: "discrete-laplace", scale: Rational.of(10n) },
+      sumLaw: { family: "discrete-laplace", scale: Rational.of(1000n) },
+    };
+    const preview = pool.ratioError({ shape, count: 1000, from: "analyst" }, performance.now() + 60_000, 60_000).then((r) => {
+      order.push("preview");
+      return r;
+    });
+    const release = pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 60_000, 60_000).then((r) => {
+      order.push("release");
+      return r;
+    });
+    expect(await blocker).toBeInstanceOf(TimeLimitError);
+    expect(await release).toHaveLength(2);
+    expect((await preview).stat).toBe("mean");
+    expect(order).toEqual(["release", "preview"]);
   });
 
   it("refuses everything once closed", async () => {

@@ -1,6 +1,9 @@
 /**
  * A small fixed pool of worker threads for the CPU part of releases (workers/worker.ts). Jobs wait
- * in one queue and go to the first idle worker. Every job has a deadline: if it is still queued or
+ * in two queues and go to the first idle worker: a release's before a preview's (a preview's
+ * expected ratio error is advice, free; a release holds its analyst's budget lock and its time
+ * limit runs while it waits, so a class previewing at once must not make asks run out of time).
+ * Every job has a deadline: if it is still queued or
  * running then, it is refused with a TimeLimitError and a running worker is terminated (the only
  * way to stop synchronous JavaScript) and replaced, so a runaway draw never holds a thread.
  *
@@ -44,7 +47,10 @@ export function timeLimitText(limitMs: number): string {
 
 export class WorkerPool {
   private readonly slots: Slot[] = [];
+  /** Release jobs, first come first served. */
   private readonly queue: Job[] = [];
+  /** Preview jobs ("ratio"), taken only when no release job waits. */
+  private readonly later: Job[] = [];
   private nextId = 1;
   private closed = false;
 
@@ -77,7 +83,7 @@ export class WorkerPool {
     return new Promise<unknown>((resolve, reject) => {
       const msg: JobMessage = { id: this.nextId++, name, recipe: toWire(recipe), data: toWire(data) };
       const job: Job = { msg, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
-      this.queue.push(job);
+      (name === "ratio" ? this.later : this.queue).push(job);
       this.dispatch();
     });
   }
@@ -89,9 +95,9 @@ export class WorkerPool {
 
   private dispatch(): void {
     for (const slot of this.slots) {
-      if (this.queue.length === 0) return;
+      if (this.queue.length === 0 && this.later.length === 0) return;
       if (slot.job !== null) continue;
-      const job = this.queue.shift()!;
+      const job = (this.queue.length > 0 ? this.queue : this.later).shift()!;
       job.slot = slot;
       slot.job = job;
       slot.worker.ref(); // a running job keeps the process alive until it settles
@@ -132,8 +138,10 @@ export class WorkerPool {
   private expire(job: Job, limitMs: number): void {
     const slot = job.slot;
     if (slot === null) {
-      const q = this.queue.indexOf(job);
-      if (q >= 0) this.queue.splice(q, 1);
+      for (const queue of [this.queue, this.later]) {
+        const q = queue.indexOf(job);
+        if (q >= 0) queue.splice(q, 1);
+      }
     } else {
       this.finish(slot);
       this.slots.splice(this.slots.indexOf(slot), 1);
@@ -149,7 +157,7 @@ export class WorkerPool {
     if (this.closed) return;
     this.closed = true;
     const gone = new UnreachableError("the curator is shutting down; nothing was spent");
-    for (const job of this.queue.splice(0)) {
+    for (const job of [...this.queue.splice(0), ...this.later.splice(0)]) {
       clearTimeout(job.timer);
       job.reject(gone);
     }
