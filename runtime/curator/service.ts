@@ -275,8 +275,8 @@ export class CuratorService {
     if (t.seq > seq) t = { seq: 0, pure: Rational.ZERO };
     if (t.seq < seq && t.pure !== null) {
       let pure: Rational | null = t.pure;
-      for (const r of this.ledger.receiptsBetween(analyst, d.population, t.seq, seq)) {
-        const e = pureEpsilonOfParts(r.mechanisms);
+      for (const mechanisms of this.ledger.mechanismsBetween(analyst, d.population, t.seq, seq)) {
+        const e = pureEpsilonOfParts(mechanisms);
         pure = e === null ? null : pure.add(e);
         if (pure === null) break;
       }

@@ -95,6 +95,22 @@ describe("Ledger", () => {
     ledger.close();
   });
 
+  it("streams one account's mechanisms in seq order, and a stream left early does not hold the ledger", () => {
+    const ledger = Ledger.open(join(dir, "mechanisms.sqlite"));
+    for (let i = 1; i <= 6; i++) expect(debit(ledger, "ada", i, "0.01").kind).toBe("new");
+    debit(ledger, "ben", 1, "0.01");
+    const seqsOf = [...ledger.mechanismsBetween("ada", PEOPLE, 2, 5)];
+    expect(seqsOf).toHaveLength(3);
+    for (const m of seqsOf) expect(m).toEqual([]);
+    expect([...ledger.mechanismsBetween("ada", PEOPLE, 0, 100)]).toHaveLength(6);
+    expect([...ledger.mechanismsBetween("ada", "staff", 0, 100)]).toHaveLength(0);
+    // Leave a stream after its first row: the statement is closed, and the ledger takes a debit.
+    for (const _ of ledger.mechanismsBetween("ada", PEOPLE, 0, 100)) break;
+    expect(debit(ledger, "ada", 7, "0.01").kind).toBe("new");
+    expect(ledger.spent("ada", PEOPLE).releases).toBe(7);
+    ledger.close();
+  });
+
   it("uses WAL with synchronous=FULL and a private file", () => {
     const path = join(dir, "pragmas", "ledger.sqlite");
     const ledger = Ledger.open(path);
