@@ -32,7 +32,7 @@ export interface FloodOptions {
    * asks a preview of `preview.measure` at a fresh epsilon (so no cache of an earlier law helps),
    * with `assumeCount` (a mean, variance or std's own expected error is then computed too).
    */
-  preview?: { token: string; measure: Record<string, unknown>; assumeCount?: number };
+  preview?: { token: string; measure: Record<string, unknown>; assumeCount?: number; accuracyFirst?: { confidence: number } };
 }
 
 export interface FloodResult {
@@ -106,7 +106,11 @@ export async function runFlood(opts: FloodOptions): Promise<FloodResult> {
               body: {
                 op: "preview",
                 // A fresh epsilon for every request: 0.0100001, 0.0100002, ...
-                plan: { v: 1, dataset: opts.dataset, measure: pv.measure, privacy: { epsilon: `0.01${String(n + 1).padStart(7, "0")}` } },
+                plan:
+                  pv.accuracyFirst === undefined
+                    ? { v: 1, dataset: opts.dataset, measure: pv.measure, privacy: { epsilon: `0.01${String(n + 1).padStart(7, "0")}` } }
+                    : // accuracy first at a fresh half-width each: every preview searches for its cost
+                      { v: 1, dataset: opts.dataset, measure: pv.measure, privacy: { within: 2 + n / 1000, atMost: "1e9" }, confidence: pv.accuracyFirst.confidence },
                 ...(pv.assumeCount !== undefined ? { assumeCount: pv.assumeCount } : {}),
               },
             };

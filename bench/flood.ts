@@ -107,7 +107,11 @@ async function onSchedule(client: CuratorClient, durationMs: number, onTick: () 
 }
 
 /** The preview the analyst's own flood asks: a std with its expected error for an assumed count. */
-const HEAVY_PREVIEW = { measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 };
+const STD_PREVIEW = { measure: { kind: "std", column: "amount" }, assumeCount: 1_000_000 };
+/** Or (HUSH_BENCH_PREVIEW=accuracy): a 1000-bin histogram asked accuracy first, whose cost search runs at planning. */
+const ACCURACY_PREVIEW = { measure: { kind: "histogram", column: "amount", bins: 1000 }, accuracyFirst: { confidence: 0.999999999999 } };
+const HEAVY_PREVIEW: { measure: { kind: string; column: string; bins?: number }; assumeCount?: number; accuracyFirst?: { confidence: number } } =
+  process.env.HUSH_BENCH_PREVIEW === "accuracy" ? ACCURACY_PREVIEW : STD_PREVIEW;
 
 export async function benchFlood(opts: { quick: boolean }): Promise<string> {
   return floodSection(opts, "wrong");
@@ -122,7 +126,12 @@ async function floodSection(opts: { quick: boolean }, kind: "wrong" | "previews"
   const rate = kind === "wrong" ? (opts.quick ? 500 : 1000) : opts.quick ? 100 : 200;
   const durationMs = opts.quick ? 3_000 : 10_000;
   const idleMs = opts.quick ? 2_000 : 6_000;
-  const what = kind === "wrong" ? "wrong tokens" : `previews (${HEAVY_PREVIEW.measure.kind} of ${HEAVY_PREVIEW.measure.column}, assumed count ${HEAVY_PREVIEW.assumeCount}, fresh epsilon each) by the signed-in analyst ${FLOODER}`;
+  const what =
+    kind === "wrong"
+      ? "wrong tokens"
+      : HEAVY_PREVIEW.accuracyFirst === undefined
+        ? `previews (${HEAVY_PREVIEW.measure.kind} of ${HEAVY_PREVIEW.measure.column}, assumed count ${HEAVY_PREVIEW.assumeCount}, fresh epsilon each) by the signed-in analyst ${FLOODER}`
+        : `previews (${HEAVY_PREVIEW.measure.bins}-bin histogram of ${HEAVY_PREVIEW.measure.column} accuracy first at confidence ${HEAVY_PREVIEW.accuracyFirst.confidence}, a fresh half-width each) by the signed-in analyst ${FLOODER}`;
   progress(`flood: ${rate} ${what}/s for ${durationMs / 1000} s over tcp+CURVE`);
   const ws = floodWorkspace();
   const proc = await CuratorProcess.start({ policyFile: ws.policyFile, listen: "tcp://127.0.0.1:0" });
