@@ -92,12 +92,38 @@ function aloneAfter(t: string, j: number): boolean {
   return false;
 }
 
+/**
+ * Runs of number characters at least this long are longer than any number the kernel writes (30
+ * digits at most in each part, with grouping commas: docs/methods.md §23). The figure pattern is
+ * not run over them: a regular expression tries a match at every position of such a run and, for
+ * each, scans to its end, so a notebook holding a run of a million digits would take the audit
+ * hours (a class audit would never finish). They are read as numbers that run into their
+ * neighbours instead (below), which is what they would be to a reader beside an error bar.
+ */
+export const LONGEST_NUMBER_RUN = 100;
+const NUMBER_RUN = new RegExp(String.raw`[\d,.e+\-]{${LONGEST_NUMBER_RUN},}`, "g");
+
 /** Every figure with an error bar in folded `text`, left to right, without overlaps. */
 export function figuresIn(text: string): FoundFigure[] {
-  return [...text.matchAll(ANY_FIGURE)].map((m) => {
+  // Long runs masked with the same number of characters that no figure holds, so positions stay.
+  const long = [...text.matchAll(NUMBER_RUN)];
+  const masked = long.length === 0 ? text : text.replace(NUMBER_RUN, (run) => "#".repeat(run.length));
+  const found: FoundFigure[] = [...masked.matchAll(ANY_FIGURE)].map((m) => {
     const index = m.index ?? 0;
     return { text: m[0], index, alone: aloneBefore(text, index) && aloneAfter(text, index + m[0].length) };
   });
+  // A long run beside an error bar ("1111…1 ± 5", "5 ± 1111…1", "5 [1111…1, 9]") is a figure that
+  // does not stand on its own: reported as such, shortened.
+  for (const m of long) {
+    const at = m.index ?? 0;
+    const end = at + m[0].length;
+    const before = text.slice(Math.max(0, at - 3), at);
+    const after = text.slice(end, end + 3);
+    if (/(± |\[|, )$/.test(before) || /^( ± | \[|, |\])/.test(after)) {
+      found.push({ text: `${m[0].slice(0, 12)}…${m[0].slice(-12)}`, index: at, alone: false });
+    }
+  }
+  return long.length === 0 ? found : found.sort((a, b) => a.index - b.index);
 }
 
 /** Where `figure` stands on its own in folded `text` at or after `from`, or -1. */
