@@ -7,6 +7,7 @@
  */
 import { digestOf } from "../../runtime/protocol/canonical.js";
 import { FSI, PDI, planWords } from "../../runtime/protocol/words.js";
+import { blankWords } from "./cover.js";
 import { formatDecimal, formatWithError } from "../../runtime/protocol/format.js";
 import type { Receipt } from "../../runtime/protocol/messages.js";
 import { figureAt, figureText, figuresIn, isFigure, oddCharacters, oddCharactersText, quoted, rightToLeftBesideFigure } from "./figure-text.js";
@@ -140,9 +141,8 @@ export function signedPlanWords(rel: FoundRelease, r: Receipt, findings: Finding
  */
 function withoutKeys(text: string, r: Receipt, words: readonly string[]): string {
   const keys = [...new Set([...r.result.flatMap((row) => row[0]).filter((k): k is string => k !== null && k !== ""), ...words])];
-  keys.sort((x, y) => y.length - x.length);
   // A word the kernel set in an isolate (protocol/words.ts) goes with its two invisible marks.
-  return keys.reduce((t, k) => t.split(`${FSI}${k}${PDI}`).join(" ").split(k).join(" ").split(k.normalize("NFKC")).join(" "), text);
+  return blankWords(text, keys.flatMap((k) => [`${FSI}${k}${PDI}`, k, k.normalize("NFKC")]));
 }
 
 function sameNumber(shown: unknown, signed: string | null): boolean {
