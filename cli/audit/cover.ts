@@ -16,7 +16,6 @@ export function blankWords(text: string, words: readonly string[]): string {
   // word that ends at s (a word itself, or one reached through the fallback links).
   const next: Map<number, number>[] = [new Map()];
   const longest: number[] = [0];
-  const depth: number[] = [0];
   for (const p of patterns) {
     let s = 0;
     for (let i = 0; i < p.length; i++) {
@@ -26,7 +25,6 @@ export function blankWords(text: string, words: readonly string[]): string {
         t = next.length;
         next.push(new Map());
         longest.push(0);
-        depth.push(depth[s] + 1);
         next[s].set(c, t);
       }
       s = t;

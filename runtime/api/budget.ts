@@ -82,7 +82,7 @@ function overviewText(analyst: string, datasets: readonly DatasetBudget[]): stri
   ].join("\n");
 }
 
-/** The analyst's ledger: every release the curator has recorded (this and earlier sessions). */
+/** A page of the analyst's ledger as the curator records it (this and earlier sessions; the latest 1,000 releases of each population, or those before a given release). */
 export class LedgerView {
   readonly entries: readonly LedgerEntry[];
   /** Earlier releases the curator left out of this page (it sends the latest 1,000 per population). */
