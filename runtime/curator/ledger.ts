@@ -172,8 +172,9 @@ export class Ledger {
   /**
    * One page of an analyst's rows (optionally one dataset): in each population the `limit` latest
    * with seq below `before`, by population then seq, and how many rows below them were left out.
-   * Index range scans on (analyst, population, seq): the work follows the page, not the history
-   * (the count of rows left out is an index count, done only when the page is full).
+   * Index range scans on (analyst, population, seq): the work follows the page, not the history.
+   * An account's seqs are 1, 2, 3, ... (debit), so without a dataset the rows left out number the
+   * page's first seq minus one; with one, they are counted (only when the page is full).
    */
   page(analyst: string, dataset: string | undefined, before: number, limit: number): { rows: LedgerRow[]; earlier: number } {
     const populations = (this.db.prepare("SELECT DISTINCT population FROM releases WHERE analyst = ? ORDER BY population").all(analyst) as { population: string }[]).map((r) => r.population);
@@ -185,7 +186,7 @@ export class Ledger {
     for (const population of populations) {
       const args = dataset === undefined ? [analyst, population] : [analyst, population, dataset];
       const got = (take.all(...args, before, limit) as RawRow[]).map(fromRaw).reverse();
-      if (got.length === limit) earlier += (below.get(...args, got[0].seq) as { n: number }).n;
+      if (got.length === limit) earlier += dataset === undefined ? got[0].seq - 1 : (below.get(...args, got[0].seq) as { n: number }).n;
       rows.push(...got);
     }
     return { rows, earlier };
