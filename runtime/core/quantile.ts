@@ -113,21 +113,24 @@ export function exponentialQuantile(args: QuantileArgs): QuantileResult {
   // to beta^(c_j - cMin), exactly as the single UniformInt over the summed weights. Forming the
   // weights costs about y (C - cMin) bits per candidate, which at small epsilon (large cap) took
   // minutes of bigint arithmetic; here each proposal needs at most about 1/(1 - beta) trials on
-  // average, and at most m / sum_j beta^(c_j - cMin) <= m proposals are expected.
+  // average, and at most m / sum_j beta^(c_j - cMin) <= m proposals are expected. Where those
+  // trials would be many (beta near 1: a small epsilon per quantile, or a large Delta'), each
+  // acceptance is instead one comparison with bounds on beta^(c_j - cMin) (drawByPowers).
   const one = 1n << BigInt(y);
   const index = drawByRejection(
     capped.map((c) => c - cMin),
     x,
     one,
     bits,
+    bitLength(cap),
   );
   const beta = Number(x) / 2 ** y;
   return { index, epsilonUsed: epsilon, baseNum: x, baseBits: y, epsilonEffective: 2 * Number(sensitivity) * Math.log(1 / beta) };
 }
 
 /**
- * Most random trials a draw is padded to (2^23, about half a second on a loaded 2-core machine):
- * beyond it the draw's time may show, in the coarse reply slots of workers/pacing.ts.
+ * Most random trials a draw is padded to (2^23). Since draws past TRIAL_PATH_LIMIT (2^21) take the
+ * power path, the trial path never reaches this cap; paddedTrials keeps it as a bound.
  */
 export const MAX_PADDED_TRIALS = 2 ** 23;
 
@@ -146,22 +149,24 @@ export function paddedTrials(m: number, x: bigint, one: bigint): number {
 }
 
 /**
- * j with probability proportional to (x/one)^d_j, by uniform proposals and Bernoulli(x/one) trials.
+ * j with probability proportional to (x/one)^d_j, by uniform proposals and Bernoulli(x/one) trials
+ * (the trial path), or, when its padding would pass TRIAL_PATH_LIMIT, by drawByPowers.
  *
  * How long the draw runs depends on the data (through d): with no rows every d_j is 0 and the first
  * proposal is accepted; with many rows near the target most proposals are rejected. So after the
  * draw, further trials are made and discarded until paddedTrials(m, x, one) trials have been made
  * in all: the time then follows public quantities (issue 9, data-independent timing). Discarded
  * trials are independent of the draw, so the law is unchanged. A draw that needs more than the
- * padding or more than MAX_PADDED_TRIALS is not padded further: its time then shows through, to
- * the reply ladder's slot (workers/pacing.ts). That is not rare on the worst data: when one
- * candidate alone takes the weight, a proposal is accepted with probability about 1/m, and more
- * than 2m proposals are needed with probability about e^-2 (one draw in seven); at small epsilon
- * the cap is reached first. DEVELOPERS.md states this as what still leaks.
+ * padding is not padded further: its time then shows through, to the reply ladder's slot
+ * (workers/pacing.ts). That is not rare on the worst data: when one candidate alone takes the
+ * weight, a proposal is accepted with probability about 1/m, and more than 2m proposals are needed
+ * with probability about e^-2 (one draw in seven). The padding is at most TRIAL_PATH_LIMIT trials
+ * (about 15 ms), so what shows is of that order. DEVELOPERS.md states this as what still leaks.
  */
-function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): number {
+function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits, exponentBits: number): number {
   const m = d.length;
   if (x >= one) return bits.uniformSmall(m); // beta = 1: every trial succeeds, the law is uniform
+  if (!trialPath(m, x, one)) return drawByPowers(d, x, one, bits, exponentBits);
   const small = one <= 281474976710656n; // 2^48: the number path of Bits
   const xn = Number(x);
   const on = Number(one);
@@ -201,6 +206,122 @@ function drawByRejection(d: bigint[], x: bigint, one: bigint, bits: Bits): numbe
       return j;
     }
   }
+}
+
+/**
+ * The trial path's most padded trials (2^21, about 15 ms here): past it, drawByPowers is faster.
+ * Before it was added, a draw at a small epsilon per quantile made millions of trials per proposal
+ * (a draw ran for minutes at epsilon 2e-6, and twenty quantiles at epsilon 0.5 hit the 30 s time
+ * limit, refused and so free: a worker held for nothing).
+ */
+export const TRIAL_PATH_LIMIT = 2 ** 21;
+
+/** Whether a draw takes the trial path: its public padding bound, uncapped, is at most TRIAL_PATH_LIMIT. */
+export function trialPath(m: number, x: bigint, one: bigint): boolean {
+  if (x >= one) return true;
+  const perProposal = (one + (one - x) - 1n) / (one - x);
+  return 2n * BigInt(m) * (perProposal + 1n) <= BigInt(TRIAL_PATH_LIMIT);
+}
+
+/** Bits of the fixed-point bounds on beta^e in drawByPowers (doubled if a comparison is undecided). */
+const POWER_BITS = 128;
+
+/**
+ * Bounds on beta^(2^i) = (x/one)^(2^i), i < k, in fixed point with `p` fraction bits:
+ * lo[i] <= 2^p beta^(2^i) <= hi[i], by repeated squaring rounded down (lo) and up (hi).
+ */
+function squaringLadder(x: bigint, one: bigint, k: number, p: number): { lo: bigint[]; hi: bigint[] } {
+  const pb = BigInt(p);
+  const mask = (1n << pb) - 1n;
+  // beta = x/one exactly in p bits (one = 2^y, y <= 64 < p).
+  const start = (x << pb) / one;
+  const lo = [start];
+  const hi = [start];
+  for (let i = 1; i < k; i++) {
+    lo.push((lo[i - 1] * lo[i - 1]) >> pb);
+    const h = hi[i - 1] * hi[i - 1];
+    hi.push((h >> pb) + ((h & mask) === 0n ? 0n : 1n));
+  }
+  return { lo, hi };
+}
+
+/**
+ * Bounds lo <= 2^p beta^e <= hi for 0 <= e < 2^k: the product of the ladder's entries for the set
+ * bits of e, rounded down and up. Every one of the k bits costs the same two multiplications (by
+ * 2^p, which changes nothing, where the bit is clear), so the work does not follow e.
+ */
+function powerBounds(e: bigint, ladder: { lo: bigint[]; hi: bigint[] }, k: number, p: number): [bigint, bigint] {
+  const pb = BigInt(p);
+  const mask = (1n << pb) - 1n;
+  const unit = 1n << pb;
+  let lo = unit;
+  let hi = unit;
+  for (let i = 0; i < k; i++) {
+    const set = ((e >> BigInt(i)) & 1n) === 1n;
+    lo = (lo * (set ? ladder.lo[i] : unit)) >> pb;
+    const h = hi * (set ? ladder.hi[i] : unit);
+    hi = (h >> pb) + ((h & mask) === 0n ? 0n : 1n);
+  }
+  return [lo, hi];
+}
+
+/**
+ * The same law as drawByRejection's trial path, for beta near 1: propose j uniformly and accept
+ * with probability beta^(d_j), decided by comparing a uniform V in [0, 1), drawn POWER_BITS bits
+ * at a time, with bounds lo <= 2^p beta^d_j <= hi: V < beta^d_j for sure when v + 1 <= lo (v the
+ * integer of V's first p bits) and V >= beta^d_j for sure when v >= hi; otherwise (probability
+ * about (hi - lo + 1)/2^p, under 2^-60 here) p doubles, V gets p more bits and the bounds are
+ * recomputed. Accepting exactly when V < beta^d_j accepts with probability beta^d_j, so the
+ * output is j with probability proportional to beta^(d_j), as the trials give; a proposal costs
+ * one comparison instead of about 1/(1 - beta) trials.
+ *
+ * Time: the bounds of every candidate are computed first (m times `exponentBits` steps; the cap's
+ * bit length is public), and the proposals are padded to 2m (the expected number is at most m),
+ * so the work follows m and the cap, not the data. The multiplications' operand sizes still vary
+ * a little with the values (a few milliseconds at m = 2001); a draw that needs more than 2m
+ * proposals shows, at about a microsecond a proposal, as on the trial path.
+ */
+function drawByPowers(d: bigint[], x: bigint, one: bigint, bits: Bits, exponentBits: number): number {
+  const m = d.length;
+  const k = Math.max(1, exponentBits);
+  for (const e of d) if (e < 0n || bitLength(e) > k) throw new Error("internal: a cost beyond the cap");
+  const ladder = squaringLadder(x, one, k, POWER_BITS);
+  const lo: bigint[] = [];
+  const hi: bigint[] = [];
+  for (const e of d) {
+    const [l, h] = powerBounds(e, ladder, k, POWER_BITS);
+    lo.push(l);
+    hi.push(h);
+  }
+  const uniform = (nbits: number): bigint => {
+    let v = 0n;
+    for (let left = nbits; left > 0; left -= 32) v = (v << 32n) | BigInt(bits.bits(Math.min(32, left)));
+    return v;
+  };
+  let chosen = -1;
+  for (let made = 0; chosen < 0 || made < 2 * m; made++) {
+    const j = bits.uniformSmall(m);
+    const v = uniform(POWER_BITS);
+    if (chosen >= 0) continue; // padding: the same draws, discarded
+    if (v + 1n <= lo[j]) chosen = j;
+    else if (v >= hi[j]) continue;
+    else {
+      // Undecided at POWER_BITS bits: refine this one comparison until it is decided.
+      let vv = v;
+      let pp = POWER_BITS;
+      for (;;) {
+        vv = (vv << BigInt(pp)) | uniform(pp);
+        pp *= 2;
+        const [l, h] = powerBounds(d[j], squaringLadder(x, one, k, pp), k, pp);
+        if (vv + 1n <= l) {
+          chosen = j;
+          break;
+        }
+        if (vv >= h) break;
+      }
+    }
+  }
+  return chosen;
 }
 
 // ---------------------------------------------------------------------------------------------

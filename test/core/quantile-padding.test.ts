@@ -7,7 +7,7 @@
  */
 import { describe, expect, it } from "vitest";
 import { Bits, Rational, exponentialQuantile, seededBytes, type ByteSource } from "../../runtime/core/index.js";
-import { MAX_PADDED_TRIALS, paddedTrials } from "../../runtime/core/quantile.js";
+import { MAX_PADDED_TRIALS, dyadicBase, paddedTrials, trialPath } from "../../runtime/core/quantile.js";
 
 function counting(seed: string): { src: ByteSource; bytes: () => number } {
   const inner = seededBytes(seed);
@@ -39,6 +39,19 @@ describe("quantile draw padding", () => {
       expect(none).toBeGreaterThan(4 * 16384);
       // Within one block and 5%: the proposals' rejection step varies a little.
       expect(Math.abs(none - spread)).toBeLessThanOrEqual(16384 + 0.05 * spread);
+    }
+  });
+
+  it("on the power path (beta near 1) reads the same randomness with no rows as with many rows near the target", () => {
+    // epsilon 2e-5 at p = 1/2: about 10^5 trials a proposal, so the draw compares with bounds on
+    // beta^c (quantile.ts drawByPowers) and pads its proposals to 2m.
+    expect(trialPath(M, dyadicBase(Rational.parse("0.00002"), 1n, 20), 1n << 20n)).toBe(false);
+    for (const seed of ["a", "b"]) {
+      const none = bytesFor(NONE, 0n, "0.00002", `powers-none-${seed}`);
+      const spread = bytesFor(SPREAD, N, "0.00002", `powers-spread-${seed}`);
+      // 2m proposals of 128 + 11 bits (and the proposals' rejection step): about 70 KB.
+      expect(none).toBeGreaterThan(4 * 16384);
+      expect(Math.abs(none - spread)).toBeLessThanOrEqual(16384);
     }
   });
 

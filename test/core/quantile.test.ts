@@ -1,6 +1,6 @@
 import { describe, expect, it } from "vitest";
 import { BadInputError } from "../../runtime/errors.js";
-import { dyadicBase, dyadicWeights, exponentialQuantile, quantileCosts } from "../../runtime/core/quantile.js";
+import { TRIAL_PATH_LIMIT, dyadicBase, dyadicWeights, exponentialQuantile, quantileCosts, trialPath } from "../../runtime/core/quantile.js";
 import { Bits, seededBytes } from "../../runtime/core/random.js";
 import { Rational } from "../../runtime/core/rational.js";
 import { chiSquarePValue } from "./stats.js";
@@ -65,6 +65,52 @@ describe("exponential-mechanism quantile (docs/methods.md §9)", () => {
     expect(chiSquarePValue(stat, 10)).toBeGreaterThan(0.001);
     expect(probs[5]).toBeCloseTo(0.320671258151, 11); // [C9.3d] decimal
   });
+  it("where beta is near 1 (the power path), draws still follow the exact dyadic probabilities (30,000 draws, chi-square at 0.001)", () => {
+    // The worked example with every row repeated K = 10^5 times and epsilon 1/K: costs K times
+    // [10, 10, 8, ...], beta = x/2^20 with x = ceil(2^20 e^(-1/(2K))) = 2^20 - 5, so a proposal
+    // would need about 2^20/5 trials and the draw compares with bounds on beta^c instead
+    // (quantile.ts drawByPowers). Reference: P(j) proportional to beta^(c_j), here in binary64
+    // (exp(c ln beta); relative error far below the test's resolution), with the exact costs.
+    const K = 100_000n;
+    const below = countsBelow.map((r) => r * K);
+    const n = 10n * K;
+    const epsilon = R("1/100000");
+    const x = dyadicBase(epsilon, 1n, 20);
+    expect(x).toBe((1n << 20n) - 5n);
+    expect(trialPath(11, x, 1n << 20n)).toBe(false);
+    expect(trialPath(11, 311n, 512n)).toBe(true); // the worked example above keeps the trials
+    expect(2 * 11 * (2 ** 20 / 5)).toBeGreaterThan(TRIAL_PATH_LIMIT);
+    const { costs } = quantileCosts(below, n, R("1/2"));
+    const lnBeta = Math.log(Number(x) / 2 ** 20);
+    const cMin = costs.reduce((a, b) => (b < a ? b : a));
+    const w = costs.map((c) => Math.exp(Number(c - cMin) * lnBeta));
+    const z = w.reduce((a, b) => a + b, 0);
+    const probs = w.map((v) => v / z);
+    const bits = new Bits(seededBytes("q-powers"));
+    const draws = 30_000;
+    const counts = new Array<number>(11).fill(0);
+    for (let i = 0; i < draws; i++) counts[exponentialQuantile({ countsBelow: below, n, p: R("1/2"), epsilon, bits }).index]++;
+    let stat = 0;
+    for (let j = 0; j < 11; j++) stat += (counts[j] - draws * probs[j]) ** 2 / (draws * probs[j]);
+    expect(chiSquarePValue(stat, 10)).toBeGreaterThan(0.001);
+    // x rounds 2^20 e^(-1/(2K)) up, so this law is a little flatter than [C9.2a]'s natural base.
+    expect(probs[5]).toBeGreaterThan(0.3);
+    expect(probs[5]).toBeLessThan(0.3215);
+  }, 120_000);
+  it("the power path where beta^c is tiny (capped) or far below 2^-128 (a cap of 10^12): a lone candidate at cost 0 against costs of 2 x 10^9", () => {
+    // Every other candidate's cost is capped (at about 8.5 x 10^6) and weighs beta^cap, about
+    // e^-47.6 (below 2^-68): 2000 of them together about 4 x 10^-18 against 1 for the cost-0
+    // candidate, so the draw returns it every time.
+    const bits = new Bits(seededBytes("q-powers-far"));
+    const m = 2001;
+    const n = 2_000_000_000n;
+    // cost |2 r_j - n|: 0 at candidate 1000 (r = n/2), n at every other
+    const below = Array.from({ length: m }, (_, j) => (j < 1000 ? 0n : j === 1000 ? n / 2n : n));
+    for (let i = 0; i < 20; i++) expect(exponentialQuantile({ countsBelow: below, n, p: R("1/2"), epsilon: R("1/100000"), bits }).index).toBe(1000);
+    // With a cap of 10^12 the costs stay 2 x 10^9, weights about e^-10^4: the 128-bit bounds read
+    // [0, 1] ulp for them and every comparison still rejects them.
+    for (let i = 0; i < 20; i++) expect(exponentialQuantile({ countsBelow: below, n, p: R("1/2"), epsilon: R("1/100000"), bits, costCap: 10n ** 12n }).index).toBe(1000);
+  }, 60_000);
   it("a cost cap leaves costs below it unchanged and flattens those above", () => {
     const bits = new Bits(seededBytes("q2"));
     const counts = new Array<number>(11).fill(0);

@@ -27,12 +27,11 @@ const COUNT: CellsRecipe = {
 };
 
 /**
- * A quantile draw that runs for minutes: 2001 candidates 10^7 rows apart at epsilon 2 x 10^-6, so
- * the dyadic base is beta = 1 - 2^-20, the median's cost (10^7) is under the cost cap (about
- * 4.8 x 10^7) and every other candidate is 2 x 10^7 or more above it, and each of ~2001 expected
- * proposals is rejected only after ~10^6 Bernoulli trials on average (quantile.ts drawByRejection).
- * At epsilon 10^-6 beta would round up to 1, and with costs all above the cap they would tie: both
- * make the draw instant.
+ * A quantile draw at a small epsilon: 2001 candidates 10^7 rows apart at epsilon 2 x 10^-6, so the
+ * dyadic base is beta = 1 - 2^-20, the median's cost (10^7) is under the cost cap (about 4.8 x 10^7)
+ * and every other candidate is 2 x 10^7 or more above it. Each of ~2001 expected proposals would be
+ * rejected only after ~10^6 Bernoulli trials, so the draw takes the power path (quantile.ts
+ * drawByPowers), about 10 ms (before it, minutes).
  */
 const ENDLESS: QuantileRecipe = {
   column: "x",
@@ -44,11 +43,11 @@ const ENDLESS: QuantileRecipe = {
   confidence: 0.95,
 };
 /**
- * Sixty such draws in one job. One draw's time is random (an early acceptance ends it after its
- * padding, 70-90 ms on an idle machine here); each draw makes at least its padded trials, so sixty take seconds
- * whatever the luck.
+ * Two thousand such draws in one job (a test recipe; a plan may ask for 20): each makes its padded
+ * work whatever the luck, so the job takes many seconds (about 18 s on an idle machine here) and
+ * the tests below stop it at their deadlines.
  */
-const ENDLESS_MANY: QuantileRecipe = { ...ENDLESS, parts: Array.from({ length: 60 }, (_, i) => ({ ...ENDLESS.parts[0], stat: `p50 #${i + 1}` })) };
+const ENDLESS_MANY: QuantileRecipe = { ...ENDLESS, parts: Array.from({ length: 2000 }, (_, i) => ({ ...ENDLESS.parts[0], stat: `p50 #${i + 1}` })) };
 const ENDLESS_DATA: [bigint, bigint][] = Array.from({ length: 2001 }, (_, j) => [BigInt(j + 1), 10_000_000n]);
 
 describe("curator worker pool", () => {
