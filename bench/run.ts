@@ -1,5 +1,5 @@
 /**
- * `npm run bench [-- --quick] [-- --only aggregates,samplers,kernel,completion,flood,previewflood,memory] [-- --out FILE]`
+ * `npm run bench [-- --quick] [-- --only aggregates,samplers,quantiles,kernel,completion,flood,previewflood,memory] [-- --out FILE]`
  * `[-- --sizes 1000000,10000000] [-- --queries median,count]` (aggregates only: a subset of the sizes
  * and of the query names of bench/baseline.ts, for measuring one change; default all)
  *
@@ -53,7 +53,7 @@ function parseArgs(argv: string[]): Options {
     else if (a.startsWith("--sizes=")) sizes = sizeList(a.slice(8));
     else if (a === "--queries") queries = new Set((argv[++i] ?? "").split(",").filter(Boolean));
     else if (a.startsWith("--queries=")) queries = new Set(a.slice(10).split(",").filter(Boolean));
-    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,kernel,completion,flood,previewflood,memory] [--out FILE] [--sizes N,...] [--queries NAME,...]`);
+    else throw new Error(`unknown option ${a}; usage: run.js [--quick] [--only aggregates,samplers,quantiles,kernel,completion,kernel-dp,flood,previewflood,memory] [--out FILE] [--sizes N,...] [--queries NAME,...]`);
   }
   const root = repoRoot();
   return {

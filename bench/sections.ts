@@ -5,6 +5,7 @@
 import { benchCompletion } from "./completion.js";
 import { benchKernel } from "./kernel.js";
 import { benchKernelDp } from "./kernel-dp.js";
+import { benchQuantileAsks } from "./quantile-asks.js";
 import { benchSamplers } from "./samplers.js";
 
 export interface SectionResult {
@@ -24,6 +25,11 @@ export const SECTIONS_EXTRA: ExtraSection[] = [
     name: "samplers",
     title: "Exact noise samplers",
     run: async ({ quick }) => (await benchSamplers({ quick })).markdown,
+  },
+  {
+    name: "quantiles",
+    title: "Quantile asks at small epsilon (the power path)",
+    run: async ({ quick }) => benchQuantileAsks({ quick }),
   },
   {
     name: "kernel",
