@@ -201,7 +201,7 @@ export class Answerer {
    * The limit covers the engine's work too: a statement is not stopped from here, so a late one is
    * left to finish in the engine and its result dropped; a late CPU part is stopped with its worker.
    */
-  private async onPool(piece: Piece): Promise<{ rows: ReleaseRow[]; untilReply: () => Promise<void> }> {
+  private async onPool(piece: Piece, analyst: string): Promise<{ rows: ReleaseRow[]; untilReply: () => Promise<void> }> {
     const { timeLimitMs, paceMs } = this.policy.answering;
     const started = performance.now();
     if (this.closed) throw new UnreachableError("the curator is shutting down; nothing was spent");
@@ -210,7 +210,7 @@ export class Answerer {
     const limit = new Promise<never>((_, reject) => {
       timer = setTimeout(() => reject(new TimeLimitError(timeLimitText(timeLimitMs))), timeLimitMs);
     });
-    const work = piece.run(this.engine, pool.cpu(started + timeLimitMs, timeLimitMs));
+    const work = piece.run(this.engine, pool.cpu(started + timeLimitMs, timeLimitMs, analyst));
     // If the limit wins the race, the work's own later failure (its pool job refused at the same
     // deadline, or a dropped query) has nobody left to tell: the refusal was already sent.
     work.catch(() => undefined);
@@ -226,10 +226,10 @@ export class Answerer {
    * A preview's expected error of a ratio, on the worker pool under the answering time limit: its
    * exact interval searches can take a few hundred milliseconds, which the curator's loop must not.
    */
-  private async ratioOnPool(job: RatioJob): Promise<RatioError> {
+  private async ratioOnPool(job: RatioJob, analyst: string): Promise<RatioError> {
     if (this.closed) throw new UnreachableError("the curator is shutting down");
     const { timeLimitMs } = this.policy.answering;
-    return this.startWorkers().ratioError(job, performance.now() + timeLimitMs, timeLimitMs);
+    return this.startWorkers().ratioError(job, performance.now() + timeLimitMs, timeLimitMs, analyst);
   }
 
   private dataset(name: string): DatasetPolicy {
@@ -306,7 +306,7 @@ export class Answerer {
     if (!d.analysts.includes(analyst)) throw new UnauthorizedError(`analyst ${shown(analyst)} may not query dataset ${d.name}`);
     const s = this.settle(plan);
     const engine = this.engine;
-    const onPool = (p: Piece) => this.onPool(p);
+    const onPool = (p: Piece) => this.onPool(p, analyst);
     const { piece, groupColumns, notes } = s;
     const mechanisms = piece.mechanisms;
     const confidence = plan.confidence ?? DEFAULT_CONFIDENCE;
@@ -350,7 +350,7 @@ export class Answerer {
       );
       return out;
     }
-    const ratio = await this.ratioOnPool({ shape, count, from: assumeCount !== undefined ? "analyst" : "policy" });
+    const ratio = await this.ratioOnPool({ shape, count, from: assumeCount !== undefined ? "analyst" : "policy" }, analyst);
     // The parts-only explanation (previewNotes) gives way to what the figure assumes.
     out.notes = [...prepared.notes];
     out.notes.push(

@@ -126,6 +126,32 @@ describe("curator worker pool", () => {
     expect(order).toEqual(["release", "preview"]);
   });
 
+  it("holds each owner to all workers but one: another analyst's job takes the free worker before the first owner's second job", async () => {
+    const pool = new WorkerPool(2);
+    pools.push(pool);
+    expect(pool.share).toBe(1);
+    // ada's two long jobs (on two datasets, say) and then bea's short one, all queued at once.
+    const ada1 = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 1500, 1500, "ada").catch((e: unknown) => e);
+    const ada2 = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 1500, 1500, "ada").catch((e: unknown) => e);
+    expect(pool.busy()).toEqual(["ada"]); // the second worker stays free: ada holds her share
+    const bea = pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 1000, 1000, "bea");
+    expect(pool.busy().sort()).toEqual(["ada", "bea"]);
+    // bea is answered well inside her deadline; without the share ada's second job would hold the
+    // second worker until 1.5 s and bea's job would be refused at 1 s.
+    expect(await bea).toHaveLength(2);
+    // ada's second job then runs on the freed worker (and both of hers stop at their deadline).
+    expect(await ada1).toBeInstanceOf(TimeLimitError);
+    expect(await ada2).toBeInstanceOf(TimeLimitError);
+  });
+
+  it("with one worker there is no share: one owner's jobs run one after another", async () => {
+    const pool = new WorkerPool(1);
+    pools.push(pool);
+    expect(pool.share).toBe(1);
+    const rows = await Promise.all([1, 2, 3].map(() => pool.run("cells", COUNT, [[1n], [2n]], performance.now() + 30_000, 30_000, "ada")));
+    expect(rows.map((r) => r.length)).toEqual([2, 2, 2]);
+  });
+
   it("refuses everything once closed", async () => {
     const pool = new WorkerPool(1);
     const running = pool.run("quantile", ENDLESS_MANY, ENDLESS_DATA, performance.now() + 60_000, 60_000).catch((e: unknown) => e);

@@ -3,6 +3,10 @@
  * in two queues and go to the first idle worker: a release's before a preview's (a preview's
  * expected ratio error is advice, free; a release holds its analyst's budget lock and its time
  * limit runs while it waits, so a class previewing at once must not make asks run out of time).
+ * Each job names its owner (the analyst), and no owner runs on more than `share` workers at once
+ * (all but one, with two or more): one analyst's jobs, on several datasets or asks and previews
+ * together, cannot hold every worker while others wait; a job past its owner's share waits and
+ * the next eligible job, of another owner, takes the worker. With one worker there is no share.
  * Every job has a deadline: if it is still queued or
  * running then, it is refused with a TimeLimitError and a running worker is terminated (the only
  * way to stop synchronous JavaScript) and replaced, so a runaway draw never holds a thread.
@@ -30,6 +34,7 @@ function entry(): URL {
 
 interface Job {
   msg: JobMessage;
+  owner: string;
   resolve(rows: unknown): void;
   reject(e: unknown): void;
   timer: NodeJS.Timeout;
@@ -53,6 +58,8 @@ export class WorkerPool {
   private readonly later: Job[] = [];
   private nextId = 1;
   private closed = false;
+  /** Jobs running per owner (owners with none are absent). */
+  private readonly running = new Map<string, number>();
 
   /** `size` workers (default: the machine's parallelism, at most 4), started now. */
   constructor(size = Math.min(4, Math.max(1, availableParallelism()))) {
@@ -68,38 +75,60 @@ export class WorkerPool {
     return slot;
   }
 
-  /** Runs one finisher on a worker; refused with TimeLimitError at `deadlineAt` (performance.now() ms). */
-  run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<ReleaseRow[]> {
-    return this.job(name, recipe, data, deadlineAt, limitMs) as Promise<ReleaseRow[]>;
+  /** Most workers one owner's jobs may hold at once: all but one, or the one. */
+  get share(): number {
+    return Math.max(1, this.slots.length - 1);
+  }
+
+  /**
+   * Runs one finisher on a worker for `owner` (the analyst; jobs of one owner share `share`
+   * workers); refused with TimeLimitError at `deadlineAt` (performance.now() ms).
+   */
+  run(name: FinisherName, recipe: unknown, data: unknown, deadlineAt: number, limitMs: number, owner = ""): Promise<ReleaseRow[]> {
+    return this.job(name, recipe, data, deadlineAt, limitMs, owner) as Promise<ReleaseRow[]>;
   }
 
   /** A preview's expected error of a ratio (ratio-preview.ts), on a worker, under the same kind of deadline. */
-  async ratioError(job: RatioJob, deadlineAt: number, limitMs: number): Promise<RatioError> {
-    return (await this.job("ratio", job, null, deadlineAt, limitMs)) as unknown as RatioError;
+  async ratioError(job: RatioJob, deadlineAt: number, limitMs: number, owner = ""): Promise<RatioError> {
+    return (await this.job("ratio", job, null, deadlineAt, limitMs, owner)) as unknown as RatioError;
   }
 
-  private job(name: JobMessage["name"], recipe: unknown, data: unknown, deadlineAt: number, limitMs: number): Promise<unknown> {
+  private job(name: JobMessage["name"], recipe: unknown, data: unknown, deadlineAt: number, limitMs: number, owner: string): Promise<unknown> {
     if (this.closed) return Promise.reject(new UnreachableError("the curator is shutting down; nothing was spent"));
     return new Promise<unknown>((resolve, reject) => {
       const msg: JobMessage = { id: this.nextId++, name, recipe: toWire(recipe), data: toWire(data) };
-      const job: Job = { msg, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
+      const job: Job = { msg, owner, resolve, reject, slot: null, timer: setTimeout(() => this.expire(job, limitMs), Math.max(0, deadlineAt - performance.now())) };
       (name === "ratio" ? this.later : this.queue).push(job);
       this.dispatch();
     });
   }
 
-  /** A Cpu whose finishers run on this pool under one deadline. */
-  cpu(deadlineAt: number, limitMs: number): Cpu {
-    return { finish: (name, recipe, data) => this.run(name, recipe, data, deadlineAt, limitMs) };
+  /** A Cpu whose finishers run on this pool under one deadline, for `owner`. */
+  cpu(deadlineAt: number, limitMs: number, owner = ""): Cpu {
+    return { finish: (name, recipe, data) => this.run(name, recipe, data, deadlineAt, limitMs, owner) };
+  }
+
+  /** Owners of the running jobs, one entry per busy worker (for tests). */
+  busy(): string[] {
+    return this.slots.flatMap((s) => (s.job === null ? [] : [s.job.owner]));
+  }
+
+  /** Takes the first job of `queue` whose owner is below its share, or null. */
+  private eligible(queue: Job[]): Job | null {
+    const share = this.share;
+    const i = queue.findIndex((j) => (this.running.get(j.owner) ?? 0) < share);
+    return i < 0 ? null : queue.splice(i, 1)[0];
   }
 
   private dispatch(): void {
     for (const slot of this.slots) {
       if (this.queue.length === 0 && this.later.length === 0) return;
       if (slot.job !== null) continue;
-      const job = (this.queue.length > 0 ? this.queue : this.later).shift()!;
+      const job = this.eligible(this.queue) ?? this.eligible(this.later);
+      if (job === null) return; // every waiting job's owner holds its share; a finishing job dispatches again
       job.slot = slot;
       slot.job = job;
+      this.running.set(job.owner, (this.running.get(job.owner) ?? 0) + 1);
       slot.worker.ref(); // a running job keeps the process alive until it settles
       slot.worker.postMessage(job.msg);
     }
@@ -109,7 +138,12 @@ export class WorkerPool {
     const job = slot.job;
     slot.job = null;
     slot.worker.unref();
-    if (job !== null) clearTimeout(job.timer);
+    if (job !== null) {
+      clearTimeout(job.timer);
+      const left = (this.running.get(job.owner) ?? 1) - 1;
+      if (left === 0) this.running.delete(job.owner);
+      else this.running.set(job.owner, left);
+    }
     return job;
   }
 
