@@ -78,7 +78,6 @@ const INTERNAL = "internal error in the curator; the details are in the curator'
  * bound and the turns are all that limits them.
  */
 export const MAX_QUEUED_PREVIEWS = 32;
-
 /**
  * The same for asks waiting to be planned (`askTurns`): larger, since a notebook may send many
  * asks at once (they spend, so the cap limits them too), and still a bound on what one analyst
@@ -292,8 +291,9 @@ export class CuratorService {
       for (;;) {
         const t = this.pureTally.get(key);
         const latest = this.ledger.spent(analyst, d.population).releases;
-        const from = t === undefined || t.seq > latest ? 0 : t.seq;
-        if ((t !== undefined && t.pure === null && t.seq <= latest) || from >= latest) return;
+        // Done when the tally is past a release that was not pure (it stays null) or is up to date.
+        if (t?.pure === null || (t?.seq ?? 0) >= latest) return;
+        const from = t?.seq ?? 0;
         this.pureUpTo(analyst, d, Math.min(latest, from + TALLY_CHUNK));
         await new Promise<void>((resolve) => setImmediate(resolve));
       }
