@@ -15,6 +15,7 @@ import { loadPolicy, parsePolicy } from "../../runtime/curator/policy.js";
 import { PolicyError, UnreachableError } from "../../runtime/errors.js";
 import { policyWith, tempPolicy } from "../fixtures/curator-helpers.js";
 import { runPrepare } from "../../cli/commands/prepare.js";
+import { toBigInt } from "../../runtime/curator/engines/shapes.js";
 
 const COLUMNS = `    accounting: { mode: pure, cap: { epsilon: "10" } }
     analysts: [ada]
@@ -296,6 +297,59 @@ describe("in place with a unit: the split path and hush prepare", () => {
 function valueTerms(column: string) {
   return (["present", "sum", "sumSquares", "atLower", "atUpper"] as const).map((kind) => ({ kind, column }));
 }
+
+describe("in place, a count of every row is read from the files' metadata", () => {
+  it("without a unit: the files' own row count, rows with unfit values included; a filter or grouping scans", async () => {
+    const file = tempPolicy(policyWith(`    source: { files: "c.parquet" }\n${COLUMNS}`));
+    const pq = join(dirname(file), "c.parquet");
+    // 30 rows: some ages beyond the range or missing, some towns outside the declared list.
+    await duck([
+      `COPY (SELECT CASE WHEN range % 7 = 0 THEN NULL ELSE range * 9 - 40 END AS age, CASE WHEN range % 4 = 0 THEN 'z' ELSE 'a' END AS town FROM range(30)) TO '${pq}' (FORMAT parquet)`,
+    ]);
+    const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, cacheDir: null });
+    try {
+      const { cellsStatement } = await import("../../runtime/curator/engines/shapes.js");
+      const { DUCKDB_DIALECT } = await import("../../runtime/curator/sql.js");
+      const count = [{ kind: "count" as const }];
+      const st = cellsStatement(e.relation("d"), undefined, [], count, DUCKDB_DIALECT);
+      expect(st.sql).toMatch(/^SELECT count\(\*\) FROM read_parquet\(/);
+      expect(await e.cells({ dataset: "d", keys: [], terms: count })).toEqual([[30n]]);
+      // The view the other statements read holds the same rows.
+      expect(toBigInt((await e.query(`SELECT count(*) FROM ${e.relation("d").from}`, []))[0][0])).toBe(30n);
+      // A filter, a grouping or a column read goes through the view.
+      const where = { column: "town", op: "eq", value: "a" } as const;
+      expect(cellsStatement(e.relation("d"), where, [], count, DUCKDB_DIALECT).sql).not.toContain("read_parquet");
+      expect(cellsStatement(e.relation("d"), undefined, [{ column: "town" }], count, DUCKDB_DIALECT).sql).not.toContain("read_parquet");
+      expect(cellsStatement(e.relation("d"), undefined, [], [{ kind: "present", column: "age" }], DUCKDB_DIALECT).sql).not.toContain("read_parquet");
+      expect(await e.cells({ dataset: "d", where, keys: [], terms: count })).toEqual([[22n]]);
+    } finally {
+      await e.close();
+    }
+  });
+
+  it("with a unit: only when every row has a unit id (rows without one are left out of the count)", async () => {
+    for (const missing of [false, true]) {
+      const file = tempPolicy(policyWith(`    source: { files: "u.parquet" }\n    unit: { column: pid, maxRows: 2 }\n${COLUMNS}`));
+      const pq = join(dirname(file), "u.parquet");
+      // 60 rows of 12 units (5 rows each, so every unit is big); with missing set, 6 rows have no unit id.
+      await duck([
+        `COPY (SELECT range AS age, 'a' AS town, CASE WHEN ${missing} AND range % 10 = 3 THEN NULL ELSE 'u' || (range % 12) END AS pid FROM range(60)) TO '${pq}' (FORMAT parquet)`,
+      ]);
+      const e = await DuckDBEngine.open(loadPolicy(file), { quiet: true, bits: new Bits(seededBytes("rows")), cacheDir: null });
+      try {
+        const got = await e.cells({ dataset: "d", keys: [], terms: [{ kind: "count" }] });
+        const hand = await e.query(
+          `SELECT sum(least(n, 2)) FROM (SELECT pid, count(*) AS n FROM read_parquet('${pq}') WHERE pid IS NOT NULL GROUP BY pid)`,
+          [],
+        );
+        expect(got, `missing ${missing}`).toEqual([[toBigInt(hand[0][0])]]);
+        expect(got[0][0]).toBe(24n);
+      } finally {
+        await e.close();
+      }
+    }
+  });
+});
 
 describe("in place computes the load's stored values", () => {
   it("row by row on awkward numbers: halves, bounds, huge, non-finite, negative zero, non-whole integers", async () => {

@@ -36,6 +36,13 @@ export interface Relation {
   schema: DatasetSchema;
   /** FROM item: a quoted table or view name. */
   from: string;
+  /**
+   * A FROM item over exactly the rows of `from`, for a statement that reads no column of them (a
+   * count of every row, without a filter, grouping or bounding). Parquet in place gives the files
+   * themselves, whose row count DuckDB reads from their metadata; a view over them with its
+   * per-row steps is scanned instead.
+   */
+  rows?: string;
   /** null when each row is its own unit. */
   bounding: Bounding | null;
 }
@@ -57,7 +64,7 @@ export function keptRowsFrom(r: Relation, where: string | null, cols: readonly s
   let kp: string | null = null;
   const k = () => (kp ??= ps.add({ type: "integer", value: r.schema.dataset.unit.maxRows }));
   if (where === null) {
-    if (b === null) return `${r.from} AS __kept`;
+    if (b === null) return `${uniq.length === 0 && r.rows !== undefined ? r.rows : r.from} AS __kept`;
     return `(SELECT ${list} FROM ${r.from} WHERE ${b.kept(k)}) AS __kept`;
   }
   // A NULL filter result (a missing value) does not match, as in WHERE.

@@ -37,7 +37,7 @@ interface Opened {
 /** The three relations of a split path, with their signs: all rows, minus big rows unbounded, plus big rows bounded. */
 function splitParts(r: Relation, s: InPlaceSplit): { relation: Relation; sign: bigint }[] {
   return [
-    { relation: { schema: r.schema, from: s.all, bounding: null }, sign: 1n },
+    { relation: { schema: r.schema, from: s.all, ...(s.allRows === undefined ? {} : { rows: s.allRows }), bounding: null }, sign: 1n },
     { relation: { schema: r.schema, from: s.big, bounding: null }, sign: -1n },
     { relation: { schema: r.schema, from: s.big, bounding: BIG_ROWS_BOUNDING }, sign: 1n },
   ];

@@ -208,6 +208,8 @@ export type StartCache = "read" | "written" | "unwritable" | "none";
  */
 export interface InPlaceSplit {
   all: string;
+  /** The files themselves, when every row of them has a unit id (Relation.rows of `all`). */
+  allRows?: string;
   big: string;
 }
 
@@ -286,7 +288,6 @@ export async function openInPlace(
   // Level 1: typed values x<i> (unfit text is NULL); level 2: the stored form (unfit values missing).
   const staged = d.columns.map((c, i) => inPlaceTyped(c, i, `src.${quoteIdent(srcName(c.from))}`, typeOf(c.from)));
   const finals = d.columns.flatMap((c, i) => inPlaceFinal(c, i, typeOf(c.from)));
-  const srcView = quoteIdent(`src${index}`);
   const view = quoteIdent(`v${index}`);
   const big = quoteIdent(`big${index}`);
   const k = d.unit.maxRows;
@@ -307,11 +308,6 @@ export async function openInPlace(
     const all = quoteIdent(`all${index}`);
     // Columns of the stored form: c<i> and, for numbers, the clamping flag k<i>.
     const cols = d.columns.flatMap((c, i) => (c.type === "integer" || c.type === "number" ? [`c${i}`, `k${i}`] : [`c${i}`]));
-    await conn.run(
-      `CREATE VIEW ${srcView} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
-        `(SELECT ${staged.join(", ")}, ${u} AS __u, hash(src.__hush_file) AS __f, src.file_row_number AS __r ` +
-        `FROM ${source} AS src WHERE ${u} IS NOT NULL)`,
-    );
     const plainSource = `read_parquet(${list}, union_by_name = true)`;
     const cached = cacheDir === null ? null : await readCache(conn, cacheDir, d, start);
     let bigRows: string;
@@ -327,13 +323,22 @@ export async function openInPlace(
     } else {
       startCache = cacheDir === null ? "none" : "unwritable";
       // The start pass: every row of a unit with more than k rows, its values in stored form and
-      // its position (one read of the unit column to find the big units, one read of their rows).
+      // its position. One read of the unit column finds the big units and, as the NULL group, the
+      // rows without a unit id; one read of the files copies the big units' rows.
+      const ids = quoteIdent(`bigids${index}`);
       try {
         await conn.run(
-          `CREATE TABLE ${raw} AS SELECT ${cols.join(", ")}, __u, __f, __r FROM ${srcView} ` +
-            `WHERE __u IN (SELECT __u FROM ${srcView} GROUP BY __u HAVING count(*) > ${k})`,
+          `CREATE TEMP TABLE ${ids} AS SELECT ${u} AS __u, count(*) AS __n FROM ${plainSource} AS src ` +
+            `GROUP BY 1 HAVING count(*) > ${k} OR ${u} IS NULL`,
         );
-        missing = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${plainSource} AS src WHERE ${u} IS NULL`)).getRows()[0][0]);
+        missing = Number((await conn.runAndReadAll(`SELECT COALESCE(sum(__n), 0) FROM ${ids} WHERE __u IS NULL`)).getRows()[0][0]);
+        // The big units' rows with their positions, filtered before any value is converted.
+        await conn.run(
+          `CREATE TABLE ${raw} AS SELECT ${finals.join(", ")}, __u, __f, __r FROM ` +
+            `(SELECT ${staged.join(", ")}, ${u} AS __u, hash(src.__hush_file) AS __f, src.file_row_number AS __r ` +
+            `FROM ${source} AS src SEMI JOIN (SELECT __u FROM ${ids} WHERE __u IS NOT NULL) AS b ON ${u} = b.__u)`,
+        );
+        await conn.run(`DROP TABLE ${ids}`);
       } catch (e) {
         throw new PolicyError(`${where}.source.files: cannot be read as parquet (${engineMessage(e)})`);
       }
@@ -369,7 +374,7 @@ export async function openInPlace(
         }
       }
     }
-    // Every row with a unit, without positions, for the split path: the same rows as srcView.
+    // Every row with a unit, without positions, for the split path.
     // When the start pass found no row without a unit id, the test for one is left out (it would
     // read the unit column for nothing; a count is then read from the files' metadata). The files
     // are the ones counted at start (their stamps are checked at every statement).
@@ -386,7 +391,7 @@ export async function openInPlace(
     const units = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${bigUnits}`)).getRows()[0][0]);
     // The steward sees how large the copy beside the ledger is (a count of rows, never a value).
     const copied = Number((await conn.runAndReadAll(`SELECT count(*) FROM ${bigRows}`)).getRows()[0][0]);
-    split = { all, big: bigRows };
+    split = missing === 0 ? { all, allRows: plainSource, big: bigRows } : { all, big: bigRows };
     report = { rows: null, rejected: 0, reasons: {} };
     access = `${access}; ${units} unit${units === 1 ? "" : "s"} above maxRows (${copied} row${copied === 1 ? "" : "s"} of ${units === 1 ? "it" : "them"} ${bigRows === rows ? "held in memory" : "copied beside the ledger"})`;
   }
@@ -408,5 +413,8 @@ export async function openInPlace(
       throw new UnreachableError(`the data files of dataset ${d.name} changed after the curator started; nothing was spent (the steward must restart the curator)`);
     }
   };
-  return { relation: { schema, from: view, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split, startCache };
+  // Without a unit every row of the files is a row of the view: a count of all of them reads the
+  // files' metadata (Relation.rows). With a unit the split path's `all` part does the same.
+  const rows = unit === null && o.format === "parquet" ? { rows: `read_parquet(${list}, union_by_name = true)` } : {};
+  return { relation: { schema, from: view, ...rows, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split, startCache };
 }
