@@ -5,7 +5,7 @@
  */
 import type { Answer } from "../../runtime/api/answer.js";
 import type { BudgetReport, LedgerView } from "../../runtime/api/budget.js";
-import type { CostQuote } from "../../runtime/api/quote.js";
+import { type CostQuote, type ExpectedError, listedParts, restText } from "../../runtime/api/quote.js";
 import type { QueryRecord } from "../../runtime/api/session-spend.js";
 import { columnText, type SealedTable } from "../../runtime/api/table.js";
 import { costStatement, epsilonAtDelta, foldedNotes, methodLine, percent, planText, plural, q, rowLabel, shownParts, spendAmounts, spendText, uniformStat, unitSymbol } from "../../runtime/api/text.js";
@@ -93,7 +93,15 @@ export function quoteHtml(c: CostQuote): string {
       ? badge("fits under the cap", "#2e7d32")
       : badge("does not fit under the cap", "#c62828");
   const errs = c.expectedErrors;
-  const rows = errs.map((e) => [esc(e.stat), esc(e.column ?? ""), `± ${esc(formatHalfWidth(e.exact))}`]);
+  const row = (e: ExpectedError) => [esc(e.stat), esc(e.column ?? ""), `± ${esc(formatHalfWidth(e.exact))}`];
+  const { shown, rest } = listedParts(errs);
+  const rows = shown.map(row);
+  const head = ["statistic", "column", `expected error (${esc(percent(p.confidence))})`];
+  // The parts past the first few, folded: a describe, correlation or regression has tens of them.
+  const more =
+    rest === null
+      ? ""
+      : `<details class="hush-parts" style="margin-top:2px"><summary style="${MUTED}">${esc(restText(rest))}</summary>${table(head, errs.slice(shown.length).map(row), new Set([2]))}</details>`;
   const s = spendAmounts(p.spend);
   return box(
     `<div><b>preview</b> ${esc(c.what)}${status}</div>` +
@@ -105,7 +113,7 @@ export function quoteHtml(c: CostQuote): string {
             `<div>expected error of the ${esc(r.stat)} itself <b>± ${esc(q(r.typical))}</b> (${esc(percent(p.confidence))}) for ${esc(r.typicalAt)}; up to ± ${esc(q(r.widest))} elsewhere in the range (${r.assumedFrom === "analyst" ? "your assumed count" : "the steward's public size hint"})</div>`,
         )
         .join("") +
-      (rows.length ? table(["statistic", "column", `expected error (${esc(percent(p.confidence))})`], rows, new Set([2])) : "") +
+      (rows.length ? table(head, rows, new Set([2])) + more : "") +
       budgetBar({ total: s.total, recent: "0", cap: s.cap, symbol: s.symbol, recentLabel: "this session", beforeLabel: "spent" }) +
       (p.notes.length ? `<details class="hush-notes" style="margin-top:2px;font-size:12px"><summary style="${MUTED}">${esc(plural(p.notes.length, "note"))}</summary>${notesList(p.notes)}</details>` : ""),
     "preview",

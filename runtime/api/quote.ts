@@ -16,6 +16,31 @@ export interface ExpectedError {
   exact: string;
 }
 
+/**
+ * A preview lists at most this many of its parts' expected errors when it has more than
+ * PARTS_LISTED_UP_TO of them (a describe, a correlation or a regression has tens); one line then
+ * gives how many more there are and their range, and `expectedErrors` holds every one.
+ */
+export const PARTS_SHOWN = 6;
+export const PARTS_LISTED_UP_TO = 8;
+
+/** The parts a preview shows in full, and the range of the rest (null when every part is shown). */
+export function listedParts(errs: readonly ExpectedError[]): { shown: ExpectedError[]; rest: { count: number; least: ExpectedError; most: ExpectedError } | null } {
+  if (errs.length <= PARTS_LISTED_UP_TO) return { shown: [...errs], rest: null };
+  const rest = errs.slice(PARTS_SHOWN);
+  // Ordered by the binary64 value: these are the curator's public widths, shown only.
+  const least = rest.reduce((a, e) => (e.halfWidth < a.halfWidth ? e : a));
+  const most = rest.reduce((a, e) => (e.halfWidth > a.halfWidth ? e : a));
+  return { shown: errs.slice(0, PARTS_SHOWN), rest: { count: rest.length, least, most } };
+}
+
+/** "14 more parts: ± 680 to ± 2,100,000,000" (one value when they are all the same). */
+export function restText(rest: { count: number; least: ExpectedError; most: ExpectedError }): string {
+  const lo = formatHalfWidth(rest.least.exact);
+  const hi = formatHalfWidth(rest.most.exact);
+  return `${rest.count} more parts: ± ${lo}${hi === lo ? "" : ` to ± ${hi}`}`;
+}
+
 /** Cost and expected error of a query that has not been run. */
 export class CostQuote {
   /** The curator's preview (frozen). */
@@ -86,14 +111,18 @@ export class CostQuote {
       : `preview ${this.what}: would cost ${unitSymbol(p.unit)}=${q(p.cost)} · ${p.affordable ? "fits under the cap" : "does NOT fit under the cap"}`;
     const errs = this.expectedErrors;
     const same = errs.every((e) => e.stat === errs[0]?.stat && e.column === errs[0]?.column && e.exact === errs[0]?.exact);
+    const { shown, rest } = listedParts(errs);
     const lines =
       errs.length > 0 && same
         ? [`  expected error ± ${formatHalfWidth(errs[0].exact)} (${percent(p.confidence)})${errs.length > 1 ? ` for each of ${errs.length} numbers` : ""}`]
-        : aligned(
-            // The curator's labels for the parts of a mean already name the column.
-            errs.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${formatHalfWidth(e.exact)} (${percent(p.confidence)})`]),
-            "  ",
-          );
+        : [
+            ...aligned(
+              // The curator's labels for the parts of a mean already name the column.
+              shown.map((e) => [`${e.stat}${e.column && !e.stat.includes(e.column) ? ` ${e.column}` : ""}`, `± ${formatHalfWidth(e.exact)} (${percent(p.confidence)})`]),
+              "  ",
+            ),
+            ...(rest === null ? [] : [`  … ${restText(rest)} (${percent(p.confidence)}; every part: .expectedErrors)`]),
+          ];
     const own = this.estimateErrors.map(
       (r) =>
         `  expected error of the ${r.stat} itself ± ${q(r.typical)} (${percent(p.confidence)}) for ${r.typicalAt}; up to ± ${q(r.widest)} elsewhere in the range (${r.assumedFrom === "analyst" ? "your assumed count" : "the steward's public size hint"})`,
