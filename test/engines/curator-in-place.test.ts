@@ -66,6 +66,8 @@ afterAll(async () => {
 
 describe("a real curator over Parquet in place", () => {
   it("answers, signs verifiable receipts, and agrees with the same files in memory on everything but the noise", async () => {
+    // The steward is told before the first start's one slow step, and what it found after it.
+    expect(proc.stderr).toMatch(/dataset inplace: first start over these files: reading the unit column of every file to find the units above maxRows \(kept beside the ledger for later starts; `hush prepare` does this ahead of a start\)\n/);
     expect(proc.stderr).toMatch(/dataset inplace: Parquet in place, 3 files; \d+ units? above maxRows \(\d+ rows? of (it|them) copied beside the ledger\), 3000 rows in the files/);
     const key = loadPublicKey(fs.readFileSync(`${ws.keyFile}.pub`, "utf8"));
     const plans = (dataset: string): QueryPlan[] => [

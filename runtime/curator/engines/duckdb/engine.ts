@@ -88,7 +88,7 @@ export class DuckDBEngine implements DataEngine {
           if (same !== undefined) {
             opened = { ...same, relation: { ...same.relation, schema: schemaOf(d) } };
           } else {
-            opened = await engine.openOne(conn, d, i, where, bits, cacheDir);
+            opened = await engine.openOne(conn, d, i, where, bits, cacheDir, opts.quiet === true ? null : (m) => process.stderr.write(`hush curator: dataset ${d.name}: ${m}\n`));
           }
           engine.datasets.set(d.name, opened);
           if (!opts.quiet) {
@@ -118,6 +118,7 @@ export class DuckDBEngine implements DataEngine {
     where: string,
     bits: Bits,
     cacheDir: string | null,
+    say: ((message: string) => void) | null,
   ): Promise<Opened> {
     const schema = schemaOf(d);
     const o = d.origin;
@@ -128,7 +129,7 @@ export class DuckDBEngine implements DataEngine {
         return { relation: { schema, from: table, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "in memory" };
       }
       case "files":
-        return openInPlace(conn, d, o, i, where, bits, cacheDir);
+        return openInPlace(conn, d, o, i, where, bits, cacheDir, say);
       case "duckdb": {
         const { from, report } = await attachPrepared(conn, d, o, i, where);
         return { relation: { schema, from, bounding: schema.hasUnit ? LOADED_BOUNDING : null }, report, access: "prepared DuckDB file, read from disk" };
