@@ -421,6 +421,6 @@ export async function openInPlace(
   };
   // Without a unit every row of the files is a row of the view: a count of all of them reads the
   // files' metadata (Relation.rows). With a unit the split path's `all` part does the same.
-  const rows = unit === null && o.format === "parquet" ? { rows: `read_parquet(${list}, union_by_name = true)` } : {};
-  return { relation: { schema, from: view, ...rows, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split, startCache };
+  const countFrom = unit === null && o.format === "parquet" ? { rows: `read_parquet(${list}, union_by_name = true)` } : {};
+  return { relation: { schema, from: view, ...countFrom, bounding: unit === null ? null : IN_PLACE_BOUNDING }, report, access, check, split, startCache };
 }
